@@ -1,0 +1,234 @@
+"""Regular latitude-longitude grids: construction, cell bounds, spherical cell areas,
+coordinate normalisation and great-circle distances.
+
+Conventions (docs/methods.md): ``lat`` ascending in degrees_north, ``lon`` ascending in
+[-180, 180) degrees_east, coordinates at cell centres. Areas are on the authalic sphere.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+from timeslice.errors import DataError
+
+__all__ = [
+    "AUTHALIC_RADIUS_KM",
+    "cell_area",
+    "cell_bounds",
+    "find_lonlat",
+    "haversine_km",
+    "make_grid",
+    "normalise_lonlat",
+    "resolution",
+]
+
+#: Authalic (equal-area) radius of the GRS80/WGS84 ellipsoid, 6 371 007.181 m
+#: (Moritz 2000, Geodetic Reference System 1980, J. Geodesy 74:128), rounded to 0.1 m.
+AUTHALIC_RADIUS_KM = 6371.0072
+
+_LAT_NAMES = ("lat", "latitude", "y", "nav_lat", "rlat")
+_LON_NAMES = ("lon", "longitude", "x", "nav_lon", "rlon")
+
+
+def make_grid(
+    *,
+    lon_min: float,
+    lon_max: float,
+    lat_min: float,
+    lat_max: float,
+    resolution: float,
+) -> xr.Dataset:
+    """Return an empty Dataset holding a regular cell-centred lat-lon grid.
+
+    Parameters
+    ----------
+    lon_min, lon_max, lat_min, lat_max : float
+        Outer edges of the grid in degrees.
+    resolution : float
+        Cell size in degrees (same in both directions).
+
+    Returns
+    -------
+    xarray.Dataset
+        Coordinates ``lat`` (ascending) and ``lon`` (ascending, in [-180, 180)).
+    """
+    if resolution <= 0:
+        raise DataError(f"grid `resolution` must be > 0 degrees, got {resolution}")
+    if not (lon_max > lon_min and lat_max > lat_min):
+        raise DataError(
+            f"grid extent is empty: lon {lon_min}..{lon_max}, lat {lat_min}..{lat_max}; "
+            "give min < max"
+        )
+    nlon = int(round((lon_max - lon_min) / resolution))
+    nlat = int(round((lat_max - lat_min) / resolution))
+    lon = lon_min + resolution * (np.arange(nlon) + 0.5)
+    lat = lat_min + resolution * (np.arange(nlat) + 0.5)
+    lon = ((lon + 180.0) % 360.0) - 180.0
+    ds = xr.Dataset(coords={"lat": ("lat", lat), "lon": ("lon", lon)})
+    ds = ds.sortby("lon")
+    _set_coord_attrs(ds)
+    return ds
+
+
+def _set_coord_attrs(ds: xr.Dataset | xr.DataArray) -> None:
+    ds["lat"].attrs.update(
+        standard_name="latitude", long_name="latitude", units="degrees_north", axis="Y"
+    )
+    ds["lon"].attrs.update(
+        standard_name="longitude", long_name="longitude", units="degrees_east", axis="X"
+    )
+
+
+def resolution(coord: xr.DataArray | np.ndarray) -> float:
+    """Spacing of a regular 1-D coordinate in degrees (absolute value)."""
+    values = np.asarray(coord, dtype=float)
+    if values.size < 2:
+        raise DataError("a coordinate with fewer than 2 points has no resolution")
+    steps = np.diff(values)
+    return float(np.abs(np.median(steps)))
+
+
+def cell_bounds(coord: xr.DataArray | np.ndarray, *, kind: str = "lat") -> np.ndarray:
+    """Cell edges of a cell-centred 1-D coordinate, shape ``(n, 2)``.
+
+    Edges are midpoints between centres; the outer edges extend half a step.
+    Latitude edges are clipped to [-90, 90].
+    """
+    c = np.asarray(coord, dtype=float)
+    if c.size == 1:
+        half = 0.5
+        edges = np.array([c[0] - half, c[0] + half])
+    else:
+        mid = 0.5 * (c[1:] + c[:-1])
+        edges = np.concatenate(
+            [[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]]
+        )
+    if kind == "lat":
+        edges = np.clip(edges, -90.0, 90.0)
+    return np.stack([edges[:-1], edges[1:]], axis=1)
+
+
+def cell_area(obj: xr.Dataset | xr.DataArray) -> xr.DataArray:
+    """Area of every grid cell on the authalic sphere.
+
+    Parameters
+    ----------
+    obj : xarray.Dataset or xarray.DataArray
+        Anything with 1-D ``lat`` and ``lon`` coordinates in degrees.
+
+    Returns
+    -------
+    xarray.DataArray, [km2]
+        ``cell_area(lat, lon)``.
+
+    Notes
+    -----
+    .. math:: A = R^2 \\, \\Delta\\lambda \\, (\\sin\\varphi_2 - \\sin\\varphi_1)
+
+    with :math:`R` = 6371.0072 km and angles in radians.
+
+    References
+    ----------
+    Snyder, J. P. (1987). Map Projections: A Working Manual. USGS Prof. Paper 1395 (p. 16,
+    authalic radius).
+    """
+    lat_b = np.deg2rad(cell_bounds(obj["lat"].values, kind="lat"))
+    lon_b = np.deg2rad(cell_bounds(obj["lon"].values, kind="lon"))
+    band = np.sin(lat_b[:, 1]) - np.sin(lat_b[:, 0])
+    dlon = np.abs(lon_b[:, 1] - lon_b[:, 0])
+    area = AUTHALIC_RADIUS_KM**2 * np.outer(np.abs(band), dlon)
+    out = xr.DataArray(
+        area,
+        dims=("lat", "lon"),
+        coords={"lat": obj["lat"], "lon": obj["lon"]},
+        name="cell_area",
+        attrs={
+            "units": "km2",
+            "standard_name": "cell_area",
+            "long_name": "grid cell area",
+            "description": "area on the authalic sphere, R = 6371.0072 km",
+        },
+    )
+    return out
+
+
+def find_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input") -> tuple[str, str]:
+    """Names of the longitude and latitude coordinates.
+
+    CF attributes first (``standard_name``, ``units``, ``axis``), common names second.
+    Raises :class:`DataError` naming `source` when none or several candidates are found.
+    """
+    lon_c, lat_c = [], []
+    for name in list(ds.coords) + list(getattr(ds, "data_vars", {})):
+        var = ds[name]
+        sn = str(var.attrs.get("standard_name", "")).lower()
+        un = str(var.attrs.get("units", "")).lower()
+        if sn == "longitude" or un in {"degrees_east", "degree_east", "degree_e", "degrees_e"}:
+            lon_c.append(name)
+        elif sn == "latitude" or un in {"degrees_north", "degree_north", "degree_n", "degrees_n"}:
+            lat_c.append(name)
+    if not lon_c:
+        lon_c = [n for n in _LON_NAMES if n in ds.coords or n in ds.dims]
+    if not lat_c:
+        lat_c = [n for n in _LAT_NAMES if n in ds.coords or n in ds.dims]
+    lon_c = list(dict.fromkeys(lon_c))
+    lat_c = list(dict.fromkeys(lat_c))
+    if len(lon_c) != 1 or len(lat_c) != 1:
+        raise DataError(
+            f"{source}: cannot tell the longitude/latitude coordinates "
+            f"(candidates lon={lon_c or 'none'}, lat={lat_c or 'none'}); "
+            "set CF standard_name 'longitude'/'latitude' or map them in the config"
+        )
+    lon, lat = lon_c[0], lat_c[0]
+    if ds[lon].ndim != 1 or ds[lat].ndim != 1:
+        raise DataError(
+            f"{source}: coordinates {lon!r} and {lat!r} are {ds[lon].ndim}-D; only regular "
+            "1-D lat-lon grids are supported (curvilinear or rotated-pole grids must be "
+            "remapped first)"
+        )
+    return lon, lat
+
+
+def normalise_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input"):
+    """Rename coordinates to ``lon``/``lat``, wrap longitudes to [-180, 180), sort both
+    ascending. Attributes of the data are kept.
+    """
+    lon, lat = find_lonlat(ds, source=source)
+    if lon != "lon" or lat != "lat":
+        ds = ds.rename({lon: "lon", lat: "lat"})
+    for name in ("lon", "lat"):
+        if ds[name].dims != (name,):
+            ds = ds.swap_dims({ds[name].dims[0]: name})
+    lonv = np.asarray(ds["lon"].values, dtype=float)
+    latv = np.asarray(ds["lat"].values, dtype=float)
+    for name, v in (("lon", lonv), ("lat", latv)):
+        d = np.diff(v)
+        if v.size > 1 and not (np.all(d > 0) or np.all(d < 0)):
+            raise DataError(
+                f"{source}: coordinate {name!r} is not monotonic; sort or repair the file"
+            )
+    wrapped = ((lonv + 180.0) % 360.0) - 180.0
+    attrs = {k: ds[k].attrs for k in ("lon", "lat")}
+    ds = ds.assign_coords(lon=("lon", wrapped), lat=("lat", latv))
+    ds = ds.sortby("lon").sortby("lat")
+    if np.unique(ds["lon"].values).size != ds.sizes["lon"]:
+        raise DataError(f"{source}: longitudes overlap after wrapping to [-180, 180)")
+    for k in ("lon", "lat"):
+        ds[k].attrs.update(attrs[k])
+    _set_coord_attrs(ds)
+    return ds
+
+
+def haversine_km(lon1, lat1, lon2, lat2) -> np.ndarray:
+    """Great-circle distance in km on the authalic sphere (degrees in, broadcasting).
+
+    References
+    ----------
+    Sinnott, R. W. (1984). Virtues of the haversine. Sky and Telescope 68:159.
+    """
+    lon1, lat1, lon2, lat2 = (np.deg2rad(np.asarray(a, dtype=float)) for a in (lon1, lat1, lon2, lat2))
+    dlat = lat2 - lat1
+    dlon = lon2 - lon1
+    a = np.sin(dlat / 2) ** 2 + np.cos(lat1) * np.cos(lat2) * np.sin(dlon / 2) ** 2
+    return 2.0 * AUTHALIC_RADIUS_KM * np.arcsin(np.sqrt(np.clip(a, 0.0, 1.0)))

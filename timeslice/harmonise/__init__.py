@@ -1,0 +1,1 @@
+"""timeslice.harmonise stage."""

@@ -1,0 +1,1 @@
+"""timeslice.report stage."""

@@ -1,0 +1,1 @@
+"""timeslice.transfer stage."""
