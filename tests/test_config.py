@@ -1,0 +1,87 @@
+"""Config parsing: every error names the file and key; misspellings get the closest key."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from timeslice.config import load_config, parse_config
+from timeslice.demo_config import render_demo_config
+from timeslice.errors import ConfigError, InputFileError
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+def _write(tmp_path, text):
+    p = tmp_path / "run.toml"
+    p.write_text(text)
+    return p
+
+
+def test_demo_config_in_repo_matches_template():
+    # configs/demo.toml is the packaged template with data paths under ../demo_data
+    assert (REPO / "configs" / "demo.toml").read_text() == render_demo_config("../demo_data")
+
+
+def test_demo_config_expands_models_times_slices():
+    cfg = load_config(REPO / "configs" / "demo.toml")
+    specs = cfg.slice_specs()
+    assert len(specs) == 3 * 6
+    lgm = [s for s in specs if s.label == "alder_21ka"][0]
+    # a slice a years before present has year = 1950 - a (DESIGN.md)
+    assert lgm.year == 1950 - 21000
+    assert lgm.sea_level == -120.0
+    assert lgm.file == (REPO / "demo_data" / "models" / "alder" / "21ka.nc").resolve()
+
+
+def test_misspelled_key_suggests_closest(tmp_path):
+    text = render_demo_config(".").replace("buffer_km", "bufer_km")
+    with pytest.raises(ConfigError, match=r"unknown key 'niche.bufer_km'.*did you mean 'buffer_km'"):
+        load_config(_write(tmp_path, text))
+
+
+def test_misspelled_section_suggests_closest(tmp_path):
+    text = render_demo_config(".").replace("[transfer]", "[transfr]")
+    with pytest.raises(ConfigError, match=r"unknown key 'transfr'.*did you mean 'transfer'"):
+        load_config(_write(tmp_path, text))
+
+
+def test_not_toml(tmp_path):
+    with pytest.raises(InputFileError, match="not a valid TOML"):
+        load_config(_write(tmp_path, "this is = = not toml ["))
+
+
+def test_missing_config_file(tmp_path):
+    with pytest.raises(InputFileError, match="not found"):
+        load_config(tmp_path / "nope.toml")
+
+
+def test_bad_value_names_key(tmp_path):
+    text = render_demo_config(".").replace("buffer_km = 250.0", "buffer_km = -5")
+    with pytest.raises(ConfigError, match=r"niche.buffer_km"):
+        load_config(_write(tmp_path, text))
+
+
+def test_missing_required_key():
+    with pytest.raises(ConfigError, match=r"required key 'climate'"):
+        parse_config({"species": {"occurrences": "x.csv"}})
+
+
+def test_slice_needs_one_time(tmp_path):
+    text = render_demo_config(".").replace("age_bp = 6000", "age_bp = 6000\nyear = 1")
+    with pytest.raises(ConfigError, match=r"slices\[1\].*exactly one of"):
+        load_config(_write(tmp_path, text))
+
+
+def test_missing_input_file_names_key(tmp_path):
+    cfg = load_config(_write(tmp_path, render_demo_config(".")))
+    with pytest.raises(InputFileError, match=r"climate.baseline.*not found"):
+        cfg.check_files()
+
+
+def test_unknown_model_in_slice(tmp_path):
+    text = render_demo_config(".").replace('age_bp = 6000', 'age_bp = 6000\nmodels = ["aldr"]')
+    cfg = load_config(_write(tmp_path, text))
+    with pytest.raises(ConfigError, match=r"'aldr'.*did you mean 'alder'"):
+        cfg.slice_specs()

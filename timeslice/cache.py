@@ -1,0 +1,123 @@
+"""Content-keyed stage cache: a rerun skips what is finished, a killed run resumes.
+
+Each stage output is stored under ``DIR/.cache/<stage>/<key>.<ext>``, where the key is a SHA-256
+of the stage's inputs (file hashes, the config values the stage reads and the package version).
+Files are written atomically (temporary name, then rename), so a run killed at any point leaves
+either a complete entry or none.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import pickle
+from pathlib import Path
+from typing import Any
+
+import xarray as xr
+
+from timeslice import __version__
+from timeslice.io import atomic_path
+
+__all__ = ["StageCache", "file_digest", "content_key"]
+
+_DIGESTS: dict[tuple[str, int, int], str] = {}
+
+
+def file_digest(path: str | os.PathLike) -> str:
+    """SHA-256 of a file (or of every file a glob pattern matches), memoised by size and mtime."""
+    p = Path(path)
+    if any(ch in str(p) for ch in "*?["):
+        files = sorted(p.parent.glob(p.name))
+        h = hashlib.sha256()
+        for f in files:
+            h.update(file_digest(f).encode())
+        return h.hexdigest()
+    st = p.stat()
+    memo = (str(p.resolve()), st.st_size, st.st_mtime_ns)
+    if memo in _DIGESTS:
+        return _DIGESTS[memo]
+    h = hashlib.sha256()
+    with open(p, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    _DIGESTS[memo] = h.hexdigest()
+    return _DIGESTS[memo]
+
+
+def content_key(*parts: Any) -> str:
+    """Stable SHA-256 of JSON-serialisable parts plus the package version."""
+    blob = json.dumps([__version__, *parts], sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()[:24]
+
+
+class StageCache:
+    """Cache of finished stage outputs below `root` (``None`` disables caching)."""
+
+    def __init__(self, root: str | os.PathLike | None, *, force: bool = False):
+        self.root = None if root is None else Path(root)
+        self.force = force
+        self.hits: list[str] = []
+        self.misses: list[str] = []
+
+    def _path(self, stage: str, key: str, ext: str) -> Path | None:
+        if self.root is None:
+            return None
+        return self.root / stage / f"{key}.{ext}"
+
+    def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
+        """Return the cached Dataset for (stage, key), or compute, store and return it."""
+        path = self._path(stage, key, "nc")
+        if path is not None and path.exists() and not self.force:
+            self.hits.append(f"{stage}/{key}")
+            with xr.open_dataset(path) as ds:
+                out = ds.load()
+            return _restore_bools(out)
+        self.misses.append(f"{stage}/{key}")
+        ds = compute()
+        if path is not None:
+            ds = ds.compute() if hasattr(ds, "compute") else ds
+            with atomic_path(path) as tmp:
+                _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+        return ds
+
+    def obj(self, stage: str, key: str, compute):
+        """Return the cached picklable object for (stage, key), or compute and store it."""
+        path = self._path(stage, key, "pkl")
+        if path is not None and path.exists() and not self.force:
+            self.hits.append(f"{stage}/{key}")
+            with open(path, "rb") as fh:
+                return pickle.load(fh)
+        self.misses.append(f"{stage}/{key}")
+        value = compute()
+        if path is not None:
+            with atomic_path(path) as tmp:
+                with open(tmp, "wb") as fh:
+                    pickle.dump(value, fh, protocol=pickle.HIGHEST_PROTOCOL)
+        return value
+
+
+def _encode_bools(ds: xr.Dataset) -> xr.Dataset:
+    out = ds.copy()
+    for name, var in ds.variables.items():
+        if var.dtype == bool:
+            out[name] = var.astype("int8")
+            out[name].attrs = dict(var.attrs, _timeslice_bool=1)
+        # NetCDF attrs cannot hold bools or None
+        out[name].attrs = {
+            k: (int(v) if isinstance(v, bool) else v)
+            for k, v in out[name].attrs.items()
+            if v is not None
+        }
+    out.attrs = {k: (int(v) if isinstance(v, bool) else v) for k, v in ds.attrs.items() if v is not None}
+    return out
+
+
+def _restore_bools(ds: xr.Dataset) -> xr.Dataset:
+    for name in list(ds.variables):
+        if ds[name].attrs.get("_timeslice_bool") == 1:
+            attrs = {k: v for k, v in ds[name].attrs.items() if k != "_timeslice_bool"}
+            ds[name] = ds[name].astype(bool)
+            ds[name].attrs = attrs
+    return ds

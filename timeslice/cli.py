@@ -1,0 +1,165 @@
+"""Command line: a thin typer layer over :mod:`timeslice.pipeline` (no science here)."""
+
+from __future__ import annotations
+
+import contextlib
+import functools
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from timeslice import __version__
+from timeslice.errors import TimesliceError
+
+app = typer.Typer(
+    name="timeslice",
+    help=(
+        "Transfer one niche model onto a series of climate time slices: suitability, "
+        "reach, refugia and novelty, from one TOML config."
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+OutOpt = Annotated[Path, typer.Option("--out", "-o", help="Output folder (created if needed).")]
+VerboseOpt = Annotated[int, typer.Option("--verbose", "-v", count=True, help="More detail (-v timings).")]
+ForceOpt = Annotated[bool, typer.Option("--force", help="Recompute every stage, ignoring finished ones.")]
+SchedulerOpt = Annotated[
+    Optional[str],
+    typer.Option("--scheduler", help="'threads' (default) or the address of a dask.distributed scheduler."),
+]
+WorkersOpt = Annotated[
+    Optional[int], typer.Option("--workers", help="Start a local dask cluster with N workers.")
+]
+ChunksOpt = Annotated[
+    Optional[int], typer.Option("--chunks", help="Chunk size in grid cells along lat and lon.")
+]
+
+
+def _fail(err: TimesliceError) -> None:
+    typer.echo(f"timeslice: error: {err}", err=True)
+    raise typer.Exit(code=2)
+
+
+def _guard(func):
+    """Turn any TimesliceError into one line on stderr and exit code 2."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        try:
+            return func(*args, **kwargs)
+        except TimesliceError as err:
+            _fail(err)
+
+    return wrapper
+
+
+@contextlib.contextmanager
+def _progress(enabled: bool) -> Iterator:
+    """Yield a progress callback: rich bars on a terminal, nothing in pipes."""
+    if not enabled or not sys.stderr.isatty():
+        yield lambda stage, done, total: None
+        return
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    with Progress(
+        TextColumn("{task.description:<10}"), BarColumn(), MofNCompleteColumn(),
+        TimeElapsedColumn(), transient=False,
+    ) as bar:
+        tasks: dict[str, int] = {}
+
+        def update(stage: str, done: int, total: int) -> None:
+            if stage not in tasks:
+                tasks[stage] = bar.add_task(stage, total=total)
+            bar.update(tasks[stage], completed=done, total=total)
+
+        yield update
+
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"timeslice {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def main(
+    version: Annotated[
+        bool, typer.Option("--version", callback=_version, is_eager=True, help="Print the version.")
+    ] = False,
+) -> None:
+    """timeslice command line."""
+
+
+def _apply_overrides(cfg, scheduler, workers, chunks):
+    if scheduler is not None:
+        cfg.run.scheduler = scheduler
+    if workers is not None:
+        cfg.run.workers = workers
+    if chunks is not None:
+        cfg.transfer.chunks = chunks
+    return cfg
+
+
+def _report_done(result, verbose: int) -> None:
+    typer.echo(f"outputs in {result.out.resolve()}")
+    for name, path in result.paths.items():
+        typer.echo(f"  {name:<12} {path}")
+    if verbose:
+        for stage, secs in result.timings.items():
+            typer.echo(f"  {stage:<12} {secs:8.2f} s")
+
+
+@app.command()
+@_guard
+def run(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
+    out: OutOpt = Path("timeslice_out"),
+    force: ForceOpt = False,
+    scheduler: SchedulerOpt = None,
+    workers: WorkersOpt = None,
+    chunks: ChunksOpt = None,
+    verbose: VerboseOpt = 0,
+) -> None:
+    """Run every stage of CONFIG: harmonise, fit, transfer, summarise, report."""
+    from timeslice.config import load_config
+    from timeslice.pipeline import run as run_pipeline
+
+    cfg = _apply_overrides(load_config(config), scheduler, workers, chunks)
+    with _progress(True) as progress:
+        result = run_pipeline(cfg, out, force=force, progress=progress, command=sys.argv)
+    _report_done(result, verbose)
+
+
+@app.command()
+@_guard
+def demo(
+    out: OutOpt = Path("demo_run"),
+    resolution: Annotated[
+        float, typer.Option("--resolution", help="Fine-grid cell size of the invented demo, degrees.")
+    ] = 0.1,
+    force: ForceOpt = False,
+    verbose: VerboseOpt = 0,
+) -> None:
+    """Generate the invented demo scenario into OUT/demo_data and run it end to end."""
+    from timeslice.config import load_config
+    from timeslice.demo import generate
+    from timeslice.demo_config import write_config
+    from timeslice.pipeline import run as run_pipeline
+
+    data = Path(out) / "demo_data"
+    typer.echo(f"generating the invented demo scenario in {data} ...")
+    generate(data, resolution=resolution)
+    cfg_path = write_config(data / "demo.toml")
+    cfg = load_config(cfg_path)
+    with _progress(True) as progress:
+        result = run_pipeline(cfg, out, force=force, progress=progress, command=sys.argv)
+    _report_done(result, verbose)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    app()

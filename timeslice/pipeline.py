@@ -1,0 +1,323 @@
+"""Stage order of a run: harmonise -> fit -> transfer -> summarise -> report.
+
+This is the only module that reads the :class:`~timeslice.config.Config`; every stage below it
+takes explicit arguments. Each stage's output is cached under a content key
+(:mod:`timeslice.cache`), so a rerun skips finished work and a killed run resumes.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import sys
+import time
+import warnings
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from timeslice import __version__
+from timeslice.cache import StageCache, content_key, file_digest
+from timeslice.config import Config, SliceSpec
+from timeslice.errors import DataError, TimesliceWarning
+
+__all__ = ["RunResult", "fit_stage", "harmonise_stage", "run", "summarise_stage", "transfer_stage"]
+
+Progress = Callable[[str, int, int], None]
+
+
+def _quiet(_stage: str, _done: int, _total: int) -> None:
+    return None
+
+
+@dataclass
+class RunResult:
+    """What a run produced: output paths, the tables and the timings per stage."""
+
+    out: Path
+    paths: dict[str, Path] = field(default_factory=dict)
+    summary: pd.DataFrame | None = None
+    timings: dict[str, float] = field(default_factory=dict)
+    cache_hits: list[str] = field(default_factory=list)
+    cache_misses: list[str] = field(default_factory=list)
+
+
+@contextlib.contextmanager
+def _timed(timings: dict[str, float], name: str) -> Iterator[None]:
+    t0 = time.perf_counter()
+    try:
+        yield
+    finally:
+        timings[name] = round(time.perf_counter() - t0, 3)
+
+
+# ----------------------------------------------------------------------------- harmonise
+
+
+def _open(path: Path, aliases: dict | None = None):
+    from timeslice.readers import open_climate
+
+    return open_climate(path, aliases=aliases or None)
+
+
+def _ice_field(ds: xr.Dataset) -> xr.DataArray:
+    for name in ("ice", "sftgif", "ice_fraction"):
+        if name in ds:
+            return ds[name]
+    names = list(ds.data_vars)
+    if len(names) == 1:
+        return ds[names[0]]
+    raise DataError(f"ice file: no ice-fraction variable found among {names}; name it 'sftgif'")
+
+
+def harmonise_stage(
+    cfg: Config, cache: StageCache, *, progress: Progress = _quiet
+) -> tuple[xr.Dataset, list[xr.Dataset], pd.DataFrame]:
+    """Prepare the observed baseline and every configured slice on the common grid.
+
+    Returns the prepared baseline, the prepared slices (config order) and a table of inputs.
+    """
+    from timeslice.grid import make_grid
+    from timeslice.harmonise.prepare import prepare_slice
+    from timeslice.harmonise.regrid import regrid
+
+    c = cfg.climate
+    specs = cfg.slice_specs()
+    fine = _open(c.baseline, c.aliases)
+    elev_ds = _open(c.elevation, c.aliases)
+    elev = elev_ds["elevation"] if "elevation" in elev_ds else elev_ds[list(elev_ds.data_vars)[0]]
+    if cfg.grid is not None:
+        g = cfg.grid
+        target = make_grid(
+            lon_min=g.lon_min, lon_max=g.lon_max, lat_min=g.lat_min, lat_max=g.lat_max,
+            resolution=g.resolution,
+        )
+        fine = regrid(fine, target)
+        elev = regrid(elev, target)
+    else:
+        elev = regrid(elev, fine) if elev.sizes != {k: fine.sizes[k] for k in ("lat", "lon")} else elev
+
+    base_key = content_key(
+        "baseline", file_digest(c.baseline), file_digest(c.elevation),
+        cfg.grid.model_dump() if cfg.grid else None, c.present_sea_level, c.lapse_rate,
+        c.baseline_kind, c.aliases,
+    )
+    total = len(specs) + 1
+    progress("harmonise", 0, total)
+    baseline = cache.dataset(
+        "harmonise",
+        base_key,
+        lambda: prepare_slice(
+            fine_baseline=fine, elevation=elev, sea_level=c.present_sea_level,
+            label=c.baseline_label, year=c.baseline_year, period=c.baseline_period,
+            model="observed", scenario="baseline",
+        ),
+    )
+    progress("harmonise", 1, total)
+    rows = [_input_row(c.baseline_label, "observed", "baseline", c.baseline, baseline)]
+    model_baselines: dict[str, xr.Dataset] = {}
+    slices: list[xr.Dataset] = []
+    for i, spec in enumerate(specs):
+        key = content_key(
+            base_key, spec.model_dump(mode="json"), file_digest(spec.file),
+            file_digest(spec.model_baseline), file_digest(spec.ice) if spec.ice else None,
+            c.ice_threshold,
+        )
+
+        def compute(spec: SliceSpec = spec) -> xr.Dataset:
+            if spec.model not in model_baselines:
+                model_baselines[spec.model] = _open(spec.model_baseline, c.aliases)
+            ice = _ice_field(_open(spec.ice, c.aliases)) if spec.ice else None
+            return prepare_slice(
+                fine_baseline=fine, elevation=elev, model_slice=_open(spec.file, c.aliases),
+                model_baseline=model_baselines[spec.model], sea_level=spec.sea_level,
+                ice=ice, ice_threshold=c.ice_threshold, label=spec.label, year=spec.year,
+                period=spec.period, model=spec.model, scenario=spec.scenario,
+            )
+
+        ds = cache.dataset("harmonise", key, compute)
+        slices.append(ds)
+        rows.append(_input_row(spec.label, spec.model, spec.scenario, spec.file, ds))
+        progress("harmonise", i + 2, total)
+    return baseline, slices, pd.DataFrame(rows)
+
+
+def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
+    from timeslice.grid import cell_area
+
+    area = cell_area(ds)
+    log = ds.attrs.get("harmonise_log", "[]")
+    try:
+        steps = "; ".join(json.loads(log)) if isinstance(log, str) else str(log)
+    except json.JSONDecodeError:
+        steps = str(log)
+    land = ds["land"].astype(bool)
+    row = {
+        "slice": label,
+        "model": model,
+        "scenario": scenario,
+        "file": Path(path).name,
+        "sea_level_m": float(ds.attrs.get("sea_level", 0.0)),
+        "land_km2": float(area.where(land).sum()),
+        "steps": steps,
+    }
+    for name, col in (("exposed_shelf", "exposed_shelf_km2"), ("ice", "ice_km2"), ("filled", "filled_km2")):
+        if name in ds:
+            row[col] = float(area.where(ds[name].astype(bool)).sum())
+    return row
+
+
+# ----------------------------------------------------------------------------- fit
+
+
+def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key: str = ""):
+    """Read, clean and thin the records and fit the niche on the prepared baseline."""
+    from timeslice.niche.workflow import fit_niche
+    from timeslice.readers import read_occurrences
+
+    n = cfg.niche
+    key = content_key(
+        "fit", base_key, file_digest(cfg.species.occurrences), cfg.species.model_dump(mode="json"),
+        n.model_dump(mode="json"), cfg.run.seed,
+    )
+
+    def compute():
+        records = read_occurrences(cfg.species.occurrences, columns=cfg.species.columns)
+        return fit_niche(
+            records, baseline, variables=n.variables, algorithm=n.algorithm,
+            algorithm_params=n.params or None, buffer_km=n.buffer_km,
+            n_background=n.n_background, thin=n.thin, uncertainty_max_m=n.uncertainty_max_m,
+            years=n.years, screen_max_r=n.screen_max_r, screen_max_vif=n.screen_max_vif,
+            priority=n.priority, cv_block_km=n.cv_block_km, cv_folds=n.cv_folds,
+            threshold_rule=n.threshold, threshold_value=n.threshold_value, seed=cfg.run.seed,
+        )
+
+    return cache.obj("fit", key, compute), key
+
+
+# ----------------------------------------------------------------------------- transfer
+
+
+def transfer_stage(
+    cfg: Config, fit, slices: list[xr.Dataset], cache: StageCache, *, fit_key: str = "",
+    progress: Progress = _quiet,
+) -> xr.Dataset:
+    """Project the fitted niche onto every prepared slice and stack the results."""
+    from timeslice.transfer.project import project_slice
+
+    variables = list(fit.variables)
+    reference = fit.background[variables]
+    chunks = {"lat": cfg.transfer.chunks, "lon": cfg.transfer.chunks}
+    outs = []
+    progress("transfer", 0, len(slices))
+    for i, ds in enumerate(slices):
+        key = content_key("transfer", fit_key, _dataset_key(ds), cfg.transfer.model_dump())
+
+        def compute(ds: xr.Dataset = ds) -> xr.Dataset:
+            res = project_slice(
+                fit.model, ds.chunk(chunks), variables=variables, reference=reference,
+                threshold=fit.threshold, clamp=cfg.transfer.clamp,
+            )
+            return res.compute()
+
+        res = cache.dataset("transfer", key, compute)
+        res = res.assign(land=ds["land"].astype(bool))
+        res = res.expand_dims(slice=[ds.attrs["slice_label"]])
+        res = res.assign_coords(
+            year=("slice", [float(ds.attrs["year"])]),
+            period=("slice", [str(ds.attrs["period"])]),
+            model=("slice", [str(ds.attrs["model"])]),
+            scenario=("slice", [str(ds.attrs["scenario"])]),
+            sea_level=("slice", [float(ds.attrs.get("sea_level", 0.0))]),
+        )
+        outs.append(res)
+        progress("transfer", i + 1, len(slices))
+    stack = xr.concat(outs, dim="slice", combine_attrs="drop_conflicts")
+    stack["land"] = stack["land"].fillna(False).astype(bool)
+    stack["elevation"] = slices[0]["elevation"].astype("float32")
+    stack["calibration_area"] = fit.calibration_area.astype(bool).reindex_like(
+        stack["elevation"], method="nearest"
+    )
+    return stack
+
+
+def _dataset_key(ds: xr.Dataset) -> str:
+    import hashlib
+
+    h = hashlib.sha256()
+    for name in sorted(ds.data_vars):
+        h.update(name.encode())
+        h.update(np.ascontiguousarray(ds[name].values).tobytes())
+    h.update(json.dumps({k: str(v) for k, v in sorted(ds.attrs.items())}).encode())
+    return h.hexdigest()[:24]
+
+
+# ----------------------------------------------------------------------------- summarise
+
+
+def summarise_stage(cfg: Config, stack: xr.Dataset) -> tuple[xr.Dataset, pd.DataFrame]:
+    """Change, stability and refugia across the stacked series."""
+    from timeslice.series.summary import summarise
+
+    ref = cfg.series.reference
+    if ref == "baseline":
+        ref = cfg.climate.baseline_label
+    return summarise(stack, reference=ref)
+
+
+# ----------------------------------------------------------------------------- run
+
+
+def run(
+    cfg: Config,
+    out: str | os.PathLike,
+    *,
+    force: bool = False,
+    progress: Progress = _quiet,
+    command: list[str] | None = None,
+) -> RunResult:
+    """Run every stage of `cfg` and write the outputs into `out`.
+
+    Parameters
+    ----------
+    cfg : Config
+        Validated configuration (:func:`timeslice.config.load_config`).
+    out : path
+        Output folder; created if needed. Finished stages are cached in ``out/.cache``.
+    force : bool
+        Recompute every stage even if a cached result exists.
+    """
+    from timeslice.report import run_report
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    cfg.check_files()
+    cache = StageCache(out / ".cache", force=force)
+    result = RunResult(out=out)
+    t = result.timings
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", TimesliceWarning)
+        with _timed(t, "harmonise"):
+            baseline, slices, inputs = harmonise_stage(cfg, cache, progress=progress)
+        with _timed(t, "fit"):
+            fit, fit_key = fit_stage(cfg, baseline, cache, base_key=_dataset_key(baseline))
+        with _timed(t, "transfer"):
+            stack = transfer_stage(cfg, fit, [baseline, *slices], cache, fit_key=fit_key,
+                                   progress=progress)
+        with _timed(t, "summarise"):
+            series, summary = summarise_stage(cfg, stack)
+        with _timed(t, "report"):
+            result.paths = run_report(
+                series=series, summary=summary, fit=fit, inputs=inputs, cfg=cfg, out=out,
+                timings=t, warnings=[str(w.message) for w in caught],
+                command=command or sys.argv,
+            )
+    result.summary = summary
+    result.cache_hits, result.cache_misses = cache.hits, cache.misses
+    return result
