@@ -168,10 +168,11 @@ def find_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input") -> tupl
             lon_c.append(name)
         elif sn == "latitude" or un in {"degrees_north", "degree_north", "degree_n", "degrees_n"}:
             lat_c.append(name)
+    # common names, in order of preference: the first present wins
     if not lon_c:
-        lon_c = [n for n in _LON_NAMES if n in ds.coords or n in ds.dims]
+        lon_c = [n for n in _LON_NAMES if n in ds.coords or n in ds.dims][:1]
     if not lat_c:
-        lat_c = [n for n in _LAT_NAMES if n in ds.coords or n in ds.dims]
+        lat_c = [n for n in _LAT_NAMES if n in ds.coords or n in ds.dims][:1]
     lon_c = list(dict.fromkeys(lon_c))
     lat_c = list(dict.fromkeys(lat_c))
     if len(lon_c) != 1 or len(lat_c) != 1:
