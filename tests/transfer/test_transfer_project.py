@@ -1,0 +1,155 @@
+"""Chunked projection against scikit-learn's own predict_proba on the same cells."""
+
+from __future__ import annotations
+
+import warnings
+
+import dask
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from sklearn.linear_model import LogisticRegression
+
+from timeslice.errors import ConfigError, DataError
+from timeslice.transfer import auto_chunks, exdet, mess, project, project_slice
+
+VARS = ["bio1", "bio5", "bio12"]  # same as the fixtures in conftest.py
+
+
+def _cells(ds, variables):
+    x = np.stack([ds[v].values.ravel() for v in variables], axis=1).astype(np.float64)
+    return x, np.isfinite(x).all(axis=1)
+
+
+def test_project_equals_sklearn_predict_proba(fitted_logistic, slice_factory):
+    # Reference: LogisticRegression.predict_proba (scikit-learn) on the same cells.
+    ds = slice_factory()
+    got = project(fitted_logistic, ds, variables=VARS)
+    x, ok = _cells(ds, VARS)
+    exp = np.full(x.shape[0], np.nan, dtype=np.float32)
+    exp[ok] = fitted_logistic.predict_proba(pd.DataFrame(x[ok], columns=VARS))[:, 1]
+    np.testing.assert_array_equal(got.values.ravel(), exp)
+    assert got.dtype == np.float32 and got.dims == ("lat", "lon") and got.name == "suitability"
+    assert np.isnan(got.values[~ds["land"].values]).all()
+    for key in ("units", "long_name", "description"):
+        assert key in got.attrs
+
+
+def test_project_reorders_to_fitted_feature_names(fitted_logistic, slice_factory):
+    ds = slice_factory()
+    a = project(fitted_logistic, ds, variables=VARS)
+    b = project(fitted_logistic, ds, variables=list(reversed(VARS)))
+    xr.testing.assert_identical(a, b)
+
+
+def test_project_plain_array_estimator_no_feature_name_warning(reference_df, slice_factory, rng):
+    x = reference_df.to_numpy()
+    y = (x[:, 0] > 0).astype(int)
+    model = LogisticRegression().fit(x, y)  # fitted on an array: no feature_names_in_
+    ds = slice_factory()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # sklearn warns when names are given but not fitted
+        got = project(model, ds, variables=VARS)
+    xc, ok = _cells(ds, VARS)
+    np.testing.assert_array_equal(got.values.ravel()[ok], model.predict_proba(xc[ok])[:, 1].astype(np.float32))
+
+
+def test_project_lazy_and_chunked_equals_numpy(fitted_logistic, slice_factory, no_compute):
+    ds = slice_factory(ny=20, nx=24)
+    eager = project(fitted_logistic, ds, variables=VARS)
+    with no_compute():
+        lazy = project(fitted_logistic, ds.chunk({"lat": 7, "lon": 9}), variables=VARS)
+    assert lazy.chunks == ((7, 7, 6), (9, 9, 6))
+    np.testing.assert_allclose(lazy.values, eager.values, rtol=1e-6, equal_nan=True)
+
+
+def test_project_slice_layers(fitted_logistic, reference_df, slice_factory, no_compute):
+    ds = slice_factory(ny=14, nx=18, shift=0.4, scale=1.6)
+    with no_compute():
+        out = project_slice(
+            fitted_logistic, ds, variables=VARS, reference=reference_df, threshold=0.4,
+            chunks={"lat": 5, "lon": 6},
+        )
+    assert set(out.data_vars) == {"suitability", "suitable", "mess", "mod", "nt1", "nt2"}
+    out = out.compute()
+    suit = out["suitability"].values
+    land = ds["land"].values
+    np.testing.assert_array_equal(out["suitable"].values[~land], -1)
+    np.testing.assert_array_equal(out["suitable"].values[land], (suit[land] >= 0.4).astype(np.int8))
+    assert out["suitable"].dtype == np.int8 and out["suitable"].encoding["_FillValue"] == -1
+    xr.testing.assert_allclose(out[["mess", "mod"]], mess(reference_df[VARS], ds))
+    xr.testing.assert_allclose(out[["nt1", "nt2"]], exdet(reference_df[VARS], ds))
+    assert out.attrs["reference_set"] == "background sample within the calibration area"
+    assert out.attrs["slice_label"] == "test" and out.attrs["year"] == 1990.0
+    for v in out.data_vars:
+        for key in ("units", "long_name", "description"):
+            assert key in out[v].attrs, (v, key)
+
+
+def test_clamping(fitted_logistic, reference_df, slice_factory):
+    ds = slice_factory(shift=0.0, scale=3.0)  # wide spread: many cells outside the range
+    lo, hi = reference_df[VARS].min().to_numpy(), reference_df[VARS].max().to_numpy()
+    clamped = project(fitted_logistic, ds, variables=VARS, clamp=True, reference=reference_df)
+    raw = project(fitted_logistic, ds, variables=VARS)
+    x, ok = _cells(ds, VARS)
+    exp = fitted_logistic.predict_proba(pd.DataFrame(np.clip(x[ok], lo, hi), columns=VARS))[:, 1]
+    np.testing.assert_array_equal(clamped.values.ravel()[ok], exp.astype(np.float32))
+    out = project_slice(
+        fitted_logistic, ds, variables=VARS, reference=reference_df, threshold=0.5, clamp=True,
+    )
+    xr.testing.assert_identical(out["suitability"], clamped)
+    eff = out["clamp_effect"].values.ravel()
+    np.testing.assert_allclose(eff[ok], (clamped - raw).values.ravel()[ok], atol=1e-7)
+    inside = ok & ((x >= lo) & (x <= hi)).all(axis=1)
+    assert (eff[inside] == 0).all()
+    assert np.abs(eff[ok & ~inside]).max() > 0
+    assert np.isnan(eff[~ok]).all()
+
+
+def test_determinism_across_thread_counts(fitted_logistic, reference_df, slice_factory):
+    ds = slice_factory(ny=30, nx=30).chunk({"lat": 8, "lon": 8})
+    out = project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df, threshold=0.5)
+    with dask.config.set(scheduler="threads", num_workers=1):
+        a = out.compute()
+    with dask.config.set(scheduler="threads", num_workers=2):
+        b = out.compute()
+    with dask.config.set(scheduler="synchronous"):
+        c = out.compute()
+    for v in a.data_vars:
+        assert a[v].values.tobytes() == b[v].values.tobytes() == c[v].values.tobytes(), v
+
+
+def test_project_errors(fitted_logistic, reference_df, slice_factory):
+    ds = slice_factory()
+    with pytest.raises(DataError, match="slice 'test' has no predictor 'bio7'"):
+        project(fitted_logistic, ds, variables=["bio1", "bio5", "bio7"])
+    with pytest.raises(DataError, match="differ from the predictors the model was fitted on"):
+        project(fitted_logistic, ds.assign(bio7=ds.bio1), variables=["bio1", "bio5", "bio7"])
+    with pytest.raises(ConfigError, match="no predict_proba"):
+        project(object(), ds, variables=VARS)
+    with pytest.raises(ConfigError, match="needs `reference`"):
+        project(fitted_logistic, ds, variables=VARS, clamp=True)
+    with pytest.raises(ConfigError, match=r"`threshold` must be in \[0, 1\], got 1.5"):
+        project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df, threshold=1.5)
+    with pytest.raises(ConfigError, match="`chunks`"):
+        project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
+                      threshold=0.5, chunks="big")
+    with pytest.raises(ConfigError, match="dim 'time'"):
+        project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
+                      threshold=0.5, chunks={"time": 3})
+    with pytest.raises(DataError, match="`land` must be bool"):
+        project_slice(fitted_logistic, ds.assign(land=ds.land.astype(int)), variables=VARS,
+                      reference=reference_df, threshold=0.5)
+
+
+def test_auto_chunks_budget():
+    sizes = {"lat": 2160, "lon": 4320}
+    c = auto_chunks(sizes, n_variables=8, budget_mb=64)
+    # cells per chunk within the budget (48 B per cell and variable + 64 B, our estimate)
+    assert c["lat"] * c["lon"] * (48 * 8 + 64) <= 64e6
+    assert c["lon"] == 4320  # whole rows fit
+    small = auto_chunks(sizes, n_variables=8, budget_mb=1)
+    assert small["lon"] < 4320 and small["lat"] * small["lon"] * (48 * 8 + 64) <= 1e6
+    with pytest.raises(ConfigError, match="budget"):
+        auto_chunks(sizes, n_variables=8, budget_mb=0)

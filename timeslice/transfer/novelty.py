@@ -1,0 +1,535 @@
+"""Novel climate relative to a reference (calibration) sample: MESS and ExDet NT1/NT2.
+
+Both measures compare each target cell with the *reference set*: the background sample drawn
+within the model's calibration area (one row per point, one column per predictor). They flag
+where a transferred model extrapolates; they say nothing about whether the prediction there is
+right.
+
+The kernels (:func:`_mess_kernel`, :func:`_exdet_kernel`) work on plain numpy arrays with the
+variables on the last axis; the public functions hand every variable of the target to one
+:func:`xarray.apply_ufunc` call with ``dask="parallelized"``, so chunked (dask) targets stay lazy
+and each chunk is processed independently.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+import scipy.linalg
+import xarray as xr
+
+from timeslice.errors import DataError
+
+__all__ = ["ReferenceSet", "combined", "exdet", "mess", "reference_table"]
+
+#: Text written into output attributes to say what the reference set is.
+REFERENCE_DESCRIPTION = "background sample within the calibration area"
+
+#: Integer written into ``mod`` where a target cell has a missing predictor.
+MOD_FILL = np.int16(-1)
+
+
+class ReferenceSet:
+    """A validated reference sample: variable names and a float64 ``(n_points, n_vars)`` array.
+
+    Built by :func:`reference_table`; carried between the public functions so that validation
+    happens once.
+    """
+
+    __slots__ = ("values", "variables")
+
+    def __init__(self, values: np.ndarray, variables: tuple[str, ...]) -> None:
+        self.values = values
+        self.variables = variables
+
+    @property
+    def n_points(self) -> int:
+        """Number of reference points."""
+        return int(self.values.shape[0])
+
+
+def reference_table(
+    reference: pd.DataFrame | xr.Dataset | ReferenceSet,
+    *,
+    variables: Sequence[str] | None = None,
+    name: str = "reference",
+) -> ReferenceSet:
+    """Validate a reference sample and return it as a :class:`ReferenceSet`.
+
+    Parameters
+    ----------
+    reference : pandas.DataFrame or xarray.Dataset or ReferenceSet
+        One column per variable (DataFrame), or one data variable per predictor along a single
+        ``point`` dimension (Dataset).
+    variables : sequence of str, optional
+        Variables to use, in this order. Default: every column (DataFrame) or every data
+        variable (Dataset) of `reference`.
+    name : str
+        How to call the argument in error messages.
+
+    Returns
+    -------
+    ReferenceSet
+
+    Raises
+    ------
+    DataError
+        A variable is missing, not numeric or holds NaN/inf; fewer than 2 points; or a variable
+        has zero range (every reference point has the same value).
+    """
+    if isinstance(reference, ReferenceSet):
+        if variables is None or tuple(variables) == reference.variables:
+            return reference
+        reference = pd.DataFrame(reference.values, columns=list(reference.variables))
+    if isinstance(reference, xr.Dataset):
+        dims = set(reference.dims)
+        if dims != {"point"}:
+            raise DataError(
+                f"`{name}` Dataset must have exactly one dimension `point`, got {sorted(dims)}; "
+                "pass a DataFrame with one column per variable instead"
+            )
+        available = list(reference.data_vars)
+        getter = lambda v: np.asarray(reference[v].values)  # noqa: E731 - reference is small
+    elif isinstance(reference, pd.DataFrame):
+        available = [str(c) for c in reference.columns]
+        getter = lambda v: reference[v].to_numpy()  # noqa: E731
+    else:
+        raise DataError(
+            f"`{name}` must be a pandas DataFrame (one column per variable) or an xarray Dataset "
+            f"with a `point` dimension, got {type(reference).__name__}"
+        )
+    if variables is None:
+        variables = available
+    variables = tuple(str(v) for v in variables)
+    if not variables:
+        raise DataError(f"`{name}` has no variables; pass at least one predictor column")
+    missing = [v for v in variables if v not in available]
+    if missing:
+        raise DataError(
+            f"`{name}` has no variable {missing[0]!r} (has {available}); "
+            "sample the background for every predictor of the model"
+        )
+    columns = []
+    for v in variables:
+        col = getter(v)
+        if not np.issubdtype(col.dtype, np.number) or np.issubdtype(col.dtype, np.complexfloating):
+            raise DataError(f"`{name}` variable {v!r} must be numeric, got dtype {col.dtype}")
+        col = col.astype(np.float64)
+        bad = int(np.count_nonzero(~np.isfinite(col)))
+        if bad:
+            raise DataError(
+                f"`{name}` variable {v!r} has {bad} missing or infinite values; "
+                "drop background points without climate before using them as reference"
+            )
+        columns.append(col)
+    values = np.stack(columns, axis=1) if columns else np.empty((0, 0))
+    if values.shape[0] < 2:
+        raise DataError(
+            f"`{name}` has {values.shape[0]} points; at least 2 are needed (more than "
+            "1,000 background points are common practice)"
+        )
+    span = values.max(axis=0) - values.min(axis=0)
+    for v, s in zip(variables, span):
+        if not s > 0:
+            raise DataError(
+                f"`{name}` variable {v!r} has zero range (every reference value is "
+                f"{values[0, variables.index(v)]:g}); drop it from the predictors"
+            )
+    return ReferenceSet(np.ascontiguousarray(values), variables)
+
+
+def _target_arrays(target: xr.Dataset, variables: Sequence[str], name: str) -> list[xr.DataArray]:
+    if not isinstance(target, xr.Dataset):
+        raise DataError(
+            f"`{name}` must be an xarray Dataset with one data variable per predictor, "
+            f"got {type(target).__name__}"
+        )
+    missing = [v for v in variables if v not in target.data_vars]
+    if missing:
+        raise DataError(
+            f"`{name}` has no variable {missing[0]!r} (has {sorted(map(str, target.data_vars))}); "
+            "every reference variable must be present in the target slice"
+        )
+    arrays = [target[v] for v in variables]
+    dims0 = arrays[0].dims
+    for v, a in zip(variables, arrays):
+        if set(a.dims) != set(dims0):
+            raise DataError(
+                f"`{name}` variable {v!r} has dims {a.dims}, expected {dims0} like "
+                f"{variables[0]!r}; put every predictor on the same grid"
+            )
+    return arrays
+
+
+def _stack_last(blocks: Sequence[np.ndarray]) -> np.ndarray:
+    """Stack same-shape blocks on a new last axis as float64."""
+    return np.stack([np.asarray(b, dtype=np.float64) for b in blocks], axis=-1)
+
+
+# --------------------------------------------------------------------------------------- MESS
+
+
+def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """MESS and most-dissimilar variable for an array of target points.
+
+    Parameters
+    ----------
+    ref_sorted : numpy.ndarray, shape (M, k)
+        Reference values, each column sorted ascending.
+    values : numpy.ndarray, shape (..., k)
+        Target values, variables on the last axis.
+
+    Returns
+    -------
+    mess : numpy.ndarray, shape (...), float64
+        NaN where any variable of the point is not finite.
+    mod : numpy.ndarray, shape (...), int16
+        Index of the variable with the smallest similarity (first on ties); -1 where ``mess``
+        is NaN.
+
+    Notes
+    -----
+    The percentage of reference values strictly smaller than ``p`` is
+    ``f = 100 c / M`` with ``c = searchsorted(ref, p, side="left")``; the case tests are made on
+    the integer count (``f <= 50`` is ``2 c <= M``), so they are exact.
+    """
+    ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
+    values = np.asarray(values, dtype=np.float64)
+    m, k = ref_sorted.shape
+    if values.shape[-1] != k:
+        raise ValueError(f"values have {values.shape[-1]} variables, reference has {k}")
+    out_shape = values.shape[:-1]
+    p = values.reshape(-1, k)
+    n = p.shape[0]
+    sim = np.empty((n, k), dtype=np.float64)
+    lo = ref_sorted[0]
+    hi = ref_sorted[-1]
+    span = hi - lo
+    for i in range(k):  # loop over variables only (k is small); cells are vectorised
+        pi = p[:, i]
+        c = np.searchsorted(ref_sorted[:, i], pi, side="left")
+        f = 100.0 * c / m
+        s = np.where(2 * c <= m, 2.0 * f, 2.0 * (100.0 - f))
+        s = np.where(c == 0, 100.0 * (pi - lo[i]) / span[i], s)
+        s = np.where(c == m, 100.0 * (hi[i] - pi) / span[i], s)
+        sim[:, i] = s
+    valid = np.isfinite(p).all(axis=1)
+    mod = np.full(n, MOD_FILL, dtype=np.int16)
+    mess = np.full(n, np.nan, dtype=np.float64)
+    if valid.any():
+        sv = sim[valid]
+        idx = np.argmin(sv, axis=1)  # argmin returns the first index on ties
+        mod[valid] = idx.astype(np.int16)
+        mess[valid] = sv[np.arange(sv.shape[0]), idx]
+    return mess.reshape(out_shape), mod.reshape(out_shape)
+
+
+def _mess_block(*blocks: np.ndarray, ref_sorted: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    mess_v, mod_v = _mess_kernel(ref_sorted, _stack_last(blocks))
+    return mess_v.astype(np.float32), mod_v
+
+
+def mess(
+    reference: pd.DataFrame | xr.Dataset | ReferenceSet,
+    target: xr.Dataset,
+    *,
+    variables: Sequence[str] | None = None,
+) -> xr.Dataset:
+    r"""Multivariate environmental similarity surface (MESS) of `target` against `reference`.
+
+    Parameters
+    ----------
+    reference : pandas.DataFrame or xarray.Dataset
+        Reference sample, one column (or ``point``-dimensioned data variable) per predictor:
+        the background sample within the calibration area.
+    target : xarray.Dataset
+        The same variables on any dims, typically ``(lat, lon)``; numpy or dask backed.
+    variables : sequence of str, optional
+        Variables to compare, in this order (it fixes the codes of ``mod``). Default: every
+        variable of `reference`.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``mess`` (float32, [1]): the smallest similarity over variables; negative where at least
+        one variable lies outside the reference range. ``mod`` (int16): index of the most
+        dissimilar variable, with CF ``flag_values``/``flag_meanings`` naming the variables and
+        -1 (``_FillValue``) where a predictor is missing. NaN in any predictor gives NaN.
+
+    Notes
+    -----
+    For variable :math:`i` with reference minimum :math:`m_i`, maximum :math:`M_i` and
+    :math:`f_i` the percentage of reference values strictly smaller than :math:`p_i`:
+
+    .. math::
+
+        S_i = \begin{cases}
+            100\,(p_i - m_i)/(M_i - m_i) & f_i = 0\\
+            2 f_i & 0 < f_i \le 50\\
+            2\,(100 - f_i) & 50 < f_i < 100\\
+            100\,(M_i - p_i)/(M_i - m_i) & f_i = 100
+        \end{cases}
+        \qquad \mathrm{MESS} = \min_i S_i .
+
+    ``f`` is found by binary search in each sorted reference column, :math:`O(N \log M)` for
+    :math:`N` cells and :math:`M` reference points.
+
+    References
+    ----------
+    Elith, J., Kearney, M. & Phillips, S. (2010). The art of modelling range-shifting species.
+    *Methods in Ecology and Evolution*, 1, 330–342. https://doi.org/10.1111/j.2041-210X.2010.00036.x
+    """
+    ref = reference_table(reference, variables=variables)
+    arrays = _target_arrays(target, ref.variables, "target")
+    ref_sorted = np.sort(ref.values, axis=0)
+    mess_da, mod_da = xr.apply_ufunc(
+        _mess_block,
+        *arrays,
+        kwargs={"ref_sorted": ref_sorted},
+        output_core_dims=[[], []],
+        dask="parallelized",
+        output_dtypes=[np.float32, np.int16],
+        keep_attrs=False,
+    )
+    names = " ".join(_flag_name(v) for v in ref.variables)
+    mess_da.attrs = {
+        "units": "1",
+        "long_name": "multivariate environmental similarity",
+        "description": (
+            "MESS (Elith et al. 2010): smallest univariate similarity over the predictors; "
+            "100 at the reference median, 0 at the edge of the reference range, negative "
+            "outside it (novel climate: suitability there is extrapolated and not to be trusted)"
+        ),
+        "reference_set": REFERENCE_DESCRIPTION,
+        "reference_points": ref.n_points,
+    }
+    mod_da.attrs = {
+        "units": "1",
+        "long_name": "most dissimilar variable",
+        "description": (
+            "index of the predictor with the smallest MESS similarity (first in order on ties); "
+            "-1 where a predictor is missing"
+        ),
+        "flag_values": np.arange(len(ref.variables), dtype=np.int16),
+        "flag_meanings": names,
+        "reference_set": REFERENCE_DESCRIPTION,
+    }
+    mod_da.encoding["_FillValue"] = MOD_FILL
+    out = xr.Dataset({"mess": mess_da.rename("mess"), "mod": mod_da.rename("mod")})
+    out.attrs = {
+        "reference_set": REFERENCE_DESCRIPTION,
+        "variables": " ".join(ref.variables),
+        "history": "timeslice.transfer.novelty.mess (Elith, Kearney & Phillips 2010)",
+    }
+    return out
+
+
+def _flag_name(v: str) -> str:
+    """CF flag meanings are blank-separated words."""
+    return "_".join(str(v).split()) or "unnamed"
+
+
+# -------------------------------------------------------------------------------------- ExDet
+
+
+def _exdet_kernel(
+    lo: np.ndarray,
+    hi: np.ndarray,
+    mean: np.ndarray,
+    chol: np.ndarray,
+    d2_max: float,
+    values: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """NT1 and NT2 for an array of target points.
+
+    Parameters
+    ----------
+    lo, hi : numpy.ndarray, shape (k,)
+        Reference minimum and maximum per variable.
+    mean : numpy.ndarray, shape (k,)
+        Reference mean.
+    chol : numpy.ndarray, shape (k, k)
+        Lower Cholesky factor ``L`` of the reference covariance, ``C = L L^T``.
+    d2_max : float
+        Largest squared Mahalanobis distance among the reference points.
+    values : numpy.ndarray, shape (..., k)
+        Target values, variables on the last axis.
+
+    Returns
+    -------
+    nt1, nt2 : numpy.ndarray, shape (...), float64
+        NaN where any variable of the point is not finite.
+    """
+    values = np.asarray(values, dtype=np.float64)
+    k = lo.shape[0]
+    out_shape = values.shape[:-1]
+    p = values.reshape(-1, k)
+    span = hi - lo
+    nt1 = (np.minimum(np.minimum(p - lo, hi - p), 0.0) / span).sum(axis=1)
+    valid = np.isfinite(p).all(axis=1)
+    nt2 = np.full(p.shape[0], np.nan)
+    if valid.any():
+        z = scipy.linalg.solve_triangular(chol, (p[valid] - mean).T, lower=True, check_finite=False)
+        nt2[valid] = np.einsum("ij,ij->j", z, z) / d2_max
+    nt1[~valid] = np.nan
+    return nt1.reshape(out_shape), nt2.reshape(out_shape)
+
+
+def _exdet_block(*blocks: np.ndarray, params: dict) -> tuple[np.ndarray, np.ndarray]:
+    nt1, nt2 = _exdet_kernel(values=_stack_last(blocks), **params)
+    return nt1.astype(np.float32), nt2.astype(np.float32)
+
+
+def _exdet_params(ref: ReferenceSet) -> dict:
+    x = ref.values
+    mean = x.mean(axis=0)
+    # Sample covariance (n - 1); NT2 is a ratio of distances, so the divisor cancels.
+    cov = np.atleast_2d(np.cov(x, rowvar=False))
+    try:
+        chol = scipy.linalg.cholesky(cov, lower=True)
+    except np.linalg.LinAlgError as err:
+        raise DataError(
+            f"`reference` covariance of {list(ref.variables)} is singular (a predictor is a "
+            "linear combination of others); drop one of the collinear variables"
+        ) from err
+    cond = np.linalg.cond(cov)
+    if not np.isfinite(cond) or cond > 1e12:
+        raise DataError(
+            f"`reference` covariance of {list(ref.variables)} is numerically singular "
+            f"(condition number {cond:.3g}); drop one of the collinear variables"
+        )
+    z = scipy.linalg.solve_triangular(chol, (x - mean).T, lower=True)
+    d2_ref = np.einsum("ij,ij->j", z, z)
+    return {
+        "lo": x.min(axis=0),
+        "hi": x.max(axis=0),
+        "mean": mean,
+        "chol": chol,
+        "d2_max": float(d2_ref.max()),
+    }
+
+
+def exdet(
+    reference: pd.DataFrame | xr.Dataset | ReferenceSet,
+    target: xr.Dataset,
+    *,
+    variables: Sequence[str] | None = None,
+) -> xr.Dataset:
+    r"""Extrapolation detection (ExDet): univariate (NT1) and combinational (NT2) novelty.
+
+    Parameters
+    ----------
+    reference : pandas.DataFrame or xarray.Dataset
+        Reference sample (background within the calibration area), one column per predictor.
+    target : xarray.Dataset
+        The same variables on any dims; numpy or dask backed.
+    variables : sequence of str, optional
+        Variables to use. Default: every variable of `reference`.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``nt1`` (float32, [1], :math:`\le 0`; 0 inside every univariate reference range) and
+        ``nt2`` (float32, [1], :math:`\ge 0`; above 1 a combination of values not seen in the
+        reference). NaN where a predictor is missing.
+
+    Notes
+    -----
+    With reference minimum :math:`m_i`, maximum :math:`M_i`, mean :math:`\bar x` and covariance
+    :math:`C`:
+
+    .. math::
+
+        \mathrm{NT1}(p) = \sum_i \frac{\min(p_i - m_i,\; M_i - p_i,\; 0)}{M_i - m_i},
+        \qquad
+        \mathrm{NT2}(p) = \frac{D^2(p)}{\max_{r} D^2(r)},
+        \quad D^2(x) = (x - \bar x)^\top C^{-1} (x - \bar x),
+
+    the maximum taken over the reference points :math:`r`. :math:`D^2` is computed as
+    :math:`\lVert L^{-1}(x - \bar x)\rVert^2` with the Cholesky factor :math:`C = L L^\top`
+    (a triangular solve, no matrix inverse). The covariance divisor (n − 1 here) cancels in the
+    ratio.
+
+    References
+    ----------
+    Mesgaran, M. B., Cousens, R. D. & Webber, B. L. (2014). Here be dragons: a tool for
+    quantifying novelty due to covariate range and correlation change when projecting species
+    distribution models. *Diversity and Distributions*, 20, 1147–1159.
+    https://doi.org/10.1111/ddi.12209
+    """
+    ref = reference_table(reference, variables=variables)
+    arrays = _target_arrays(target, ref.variables, "target")
+    params = _exdet_params(ref)
+    nt1, nt2 = xr.apply_ufunc(
+        _exdet_block,
+        *arrays,
+        kwargs={"params": params},
+        output_core_dims=[[], []],
+        dask="parallelized",
+        output_dtypes=[np.float32, np.float32],
+        keep_attrs=False,
+    )
+    nt1.attrs = {
+        "units": "1",
+        "long_name": "univariate novelty (ExDet NT1)",
+        "description": (
+            "sum over predictors of the distance outside the reference range, in units of "
+            "that range (Mesgaran et al. 2014); 0 inside every range, negative outside "
+            "(extrapolation: flagged, not trusted)"
+        ),
+        "reference_set": REFERENCE_DESCRIPTION,
+        "reference_points": ref.n_points,
+    }
+    nt2.attrs = {
+        "units": "1",
+        "long_name": "combinational novelty (ExDet NT2)",
+        "description": (
+            "squared Mahalanobis distance from the reference mean over the largest one among "
+            "reference points (Mesgaran et al. 2014); above 1 the combination of predictor "
+            "values is outside the reference"
+        ),
+        "reference_set": REFERENCE_DESCRIPTION,
+        "reference_points": ref.n_points,
+    }
+    out = xr.Dataset({"nt1": nt1.rename("nt1"), "nt2": nt2.rename("nt2")})
+    out.attrs = {
+        "reference_set": REFERENCE_DESCRIPTION,
+        "variables": " ".join(ref.variables),
+        "history": "timeslice.transfer.novelty.exdet (Mesgaran, Cousens & Webber 2014)",
+    }
+    return out
+
+
+def combined(nt1: xr.DataArray, nt2: xr.DataArray) -> xr.DataArray:
+    """The single ExDet novelty layer: NT1 where NT1 < 0, else NT2.
+
+    Parameters
+    ----------
+    nt1, nt2 : xarray.DataArray
+        Outputs of :func:`exdet`.
+
+    Returns
+    -------
+    xarray.DataArray, [1]
+        Negative: outside a univariate range; 0..1: inside the reference; above 1: novel
+        combination. NaN where either input is NaN.
+
+    References
+    ----------
+    Mesgaran, M. B., Cousens, R. D. & Webber, B. L. (2014). *Diversity and Distributions*, 20,
+    1147–1159.
+    """
+    out = xr.where(nt1 < 0, nt1, nt2).where(nt1.notnull() & nt2.notnull())
+    out = out.astype(np.float32).rename("exdet")
+    out.attrs = {
+        "units": "1",
+        "long_name": "combined novelty (ExDet)",
+        "description": (
+            "NT1 where NT1 < 0 (outside a univariate range), else NT2 (above 1: novel "
+            "combination); Mesgaran et al. 2014"
+        ),
+        "reference_set": REFERENCE_DESCRIPTION,
+    }
+    return out
