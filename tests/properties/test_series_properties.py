@@ -1,0 +1,96 @@
+"""Property tests for the series stage (hypothesis)."""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+
+from timeslice.grid import cell_area, make_grid
+from timeslice.series import change_map, change_table, stability, refugium, suitable_area
+
+_SETTINGS = settings(max_examples=60, deadline=None)
+
+
+@st.composite
+def stacks(draw):
+    """Random stacked series: 1-5 slices on a random small grid, values in {-1, 0, 1}."""
+    ns = draw(st.integers(1, 5))
+    ny = draw(st.integers(1, 6))
+    nx = draw(st.integers(1, 6))
+    res = draw(st.sampled_from([0.1, 0.5, 1.0, 2.5]))
+    lat0 = draw(st.floats(-89.0, 89.0 - ny * res, allow_nan=False))
+    lon0 = draw(st.floats(-180.0, 180.0 - nx * res, allow_nan=False))
+    s = draw(arrays(np.int8, (ns, ny, nx), elements=st.sampled_from([-1, 0, 1])))
+    mess = draw(arrays(np.float32, (ns, ny, nx),
+                       elements=st.floats(-50, 50, width=32, allow_nan=False)))
+    g = make_grid(lon_min=lon0, lon_max=lon0 + nx * res, lat_min=lat0,
+                  lat_max=lat0 + ny * res, resolution=res)
+    dims = ("slice", "lat", "lon")
+    return xr.Dataset(
+        {"suitable": (dims, s), "mess": (dims, mess)},
+        coords={"slice": [f"s{i}" for i in range(ns)], "lat": g.lat, "lon": g.lon},
+    )
+
+
+@_SETTINGS
+@given(stacks(), st.data())
+def test_gain_loss_identities(ds, data):
+    # area(t) - area(ref) = gain - loss; stable + loss = area(ref) (METHODS.md, series
+    # summaries; follows from the partition of cells, so exact up to float rounding)
+    ref = data.draw(st.sampled_from(list(ds["slice"].values)))
+    tab = change_table(ds, reference=ref)
+    ref_area = tab.loc[tab["slice"] == ref, "suitable_area_km2"].item()
+    scale = max(ref_area, tab["suitable_area_km2"].max(), 1.0)
+    np.testing.assert_allclose(tab["suitable_area_km2"] - ref_area,
+                               tab["gain_km2"] - tab["loss_km2"], rtol=0, atol=1e-9 * scale)
+    np.testing.assert_allclose(tab["stable_km2"] + tab["loss_km2"], ref_area,
+                               rtol=0, atol=1e-9 * scale)
+    assert (tab["novel_area_km2"] <= tab["suitable_area_km2"] + 1e-9 * scale).all()
+
+
+@_SETTINGS
+@given(stacks(), st.data())
+def test_change_partitions_valid_cells(ds, data):
+    # gain + loss + stable + absent areas = area of cells land in either slice
+    i = data.draw(st.integers(0, ds.sizes["slice"] - 1))
+    ref = ds["suitable"].isel(slice=i)
+    code = change_map(ds["suitable"], ref)
+    area = cell_area(ds)
+    valid = (ds["suitable"] >= 0) | (ref >= 0)
+    assert bool(((code >= 0) == valid).all())
+    parts = sum((area * (code == c)).sum(("lat", "lon")) for c in (0, 1, 2, 3))
+    np.testing.assert_allclose(parts.values, (area * valid).sum(("lat", "lon")).values,
+                               rtol=1e-12)
+    # each code has its defining meaning
+    cur_s, ref_s = ds["suitable"] == 1, ref == 1
+    assert bool(((code == 3) == (cur_s & ref_s)).all())
+    assert bool(((code == 1) == (cur_s & ~ref_s)).all())
+    assert bool(((code == 2) == (~cur_s & ref_s)).all())
+
+
+@_SETTINGS
+@given(stacks())
+def test_stability_bounds_and_refugium(ds):
+    stab = stability(ds["suitable"])
+    v = stab.values[np.isfinite(stab.values)]
+    assert ((v >= 0) & (v <= 1)).all()
+    never_land = ~(ds["suitable"] >= 0).any("slice")
+    assert bool((np.isnan(stab) == never_land).all())
+    ref = refugium(ds["suitable"])
+    assert bool((ref <= (ds["suitable"] == 1)).all())
+
+
+@_SETTINGS
+@given(stacks(), st.data())
+def test_area_additive(ds, data):
+    # area of the union of two disjoint sets of cells = sum of their areas
+    s = ds["suitable"].isel(slice=0)
+    split = data.draw(arrays(bool, s.shape))
+    a = xr.where((s == 1) & xr.DataArray(split, dims=s.dims), 1, 0)
+    b = xr.where((s == 1) & ~xr.DataArray(split, dims=s.dims), 1, 0)
+    total = float(suitable_area(s))
+    np.testing.assert_allclose(float(suitable_area(a)) + float(suitable_area(b)), total,
+                               rtol=1e-12, atol=1e-9)
