@@ -1,0 +1,414 @@
+"""Tests of the invented demo scenario generator (reduced resolution, fast)."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from scipy import ndimage, stats
+
+from timeslice import demo
+from timeslice.errors import ConfigError, TimesliceError
+
+MODELS = ("alder", "birch", "cedar")
+SLICES = ("baseline", "21ka", "6ka", "low-forcing_2041-2060", "low-forcing_2081-2100",
+          "high-forcing_2041-2060", "high-forcing_2081-2100")
+DWC = ["occurrenceID", "scientificName", "decimalLatitude", "decimalLongitude",
+       "coordinateUncertaintyInMeters", "occurrenceStatus", "basisOfRecord", "eventDate", "year",
+       "individualCount"]
+
+
+@pytest.fixture(scope="module")
+def demo_dir(tmp_path_factory) -> tuple[Path, dict]:
+    out = tmp_path_factory.mktemp("demo_025")
+    return out, demo.generate(out, resolution=0.25)
+
+
+def _sha(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def _tavg_annual(base: xr.Dataset) -> xr.DataArray:
+    return (0.5 * (base["tasmin"] + base["tasmax"])).mean("time")
+
+
+# --- files, names, units -----------------------------------------------------------------
+
+
+def test_pinned_files_are_written(demo_dir):
+    out, paths = demo_dir
+    expected = {"baseline", "dem", "ice_21ka", "occurrences", "dated_records", "truth"}
+    expected |= {f"{m}/{s}" for m in MODELS for s in SLICES}
+    assert set(paths) == expected
+    for key in ("baseline.nc", "dem.nc", "ice_21ka.nc", "occurrences.csv", "dated_records.csv",
+                "truth.json"):
+        assert (out / key).is_file()
+    for m in MODELS:
+        for s in SLICES:
+            assert (out / "models" / m / f"{s}.nc").is_file()
+    assert not list(out.rglob("*.part")), "temporary files left behind"
+
+
+def test_fine_baseline_conventions(demo_dir):
+    out, _ = demo_dir
+    with xr.open_dataset(out / "baseline.nc", decode_times=False) as b:
+        assert b.sizes["time"] == 12
+        assert b["tasmin"].attrs["units"] == "degC"
+        assert b["tasmax"].attrs["units"] == "degC"
+        assert b["pr"].attrs["units"] == "mm/month"
+        assert b["time"].attrs["calendar"] == "standard"
+        assert b["time"].attrs["climatology"] == "climatology_bnds"
+        assert "climatology_bnds" in b
+        for v in ("tasmin", "tasmax", "pr"):
+            assert b[v].dtype == np.float32
+            assert b[v].encoding.get("zlib") is True
+            assert "cell_methods" in b[v].attrs
+        # fine grid covers exactly lon -40..-20, lat 40..55 (0.25 degree here: 80 x 60)
+        assert b.sizes["lon"] == 80 and b.sizes["lat"] == 60
+        assert float(b.lon[0]) == pytest.approx(-39.875)
+        assert float(b.lat[-1]) == pytest.approx(54.875)
+        assert "history" not in b.attrs  # no timestamps
+        with xr.open_dataset(out / "dem.nc") as d:
+            land = d["elevation"].values > 0
+        # NaN at sea on purpose (exposed shelf has to be filled downstream), values on land
+        assert np.isnan(b["tasmin"].values[:, ~land]).all()
+        assert np.isfinite(b["tasmin"].values[:, land]).all()
+        assert (b["tasmin"].values[:, land] <= b["tasmax"].values[:, land]).all()
+        assert (b["pr"].values[:, land] >= 0).all()
+
+
+def test_model_files_use_raw_conventions(demo_dir):
+    out, _ = demo_dir
+    cals = {"alder": "noleap", "birch": "noleap", "cedar": "360_day"}
+    for m in MODELS:
+        for s in SLICES:
+            with xr.open_dataset(out / "models" / m / f"{s}.nc", decode_times=False) as ds:
+                assert ds["tasmin"].attrs["units"] == "K"
+                assert ds["tasmax"].attrs["units"] == "K"
+                assert ds["pr"].attrs["units"] == "kg m-2 s-1"
+                assert ds["pr"].attrs["standard_name"] == "precipitation_flux"
+                assert ds["tasmax"].attrs["standard_name"] == "air_temperature"
+                assert ds["time"].attrs["calendar"] == cals[m]
+                assert ds["time"].attrs["climatology"] == "climatology_bnds"
+                assert ds.sizes == {"time": 12, "lat": 25, "lon": 30, "bnds": 2}
+                assert float(ds.lon.min()) == pytest.approx(315.5)
+                assert float(ds.lon.max()) == pytest.approx(344.5)
+                dlat = np.diff(ds.lat.values)
+                assert (dlat < 0).all() if m == "cedar" else (dlat > 0).all()
+                assert 200 < float(ds["tasmin"].min()) and float(ds["tasmax"].max()) < 320
+                assert (ds["tasmin"] <= ds["tasmax"]).all()
+                assert ds.attrs["model"] == m
+    # decoded time axes are mid-month, months 1..12, in the model calendar
+    coder = xr.coders.CFDatetimeCoder(use_cftime=True)
+    with xr.open_dataset(out / "models" / "cedar" / "21ka.nc", decode_times=coder) as ds:
+        assert [t.month for t in ds.time.values] == list(range(1, 13))
+        assert ds.time.values[0].calendar == "360_day"
+        assert ds.time.values[0].day == 16  # 30-day months: midpoint at day 16 00:00
+
+
+def test_precipitation_flux_conversion_round_trips(demo_dir):
+    """kg m-2 s-1 back to mm/month with the calendar's month lengths.
+
+    Reference: pint 0.25 unit algebra through cf_xarray's CF unit parser (1 kg m-2 of liquid
+    water = 1 mm at 1000 kg m-3, common practice); month lengths of the CF calendars
+    (CF Conventions 1.8, section 4.4.1).
+    """
+    from cf_xarray.units import units as ureg
+    factor_noleap_jan = (1 * ureg("kg m^-2 s^-1") / (1000 * ureg("kg m^-3"))
+                         * (31 * ureg.day)).to("mm").magnitude
+    assert factor_noleap_jan == pytest.approx(31 * 86400)
+    out, _ = demo_dir
+    days = {"noleap": np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31]),
+            "360_day": np.full(12, 30)}
+    annual = {}
+    for m in MODELS:
+        with xr.open_dataset(out / "models" / m / "baseline.nc", decode_times=False) as ds:
+            fac = (1 * ureg(ds["pr"].attrs["units"]) / (1000 * ureg("kg m^-3")) * ureg.day
+                   ).to("mm").magnitude
+            d = days[ds["time"].attrs["calendar"]]
+            mm = ds["pr"].values * fac * d[:, None, None]
+            annual[m] = float(mm.sum(axis=0).mean())
+    # each model is the same truth with its own multiplicative bias (1.10, 0.85, ~1.0):
+    # the ratios of domain-mean annual totals must follow within a few percent
+    assert annual["alder"] / annual["birch"] == pytest.approx(1.10 / 0.85, rel=0.03)
+
+
+def test_model_biases_and_slice_changes(demo_dir):
+    out, _ = demo_dir
+
+    def tas(m, s):
+        with xr.open_dataset(out / "models" / m / f"{s}.nc", decode_times=False) as ds:
+            ds = ds.sortby("lat")
+            return (0.5 * (ds["tasmin"] + ds["tasmax"]) - 273.15).values
+
+    base = {m: tas(m, "baseline") for m in MODELS}
+    # invented biases (see MODELS in timeslice/demo.py): alder warm, birch cold
+    assert base["alder"].mean() - base["birch"].mean() == pytest.approx(2.0, abs=0.3)
+    ranges = {"21ka": (-9.5, -5.0), "6ka": (-0.5, 1.0),
+              "low-forcing_2041-2060": (1.2, 1.8), "low-forcing_2081-2100": (1.8, 2.5),
+              "high-forcing_2041-2060": (1.8, 2.4), "high-forcing_2081-2100": (3.5, 5.0)}
+    spread = []
+    for s, (lo, hi) in ranges.items():
+        changes = [float((tas(m, s) - base[m]).mean()) for m in MODELS]
+        for c in changes:
+            assert lo <= c <= hi, (s, changes)
+        spread.append(np.ptp(changes))
+    assert min(spread) > 0.1  # the models disagree, as ensembles do
+
+
+# --- reproducibility and size ------------------------------------------------------------
+
+
+def test_bit_for_bit_reproducible(tmp_path, demo_dir):
+    _, first = demo_dir
+    second = demo.generate(tmp_path / "again", resolution=0.25)
+    assert {k: _sha(p) for k, p in first.items()} == {k: _sha(p) for k, p in second.items()}
+    third = demo.generate(tmp_path / "other_seed", resolution=0.25, seed=7)
+    assert _sha(third["occurrences"]) != _sha(first["occurrences"])
+    assert _sha(third["dem"]) != _sha(first["dem"])
+
+
+def test_full_size_demo_is_small(tmp_path):
+    paths = demo.generate(tmp_path / "full", resolution=0.1)
+    total = sum(p.stat().st_size for p in paths.values())
+    assert total <= 15 * 2**20
+    with xr.open_dataset(paths["baseline"], decode_times=False) as b:
+        assert (b.sizes["lat"], b.sizes["lon"]) == (150, 200)
+
+
+def test_committed_demo_matches_generator(tmp_path):
+    committed = Path(demo.__file__).resolve().parent.parent / "demo_data"
+    if not (committed / "dem.nc").is_file():
+        pytest.skip("demo_data/ not generated in this checkout")
+    fresh = demo.generate(tmp_path / "fresh")
+    for key, path in fresh.items():
+        old = committed / path.relative_to(tmp_path / "fresh")
+        if path.suffix == ".nc":
+            # compare contents, not bytes: the HDF5 library version is written into the file
+            with xr.open_dataset(old, decode_times=False) as a, \
+                    xr.open_dataset(path, decode_times=False) as b:
+                xr.testing.assert_identical(a, b)
+        else:
+            assert old.read_bytes() == path.read_bytes(), f"demo_data/{key} is stale"
+
+
+# --- landscape ---------------------------------------------------------------------------
+
+
+def test_dem_has_shelf_that_becomes_land_at_21ka(demo_dir):
+    out, _ = demo_dir
+    with xr.open_dataset(out / "dem.nc") as d:
+        z = d["elevation"].values
+    assert ((z > -120) & (z <= 0)).sum() > 50
+    assert ((z > -150) & (z <= -120)).sum() > 0
+    assert z.min() < -1000  # deep ocean beyond the shelf
+    assert 2500 <= z.max() <= 3000  # northern massif peaks
+    # present: main island and an offshore island; at -120 m the land bridge joins them
+    n_now = ndimage.label(z > 0)[1]
+    n_glacial = ndimage.label(z > -120)[1]
+    assert n_now >= 2
+    assert n_glacial < n_now
+    assert (z > -120).sum() > 1.3 * (z > 0).sum()
+
+
+def test_ice_sheet_on_northern_massif(demo_dir):
+    out, _ = demo_dir
+    with xr.open_dataset(out / "ice_21ka.nc") as ice, xr.open_dataset(out / "dem.nc") as d:
+        assert ice["sftgif"].attrs["units"] == "%"
+        assert ice["sftgif"].attrs["standard_name"] == "land_ice_area_fraction"
+        assert ice.sizes == {"lat": 30, "lon": 40, "bnds": 2}
+        assert set(np.unique(ice["sftgif"].values)) == {0.0, 100.0}
+        peak = d["elevation"].where(d["elevation"] == d["elevation"].max(), drop=True)
+        at_peak = ice["sftgif"].sel(lat=float(peak.lat[0]), lon=float(peak.lon[0]),
+                                    method="nearest")
+        assert float(at_peak) == 100.0
+        iced_lat = ice["lat"].where(ice["sftgif"] > 0).values
+        assert np.nanmin(iced_lat) > 47.5  # only the north is glaciated
+
+
+# --- climate -----------------------------------------------------------------------------
+
+
+def test_temperature_follows_standard_lapse_rate(demo_dir):
+    """Annual mean temperature against elevation along one latitude row.
+
+    Reference: 6.5 K/km, ICAO Standard Atmosphere (Doc 7488/3, 1993; ISO 2533:1975),
+    troposphere below 11 km. Tolerance 0.3 K/km allows the invented smooth noise.
+    """
+    out, _ = demo_dir
+    with xr.open_dataset(out / "baseline.nc") as b, xr.open_dataset(out / "dem.nc") as d:
+        t = _tavg_annual(b)
+        z = d["elevation"]
+        row = int(np.nanargmax(z.max("lon").values))  # the row through the highest peak
+        zr, tr = z.isel(lat=row).values, t.isel(lat=row).values
+        ok = (zr > 0) & np.isfinite(tr)
+        assert ok.sum() >= 10 and np.ptp(zr[ok]) > 1500
+        fit = stats.linregress(zr[ok] / 1000.0, tr[ok])
+        assert fit.slope == pytest.approx(-6.5, abs=0.3)
+
+
+def test_seasonal_cycle_is_stronger_inland(demo_dir):
+    out, _ = demo_dir
+    with xr.open_dataset(out / "baseline.nc") as b, xr.open_dataset(out / "dem.nc") as d:
+        land = d["elevation"].values > 0
+        tavg = 0.5 * (b["tasmin"] + b["tasmax"]).values
+        amp = tavg.max(axis=0) - tavg.min(axis=0)
+        dist = ndimage.distance_transform_edt(land)
+        coast, inland = land & (dist <= 1), land & (dist >= 4)
+        assert np.nanmean(amp[inland]) > np.nanmean(amp[coast]) + 1.0
+        # warmest month in summer, coldest in winter (northern hemisphere)
+        monthly = np.nanmean(tavg[:, land], axis=1)
+        assert int(np.argmax(monthly)) + 1 in (7, 8) and int(np.argmin(monthly)) + 1 in (1, 2)
+
+
+def test_rain_shadow_east_of_ridges(demo_dir):
+    """Westerly flow: the windward (west) slopes get more precipitation than the lee (east)."""
+    out, _ = demo_dir
+    with xr.open_dataset(out / "baseline.nc") as b, xr.open_dataset(out / "dem.nc") as d:
+        p_annual = b["pr"].sum("time").values
+        z = d["elevation"].values
+    west, east = [], []
+    for i in range(z.shape[0]):
+        row = z[i]
+        if row.max() < 1500:
+            continue
+        crest = int(np.argmax(row))
+        for j in range(row.size):
+            if 200 < row[j] < 1000 and abs(j - crest) <= 8:
+                (west if j < crest else east).append(p_annual[i, j])
+    assert len(west) > 5 and len(east) > 5
+    assert np.mean(west) > 1.3 * np.mean(east)
+
+
+# --- records -----------------------------------------------------------------------------
+
+
+def _nearest_elevation(dem: xr.Dataset, lon, lat) -> np.ndarray:
+    return dem["elevation"].sel(lon=xr.DataArray(lon), lat=xr.DataArray(lat),
+                                method="nearest").values
+
+
+def test_occurrences_darwin_core_and_bad_share(demo_dir):
+    out, _ = demo_dir
+    occ = pd.read_csv(out / "occurrences.csv")
+    assert list(occ.columns) == DWC
+    assert (occ["scientificName"] == demo.SPECIES).all()
+    assert 300 <= len(occ) <= 700
+    # independent detection of every bad kind
+    inside = occ["decimalLongitude"].between(-40, -20) & occ["decimalLatitude"].between(40, 55)
+    swapped = occ["decimalLatitude"].between(-40, -20) & occ["decimalLongitude"].between(40, 55)
+    zero = (occ["decimalLatitude"] == 0) & (occ["decimalLongitude"] == 0)
+    with xr.open_dataset(out / "dem.nc") as dem:
+        z = np.full(len(occ), np.nan)
+        z[inside.values] = _nearest_elevation(dem, occ.loc[inside, "decimalLongitude"].values,
+                                              occ.loc[inside, "decimalLatitude"].values)
+    at_sea = inside & (z < -300)
+    dup = occ.duplicated(keep="first")
+    absent = occ["occurrenceStatus"] == "absent"
+    huge = occ["coordinateUncertaintyInMeters"] >= 50000
+    for flag in (swapped, zero, at_sea, dup, absent, huge):
+        assert flag.sum() >= 2
+    bad = swapped | zero | at_sea | dup | absent | huge
+    assert 0.03 <= bad.mean() <= 0.07
+    clean = occ[~bad]
+    assert set(clean["occurrenceStatus"]) == {"present"}
+    assert set(occ["basisOfRecord"]) <= {"HumanObservation", "PreservedSpecimen",
+                                         "MachineObservation"}
+    dates = pd.to_datetime(occ["eventDate"], format="%Y-%m-%d")
+    assert dates.dt.year.between(1950, 2020).all()
+    assert (dates.dt.year == occ["year"]).all()
+    truth = json.loads((out / "truth.json").read_text())
+    assert truth["records"]["total"] == len(occ)
+
+
+def test_occurrences_follow_the_known_niche(demo_dir):
+    """Clean presences sit in the niche: warmest-quarter mean temperature near 9 degC."""
+    out, _ = demo_dir
+    occ = pd.read_csv(out / "occurrences.csv").drop_duplicates()
+    occ = occ[(occ["occurrenceStatus"] == "present") & occ["decimalLongitude"].between(-40, -20)
+              & occ["decimalLatitude"].between(40, 55)]
+    with xr.open_dataset(out / "baseline.nc") as b:
+        tavg = 0.5 * (b["tasmin"] + b["tasmax"])
+        # warmest rolling quarter, wrapping Dec-Jan (O'Donnell & Ignizio 2012, USGS DS 691)
+        q = xr.concat([tavg.roll(time=-k, roll_coords=False) for k in range(3)], "k").mean("k")
+        bio10 = q.max("time")
+        pts = bio10.sel(lon=xr.DataArray(occ["decimalLongitude"].values),
+                        lat=xr.DataArray(occ["decimalLatitude"].values), method="nearest")
+        vals = pts.values[np.isfinite(pts.values)]
+        p_annual = b["pr"].sum("time")
+        n = json.loads((out / "truth.json").read_text())["niche"]
+        prob = np.exp(-0.5 * ((bio10 - n["bio10_optimum_degC"]) / n["bio10_sd_degC"]) ** 2) / (
+            1 + np.exp(-(p_annual - n["bio12_midpoint_mm"]) / n["bio12_scale_mm"]))
+        prob = prob.where(np.isfinite(bio10))
+        p_pts = prob.sel(lon=xr.DataArray(occ["decimalLongitude"].values),
+                         lat=xr.DataArray(occ["decimalLatitude"].values), method="nearest")
+    land_bio10 = bio10.values[np.isfinite(bio10.values)]
+    # presences are pulled from the land's climate towards the optimum (9 degC) ...
+    assert np.median(vals) < np.median(land_bio10) - 0.3
+    assert 7.0 < np.median(vals) < 12.5
+    # ... and sit where the known presence probability is high
+    assert float(p_pts.mean()) > 1.5 * float(prob.mean())
+
+
+def test_dated_records(demo_dir):
+    out, _ = demo_dir
+    rec = pd.read_csv(out / "dated_records.csv")
+    assert list(rec.columns) == ["record_id", "lon", "lat", "age_bp", "age_sd", "material"]
+    assert 8 <= len(rec) <= 20
+    assert rec["record_id"].is_unique
+    assert rec["age_bp"].between(4000, 22000).all()
+    assert (rec["age_sd"] > 0).all()
+    with xr.open_dataset(out / "dem.nc") as dem:
+        z = _nearest_elevation(dem, rec["lon"].values, rec["lat"].values)
+    glacial = rec["age_bp"] >= 15000
+    assert ((z > -120) & (z <= 0) & glacial.values).sum() >= 1  # on the exposed shelf
+    assert (z > -120).all()  # all on land at the time (at worst on the exposed shelf)
+
+
+def test_truth_json(demo_dir):
+    """The true niche area is a sum of spherical cell areas.
+
+    Reference: land area recomputed with pyproj.Geod(ellps="WGS84") polygon areas; sphere
+    vs ellipsoid differ by well under 1 % at these latitudes.
+    """
+    from pyproj import Geod
+
+    out, _ = demo_dir
+    truth = json.loads((out / "truth.json").read_text())
+    assert truth["species"] == demo.SPECIES
+    assert truth["niche"]["bio10_optimum_degC"] == 9.0
+    assert 0 < truth["true_niche_area_km2"] < truth["land_area_km2"]
+    geod = Geod(ellps="WGS84")
+    with xr.open_dataset(out / "dem.nc") as d:
+        land = d["elevation"].values > 0
+        h = 0.125
+        total = 0.0
+        for i, j in zip(*np.nonzero(land)):
+            lo, la = float(d.lon[j]), float(d.lat[i])
+            a, _ = geod.polygon_area_perimeter([lo - h, lo + h, lo + h, lo - h],
+                                               [la - h, la - h, la + h, la + h])
+            total += abs(a) / 1e6
+    assert truth["land_area_km2"] == pytest.approx(total, rel=0.01)
+
+
+# --- bad inputs --------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("res", [0.3, 0.0, -0.1, 1.0, "fine"])
+def test_bad_resolution_is_a_config_error(tmp_path, res):
+    with pytest.raises(ConfigError, match="resolution"):
+        demo.generate(tmp_path, resolution=res)
+
+
+def test_bad_seed_and_output_path(tmp_path):
+    with pytest.raises(ConfigError, match="seed"):
+        demo.generate(tmp_path, seed=1.5)
+    f = tmp_path / "a_file"
+    f.write_text("x")
+    with pytest.raises(TimesliceError, match="a_file"):
+        demo.generate(f)

@@ -1,0 +1,882 @@
+"""Generator of the invented demo scenario.
+
+Everything here is invented: an island landmass in the middle of an ocean, its climate, three
+climate models (``alder``, ``birch``, ``cedar``) with their own biases, an ice sheet at 21 ka,
+and an invented cold-adapted plant *Nivalia demonstrata* (invented genus) with occurrence and
+dated fossil-like records. No real place, species or data set is used.
+
+The scenario is a deterministic function of ``seed`` and ``resolution``: the same arguments give
+the same files bit for bit (no timestamps are written). :func:`generate` writes
+
+- ``baseline.nc``: fine monthly climatology ``tasmin``, ``tasmax`` (degC), ``pr`` (mm/month),
+  NaN at sea (so the pipeline has to fill exposed shelf);
+- ``dem.nc``: ``elevation`` in m (negative below present sea level);
+- ``ice_21ka.nc``: ``sftgif`` in % on a 0.5 degree grid;
+- ``models/<model>/<slice>.nc``: raw model output on a 1 degree grid (K, kg m-2 s-1,
+  longitudes 0..360, ``cedar`` with descending latitude, calendars noleap / 360_day);
+- ``occurrences.csv`` (Darwin Core columns), ``dated_records.csv``;
+- ``truth.json``: the niche parameters, the true niche area and what was put in.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as _dt
+import hashlib
+import io as _io
+import json
+import os
+from pathlib import Path
+
+import cftime
+import numpy as np
+import xarray as xr
+from scipy import ndimage
+
+from timeslice.errors import ConfigError
+from timeslice.grid import cell_area, make_grid
+from timeslice.io import atomic_path
+
+__all__ = [
+    "DEFAULT_SEED",
+    "FINE_EXTENT",
+    "MODEL_EXTENT",
+    "MODELS",
+    "SLICES",
+    "SPECIES",
+    "generate",
+    "main",
+    "write_default",
+]
+
+#: Default seed of the committed demo files.
+DEFAULT_SEED = 20261201
+
+#: Fine grid extent (lon_min, lon_max, lat_min, lat_max), degrees.
+FINE_EXTENT = (-40.0, -20.0, 40.0, 55.0)
+#: Coarse climate-model grid extent, degrees (1 degree cells).
+MODEL_EXTENT = (-45.0, -15.0, 35.0, 60.0)
+MODEL_RESOLUTION = 1.0
+ICE_RESOLUTION = 0.5
+
+#: Invented species name (invented genus).
+SPECIES = "Nivalia demonstrata"
+
+#: Standard-atmosphere lapse rate below 11 km, K per m (ICAO Doc 7488, ISO 2533:1975).
+LAPSE_RATE_K_PER_M = 0.0065
+#: Density of liquid water used to turn a mass flux into a depth, kg m-3 (common practice).
+WATER_DENSITY = 1000.0
+SECONDS_PER_DAY = 86400.0
+#: Sea-level drop at 21 ka used by the scenario, m (an invented round value in the range of
+#: published estimates, e.g. about -134 m in Lambeck et al. 2014, PNAS 111:15296).
+SEA_LEVEL_21KA = -120.0
+#: Approximate length of one degree of latitude, km (spherical Earth, R = 6371 km).
+KM_PER_DEGREE = 111.195
+
+# ---------------------------------------------------------------------------------------------
+# invented scenario parameters
+# ---------------------------------------------------------------------------------------------
+
+#: Niche of the invented plant (in bioclimatic terms computed from the monthly fields):
+#: Gaussian in the mean temperature of the warmest quarter, logistic in annual precipitation.
+NICHE = {
+    "bio10_optimum_degC": 9.0,
+    "bio10_sd_degC": 2.0,
+    "bio12_midpoint_mm": 900.0,
+    "bio12_scale_mm": 80.0,
+    "presence_threshold": 0.5,
+}
+
+#: Model biases against the invented truth (baseline runs).
+MODELS: dict[str, dict] = {
+    "alder": {"calendar": "noleap", "lat_descending": False,
+              "dT": 1.2, "dT_per_deg_lat": 0.02, "dtr": 0.4, "pr_factor": 1.10,
+              "pr_per_deg_lon": 0.004},
+    "birch": {"calendar": "noleap", "lat_descending": False,
+              "dT": -0.8, "dT_per_deg_lat": -0.03, "dtr": -0.3, "pr_factor": 0.85,
+              "pr_per_deg_lon": -0.003},
+    "cedar": {"calendar": "360_day", "lat_descending": True,
+              "dT": 0.3, "dT_per_deg_lat": 0.08, "dtr": 0.8, "pr_factor": 1.00,
+              "pr_per_deg_lon": 0.006},
+}
+
+#: Slices: label -> (scenario, period, year CE, age BP or None, first year, last year of the
+#: nominal climatology, per-model change). Change: ``dT`` domain-mean warming (K),
+#: ``summer`` seasonal amplitude (K, + in July), ``pr`` annual factor, ``pr_summer`` extra
+#: summer factor.
+SLICES: dict[str, dict] = {
+    "21ka": {"scenario": "past", "period": "21ka", "age_bp": 21000, "years": (1, 30),
+             "change": {"alder": {"dT": -6.6, "summer": -0.5, "pr": 0.65, "pr_summer": 0.0},
+                        "birch": {"dT": -5.3, "summer": -0.3, "pr": 0.75, "pr_summer": 0.0},
+                        "cedar": {"dT": -6.0, "summer": -0.8, "pr": 0.70, "pr_summer": 0.0}}},
+    "6ka": {"scenario": "past", "period": "6ka", "age_bp": 6000, "years": (1, 30),
+            "change": {"alder": {"dT": 0.1, "summer": 0.8, "pr": 1.02, "pr_summer": -0.03},
+                       "birch": {"dT": 0.0, "summer": 0.6, "pr": 1.04, "pr_summer": -0.02},
+                       "cedar": {"dT": 0.2, "summer": 1.0, "pr": 1.00, "pr_summer": -0.05}}},
+    "low-forcing_2041-2060": {
+        "scenario": "low-forcing", "period": "2041-2060", "age_bp": None, "years": (2041, 2060),
+        "change": {"alder": {"dT": 1.5, "summer": 0.2, "pr": 1.02, "pr_summer": -0.04},
+                   "birch": {"dT": 1.7, "summer": 0.3, "pr": 0.99, "pr_summer": -0.06},
+                   "cedar": {"dT": 1.3, "summer": 0.1, "pr": 1.03, "pr_summer": -0.03}}},
+    "low-forcing_2081-2100": {
+        "scenario": "low-forcing", "period": "2081-2100", "age_bp": None, "years": (2081, 2100),
+        "change": {"alder": {"dT": 2.1, "summer": 0.3, "pr": 1.03, "pr_summer": -0.06},
+                   "birch": {"dT": 2.4, "summer": 0.4, "pr": 0.98, "pr_summer": -0.08},
+                   "cedar": {"dT": 1.9, "summer": 0.2, "pr": 1.04, "pr_summer": -0.05}}},
+    "high-forcing_2041-2060": {
+        "scenario": "high-forcing", "period": "2041-2060", "age_bp": None, "years": (2041, 2060),
+        "change": {"alder": {"dT": 2.1, "summer": 0.3, "pr": 1.01, "pr_summer": -0.07},
+                   "birch": {"dT": 2.3, "summer": 0.4, "pr": 0.97, "pr_summer": -0.09},
+                   "cedar": {"dT": 1.9, "summer": 0.2, "pr": 1.02, "pr_summer": -0.06}}},
+    "high-forcing_2081-2100": {
+        "scenario": "high-forcing", "period": "2081-2100", "age_bp": None, "years": (2081, 2100),
+        "change": {"alder": {"dT": 4.2, "summer": 0.7, "pr": 1.00, "pr_summer": -0.14},
+                   "birch": {"dT": 4.8, "summer": 0.9, "pr": 0.94, "pr_summer": -0.18},
+                   "cedar": {"dT": 3.7, "summer": 0.5, "pr": 1.03, "pr_summer": -0.12}}},
+}
+
+_BASELINE_YEARS = (1981, 2010)
+_OBS_TIME_UNITS = "days since 1950-01-01 00:00:00"
+_MODEL_TIME_UNITS = "days since 0001-01-01 00:00:00"
+_MONTH_DAYS = {
+    "standard": np.array([31, 28.25, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31]),
+    "noleap": np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=float),
+    "360_day": np.full(12, 30.0),
+}
+
+#: Demo files are plain data meant to be shared (temporary files start as 0600).
+_FILE_MODE = 0o644
+
+_TITLE = "timeslice invented demo scenario"
+_COMMENT = (
+    "Invented data: no real place, species, climate model or observation. "
+    "Generated reproducibly by timeslice.demo.generate."
+)
+
+
+# ---------------------------------------------------------------------------------------------
+# landscape
+# ---------------------------------------------------------------------------------------------
+
+
+def _noise_params(rng: np.random.Generator, n_octaves: int = 5, n_waves: int = 6) -> list:
+    """Random plane waves for a resolution-independent fractal noise (amplitude ~1)."""
+    waves = []
+    for k in range(n_octaves):
+        wavelength_km = 400.0 / 2**k
+        amp = 0.5**k
+        for _ in range(n_waves):
+            theta = rng.uniform(0, 2 * np.pi)
+            phase = rng.uniform(0, 2 * np.pi)
+            waves.append((amp / np.sqrt(n_waves), wavelength_km, theta, phase))
+    return waves
+
+
+def _noise(xkm: np.ndarray, ykm: np.ndarray, waves: list) -> np.ndarray:
+    out = np.zeros(np.broadcast(xkm, ykm).shape)
+    for amp, wl, theta, phase in waves:
+        out += amp * np.cos(2 * np.pi * (xkm * np.cos(theta) + ykm * np.sin(theta)) / wl + phase)
+    return out
+
+
+def _km(lon: np.ndarray, lat: np.ndarray, lon0: float, lat0: float):
+    """Local east/north distances (km) from (lon0, lat0); equirectangular, good to ~1 %."""
+    x = (lon - lon0) * KM_PER_DEGREE * np.cos(np.deg2rad(lat))
+    y = (lat - lat0) * KM_PER_DEGREE
+    return x, y
+
+
+def _landscape_params(rng: np.random.Generator) -> dict:
+    """Seeded positions and sizes of the invented landforms."""
+    j = lambda s: float(rng.uniform(-s, s))  # noqa: E731  (small seeded jitter)
+    return {
+        "main": {"lon": -30.5 + j(0.3), "lat": 47.8 + j(0.2), "ax_km": 330 + j(15),
+                 "ay_km": 580 + j(20)},
+        "offshore": {"lon": -24.3 + j(0.15), "lat": 45.0 + j(0.15), "r_km": 62.0},
+        "bridge": {"lon0": -27.6, "lat0": 45.6, "lon1": -24.3, "lat1": 45.0,
+                   "width_km": 42.0, "height": 0.42},
+        "north_massif": {"lon": -30.6 + j(0.2), "lat": 50.3 + j(0.15), "sx_km": 65.0,
+                         "sy_km": 115.0, "peak_m": 2450 + j(100)},
+        "south_range": {"lon": -31.6 + j(0.2), "lat": 45.3 + j(0.15), "sx_km": 42.0,
+                        "sy_km": 150.0, "peak_m": 1750 + j(100)},
+        "east_hills": {"lon": -27.9 + j(0.2), "lat": 47.6 + j(0.2), "sx_km": 55.0,
+                       "sy_km": 70.0, "peak_m": 700 + j(60)},
+        "coast_noise": _noise_params(rng),
+        "relief_noise": _noise_params(rng),
+        "climate_noise": _noise_params(rng, n_octaves=3),
+    }
+
+
+def _seg_distance(x, y, x0, y0, x1, y1):
+    dx, dy = x1 - x0, y1 - y0
+    t = np.clip(((x - x0) * dx + (y - y0) * dy) / (dx * dx + dy * dy), 0.0, 1.0)
+    return np.hypot(x - (x0 + t * dx), y - (y0 + t * dy))
+
+
+def _elevation(lon2: np.ndarray, lat2: np.ndarray, p: dict) -> np.ndarray:
+    """Elevation (m) of the invented landscape at cell centres (2-D lon/lat arrays)."""
+    m = p["main"]
+    x, y = _km(lon2, lat2, m["lon"], m["lat"])
+    r2 = (x / m["ax_km"]) ** 2 + (y / m["ay_km"]) ** 2
+    g_main = np.exp(-(r2**1.5))
+    o = p["offshore"]
+    xo, yo = _km(lon2, lat2, o["lon"], o["lat"])
+    g_off = np.exp(-((xo**2 + yo**2) / o["r_km"] ** 2))
+    b = p["bridge"]
+    xb0, yb0 = _km(np.float64(b["lon0"]), np.float64(b["lat0"]), m["lon"], m["lat"])
+    xb1, yb1 = _km(np.float64(b["lon1"]), np.float64(b["lat1"]), m["lon"], m["lat"])
+    d = _seg_distance(x, y, xb0, yb0, xb1, yb1)
+    g_bridge = b["height"] * np.exp(-((d / b["width_km"]) ** 2))
+    s = np.maximum(np.maximum(g_main, g_off), g_bridge)
+    s = s + 0.06 * _noise(x, y, p["coast_noise"]) * np.exp(-((s - 0.5) ** 2) / 0.02)
+
+    land_factor = np.clip((s - 0.5) / 0.06, 0.0, 1.0)
+    z_land = 650.0 * (s - 0.5) / 0.5
+    for key in ("north_massif", "south_range", "east_hills"):
+        q = p[key]
+        xq, yq = _km(lon2, lat2, q["lon"], q["lat"])
+        z_land = z_land + q["peak_m"] * np.exp(-((xq / q["sx_km"]) ** 2) - (yq / q["sy_km"]) ** 2)
+    relief = _noise(x, y, p["relief_noise"])
+    z_land = z_land * land_factor + 120.0 * relief * land_factor * (0.4 + z_land / 2500.0)
+    z_land = np.maximum(z_land, 2.0)
+
+    z_shelf = -150.0 * (0.5 - s) / 0.3
+    z_deep = -150.0 - 3500.0 * (0.2 - s) / 0.2
+    z = np.where(s >= 0.5, z_land, np.where(s >= 0.2, z_shelf, z_deep))
+    return z
+
+
+# ---------------------------------------------------------------------------------------------
+# climate
+# ---------------------------------------------------------------------------------------------
+
+
+def _coast_distance_km(land: np.ndarray, lat: np.ndarray, res: float) -> np.ndarray:
+    """Distance of every land cell to the nearest sea cell, km (0 at sea)."""
+    dy = res * KM_PER_DEGREE
+    dx = res * KM_PER_DEGREE * float(np.cos(np.deg2rad(np.mean(lat))))
+    return ndimage.distance_transform_edt(land, sampling=(dy, dx))
+
+
+def _upwind_barrier(z: np.ndarray, lat: np.ndarray, res: float, *, decay_km: float) -> np.ndarray:
+    """Highest terrain upwind (west), decaying eastward with e-folding length `decay_km`."""
+    dx = res * KM_PER_DEGREE * np.cos(np.deg2rad(lat))  # per row
+    keep = np.exp(-dx / decay_km)
+    zpos = np.maximum(z, 0.0)
+    out = np.empty_like(zpos)
+    run = np.zeros(z.shape[0])
+    for i in range(z.shape[1]):
+        run = np.maximum(zpos[:, i], run * keep)
+        out[:, i] = run
+    return out
+
+
+def _truth_climate(lon: np.ndarray, lat: np.ndarray, z: np.ndarray, res: float,
+                   p: dict) -> dict[str, np.ndarray]:
+    """Monthly (12, lat, lon) tasmin, tasmax (degC) and pr (mm/month), defined everywhere."""
+    lon2, lat2 = np.meshgrid(lon, lat)
+    land = z > 0
+    zc = np.maximum(z, 0.0)
+    dist = _coast_distance_km(land, lat, res)
+    x, y = _km(lon2, lat2, -30.0, 47.5)
+    wobble = _noise(x, y, p["climate_noise"])
+
+    # sea-level annual mean temperature by latitude (invented), then the standard lapse rate
+    t_sea = 14.0 - 0.55 * (lat2 - 40.0) + 0.25 * wobble
+    t_annual = t_sea - LAPSE_RATE_K_PER_M * zc
+    amplitude = 3.5 + 4.0 * (1.0 - np.exp(-dist / 120.0))  # continentality
+    dtr = 5.0 + 5.0 * (1.0 - np.exp(-dist / 80.0))
+    month = np.arange(1, 13)[:, None, None]
+    # peak in late July (7.3) so that no two quarters tie
+    season = np.cos(2 * np.pi * (month - 7.3) / 12.0)
+    tas = t_annual[None] + amplitude[None] * season
+    dtr_m = dtr[None] * (1.0 + 0.15 * season)
+    tasmax = tas + 0.5 * dtr_m
+    tasmin = tas - 0.5 * dtr_m
+
+    # precipitation: westerly moisture, orographic lift on windward slopes, rain shadow in lee
+    p_annual = 1050.0 + 250.0 * (lat2 - 40.0) / 15.0 + 60.0 * wobble
+    dz_dx = np.gradient(zc, axis=1) / (res * KM_PER_DEGREE * np.cos(np.deg2rad(lat2)))  # m/km
+    windward = np.clip(dz_dx, 0.0, 30.0)
+    barrier = _upwind_barrier(z, lat, res, decay_km=160.0)
+    shadow = np.exp(-0.8 * np.maximum(barrier - zc, 0.0) / 1000.0)
+    inland = np.exp(-dist / 900.0)
+    p_annual = p_annual * (1.0 + 0.35 * zc / 1000.0 + 0.025 * windward) * shadow * inland
+    p_season = 1.0 + 0.35 * np.cos(2 * np.pi * (month - 1.0) / 12.0)  # wet winters
+    pr = p_annual[None] / 12.0 * p_season
+    return {"tasmin": tasmin, "tasmax": tasmax, "pr": pr}
+
+
+def _bio10_bio12(tasmin: np.ndarray, tasmax: np.ndarray, pr: np.ndarray):
+    """Mean temperature of the warmest quarter and annual precipitation.
+
+    Quarters are the 12 rolling 3-month windows wrapping December to January, Tavg =
+    (Tmax + Tmin)/2 (O'Donnell & Ignizio 2012, USGS Data Series 691). Computed here directly
+    so that the generator does not depend on the harmonise stage.
+    """
+    tavg = 0.5 * (tasmin + tasmax)
+    idx = (np.arange(12)[:, None] + np.arange(3)[None, :]) % 12
+    q_t = tavg[idx].mean(axis=1)
+    bio10 = q_t.max(axis=0)
+    bio12 = pr.sum(axis=0)
+    return bio10, bio12
+
+
+def _presence_probability(bio10: np.ndarray, bio12: np.ndarray) -> np.ndarray:
+    n = NICHE
+    g = np.exp(-0.5 * ((bio10 - n["bio10_optimum_degC"]) / n["bio10_sd_degC"]) ** 2)
+    lgt = 1.0 / (1.0 + np.exp(-(bio12 - n["bio12_midpoint_mm"]) / n["bio12_scale_mm"]))
+    return g * lgt
+
+
+def _block_mean(a: np.ndarray, k: int, weights_lat: np.ndarray) -> np.ndarray:
+    """Area-weighted mean over k x k blocks of the last two axes."""
+    *lead, ny, nx = a.shape
+    w = np.broadcast_to(weights_lat[:, None], (ny, nx))
+    aw = (a * w).reshape(*lead, ny // k, k, nx // k, k).sum(axis=(-3, -1))
+    ww = w.reshape(ny // k, k, nx // k, k).sum(axis=(-3, -1))
+    return aw / ww
+
+
+# ---------------------------------------------------------------------------------------------
+# writing
+# ---------------------------------------------------------------------------------------------
+
+
+def _global_attrs(seed: int, **extra) -> dict:
+    attrs = {
+        "Conventions": "CF-1.8",
+        "title": _TITLE,
+        "institution": "none (invented)",
+        "source": f"timeslice.demo.generate, seed {seed}",
+        "comment": _COMMENT,
+    }
+    attrs.update(extra)
+    return attrs
+
+
+def _coord_vars(lon: np.ndarray, lat: np.ndarray, *, res: float) -> dict:
+    lon_b = np.stack([lon - res / 2, lon + res / 2], axis=1)
+    # bounds run in the direction of the coordinate (descending latitudes stay descending)
+    sign = 1.0 if lat.size < 2 or lat[-1] > lat[0] else -1.0
+    lat_b = np.stack([lat - sign * res / 2, lat + sign * res / 2], axis=1)
+    coords = {
+        "lat": ("lat", lat, {"standard_name": "latitude", "long_name": "latitude",
+                             "units": "degrees_north", "axis": "Y", "bounds": "lat_bnds"}),
+        "lon": ("lon", lon, {"standard_name": "longitude", "long_name": "longitude",
+                             "units": "degrees_east", "axis": "X", "bounds": "lon_bnds"}),
+    }
+    bnds = {"lat_bnds": (("lat", "bnds"), lat_b), "lon_bnds": (("lon", "bnds"), lon_b)}
+    return coords, bnds
+
+
+def _time_vars(calendar: str, years: tuple[int, int], units: str):
+    """Mid-month times of the first year and CF climatology bounds spanning `years`."""
+    y0, y1 = years
+    cal = "standard" if calendar == "standard" else calendar
+    starts = [cftime.datetime(y0, m, 1, calendar=cal) for m in range(1, 13)]
+    nexts = [cftime.datetime(y0 + (m == 12), m % 12 + 1, 1, calendar=cal) for m in range(1, 13)]
+    s = cftime.date2num(starts, units, calendar=cal)
+    e = cftime.date2num(nexts, units, calendar=cal)
+    mid = 0.5 * (np.asarray(s) + np.asarray(e))
+    ends = [cftime.datetime(y1 + (m == 12), m % 12 + 1, 1, calendar=cal) for m in range(1, 13)]
+    bnd = np.stack([np.asarray(s), np.asarray(cftime.date2num(ends, units, calendar=cal))], axis=1)
+    time = ("time", mid.astype("float64"),
+            {"standard_name": "time", "long_name": "time", "units": units, "calendar": calendar,
+             "axis": "T", "climatology": "climatology_bnds"})
+    return time, (("time", "bnds"), bnd.astype("float64"))
+
+
+def _write_nc(ds: xr.Dataset, path: Path, encoding: dict) -> None:
+    for name in ds.variables:
+        encoding.setdefault(name, {})
+        encoding[name].setdefault("_FillValue", None)
+    with atomic_path(path) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4", format="NETCDF4", encoding=encoding)
+        os.chmod(tmp, _FILE_MODE)
+
+
+def _float_enc(lsd: int | None = None) -> dict:
+    enc = {"dtype": "float32", "zlib": True, "complevel": 6, "shuffle": True,
+           "_FillValue": np.float32(1.0e20)}
+    if lsd is not None:
+        enc["least_significant_digit"] = lsd
+    return enc
+
+
+def _write_text(text: str, path: Path) -> None:
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8", newline="\n")
+        os.chmod(tmp, _FILE_MODE)
+
+
+# ---------------------------------------------------------------------------------------------
+# records
+# ---------------------------------------------------------------------------------------------
+
+_DWC_COLUMNS = [
+    "occurrenceID", "scientificName", "decimalLatitude", "decimalLongitude",
+    "coordinateUncertaintyInMeters", "occurrenceStatus", "basisOfRecord", "eventDate", "year",
+    "individualCount",
+]
+
+
+def _random_date(rng: np.random.Generator) -> tuple[str, int]:
+    start = _dt.date(1950, 1, 1).toordinal()
+    end = _dt.date(2020, 12, 31).toordinal()
+    d = _dt.date.fromordinal(int(rng.integers(start, end + 1)))
+    return d.isoformat(), d.year
+
+
+def _sample_points(rng, weights: np.ndarray, lon: np.ndarray, lat: np.ndarray, res: float,
+                   n: int) -> tuple[np.ndarray, np.ndarray]:
+    w = weights.ravel() / weights.sum()
+    idx = rng.choice(w.size, size=n, replace=True, p=w)
+    iy, ix = np.unravel_index(idx, weights.shape)
+    plon = lon[ix] + rng.uniform(-0.45, 0.45, n) * res
+    plat = lat[iy] + rng.uniform(-0.45, 0.45, n) * res
+    return plon, plat
+
+
+def _occurrences(rng, *, lon, lat, res, z, prob, dist, n_clean: int) -> tuple[list, dict]:
+    lon2, lat2 = np.meshgrid(lon, lat)
+    land = z > 0
+    # sampling effort: coasts, lowland "roads" (valleys below 400 m) and the south
+    effort = (0.15 + np.exp(-dist / 25.0) + 0.8 * np.exp(-np.maximum(z, 0) / 400.0)) \
+        * (1.0 + (55.0 - lat2) / 10.0)
+    weights = np.where(land, prob * effort, 0.0)
+    plon, plat = _sample_points(rng, weights, lon, lat, res, n_clean)
+    unc_choices = np.array([10, 25, 50, 100, 250, 1000, 2000, 5000])
+    basis_choices = ["HumanObservation", "HumanObservation", "HumanObservation",
+                     "PreservedSpecimen", "MachineObservation"]
+    rows = []
+    for i in range(n_clean):
+        date, year = _random_date(rng)
+        rows.append({
+            "decimalLatitude": f"{plat[i]:.5f}", "decimalLongitude": f"{plon[i]:.5f}",
+            "coordinateUncertaintyInMeters": str(int(rng.choice(unc_choices))),
+            "occurrenceStatus": "present",
+            "basisOfRecord": basis_choices[int(rng.integers(len(basis_choices)))],
+            "eventDate": date, "year": str(year),
+            "individualCount": str(int(rng.integers(1, 25))),
+            "_kind": "clean",
+        })
+
+    def clone(kind: str) -> dict:
+        r = dict(rows[int(rng.integers(n_clean))])
+        r["_kind"] = kind
+        return r
+
+    bad_counts = {"swapped_lat_lon": 5, "zero_coordinates": 3, "at_sea": 5,
+                  "exact_duplicate": 5, "absent": 4, "huge_uncertainty": 3}
+    bad = []
+    for _ in range(bad_counts["swapped_lat_lon"]):
+        r = clone("swapped_lat_lon")
+        r["decimalLatitude"], r["decimalLongitude"] = r["decimalLongitude"], r["decimalLatitude"]
+        bad.append(r)
+    for _ in range(bad_counts["zero_coordinates"]):
+        r = clone("zero_coordinates")
+        r["decimalLatitude"], r["decimalLongitude"] = "0.00000", "0.00000"
+        bad.append(r)
+    sea = (z < -300.0) & (np.abs(lon2 + 30.0) < 9.0) & (np.abs(lat2 - 47.5) < 6.5)
+    slon, slat = _sample_points(rng, sea.astype(float), lon, lat, res,
+                                bad_counts["at_sea"])
+    for i in range(bad_counts["at_sea"]):
+        r = clone("at_sea")
+        r["decimalLatitude"], r["decimalLongitude"] = f"{slat[i]:.5f}", f"{slon[i]:.5f}"
+        bad.append(r)
+    for _ in range(bad_counts["absent"]):
+        r = clone("absent")
+        r["occurrenceStatus"] = "absent"
+        r["individualCount"] = "0"
+        bad.append(r)
+    for _ in range(bad_counts["huge_uncertainty"]):
+        r = clone("huge_uncertainty")
+        r["coordinateUncertaintyInMeters"] = str(int(rng.choice([50000, 75000, 120000])))
+        bad.append(r)
+    # ids first, so that exact duplicates repeat the id as well
+    allrows = rows + bad
+    order = rng.permutation(len(allrows))
+    allrows = [allrows[i] for i in order]
+    for k, r in enumerate(allrows, start=1):
+        r["occurrenceID"] = f"urn:timeslice-demo:nivalia:{k:05d}"
+        r["scientificName"] = SPECIES
+    dups = [dict(allrows[int(i)]) for i in rng.choice(
+        [k for k, r in enumerate(allrows) if r["_kind"] == "clean"],
+        size=bad_counts["exact_duplicate"], replace=False)]
+    for r in dups:
+        r["_kind"] = "exact_duplicate"
+    for r in dups:
+        pos = int(rng.integers(len(allrows) + 1))
+        allrows.insert(pos, r)
+    return allrows, bad_counts
+
+
+def _rows_to_csv(rows: list[dict], columns: list[str]) -> str:
+    buf = _io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(columns)
+    for r in rows:
+        w.writerow([r[c] for c in columns])
+    return buf.getvalue()
+
+
+def _dated_records(rng, *, lon, lat, res, z, prob21, n: int = 12) -> list[dict]:
+    """Invented fossil-like records: glacial ones on lowlands, shelf and the south, Holocene
+    ones at mid elevations."""
+    lon2, lat2 = np.meshgrid(lon, lat)
+    shelf = (z <= 0) & (z > SEA_LEVEL_21KA)
+    low_south = (z > 0) & (z < 400) & (lat2 < 47.0)
+    montane = (z > 600) & (z < 1600)
+    plans = [("shelf", shelf, 3, (17000, 22000)), ("low_south", low_south, 4, (12000, 21000)),
+             ("montane", montane, 5, (4000, 9000))]
+    materials = ["pollen", "macrofossil", "seed", "leaf fragment"]
+    out = []
+    for kind, mask, k, (a0, a1) in plans:
+        w = np.where(mask, 0.2 + (prob21 if kind != "montane" else 1.0), 0.0)
+        if w.sum() == 0:  # very coarse test grids
+            w = np.where(z > 0, 1.0, 0.0)
+        plon, plat = _sample_points(rng, w, lon, lat, res, k)
+        for i in range(k):
+            age = float(np.round(rng.uniform(a0, a1), -1))
+            sd = float(np.round(30 + 0.02 * age * rng.uniform(0.5, 1.5), 0))
+            out.append({"lon": f"{plon[i]:.4f}", "lat": f"{plat[i]:.4f}",
+                        "age_bp": f"{age:.0f}", "age_sd": f"{sd:.0f}",
+                        "material": materials[int(rng.integers(len(materials)))],
+                        "_setting": kind})
+    order = np.argsort([-float(r["age_bp"]) for r in out], kind="stable")
+    out = [out[i] for i in order]
+    for k, r in enumerate(out, start=1):
+        r["record_id"] = f"DR{k:03d}"
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# public
+# ---------------------------------------------------------------------------------------------
+
+
+def _check_resolution(resolution: float) -> int:
+    try:
+        r = float(resolution)
+    except (TypeError, ValueError):
+        raise ConfigError(f"demo `resolution` must be a number of degrees, got {resolution!r}") \
+            from None
+    k = round(MODEL_RESOLUTION / r) if r > 0 else 0
+    if r <= 0 or k < 1 or abs(k * r - MODEL_RESOLUTION) > 1e-9 or r > 0.5:
+        raise ConfigError(
+            f"demo `resolution` must divide 1 degree evenly and be at most 0.5 "
+            f"(e.g. 0.1, 0.25, 0.5), got {resolution!r}"
+        )
+    return k
+
+
+def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
+             resolution: float = 0.1) -> dict[str, Path]:
+    """Write the invented demo scenario to `out_dir`.
+
+    Parameters
+    ----------
+    out_dir : path
+        Folder to write into (created if missing). Existing demo files are replaced
+        atomically; other files are left alone.
+    seed : int
+        Seed of every random choice; the same seed and resolution give identical bytes.
+    resolution : float
+        Fine-grid cell size in degrees; must divide 1 degree (0.1 for the committed demo;
+        0.25 or 0.5 for quick tests).
+
+    Returns
+    -------
+    dict of str to pathlib.Path
+        Keys ``baseline``, ``dem``, ``ice_21ka``, ``occurrences``, ``dated_records``,
+        ``truth`` and ``<model>/<slice>`` (e.g. ``alder/baseline``, ``cedar/21ka``).
+
+    Notes
+    -----
+    Temperature falls with elevation at the standard-atmosphere lapse rate,
+
+    .. math:: T(z) = T_0(\\varphi) - \\Gamma z, \\quad \\Gamma = 6.5\\ \\mathrm{K\\,km^{-1}}
+
+    (ICAO 1993, Manual of the ICAO Standard Atmosphere, Doc 7488/3). Precipitation fluxes
+    in the model files are depths per month divided by the month's length in the model's
+    calendar and multiplied by the density of water, 1000 kg m-3.
+    """
+    if not isinstance(seed, (int, np.integer)) or isinstance(seed, bool):
+        raise ConfigError(f"demo `seed` must be an integer, got {seed!r}")
+    k = _check_resolution(resolution)
+    res = MODEL_RESOLUTION / k
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise ConfigError(f"demo output folder {str(out)!r} is a file; give a folder path")
+    out.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(seed)
+    p = _landscape_params(rng)
+    paths: dict[str, Path] = {}
+
+    # truth on the model domain at the fine resolution; the fine grid is a sub-box of it
+    big = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1], lat_min=MODEL_EXTENT[2],
+                    lat_max=MODEL_EXTENT[3], resolution=res)
+    blon, blat = big["lon"].values, big["lat"].values
+    blon2, blat2 = np.meshgrid(blon, blat)
+    bz = _elevation(blon2, blat2, p)
+    truth = _truth_climate(blon, blat, bz, res, p)
+
+    fx = (blon > FINE_EXTENT[0]) & (blon < FINE_EXTENT[1])
+    fy = (blat > FINE_EXTENT[2]) & (blat < FINE_EXTENT[3])
+    lon, lat = blon[fx], blat[fy]
+    z = bz[np.ix_(fy, fx)]
+    land = z > 0
+    fine = {k2: v[:, fy][:, :, fx] for k2, v in truth.items()}
+
+    # --- DEM -----------------------------------------------------------------------------
+    coords, bnds = _coord_vars(lon, lat, res=res)
+    dem = xr.Dataset(
+        {"elevation": (("lat", "lon"), z.astype("float32"), {
+            "standard_name": "height_above_mean_sea_level", "long_name": "surface elevation",
+            "units": "m", "positive": "up",
+            "description": "invented terrain and bathymetry relative to present sea level; "
+                           "negative values are below sea level"}),
+         **bnds},
+        coords=coords, attrs=_global_attrs(seed),
+    )
+    paths["dem"] = out / "dem.nc"
+    _write_nc(dem, paths["dem"], {"elevation": _float_enc(lsd=1)})
+
+    # --- fine baseline (NaN at sea) ------------------------------------------------------
+    time, clim_b = _time_vars("standard", _BASELINE_YEARS, _OBS_TIME_UNITS)
+    dims = ("time", "lat", "lon")
+    mask = land[None]
+    base_vars = {
+        "tasmin": (dims, np.where(mask, fine["tasmin"], np.nan).astype("float32"), {
+            "standard_name": "air_temperature", "long_name": "mean daily minimum near-surface air temperature",
+            "units": "degC", "cell_methods": "time: minimum within days time: mean over days "
+                                             "time: mean over years"}),
+        "tasmax": (dims, np.where(mask, fine["tasmax"], np.nan).astype("float32"), {
+            "standard_name": "air_temperature", "long_name": "mean daily maximum near-surface air temperature",
+            "units": "degC", "cell_methods": "time: maximum within days time: mean over days "
+                                             "time: mean over years"}),
+        "pr": (dims, np.where(mask, fine["pr"], np.nan).astype("float32"), {
+            "standard_name": "lwe_thickness_of_precipitation_amount",
+            "long_name": "monthly precipitation total", "units": "mm/month",
+            "cell_methods": "time: sum within months time: mean over years"}),
+    }
+    base = xr.Dataset({**base_vars, "climatology_bnds": clim_b, **bnds},
+                      coords={**coords, "time": time},
+                      attrs=_global_attrs(seed, model="observed", scenario="baseline",
+                                          period=f"{_BASELINE_YEARS[0]}-{_BASELINE_YEARS[1]}",
+                                          note="values over sea are missing on purpose"))
+    paths["baseline"] = out / "baseline.nc"
+    _write_nc(base, paths["baseline"], {v: _float_enc(lsd=2) for v in base_vars})
+
+    # --- ice sheet at 21 ka on 0.5 degree --------------------------------------------------
+    ig = make_grid(lon_min=FINE_EXTENT[0], lon_max=FINE_EXTENT[1], lat_min=FINE_EXTENT[2],
+                   lat_max=FINE_EXTENT[3], resolution=ICE_RESOLUTION)
+    ilon, ilat = ig["lon"].values, ig["lat"].values
+    ilon2, ilat2 = np.meshgrid(ilon, ilat)
+    q = p["north_massif"]
+    xq, yq = _km(ilon2, ilat2, q["lon"], q["lat"])
+    ice_shape = np.exp(-((xq / (2.6 * q["sx_km"])) ** 2) - (yq / (1.7 * q["sy_km"])) ** 2)
+    sftgif = np.where(ice_shape > 0.35, 100.0, 0.0)
+    icoords, ibnds = _coord_vars(ilon, ilat, res=ICE_RESOLUTION)
+    ice = xr.Dataset(
+        {"sftgif": (("lat", "lon"), sftgif.astype("float32"), {
+            "standard_name": "land_ice_area_fraction", "long_name": "land ice area fraction",
+            "units": "%", "description": "invented ice sheet over the northern highland "
+                                         "massif and a margin at 21 ka BP"}),
+         **ibnds},
+        coords=icoords, attrs=_global_attrs(seed, period="21ka", age_bp=21000),
+    )
+    paths["ice_21ka"] = out / "ice_21ka.nc"
+    _write_nc(ice, paths["ice_21ka"], {"sftgif": _float_enc()})
+
+    # --- climate models -------------------------------------------------------------------
+    wlat = np.cos(np.deg2rad(blat))
+    cg = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1], lat_min=MODEL_EXTENT[2],
+                   lat_max=MODEL_EXTENT[3], resolution=MODEL_RESOLUTION)
+    clon, clat = cg["lon"].values, cg["lat"].values
+    clon2, clat2 = np.meshgrid(clon, clat)
+    coarse = {k2: _block_mean(v, k, wlat) for k2, v in truth.items()}
+    czpos = _block_mean(np.maximum(bz, 0.0), k, wlat)
+    ice_big = np.zeros_like(bz)
+    qx, qy = _km(blon2, blat2, q["lon"], q["lat"])
+    ice_big[np.exp(-((qx / (2.6 * q["sx_km"])) ** 2) - (qy / (1.7 * q["sy_km"])) ** 2) > 0.35] = 1
+    cice = _block_mean(ice_big, k, wlat)
+    month = np.arange(1, 13)[:, None, None]
+    summer = np.cos(2 * np.pi * (month - 7.0) / 12.0)
+    # warming pattern: more in the north and at high elevation, domain mean about 1
+    pattern = 1.0 + 0.12 * (clat2 - 47.5) / 12.5 + 0.15 * czpos / 1000.0
+    pattern = pattern / pattern.mean()
+    dry_south = 1.0 + 0.5 * (47.5 - clat2) / 12.5
+
+    for mname, mb in MODELS.items():
+        cal = mb["calendar"]
+        days = _MONTH_DAYS[cal][:, None, None]
+        bias_t = mb["dT"] + mb["dT_per_deg_lat"] * (clat2 - 47.5)
+        bias_p = mb["pr_factor"] * (1.0 + mb["pr_per_deg_lon"] * (clon2 + 30.0))
+        mbase = {
+            "tasmin": coarse["tasmin"] + bias_t - 0.5 * mb["dtr"],
+            "tasmax": coarse["tasmax"] + bias_t + 0.5 * mb["dtr"],
+            "pr": coarse["pr"] * bias_p,
+        }
+        entries = [("baseline", None, {"scenario": "baseline", "period": "1981-2010",
+                                       "years": _BASELINE_YEARS, "age_bp": None})]
+        entries += [(lab, spec["change"][mname], spec) for lab, spec in SLICES.items()]
+        for label, ch, spec in entries:
+            if ch is None:
+                fields = mbase
+            else:
+                dT = ch["dT"] * pattern + ch["summer"] * summer
+                if label == "21ka":
+                    dT = dT - 3.0 * cice  # extra cooling over the ice sheet
+                fac = ch["pr"] * (1.0 + ch["pr_summer"] * np.clip(summer, 0, None) * dry_south)
+                fields = {
+                    "tasmin": mbase["tasmin"] + dT * 1.04,
+                    "tasmax": mbase["tasmax"] + dT * 0.96,
+                    "pr": mbase["pr"] * fac,
+                }
+            paths[f"{mname}/{label}"] = _write_model_file(
+                out / "models" / mname / f"{label}.nc", fields, clon, clat, days,
+                model=mname, calendar=cal, lat_descending=mb["lat_descending"],
+                scenario=spec["scenario"], period=spec["period"], years=spec["years"],
+                age_bp=spec["age_bp"], seed=seed)
+
+    # --- records --------------------------------------------------------------------------
+    bio10, bio12 = _bio10_bio12(fine["tasmin"], fine["tasmax"], fine["pr"])
+    prob = np.where(land, _presence_probability(bio10, bio12), 0.0)
+    dist = _coast_distance_km(land, lat, res)
+    n_clean = 480
+    occ_rows, bad_counts = _occurrences(rng, lon=lon, lat=lat, res=res, z=z, prob=prob,
+                                        dist=dist, n_clean=n_clean)
+    paths["occurrences"] = out / "occurrences.csv"
+    _write_text(_rows_to_csv(occ_rows, _DWC_COLUMNS), paths["occurrences"])
+
+    # glacial probability with a uniform -6 K (invented, only to place the dated records)
+    prob21 = _presence_probability(bio10 - 6.0 - LAPSE_RATE_K_PER_M * np.minimum(z, 0.0),
+                                   bio12 * 0.7)
+    prob21 = np.where(z > SEA_LEVEL_21KA, np.nan_to_num(prob21), 0.0)
+    dated = _dated_records(rng, lon=lon, lat=lat, res=res, z=z, prob21=prob21)
+    paths["dated_records"] = out / "dated_records.csv"
+    _write_text(_rows_to_csv(dated, ["record_id", "lon", "lat", "age_bp", "age_sd", "material"]),
+                paths["dated_records"])
+
+    # --- truth ----------------------------------------------------------------------------
+    grid_ds = xr.Dataset(coords={"lat": ("lat", lat), "lon": ("lon", lon)})
+    area = cell_area(grid_ds).values
+    suitable = land & (prob >= NICHE["presence_threshold"])
+    n_bad = sum(bad_counts.values())
+    truth_doc = {
+        "description": "Known parameters of the invented demo scenario (for checks).",
+        "seed": int(seed),
+        "resolution_deg": res,
+        "species": SPECIES,
+        "niche": {
+            **NICHE,
+            "formula": "p = exp(-0.5*((bio10 - opt)/sd)^2) / (1 + exp(-(bio12 - mid)/scale))",
+            "bio10": "mean of (tasmin+tasmax)/2 over the warmest rolling 3-month window "
+                     "(wrapping), degC",
+            "bio12": "annual precipitation total, mm",
+        },
+        "true_niche_area_km2": round(float(area[suitable].sum()), 1),
+        "true_niche_cells": int(suitable.sum()),
+        "land_area_km2": round(float(area[land].sum()), 1),
+        "land_cells": int(land.sum()),
+        "shelf_exposed_at_21ka_km2": round(float(area[(z <= 0) & (z > SEA_LEVEL_21KA)].sum()), 1),
+        "sea_level_21ka_m": SEA_LEVEL_21KA,
+        "lapse_rate_K_per_km": LAPSE_RATE_K_PER_M * 1000.0,
+        "max_elevation_m": round(float(z.max()), 1),
+        "records": {"clean": n_clean, "bad": {**bad_counts}, "total": n_clean + n_bad,
+                    "bad_fraction": round(n_bad / (n_clean + n_bad), 4)},
+        "dated_records": len(dated),
+        "models": {m: {k2: v for k2, v in mb.items()} for m, mb in MODELS.items()},
+        "slices": {lab: {"scenario": s["scenario"], "period": s["period"],
+                         "age_bp": s["age_bp"], "change": s["change"]}
+                   for lab, s in SLICES.items()},
+        "landscape": {k2: v for k2, v in p.items() if not k2.endswith("noise")},
+    }
+    paths["truth"] = out / "truth.json"
+    _write_text(json.dumps(_jsonable(truth_doc), indent=2, sort_keys=True) + "\n", paths["truth"])
+    return paths
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, (np.floating, float)):
+        return round(float(obj), 6)
+    if isinstance(obj, np.integer):
+        return int(obj)
+    return obj
+
+
+def _write_model_file(path: Path, fields: dict, clon, clat, days, *, model, calendar,
+                      lat_descending, scenario, period, years, age_bp, seed) -> Path:
+    """One raw model climatology: K, kg m-2 s-1, lon 0..360, optional descending lat."""
+    lon360 = np.mod(clon, 360.0)
+    tmin = fields["tasmin"] + 273.15
+    tmax = fields["tasmax"] + 273.15
+    flux = fields["pr"] * WATER_DENSITY / 1000.0 / (days * SECONDS_PER_DAY)  # mm -> kg m-2 s-1
+    lat = clat
+    if lat_descending:
+        lat = clat[::-1]
+        tmin, tmax, flux = tmin[:, ::-1], tmax[:, ::-1], flux[:, ::-1]
+    coords, bnds = _coord_vars(lon360, lat, res=MODEL_RESOLUTION)
+    time, clim_b = _time_vars(calendar, years, _MODEL_TIME_UNITS)
+    dims = ("time", "lat", "lon")
+    extra = {"model": model, "scenario": scenario, "period": period}
+    if age_bp is not None:
+        extra["age_bp"] = int(age_bp)
+        extra["note"] = "paleo slice: the time axis carries nominal model years"
+    ds = xr.Dataset(
+        {
+            "tasmin": (dims, tmin.astype("float32"), {
+                "standard_name": "air_temperature",
+                "long_name": "daily minimum near-surface air temperature", "units": "K",
+                "cell_methods": "time: minimum within days time: mean over years"}),
+            "tasmax": (dims, tmax.astype("float32"), {
+                "standard_name": "air_temperature",
+                "long_name": "daily maximum near-surface air temperature", "units": "K",
+                "cell_methods": "time: maximum within days time: mean over years"}),
+            "pr": (dims, flux.astype("float32"), {
+                "standard_name": "precipitation_flux", "long_name": "precipitation",
+                "units": "kg m-2 s-1", "cell_methods": "time: mean within months "
+                                                       "time: mean over years"}),
+            "climatology_bnds": clim_b,
+            **bnds,
+        },
+        coords={**coords, "time": time},
+        attrs=_global_attrs(seed, **extra),
+    )
+    _write_nc(ds, path, {v: _float_enc() for v in ("tasmin", "tasmax", "pr")})
+    return path
+
+
+def _repo_demo_dir() -> Path:
+    return Path(__file__).resolve().parent.parent / "demo_data"
+
+
+def write_default(out_dir: str | os.PathLike | None = None) -> dict[str, Path]:
+    """Regenerate the committed demo files (``demo_data/`` in the repository by default)."""
+    return generate(_repo_demo_dir() if out_dir is None else out_dir)
+
+
+def sha256_of(paths: dict[str, Path]) -> dict[str, str]:
+    """SHA-256 of every written file, for reproducibility checks."""
+    return {k: hashlib.sha256(Path(v).read_bytes()).hexdigest() for k, v in sorted(paths.items())}
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m timeslice.demo [OUT_DIR]``: regenerate the demo files."""
+    import sys
+
+    args = sys.argv[1:] if argv is None else argv
+    paths = write_default(args[0] if args else None)
+    total = sum(Path(v).stat().st_size for v in paths.values())
+    print(f"wrote {len(paths)} files ({total / 1e6:.2f} MB) to {Path(paths['dem']).parent}")
+    return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())
