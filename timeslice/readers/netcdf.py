@@ -1,7 +1,477 @@
-"""CF NetCDF climate reader (placeholder until implemented)."""
+"""CF NetCDF climate reader: any regular lat-lon CF file to canonical names and units.
+
+Canonical output (docs/architecture.md): ``tasmin``, ``tasmax``, ``tas`` in degC and ``pr`` in
+mm month-1 on a ``month`` dimension 1..12; or single fields ``elevation`` (m) and ``ice``
+(land-ice area fraction, 0..1); or ``bio1``..``bio19``. ``lat`` ascending, ``lon`` in
+[-180, 180). ``attrs["source_files"]`` and ``attrs["harmonise_log"]`` are JSON-encoded lists.
+"""
 
 from __future__ import annotations
 
+import glob as _glob
+import json
+import os
+import re
+from collections.abc import Mapping, Sequence
+from pathlib import Path
 
-def open_climate(path, **kwargs):  # pragma: no cover - replaced by the implementation
-    raise NotImplementedError
+import numpy as np
+import xarray as xr
+
+from timeslice.errors import DataError, InputFileError
+from timeslice.grid import normalise_lonlat
+from timeslice.harmonise.units import (
+    SECONDS_PER_DAY,
+    days_in_month,
+    parse_units,
+    precipitation_conversion,
+    temperature_conversion,
+)
+
+__all__ = ["DEFAULT_ALIASES", "open_climate"]
+
+#: Names tried (after CF standard names) for each canonical variable; a user mapping
+#: given as ``aliases`` is tried first.
+DEFAULT_ALIASES: dict[str, tuple[str, ...]] = {
+    "tasmin": ("tasmin", "tmin", "tn", "tmn", "mn2t", "min_temperature", "tasmin_mean"),
+    "tasmax": ("tasmax", "tmax", "tx", "tmx", "mx2t", "max_temperature", "tasmax_mean"),
+    "tas": ("tas", "tavg", "tmean", "tg", "t2m", "temperature", "tmp"),
+    "pr": ("pr", "prec", "precip", "prcp", "ppt", "tp", "pre", "rain", "precipitation"),
+    "elevation": ("elevation", "elev", "orog", "dem", "altitude", "height", "topo", "z",
+                  "bathymetry", "topography"),
+    "ice": ("ice", "sftgif", "ice_fraction", "icefrac", "glacier"),
+    **{f"bio{i}": (f"bio{i}", f"bio_{i}", f"bio{i:02d}", f"bio_{i:02d}") for i in range(1, 20)},
+}
+
+_STANDARD_NAMES: dict[str, str] = {
+    "precipitation_flux": "pr",
+    "precipitation_amount": "pr",
+    "lwe_precipitation_rate": "pr",
+    "thickness_of_precipitation_amount": "pr",
+    "lwe_thickness_of_precipitation_amount": "pr",
+    "surface_altitude": "elevation",
+    "height_above_mean_sea_level": "elevation",
+    "altitude": "elevation",
+    "land_ice_area_fraction": "ice",
+}
+
+_TEMPERATURE = ("tasmin", "tasmax", "tas")
+_MONTHLY = ("tasmin", "tasmax", "tas", "pr")
+
+_CANONICAL_ATTRS = {
+    "tasmin": {"standard_name": "air_temperature", "long_name": "monthly mean daily minimum near-surface air temperature", "cell_methods": "time: minimum within days time: mean over days"},
+    "tasmax": {"standard_name": "air_temperature", "long_name": "monthly mean daily maximum near-surface air temperature", "cell_methods": "time: maximum within days time: mean over days"},
+    "tas": {"standard_name": "air_temperature", "long_name": "monthly mean near-surface air temperature"},
+    "pr": {"standard_name": "lwe_thickness_of_precipitation_amount", "long_name": "monthly precipitation total"},
+    "elevation": {"standard_name": "height_above_mean_sea_level", "long_name": "elevation relative to present sea level (negative below)"},
+    "ice": {"standard_name": "land_ice_area_fraction", "long_name": "land ice area fraction"},
+}
+
+
+def _expand_paths(path) -> list[Path]:
+    if isinstance(path, (str, os.PathLike)):
+        items = [path]
+    elif isinstance(path, Sequence):
+        items = list(path)
+    else:
+        raise InputFileError(f"climate input {path!r}: expected a path, a glob or a list of paths")
+    out: list[Path] = []
+    for item in items:
+        text = os.fspath(item)
+        if any(ch in text for ch in "*?["):
+            found = sorted(_glob.glob(text))
+            if not found:
+                raise InputFileError(f"{text}: the pattern matches no file; check the path")
+            out.extend(Path(f) for f in found)
+        else:
+            p = Path(text)
+            if not p.is_file():
+                raise InputFileError(f"{text}: file not found; check the path in the config")
+            out.append(p)
+    return out
+
+
+def _open_one(path: Path, chunks) -> xr.Dataset:
+    try:
+        return xr.open_dataset(
+            path,
+            decode_times=xr.coders.CFDatetimeCoder(use_cftime=True),
+            chunks=chunks,
+        )
+    except (OSError, ValueError) as err:
+        raise InputFileError(
+            f"{path}: cannot be read as NetCDF ({type(err).__name__}: {str(err).splitlines()[0][:120]}); "
+            "give a CF NetCDF file"
+        ) from err
+
+
+def _aux_names(ds: xr.Dataset) -> set[str]:
+    aux: set[str] = set()
+    for name in list(ds.variables):
+        for key in ("bounds", "climatology"):
+            ref = ds[name].attrs.get(key) or ds[name].encoding.get(key)
+            if ref:
+                aux.add(str(ref))
+    for name in ds.data_vars:
+        if re.search(r"(_bnds|_bounds|_bnd)$", str(name)) or str(name) in {"crs", "spatial_ref"}:
+            aux.add(str(name))
+    return aux
+
+
+def _identify(ds: xr.Dataset, aliases: Mapping[str, object] | None, source: str) -> dict[str, str]:
+    """Map canonical name -> file variable name."""
+    aux = _aux_names(ds)
+    candidates = [str(v) for v in ds.data_vars if str(v) not in aux and ds[v].ndim >= 2]
+    found: dict[str, str] = {}
+    # 1. explicit user mapping
+    for canon, names in (aliases or {}).items():
+        names = [names] if isinstance(names, str) else list(names)  # type: ignore[arg-type]
+        for n in names:
+            if n in ds.data_vars:
+                found[canon] = n
+                break
+    taken = set(found.values())
+    # 2. CF standard names (tasmin/tasmax told apart by cell_methods)
+    for v in candidates:
+        if v in taken:
+            continue
+        sn = str(ds[v].attrs.get("standard_name", "")).lower()
+        canon = _STANDARD_NAMES.get(sn)
+        if sn == "air_temperature":
+            cm = str(ds[v].attrs.get("cell_methods", "")).lower()
+            low = v.lower()
+            if "minimum" in cm or low in DEFAULT_ALIASES["tasmin"]:
+                canon = "tasmin"
+            elif "maximum" in cm or low in DEFAULT_ALIASES["tasmax"]:
+                canon = "tasmax"
+            else:
+                canon = "tas"
+        if canon and canon not in found:
+            found[canon] = v
+            taken.add(v)
+    # 3. default aliases on names
+    for canon, names in DEFAULT_ALIASES.items():
+        if canon in found:
+            continue
+        for v in candidates:
+            if v not in taken and v.lower() in names:
+                found[canon] = v
+                taken.add(v)
+                break
+    return found
+
+
+def _time_name(da: xr.DataArray, ds: xr.Dataset) -> str | None:
+    for d in da.dims:
+        if d in ds.coords:
+            c = ds[d]
+            if c.attrs.get("standard_name") == "time" or c.attrs.get("axis") == "T" or d == "time":
+                return str(d)
+            if c.dtype == object or np.issubdtype(c.dtype, np.datetime64):
+                return str(d)
+        elif d == "time":
+            return str(d)
+    return None
+
+
+def _calendar(ds: xr.Dataset, tname: str) -> str:
+    t = ds[tname]
+    cal = t.encoding.get("calendar") or t.attrs.get("calendar")
+    if cal is None and t.size and hasattr(t.values.flat[0], "calendar"):
+        cal = t.values.flat[0].calendar
+    return str(cal or "standard").lower()
+
+
+def _parse_period(period, source: str) -> tuple[int, int]:
+    if isinstance(period, (tuple, list)) and len(period) == 2:
+        return int(period[0]), int(period[1])
+    m = re.fullmatch(r"\s*(-?\d+)\s*[-/:]\s*(-?\d+)\s*", str(period))
+    if not m:
+        raise DataError(
+            f"{source}: `period` {period!r} is not of the form 'YYYY-YYYY' (e.g. '2041-2060')"
+        )
+    a, b = int(m.group(1)), int(m.group(2))
+    if b < a:
+        raise DataError(f"{source}: `period` {period!r} ends before it starts; give 'first-last'")
+    return a, b
+
+
+def _to_monthly(
+    da: xr.DataArray,
+    tname: str,
+    calendar: str,
+    *,
+    period,
+    kind: str | None,
+    factor: float,
+    offset: float,
+    source: str,
+    variable: str,
+    log: list[str],
+) -> xr.DataArray:
+    """Reduce a time axis to a 12-month climatology and apply the unit map."""
+    times = da[tname].values
+    try:
+        months = np.array([t.month for t in times])
+        years = np.array([t.year for t in times])
+    except AttributeError as err:
+        raise DataError(
+            f"{source}: time axis {tname!r} of {variable!r} cannot be decoded into dates; "
+            "give CF `units` ('days since ...') and `calendar` attributes"
+        ) from err
+    n = times.size
+    is_clim = n == 12 and sorted(months.tolist()) == list(range(1, 13))
+    if is_clim:
+        if kind == "per_second":
+            secs = days_in_month(calendar, source=source)[months - 1] * SECONDS_PER_DAY
+            mult = xr.DataArray(secs * factor, dims=(tname,))
+            da = da * mult
+            log.append(
+                f"{variable}: rate x days per month of calendar {calendar!r} "
+                f"(12-step climatology, {int(days_in_month(calendar).sum())}-day year)"
+            )
+        else:
+            da = offset + factor * da if (factor != 1.0 or offset != 0.0) else da
+        da = da.assign_coords(month=(tname, months)).swap_dims({tname: "month"})
+        da = da.drop_vars(tname).sortby("month")
+        return da
+    if period is None:
+        raise DataError(
+            f"{source}: {variable!r} has a {n}-step time axis that is not a 12-month "
+            "climatology; give the slice's `period` (e.g. '1971-2000') to average over"
+        )
+    y0, y1 = _parse_period(period, source)
+    if years.min() > y0 or years.max() < y1:
+        raise DataError(
+            f"{source}: period {y0}-{y1} is outside the file's time range "
+            f"{years.min()}-{years.max()}; choose a period inside it"
+        )
+    sel = (years >= y0) & (years <= y1)
+    sub = da.isel({tname: np.nonzero(sel)[0]})
+    m_sel, y_sel = months[sel], years[sel]
+    present = set(m_sel.tolist())
+    if present != set(range(1, 13)):
+        missing = sorted(set(range(1, 13)) - present)
+        raise DataError(
+            f"{source}: {variable!r} has no data for months {missing} in period {y0}-{y1}; "
+            "the time axis must give all 12 months"
+        )
+    if kind == "per_second":
+        secs = np.array(
+            [days_in_month(calendar, int(y), source=source)[m - 1] for y, m in zip(y_sel, m_sel)]
+        ) * SECONDS_PER_DAY
+        sub = sub * xr.DataArray(secs * factor, dims=(tname,))
+    else:
+        sub = offset + factor * sub if (factor != 1.0 or offset != 0.0) else sub
+    sub = sub.assign_coords(month=(tname, m_sel))
+    clim = sub.groupby("month").mean(tname, keep_attrs=True)
+    log.append(
+        f"{variable}: climatology of {y0}-{y1} from {int(sel.sum())} monthly steps "
+        f"(calendar {calendar!r})"
+    )
+    return clim
+
+
+def open_climate(
+    path,
+    *,
+    aliases: Mapping[str, str | Sequence[str]] | None = None,
+    period=None,
+    scale: float | Mapping[str, float] | None = None,
+    source: str | None = None,
+    require: Sequence[str] | None = None,
+    chunks=None,
+) -> xr.Dataset:
+    """Open CF NetCDF climate data as a canonical Dataset.
+
+    Parameters
+    ----------
+    path : str, path-like, glob pattern or list of those
+        One file per slice, or one file per variable.
+    aliases : mapping, optional
+        Canonical name -> variable name(s) in the file, tried before CF standard names and
+        the built-in aliases (:data:`DEFAULT_ALIASES`).
+    period : str or (int, int), optional
+        ``"YYYY-YYYY"``: average a multi-year monthly series over these years (inclusive).
+    scale : float or mapping, optional
+        Multiplier applied to the stored values before unit conversion (for integer-scaled
+        layers, e.g. 0.1 for degC x 10); a mapping gives one per canonical variable.
+    source : str, optional
+        Name used in messages (default: the file path).
+    require : sequence of str, optional
+        Canonical variables that must be present.
+    chunks : optional
+        Passed to :func:`xarray.open_dataset` (e.g. ``{}`` or ``{"lat": 256}`` for dask).
+
+    Returns
+    -------
+    xarray.Dataset
+        Canonical variables, degC and mm month-1 on ``month`` 1..12, ``elevation`` in m,
+        ``ice`` as a fraction 0..1, lat ascending, lon in [-180, 180).
+
+    Notes
+    -----
+    Precipitation mass flux is divided by the density of water (1000 kg m-3) and multiplied
+    by the seconds of each month in the file's calendar. A 12-step climatology uses the
+    calendar's non-leap month lengths (all_leap: February 29; 360_day: 30 days); a multi-year
+    series uses each year's own month lengths before averaging.
+    """
+    paths = _expand_paths(path)
+    src = source or (str(paths[0]) if len(paths) == 1 else f"{paths[0]} (+{len(paths) - 1} files)")
+    log: list[str] = []
+    import netCDF4
+
+    netCDF4.set_chunk_cache(4 * 2**20)  # small per-variable cache: bounded memory (DESIGN.md)
+    out_vars: dict[str, xr.DataArray] = {}
+    global_attrs: dict = {}
+    found_names: list[str] = []
+    for p in paths:
+        ds = _open_one(p, chunks)
+        fsrc = source or str(p)
+        if not global_attrs:
+            global_attrs = dict(ds.attrs)
+        found_names.extend(str(v) for v in ds.data_vars)
+        mapping = _identify(ds, aliases, fsrc)
+        for canon, name in mapping.items():
+            if canon in out_vars:
+                raise DataError(
+                    f"{fsrc}: variable {canon!r} is given twice (also in an earlier file); "
+                    "give each variable once"
+                )
+            da = ds[name]
+            da = normalise_lonlat(da, source=fsrc)
+            out_vars[canon] = _convert(
+                da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log
+            )
+    if not out_vars:
+        raise DataError(
+            f"{src}: no climate variable recognised (found {sorted(set(found_names)) or 'none'}); "
+            "map them with `aliases`, e.g. tasmin = 'tn'"
+        )
+    for canon in require or ():
+        if canon not in out_vars:
+            raise DataError(
+                f"{src}: required variable {canon!r} is missing (found "
+                f"{sorted(set(found_names))}); add it or map it with `aliases`"
+            )
+    grids = {k: (v["lat"].size, v["lon"].size) for k, v in out_vars.items()}
+    ref = next(iter(out_vars.values()))
+    for k, v in out_vars.items():
+        if grids[k] != grids[next(iter(out_vars))] or not (
+            np.allclose(v["lat"].values, ref["lat"].values)
+            and np.allclose(v["lon"].values, ref["lon"].values)
+        ):
+            raise DataError(
+                f"{src}: variables disagree on the grid ({grids}); give all variables of a "
+                "slice on one grid"
+            )
+        out_vars[k] = v.assign_coords(lat=ref["lat"], lon=ref["lon"])
+    out = xr.Dataset(out_vars)
+    keep = {k: v for k, v in global_attrs.items() if isinstance(v, (str, int, float))}
+    out.attrs.update(keep)
+    out.attrs["source_files"] = json.dumps([str(p) for p in paths])
+    out.attrs["harmonise_log"] = json.dumps(log)
+    return out
+
+
+def _scale_for(scale, canon: str) -> float:
+    if scale is None:
+        return 1.0
+    if isinstance(scale, Mapping):
+        return float(scale.get(canon, 1.0))
+    return float(scale)
+
+
+def _convert(da, ds, canon, name, *, period, scale, source, log) -> xr.DataArray:
+    attrs = dict(da.attrs)
+    units = attrs.get("units")
+    s = _scale_for(scale, canon)
+    if s != 1.0:
+        da = da * s
+        log.append(f"{canon} ({name}): stored values x {s} (declared scale)")
+    tname = _time_name(da, ds)
+    extra = [d for d in da.dims if d not in ("lat", "lon", tname, "month")]
+    for d in extra:
+        if da.sizes[d] == 1:
+            da = da.isel({d: 0}, drop=True)
+        else:
+            raise DataError(
+                f"{source}: variable {name!r} has an extra dimension {d!r} of size "
+                f"{da.sizes[d]}; select one level before reading"
+            )
+    kind, factor, offset = None, 1.0, 0.0
+    if canon in _TEMPERATURE:
+        offset, factor = temperature_conversion(units, variable=name, source=source)
+        new_units = "degC"
+        if (offset, factor) != (0.0, 1.0):
+            log.append(f"{canon} ({name}): {units} -> degC")
+    elif canon == "pr":
+        kind, factor = precipitation_conversion(units, variable=name, source=source)
+        new_units = "mm month-1"
+        if kind == "per_month" and factor != 1.0:
+            log.append(f"{canon} ({name}): {units} -> mm month-1")
+        elif kind == "per_second":
+            log.append(f"{canon} ({name}): {units} -> mm month-1")
+    elif canon == "elevation":
+        u = parse_units(units or "m", variable=name, source=source)
+        from cf_xarray.units import units as ureg
+
+        if u.dimensionality != ureg.m.dimensionality:
+            raise DataError(
+                f"{source}: variable {name!r} has units {units!r}, not a length; expected m"
+            )
+        factor = float(ureg.Quantity(1.0, u).to("m").magnitude)
+        new_units = "m"
+    elif canon == "ice":
+        text = str(units or "1").strip()
+        if text in {"%", "percent"}:
+            factor = 0.01
+            log.append(f"ice ({name}): % -> fraction")
+        elif text not in {"1", "", "fraction", "0-1"}:
+            raise DataError(
+                f"{source}: variable {name!r} has units {units!r}; expected '%' or '1' (fraction)"
+            )
+        new_units = "1"
+    else:  # bio layers and anything else: keep units
+        new_units = units if units is not None else ""
+    if tname is not None:
+        da = _to_monthly(
+            da, tname, _calendar(ds, tname), period=period, kind=kind, factor=factor,
+            offset=offset, source=source, variable=canon, log=log,
+        )
+    elif "month" in da.dims:
+        if kind == "per_second":
+            secs = days_in_month("standard", source=source) * SECONDS_PER_DAY
+            da = da * xr.DataArray(secs * factor, dims=("month",),
+                                   coords={"month": da["month"]})
+            log.append(f"{canon}: no time axis; standard-calendar month lengths assumed")
+        elif factor != 1.0 or offset != 0.0:
+            da = offset + factor * da
+    elif canon in _MONTHLY:
+        if kind == "per_second":
+            raise DataError(
+                f"{source}: variable {name!r} is a rate ({units}) without a time axis; "
+                "give a monthly time axis or units per month"
+            )
+        if factor != 1.0 or offset != 0.0:
+            da = offset + factor * da
+    elif factor != 1.0 or offset != 0.0:
+        da = offset + factor * da
+    if "month" in da.dims:
+        da = da.assign_coords(month=np.asarray(da["month"].values, dtype=int))
+        da = da.transpose("month", "lat", "lon")
+    else:
+        da = da.transpose("lat", "lon")
+    if np.issubdtype(da.dtype, np.floating) and da.dtype != np.float64:
+        da = da.astype(np.float32)
+    for k in ("units", "scale_factor", "add_offset", "_FillValue", "missing_value",
+              "valid_range", "valid_min", "valid_max", "cell_methods", "standard_name"):
+        attrs.pop(k, None)
+    attrs.update(_CANONICAL_ATTRS.get(canon, {}))
+    attrs["units"] = new_units
+    if units is not None and str(units) != new_units:
+        attrs["source_units"] = str(units)
+    attrs["source_variable"] = name
+    da.attrs = attrs
+    da.name = canon
+    return da

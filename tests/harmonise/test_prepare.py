@@ -1,0 +1,87 @@
+"""A prepared slice in the pinned format, from model-convention files."""
+
+from __future__ import annotations
+
+import json
+import numpy as np
+import pytest
+import xarray as xr
+
+from timeslice.errors import DataError
+from timeslice.grid import make_grid
+from timeslice.harmonise import prepare_slice
+
+from harmonise_factories import model_dataset
+
+
+@pytest.fixture
+def inputs(tmp_path):
+    fine = make_grid(lon_min=-40, lon_max=-20, lat_min=40, lat_max=55, resolution=0.5)
+    lon, lat = np.meshgrid(fine.lon.values, fine.lat.values)
+    z = 1500 * np.exp(-((lon + 30) ** 2 + (lat - 47.5) ** 2) / 20) - 200  # island + shelf
+    elev = xr.DataArray(z.astype("f4"), dims=("lat", "lon"),
+                        coords={"lat": fine.lat, "lon": fine.lon}, name="elevation",
+                        attrs={"units": "m"})
+    land = z > 0
+    month = np.arange(1, 13)
+    season = 8 * np.sin(2 * np.pi * (month - 4) / 12)[:, None, None]
+    tmin = np.where(land, 5 - 0.0065 * z, np.nan)[None] + season
+    dims = ("month", "lat", "lon")
+    fb = xr.Dataset(
+        {"tasmin": (dims, tmin.astype("f4"), {"units": "degC"}),
+         "tasmax": (dims, (tmin + 9).astype("f4"), {"units": "degC"}),
+         "pr": (dims, np.where(land, 60.0, np.nan)[None].repeat(12, 0).astype("f4"),
+                {"units": "mm month-1"})},
+        coords={"month": month, "lat": fine.lat, "lon": fine.lon},
+    )
+    mb = tmp_path / "model_baseline.nc"
+    ms = tmp_path / "model_21ka.nc"
+    model_dataset(calendar="360_day", descending=True, seed=5).to_netcdf(mb)
+    cold = model_dataset(calendar="360_day", descending=True, seed=5)
+    cold["tasmin"] = cold["tasmin"] - 6
+    cold["tasmax"] = cold["tasmax"] - 6
+    cold.to_netcdf(ms)
+    return fb, elev, mb, ms
+
+
+def test_baseline_slice_format(inputs):
+    fb, elev, _, _ = inputs
+    out = prepare_slice(fine_baseline=fb, elevation=elev, label="baseline", year=1985.0,
+                        period="1971-2000", model="observed", scenario="baseline")
+    for i in range(1, 20):
+        assert out[f"bio{i}"].dtype == np.float32
+        assert out[f"bio{i}"].dims == ("lat", "lon")
+    for v in ("land", "ice", "exposed_shelf", "filled"):
+        assert out[v].dtype == bool
+    assert out["elevation"].dtype == np.float32
+    assert bool(out["bio1"].isnull().where(~out["land"], True).all())
+    assert bool(out["bio1"].notnull().where(out["land"], True).all())
+    assert out.attrs["model"] == "observed" and out.attrs["scenario"] == "baseline"
+    assert isinstance(json.loads(out.attrs["harmonise_log"]), list)
+    assert not out["filled"].any()
+
+
+def test_glacial_slice_from_model_files(inputs):
+    fb, elev, mb, ms = inputs
+    base = prepare_slice(fine_baseline=fb, elevation=elev, label="baseline", year=1985.0,
+                         period="1971-2000", model="observed", scenario="baseline")
+    lgm = prepare_slice(fine_baseline=fb, elevation=elev, model_slice=ms, model_baseline=mb,
+                        sea_level=-120.0, label="alder_21ka", year=1950 - 21000,
+                        period="21ka", model="alder", scenario="past")
+    assert lgm["land"].sum() > base["land"].sum()
+    assert bool((lgm["filled"] == lgm["exposed_shelf"]).all())
+    # uniform -6 K change factor on both temperatures (worked example of the delta method)
+    both = base["land"] & lgm["land"]
+    diff = (lgm["bio1"] - base["bio1"]).where(both)
+    np.testing.assert_allclose(diff.values[np.isfinite(diff.values)], -6.0, atol=1e-3)
+    log = json.loads(lgm.attrs["harmonise_log"])
+    assert any("delta" in line for line in log)
+    assert any("K -> degC" in line for line in log)
+    assert lgm.attrs["sea_level"] == -120.0 and lgm.attrs["year"] == -19050.0
+
+
+def test_delta_needs_both_model_files(inputs):
+    fb, elev, mb, _ = inputs
+    with pytest.raises(DataError, match="model_slice"):
+        prepare_slice(fine_baseline=fb, elevation=elev, model_baseline=mb, label="x",
+                      year=2050.0, period="2041-2060", model="m", scenario="s")

@@ -1,0 +1,135 @@
+"""CF NetCDF reader: canonical names, units, calendars and coordinates."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from timeslice.errors import DataError, InputFileError
+from timeslice.harmonise.units import (
+    days_in_month,
+    precipitation_conversion,
+    temperature_conversion,
+)
+from timeslice.readers import open_climate
+
+
+def test_flux_definition():
+    # definition of the units: 1 kg m-2 s-1 of water / 1000 kg m-3 = 1 mm s-1 = 86 400 mm/day
+    kind, f = precipitation_conversion("kg m-2 s-1")
+    assert kind == "per_second"
+    assert f * 86400 == pytest.approx(86400.0, rel=1e-12)
+    kind, f = precipitation_conversion("mm day-1")
+    assert kind == "per_second" and f == pytest.approx(1 / 86400, rel=1e-12)
+    assert precipitation_conversion("mm/mon") == ("per_month", pytest.approx(1.0))
+    assert precipitation_conversion("cm month-1") == ("per_month", pytest.approx(10.0))
+
+
+@pytest.mark.parametrize(
+    ("calendar", "year", "total"),
+    [
+        # definition of the units and the calendars: 1e-5 kg m-2 s-1 = 0.864 mm/day
+        ("standard", 2000, 316.224),   # 366 days
+        ("noleap", None, 315.360),     # 365 days
+        ("360_day", None, 311.040),    # 360 days
+        ("all_leap", None, 316.224),
+        ("standard", None, 315.360),   # climatology: non-leap month lengths
+    ],
+)
+def test_days_per_month_by_calendar(calendar, year, total):
+    days = days_in_month(calendar, year)
+    assert 1e-5 * 86400 * days.sum() == pytest.approx(total, abs=1e-9)
+
+
+def test_temperature_aliases():
+    # definitions: T[degC] = T[K] - 273.15; T[degC] = (T[degF] - 32) * 5/9
+    assert temperature_conversion("K") == pytest.approx((-273.15, 1.0))
+    for spelling in ("degree_C", "degrees_C", "degC", "Celsius"):
+        assert temperature_conversion(spelling) == pytest.approx((0.0, 1.0))
+    assert temperature_conversion("degrees_K") == pytest.approx((-273.15, 1.0))
+    off, fac = temperature_conversion("degF")
+    assert off + fac * 212 == pytest.approx(100.0)
+
+
+def test_model_conventions_to_canonical(model_file):
+    path = model_file(calendar="noleap", descending=True, tmin_c=2.0, pr_mm_day=1.0)
+    ds = open_climate(path)
+    assert set(ds.data_vars) == {"tasmin", "tasmax", "pr"}
+    assert ds["tasmin"].dims == ("month", "lat", "lon")
+    assert list(ds["month"].values) == list(range(1, 13))
+    assert np.all(np.diff(ds["lat"].values) > 0)
+    assert ds["lon"].min() >= -180 and ds["lon"].max() < 180
+    assert ds["lon"].values[0] == pytest.approx(-44.5)
+    np.testing.assert_allclose(ds["tasmin"].values, 2.0, atol=1e-4)
+    assert ds["tasmin"].attrs["units"] == "degC"
+    assert ds["pr"].attrs["units"] == "mm month-1"
+    # 1 mm/day x noleap month lengths (31, 28, 31, ...)
+    np.testing.assert_allclose(ds["pr"].isel(lat=0, lon=0).values,
+                               days_in_month("noleap"), rtol=1e-5)
+    assert json.loads(ds.attrs["source_files"]) == [str(path)]
+    assert any("degC" in line for line in json.loads(ds.attrs["harmonise_log"]))
+
+
+def test_360_day_multi_year_series_period(model_file):
+    path = model_file(calendar="360_day", years=range(1995, 2005), pr_mm_day=2.0, seed=3)
+    ds = open_climate(path, period="1999-2002")
+    raw = xr.open_dataset(path, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True))
+    yrs = np.array([t.year for t in raw.time.values])
+    jan = raw["tasmin"].values[(yrs >= 1999) & (yrs <= 2002)][::12].mean(0) - 273.15
+    np.testing.assert_allclose(ds["tasmin"].sel(month=1).values, jan, atol=1e-4)
+    np.testing.assert_allclose(ds["pr"].values, 60.0, rtol=1e-5)  # 2 mm/day x 30 days
+    with pytest.raises(DataError, match="outside the file's time range"):
+        open_climate(path, period="1990-2000")
+    with pytest.raises(DataError, match="period"):
+        open_climate(path)
+
+
+def test_scale_and_aliases(tmp_path, model_file):
+    path = model_file(t_units="degC", pr_units="mm/mon", tmin_c=2.0, pr_mm_day=50.0)
+    ds = xr.open_dataset(path).rename({"tasmin": "tn", "tasmax": "tx", "pr": "rain"})
+    for v in ds.data_vars:
+        ds[v].attrs.pop("standard_name", None)
+    ds["tn"] = ds["tn"] * 10
+    p2 = tmp_path / "renamed.nc"
+    ds.to_netcdf(p2)
+    out = open_climate(p2, scale={"tasmin": 0.1})
+    np.testing.assert_allclose(out["tasmin"].values, 2.0, atol=1e-4)
+    np.testing.assert_allclose(out["pr"].values, 50.0, rtol=1e-6)
+
+
+def test_single_fields(tmp_path):
+    lat = np.arange(40.25, 55, 0.5)
+    lon = np.arange(-39.75, -20, 0.5)
+    ice = xr.Dataset(
+        {"sftgif": (("lat", "lon"), np.full((lat.size, lon.size), 80.0),
+                    {"units": "%", "standard_name": "land_ice_area_fraction"})},
+        coords={"lat": lat, "lon": lon},
+    )
+    ice.to_netcdf(tmp_path / "ice.nc")
+    out = open_climate(tmp_path / "ice.nc")
+    assert out["ice"].attrs["units"] == "1"
+    np.testing.assert_allclose(out["ice"].values, 0.8)
+
+
+def test_errors(tmp_path, model_file):
+    with pytest.raises(InputFileError, match="file not found"):
+        open_climate(tmp_path / "nope.nc")
+    bad = tmp_path / "bad.nc"
+    bad.write_text("not netcdf")
+    with pytest.raises(InputFileError, match="bad.nc"):
+        open_climate(bad)
+    p = model_file(pr_units="kg m-2 s-1")
+    ds = xr.open_dataset(p)
+    ds["pr"].attrs["units"] = "K"
+    ds.to_netcdf(tmp_path / "prk.nc")
+    with pytest.raises(DataError, match="not a precipitation rate"):
+        open_climate(tmp_path / "prk.nc")
+    ds["pr"].attrs["units"] = "wibbles"
+    ds.to_netcdf(tmp_path / "pru.nc")
+    with pytest.raises(DataError, match="unknown units"):
+        open_climate(tmp_path / "pru.nc")
+    with pytest.raises(DataError, match="required variable 'tas'.*found"):
+        open_climate(p, require=["tas"])

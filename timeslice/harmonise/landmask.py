@@ -1,0 +1,193 @@
+"""Land, ice and exposed shelf per slice; climate for newly exposed land."""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+from scipy.spatial import cKDTree
+
+from timeslice.errors import DataError
+from timeslice.harmonise.regrid import regrid
+
+__all__ = ["STANDARD_LAPSE_RATE", "fill_exposed", "land_mask"]
+
+#: Temperature lapse rate of the standard atmosphere below 11 km, 6.5 K per km = 0.0065 K m-1
+#: (ICAO Doc 7488, Manual of the ICAO Standard Atmosphere, 3rd ed. 1993; ISO 2533:1975).
+STANDARD_LAPSE_RATE = 0.0065
+
+_TEMPERATURES = ("tasmin", "tasmax", "tas")
+
+
+def _as_dataarray(obj, name: str, what: str) -> xr.DataArray:
+    if isinstance(obj, xr.Dataset):
+        if name in obj.data_vars:
+            return obj[name]
+        if len(obj.data_vars) == 1:
+            return next(iter(obj.data_vars.values()))
+        raise DataError(
+            f"`{what}` has no variable {name!r} (found {sorted(map(str, obj.data_vars))}); "
+            f"give a DataArray or a Dataset with {name!r}"
+        )
+    if isinstance(obj, xr.DataArray):
+        return obj
+    raise DataError(f"`{what}` must be an xarray DataArray or Dataset, got {type(obj).__name__}")
+
+
+def _ice_fraction(ice: xr.DataArray) -> xr.DataArray:
+    units = str(ice.attrs.get("units", "")).strip()
+    if units in {"%", "percent"}:
+        return ice / 100.0
+    if units in {"1", "", "fraction"}:
+        vmax = float(ice.max())
+        if vmax > 1.0 + 1e-6:
+            raise DataError(
+                f"`ice` has values up to {vmax:g} but units {units or 'none'!r}; set units "
+                "'%' for percentages or give a fraction 0..1"
+            )
+        return ice
+    raise DataError(f"`ice` has units {units!r}; expected '%' or '1' (area fraction)")
+
+
+def land_mask(
+    elevation: xr.DataArray | xr.Dataset,
+    *,
+    sea_level: float = 0.0,
+    ice: xr.DataArray | xr.Dataset | None = None,
+    ice_threshold: float = 0.5,
+) -> xr.Dataset:
+    """Land, ice and exposed shelf of one slice.
+
+    Parameters
+    ----------
+    elevation : xarray.DataArray or Dataset with ``elevation``, [m]
+        Elevation relative to present sea level (negative below), on the target grid.
+    sea_level : float, [m]
+        The slice's sea level relative to present (e.g. -120 at the last glacial maximum).
+    ice : xarray.DataArray or Dataset, optional
+        Land-ice area fraction (units '1' or '%') on any lat-lon grid; regridded onto the
+        elevation grid (conservative when coarsening, bilinear when refining).
+    ice_threshold : float
+        A cell is ice-covered when its ice fraction is at least this.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``land`` (elevation > sea_level and not ice), ``ice`` (bool), ``exposed_shelf``
+        (land and elevation <= 0, i.e. below present sea level).
+    """
+    elev = _as_dataarray(elevation, "elevation", "elevation")
+    if not 0.0 <= float(ice_threshold) <= 1.0:
+        raise DataError(f"`ice_threshold` must be a fraction in [0, 1], got {ice_threshold}")
+    if not np.isfinite(sea_level):
+        raise DataError(f"`sea_level` must be a finite number of metres, got {sea_level}")
+    above = elev > float(sea_level)
+    if ice is not None:
+        frac = _ice_fraction(_as_dataarray(ice, "ice", "ice"))
+        frac = regrid(frac, elev, method="auto", min_valid_fraction=0.5, source="ice")
+        ice_b = (frac.fillna(0.0) >= float(ice_threshold)) & above
+    else:
+        ice_b = xr.zeros_like(above, dtype=bool)
+    land = above & ~ice_b
+    shelf = land & (elev <= 0.0)
+    out = xr.Dataset(
+        {
+            "land": land.assign_attrs(
+                units="1", long_name="land",
+                description=f"elevation above slice sea level {sea_level:g} m and not ice-covered",
+            ),
+            "ice": ice_b.assign_attrs(
+                units="1", long_name="ice-covered land",
+                description=f"land-ice area fraction >= {ice_threshold:g}",
+            ),
+            "exposed_shelf": shelf.assign_attrs(
+                units="1", long_name="exposed shelf",
+                description="land in this slice that lies below present sea level",
+            ),
+        }
+    )
+    for v in out.data_vars:
+        out[v] = out[v].astype(bool)
+    out.attrs["sea_level"] = float(sea_level)
+    return out
+
+
+def fill_exposed(
+    climate: xr.Dataset,
+    land: xr.DataArray,
+    elevation: xr.DataArray,
+    *,
+    lapse_rate: float = STANDARD_LAPSE_RATE,
+) -> xr.Dataset:
+    """Give land cells without baseline climate the climate of the nearest cell that has it.
+
+    Parameters
+    ----------
+    climate : xarray.Dataset
+        Monthly ``tasmin``, ``tasmax`` (degC), ``pr`` (mm month-1), NaN where unknown.
+    land : xarray.DataArray of bool
+        The slice's land mask.
+    elevation : xarray.DataArray, [m]
+        Elevation of every cell (also of the cells filled).
+    lapse_rate : float, [K m-1]
+        Temperature decrease with height.
+
+    Returns
+    -------
+    xarray.Dataset
+        `climate` with the gaps on land filled, plus ``filled`` (bool).
+
+    Notes
+    -----
+    The donor is the nearest cell with complete climate by chord distance between unit
+    vectors :math:`(\\cos\\varphi\\cos\\lambda, \\cos\\varphi\\sin\\lambda, \\sin\\varphi)`
+    (same order as great-circle distance). Temperatures are corrected for the elevation
+    difference, :math:`T = T_{donor} - \\Gamma (z - z_{donor})`; precipitation is copied.
+
+    References
+    ----------
+    ICAO (1993). Manual of the ICAO Standard Atmosphere, Doc 7488, 3rd ed.
+    """
+    if lapse_rate < 0 or lapse_rate > 0.0098:
+        raise DataError(
+            f"`lapse_rate` must be between 0 and 0.0098 K m-1 (dry adiabatic), got {lapse_rate}"
+        )
+    monthly = [v for v in climate.data_vars if "month" in climate[v].dims]
+    if not monthly:
+        raise DataError("`climate` has no monthly variable to fill")
+    land = land.astype(bool)
+    have = xr.concat(
+        [climate[v].notnull().all("month") for v in monthly], dim="v"
+    ).all("v").transpose("lat", "lon")
+    need = (land & ~have).values
+    filled = xr.DataArray(need, dims=("lat", "lon"),
+                          coords={"lat": climate["lat"], "lon": climate["lon"]})
+    out = climate.copy()
+    if need.any():
+        donors = have.values
+        if not donors.any():
+            raise DataError("`climate` has no cell with complete climate to fill from")
+        lat = np.deg2rad(climate["lat"].values)
+        lon = np.deg2rad(climate["lon"].values)
+        LAT, LON = np.meshgrid(lat, lon, indexing="ij")
+        xyz = np.stack([np.cos(LAT) * np.cos(LON), np.cos(LAT) * np.sin(LON), np.sin(LAT)], -1)
+        tree = cKDTree(xyz[donors])
+        _, idx = tree.query(xyz[need])
+        di, dj = np.nonzero(donors)
+        ni, nj = np.nonzero(need)
+        si, sj = di[idx], dj[idx]
+        z = np.asarray(elevation.transpose("lat", "lon").values, dtype=float)
+        dz = z[ni, nj] - z[si, sj]
+        for v in monthly:
+            da = climate[v].transpose("month", "lat", "lon")
+            arr = np.array(da.values, copy=True)
+            vals = arr[:, si, sj]
+            if v in _TEMPERATURES:
+                vals = vals - lapse_rate * dz[None, :]
+            arr[:, ni, nj] = vals
+            out[v] = da.copy(data=arr).transpose(*climate[v].dims)
+            out[v].attrs = dict(climate[v].attrs)
+    out["filled"] = filled.assign_attrs(
+        units="1", long_name="climate filled from nearest baseline land cell",
+        description=f"temperatures lapse-rate corrected ({lapse_rate * 1000:g} K per km)",
+    )
+    return out

@@ -1,0 +1,186 @@
+"""One prepared slice: downscaled climate, land/ice masks, exposed-shelf fill, bio1..bio19."""
+
+from __future__ import annotations
+
+import json
+import os
+
+import numpy as np
+import xarray as xr
+
+from timeslice.errors import DataError
+from timeslice.harmonise.bioclim import BIO_NAMES, from_monthly
+from timeslice.harmonise.downscale import delta
+from timeslice.harmonise.landmask import STANDARD_LAPSE_RATE, fill_exposed, land_mask
+from timeslice.harmonise.regrid import regrid
+
+__all__ = ["prepare_slice"]
+
+
+def _load(obj, what: str, require=None) -> xr.Dataset:
+    if isinstance(obj, (str, os.PathLike)):
+        from timeslice.readers.netcdf import open_climate
+
+        return open_climate(obj, require=require)
+    if isinstance(obj, xr.DataArray):
+        return obj.to_dataset(name=str(obj.name or what))
+    if isinstance(obj, xr.Dataset):
+        return obj
+    raise DataError(f"`{what}` must be a path or an xarray Dataset, got {type(obj).__name__}")
+
+
+def _log_of(ds: xr.Dataset) -> list[str]:
+    raw = ds.attrs.get("harmonise_log")
+    if raw is None:
+        return []
+    if isinstance(raw, (list, tuple)):
+        return [str(x) for x in raw]
+    try:
+        val = json.loads(raw)
+        return [str(x) for x in val] if isinstance(val, list) else [str(raw)]
+    except (TypeError, ValueError):
+        return [str(raw)]
+
+
+def _same_grid(a, b) -> bool:
+    return (
+        a.sizes["lat"] == b.sizes["lat"] and a.sizes["lon"] == b.sizes["lon"]
+        and np.allclose(a["lat"].values, b["lat"].values, atol=1e-6)
+        and np.allclose(a["lon"].values, b["lon"].values, atol=1e-6)
+    )
+
+
+def prepare_slice(
+    *,
+    fine_baseline,
+    elevation,
+    model_slice=None,
+    model_baseline=None,
+    sea_level: float = 0.0,
+    ice=None,
+    ice_threshold: float = 0.5,
+    label: str,
+    year: float,
+    period: str,
+    model: str,
+    scenario: str,
+    pr_floor: float = 0.1,
+    ratio_quantile: float = 0.98,
+    lapse_rate: float = STANDARD_LAPSE_RATE,
+) -> xr.Dataset:
+    """Prepare one slice in the pinned "prepared slice" format.
+
+    Parameters
+    ----------
+    fine_baseline : xarray.Dataset or path
+        Observed monthly ``tasmin``, ``tasmax``, ``pr`` on the fine (target) grid.
+    elevation : xarray.DataArray, Dataset or path, [m]
+        Present-day elevation relative to present sea level; regridded to the fine grid if
+        it is on another grid.
+    model_slice, model_baseline : xarray.Dataset or path, optional
+        A model's slice and its own baseline (both or neither). Without them the observed
+        baseline itself is prepared.
+    sea_level : float, [m]
+        Slice sea level relative to present.
+    ice : xarray.DataArray, Dataset or path, optional
+        Land-ice fraction (any grid).
+    ice_threshold : float
+        Ice fraction at and above which a cell is ice.
+    label, year, period, model, scenario
+        Slice metadata (year in CE; a slice `a` years BP has year = 1950 - a).
+
+    Returns
+    -------
+    xarray.Dataset
+        ``bio1..bio19`` (float32, NaN off land), ``land``, ``elevation``, ``ice``,
+        ``exposed_shelf``, ``filled``; attrs ``slice_label``, ``year``, ``period``, ``model``,
+        ``scenario``, ``sea_level``, ``harmonise_log`` (JSON list of lines).
+    """
+    if (model_slice is None) != (model_baseline is None):
+        which = "model_baseline" if model_baseline is None else "model_slice"
+        raise DataError(
+            f"slice {label!r}: `{which}` is missing; a downscaled slice needs both the model's "
+            "slice and the same model's baseline run"
+        )
+    fb = _load(fine_baseline, "fine_baseline", require=("tasmin", "tasmax", "pr"))
+    elev_ds = _load(elevation, "elevation")
+    if "elevation" in elev_ds.data_vars:
+        elev = elev_ds["elevation"]
+    elif len(elev_ds.data_vars) == 1:
+        elev = next(iter(elev_ds.data_vars.values()))
+    else:
+        raise DataError(
+            f"`elevation` input has no variable 'elevation' (found {sorted(elev_ds.data_vars)})"
+        )
+    log = list(_log_of(fb))
+    if not _same_grid(elev, fb):
+        elev = regrid(elev, fb, method="auto", source="elevation")
+        log.append(f"elevation regridded onto the fine grid ({elev.attrs.get('regrid_method')})")
+    elev = elev.astype(np.float32)
+
+    if model_slice is not None:
+        ms = _load(model_slice, "model_slice", require=("tasmin", "tasmax", "pr"))
+        mb = _load(model_baseline, "model_baseline", require=("tasmin", "tasmax", "pr"))
+        log += [f"model slice: {line}" for line in _log_of(ms)]
+        log += [f"model baseline: {line}" for line in _log_of(mb)]
+        if not _same_grid(ms, mb):
+            ms = regrid(ms, mb, method="auto", source="model_slice")
+            log.append("model slice regridded onto its model baseline grid")
+        clim = delta(ms, mb, fb, pr_floor=pr_floor, ratio_quantile=ratio_quantile)
+        ms_log = set(_log_of(ms))
+        log += [line for line in _log_of(clim) if line not in ms_log]
+        n_swapped = int(clim.attrs.get("n_swapped", 0))
+    else:
+        clim = fb[["tasmin", "tasmax", "pr"]]
+        n_swapped = 0
+        log.append("observed baseline: no downscaling")
+
+    ice_da = None
+    if ice is not None:
+        ice_ds = _load(ice, "ice")
+        ice_da = ice_ds["ice"] if "ice" in ice_ds.data_vars else next(iter(ice_ds.data_vars.values()))
+    masks = land_mask(elev, sea_level=sea_level, ice=ice_da, ice_threshold=ice_threshold)
+    log.append(
+        f"land = elevation > {sea_level:g} m"
+        + (f" and ice fraction < {ice_threshold:g}" if ice is not None else "")
+    )
+    clim = clim.transpose("month", "lat", "lon")
+    clim = fill_exposed(clim, masks["land"], elev, lapse_rate=lapse_rate)
+    n_filled = int(clim["filled"].sum())
+    if n_filled:
+        log.append(
+            f"{n_filled} land cells without baseline climate filled from the nearest baseline "
+            f"cell ({lapse_rate * 1000:g} K/km lapse-rate correction)"
+        )
+    neg = int((clim["pr"] < -1e-6).sum())
+    if neg:
+        log.append(f"{neg} cell-months of negative precipitation set to 0")
+    clim["pr"] = clim["pr"].clip(min=0.0)
+    bio = from_monthly(clim)
+    land = masks["land"]
+    out = xr.Dataset()
+    for name in BIO_NAMES:
+        da = bio[name].where(land).astype(np.float32)
+        da.attrs = dict(bio[name].attrs)
+        out[name] = da
+    out["land"] = land
+    out["elevation"] = elev.assign_attrs(
+        units="m", standard_name="height_above_mean_sea_level",
+        long_name="elevation relative to present sea level",
+    )
+    out["ice"] = masks["ice"]
+    out["exposed_shelf"] = masks["exposed_shelf"]
+    out["filled"] = clim["filled"] & land
+    for c in ("lat", "lon"):
+        out[c].attrs.update(fb[c].attrs)
+    out.attrs = {
+        "slice_label": str(label),
+        "year": float(year),
+        "period": str(period),
+        "model": str(model),
+        "scenario": str(scenario),
+        "sea_level": float(sea_level),
+        "n_swapped": n_swapped,
+        "harmonise_log": json.dumps(log),
+    }
+    return out

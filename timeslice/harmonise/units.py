@@ -1,0 +1,183 @@
+"""Unit parsing and conversion to the canonical units (degC, mm month-1).
+
+Units strings are parsed with pint through the CF-aware registry of ``cf_xarray.units``,
+after replacing spellings real files use that the registry does not know
+(``degree_C``, ``degrees_K``, ``mm/mon``, ...). Conversions are returned as a linear map
+``y = offset + factor * x`` so they can be applied lazily to dask arrays.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Literal
+
+import cftime
+import numpy as np
+
+from timeslice.errors import DataError
+
+__all__ = [
+    "SECONDS_PER_DAY",
+    "WATER_DENSITY",
+    "days_in_month",
+    "parse_units",
+    "precipitation_conversion",
+    "temperature_conversion",
+]
+
+#: Density of liquid water used to turn a mass flux into a depth rate, 1000 kg m-3
+#: (the convention of climate-model output; CF standard name table, precipitation_flux).
+WATER_DENSITY = 1000.0
+
+#: Seconds in a day (definition of the day as 86 400 SI seconds).
+SECONDS_PER_DAY = 86400.0
+
+# Spellings found in real files -> spellings the CF/pint registry parses.
+_ALIASES: tuple[tuple[str, str], ...] = (
+    (r"^(degrees?_?c(elsius)?|deg_?c|celsius|°c|c)$", "degC"),
+    (r"^(degrees?_?k(elvin)?|deg_?k|kelvin)$", "K"),
+    (r"^(degrees?_?f(ahrenheit)?|deg_?f|fahrenheit|°f|f)$", "degF"),
+)
+_TOKEN_ALIASES: tuple[tuple[str, str], ...] = (
+    (r"\bmon\b", "month"),
+    (r"\bmonths\b", "month"),
+    (r"\bdays\b", "day"),
+    (r"\bd-1\b", "day-1"),
+    (r"\bmms\b", "mm"),
+)
+
+_CALENDARS = {
+    "standard",
+    "gregorian",
+    "proleptic_gregorian",
+    "noleap",
+    "365_day",
+    "all_leap",
+    "366_day",
+    "360_day",
+    "julian",
+}
+
+
+def _registry():
+    from cf_xarray.units import units
+
+    return units
+
+
+def _clean(text: str) -> str:
+    s = str(text).strip()
+    low = s.lower()
+    for pattern, repl in _ALIASES:
+        if re.match(pattern, low):
+            return repl
+    for pattern, repl in _TOKEN_ALIASES:
+        s = re.sub(pattern, repl, s)
+    return s
+
+
+def parse_units(text: str, *, variable: str = "variable", source: str = "input"):
+    """Parse a CF units string into a pint Unit, accepting common non-CF spellings.
+
+    Raises :class:`DataError` naming `variable` and `source` for an unknown string.
+    """
+    if text is None or str(text).strip() == "":
+        raise DataError(
+            f"{source}: variable {variable!r} has no `units` attribute; add one "
+            "(e.g. 'K', 'degC', 'kg m-2 s-1', 'mm month-1') or declare it in the config"
+        )
+    ureg = _registry()
+    cleaned = _clean(text)
+    try:
+        return ureg.parse_units(cleaned)
+    except Exception as err:  # pint raises several unrelated types
+        raise DataError(
+            f"{source}: variable {variable!r} has unknown units {str(text)!r}; use a CF "
+            "units string such as 'K', 'degC', 'kg m-2 s-1' or 'mm month-1'"
+        ) from err
+
+
+def temperature_conversion(
+    text: str, *, variable: str = "temperature", source: str = "input"
+) -> tuple[float, float]:
+    """``(offset, factor)`` such that ``degC = offset + factor * value``.
+
+    Raises :class:`DataError` if the units are not a temperature.
+    """
+    ureg = _registry()
+    unit = parse_units(text, variable=variable, source=source)
+    if unit.dimensionality != ureg.kelvin.dimensionality:
+        raise DataError(
+            f"{source}: variable {variable!r} has units {str(text)!r}, which are not a "
+            "temperature; expected K, degC or degF (check the variable mapping)"
+        )
+    q0 = ureg.Quantity(0.0, unit).to("degC").magnitude
+    q1 = ureg.Quantity(1.0, unit).to("degC").magnitude
+    return float(q0), float(q1 - q0)
+
+
+def precipitation_conversion(
+    text: str, *, variable: str = "pr", source: str = "input"
+) -> tuple[Literal["per_month", "per_second"], float]:
+    """Classify a precipitation unit and give its scale factor.
+
+    Returns
+    -------
+    kind, factor
+        ``("per_month", f)``: ``mm month-1 = f * value`` (the unit is already per month; no
+        calendar needed). ``("per_second", f)``: ``mm s-1 = f * value``; the caller
+        multiplies by the seconds in each month of the file's calendar.
+
+    Notes
+    -----
+    A mass flux (kg m-2 s-1) is turned into a depth rate by dividing by the density of
+    water, 1000 kg m-3, so 1 kg m-2 s-1 = 1 mm s-1 = 86 400 mm day-1.
+    """
+    ureg = _registry()
+    unit = parse_units(text, variable=variable, source=source)
+    q = ureg.Quantity(1.0, unit)
+    mass_flux = ureg.parse_units("kg m-2 s-1").dimensionality
+    depth_rate = ureg.parse_units("mm s-1").dimensionality
+    if q.dimensionality == mass_flux:
+        q = q / ureg.Quantity(WATER_DENSITY, "kg m-3")
+    elif q.dimensionality != depth_rate:
+        raise DataError(
+            f"{source}: variable {variable!r} has units {str(text)!r}, which are not a "
+            "precipitation rate; expected kg m-2 s-1, mm day-1 or mm month-1 "
+            "(check the variable mapping)"
+        )
+    if "month" in str(unit):
+        return "per_month", float(q.to("mm month-1").magnitude)
+    return "per_second", float(q.to("mm s-1").magnitude)
+
+
+def days_in_month(calendar: str, year: int | None = None, *, source: str = "input") -> np.ndarray:
+    """Days in each of the 12 months for a CF calendar.
+
+    Parameters
+    ----------
+    calendar : str
+        CF calendar name (standard, gregorian, proleptic_gregorian, noleap/365_day,
+        all_leap/366_day, 360_day, julian).
+    year : int, optional
+        A year for a real monthly series. Without it (a 12-step climatology) the calendar's
+        non-leap month lengths are used (February 28) except in all_leap/366_day (29) and
+        360_day (30 for every month).
+
+    Returns
+    -------
+    numpy.ndarray of int, shape (12,)
+    """
+    cal = str(calendar).lower()
+    if cal not in _CALENDARS:
+        raise DataError(
+            f"{source}: calendar {calendar!r} is not supported; use one of "
+            f"{', '.join(sorted(_CALENDARS))}"
+        )
+    y = 2001 if year is None else int(year)  # 2001 is not a leap year in any calendar
+    out = np.empty(12, dtype=int)
+    for m in range(1, 13):
+        start = cftime.datetime(y, m, 1, calendar=cal)
+        stop = cftime.datetime(y + (m == 12), m % 12 + 1, 1, calendar=cal)
+        out[m - 1] = (stop - start).days
+    return out
