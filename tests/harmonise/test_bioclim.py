@@ -99,3 +99,67 @@ def test_missing_variable_is_a_data_error():
     ds = _ds(TMIN, TMAX, PR).drop_vars("pr")
     with pytest.raises(DataError, match="pr"):
         from_monthly(ds)
+
+
+@pytest.mark.filterwarnings("ignore:The 'name' property is deprecated")
+def test_against_xclim_with_conventions_converted():
+    """Reference: xclim (installed version) ANUCLIM indices on a 12-month climatology.
+
+    Conventions reconciled explicitly (docs/methods.md):
+    * xclim quarters do not wrap: the data put every extreme quarter inside Jan..Dec
+      (no NDJ or DJF extreme), so wrapping makes no difference here;
+    * xclim BIO4 is a coefficient of variation of Tavg in kelvin with the n divisor:
+      ours = 100 * sqrt(12/11) * CV/100 * mean(Tavg in K);
+    * xclim BIO15 is a coefficient of variation with the n divisor and no +1:
+      ours = sqrt(12/11) * CV * mean(P) / (1 + mean(P));
+    * xclim takes precipitation as a rate: we give mm/day on a 360_day calendar so each
+      month is 30 days and rate * 30 = our monthly total exactly.
+    """
+    xclim_indices = pytest.importorskip("xclim.indices")
+    import cftime
+
+    tavg = np.array([4, 2, 1, 3, 7, 11, 15, 17, 14, 10, 7, 5], dtype=float)  # coldest FMA
+    dtr = np.array([6, 6, 7, 8, 9, 10, 11, 12, 10, 9, 7, 6], dtype=float)
+    pr = np.array([40, 45, 50, 70, 95, 120, 100, 60, 35, 20, 25, 30], dtype=float)  # wet MJJ
+    tmin, tmax = tavg - dtr / 2, tavg + dtr / 2
+    ours = bioclim_kernel(tmin, tmax, pr)
+
+    time = xr.DataArray(
+        [cftime.Datetime360Day(2001, m, 1) for m in range(1, 13)], dims="time", name="time"
+    )
+    def da(v, units):
+        return xr.DataArray(v, dims="time", coords={"time": time}, attrs={"units": units})
+    tn, tx = da(tmin, "degC"), da(tmax, "degC")
+    tg = da(tavg, "degC")
+    p = da(pr / 30.0, "mm/d")
+    xi = xclim_indices
+    ref = {
+        1: xi.tg_mean(tg), 2: xi.daily_temperature_range(tn, tx),
+        3: xi.isothermality(tn, tx), 5: xi.tx_max(tx), 6: xi.tn_min(tn),
+        7: xi.extreme_temperature_range(tn, tx),
+        8: xi.tg_mean_wetdry_quarter(tg, p, op="wettest"),
+        9: xi.tg_mean_wetdry_quarter(tg, p, op="driest"),
+        10: xi.tg_mean_warmcold_quarter(tg, op="warmest"),
+        11: xi.tg_mean_warmcold_quarter(tg, op="coldest"),
+        12: xi.prcptot(p), 16: xi.prcptot_wetdry_quarter(p, op="wettest"),
+        17: xi.prcptot_wetdry_quarter(p, op="driest"),
+        18: xi.prcptot_warmcold_quarter(p, tg, op="warmest"),
+        19: xi.prcptot_warmcold_quarter(p, tg, op="coldest"),
+    }
+    for k, v in ref.items():
+        val = float(v.squeeze())
+        if k in (1, 5, 6, 8, 9, 10, 11) and v.attrs.get("units") == "K":
+            val -= 273.15
+        assert ours[k - 1] == pytest.approx(val, rel=1e-6, abs=1e-6), f"bio{k}"
+    # BIO13/14: xclim gives the wettest/driest month's rate; x 30 days
+    for k, op in ((13, "wettest"), (14, "driest")):
+        r = xi.prcptot_wetdry_period(p, op=op)
+        days = 30 if r.attrs["units"] in ("mm/d", "mm d-1") else 1
+        assert ours[k - 1] == pytest.approx(float(r.squeeze()) * days, rel=1e-6), f"bio{k}"
+    cv_t = float(xi.temperature_seasonality(tg).squeeze())
+    mean_k = tavg.mean() + 273.15
+    assert ours[3] == pytest.approx(100 * np.sqrt(12 / 11) * cv_t / 100 * mean_k, rel=1e-6)
+    cv_p = float(xi.precip_seasonality(p).squeeze())
+    assert ours[14] == pytest.approx(
+        np.sqrt(12 / 11) * cv_p * pr.mean() / (1 + pr.mean()), rel=1e-6
+    )
