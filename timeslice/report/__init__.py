@@ -1,1 +1,51 @@
-"""timeslice.report stage."""
+"""timeslice.report: CF NetCDF, GeoTIFF, CSV tables, maps, plots, the HTML report and the
+run manifest."""
+
+from __future__ import annotations
+
+from timeslice.report.geotiff import export
+from timeslice.report.html import DEFAULT_CAUTIONS, ReportContext, render_report, write_report
+from timeslice.report.manifest import hash_file, package_versions, read_manifest, write_manifest
+from timeslice.report.maps import (
+    CHANGE_COLOURS,
+    change_map,
+    novelty_map,
+    series_panel,
+    slice_maps,
+    stability_map,
+)
+from timeslice.report.netcdf import open_series, prepare_cf, write_series
+from timeslice.report.plots import (
+    area_through_time,
+    centroid_track,
+    gain_loss_bars,
+    response_curves,
+    shift_plot,
+)
+from timeslice.report.tables import write_csv
+
+__all__ = [
+    "CHANGE_COLOURS",
+    "DEFAULT_CAUTIONS",
+    "ReportContext",
+    "area_through_time",
+    "centroid_track",
+    "change_map",
+    "export",
+    "gain_loss_bars",
+    "hash_file",
+    "novelty_map",
+    "open_series",
+    "package_versions",
+    "prepare_cf",
+    "read_manifest",
+    "render_report",
+    "response_curves",
+    "series_panel",
+    "shift_plot",
+    "slice_maps",
+    "stability_map",
+    "write_csv",
+    "write_manifest",
+    "write_report",
+]

@@ -1,0 +1,85 @@
+"""The self-contained HTML report."""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import re
+
+import pandas as pd
+import pytest
+from PIL import Image
+
+from timeslice.errors import DataError, InputFileError
+from timeslice.report import plots
+from timeslice.report.html import DEFAULT_CAUTIONS, ReportContext, render_report, write_report
+
+_IMG = re.compile(r'<img[^>]*src="([^"]*)"')
+_URL_ATTR = re.compile(r'(?:src|href|action|poster|data)\s*=\s*["\']?\s*(?:https?:)?//', re.I)
+
+
+def _context(summary_df, tmp_path, **kw):
+    fig = plots.gain_loss_bars(summary_df, tmp_path / "bars.png", dpi=40)
+    base = dict(
+        title="Demo <run>",
+        species="Nivalia demonstrata",
+        summary=summary_df,
+        tables={"Record cleaning": pd.DataFrame({"reason": ["at sea", "duplicate"],
+                                                 "n_dropped": [3, 2]})},
+        figures=[("Gain & loss per slice", fig)],
+        methods="First paragraph.\n\nSecond paragraph with <b>markup</b>.",
+        run_info={"seed": 42, "command": "timeslice demo --out x"},
+    )
+    base.update(kw)
+    return ReportContext(**base)
+
+
+def test_report_is_self_contained(summary_df, tmp_path):
+    path = write_report(_context(summary_df, tmp_path), tmp_path / "report.html")
+    text = path.read_text(encoding="utf-8")
+    assert text.startswith("<!DOCTYPE html>")
+    assert "<script" not in text.lower()
+    assert not _URL_ATTR.search(text), "a src/href points off the page"
+    srcs = _IMG.findall(text)
+    assert len(srcs) == 1
+    for src in srcs:
+        assert src.startswith("data:image/png;base64,")
+        data = base64.b64decode(src.split(",", 1)[1], validate=True)
+        with Image.open(io.BytesIO(data)) as im:
+            im.verify()
+    for caution in DEFAULT_CAUTIONS:
+        assert html.escape(caution) in text
+
+
+def test_every_input_text_is_escaped(summary_df, tmp_path):
+    evil = '<script>alert("x")</script>'
+    summary = summary_df.copy()
+    summary.loc[0, "model"] = evil
+    ctx = _context(summary_df=summary, tmp_path=tmp_path, species=evil,
+                   title=evil, figures=[(evil, tmp_path / "bars.png")],
+                   tables={evil: pd.DataFrame({evil: [evil]})}, methods=evil,
+                   run_info={evil: evil}, highlights=[evil])
+    text = render_report(ctx)
+    assert "<script" not in text
+    assert "&lt;script&gt;" in text
+
+
+def test_highlights_from_summary(summary_df, tmp_path):
+    text = render_report(_context(summary_df, tmp_path))
+    assert "Baseline suitable area" in text
+    row = summary_df.iloc[1]
+    assert f"gains {row.gain_km2:,.0f} km²" in text
+
+
+def test_errors(summary_df, tmp_path):
+    with pytest.raises(InputFileError, match="missing.png"):
+        render_report(_context(summary_df, tmp_path, figures=[("x", tmp_path / "missing.png")]))
+    notpng = tmp_path / "fig.png"
+    notpng.write_text("<svg/>")
+    with pytest.raises(InputFileError, match="PNG or JPEG"):
+        render_report(_context(summary_df, tmp_path, figures=[("x", notpng)]))
+    with pytest.raises(DataError, match="ReportContext"):
+        write_report({"title": "x"}, tmp_path / "r.html")
+    with pytest.raises(DataError, match="DataFrame"):
+        render_report(_context(summary_df, tmp_path, tables={"t": [1, 2]}))

@@ -1,0 +1,121 @@
+"""Maps and plots: files are valid PNGs, drawn offline, with the documented styling."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from PIL import Image
+
+from timeslice.errors import DataError
+from timeslice.report import maps, plots
+
+
+def _png_ok(path):
+    with Image.open(path) as im:
+        im.verify()
+    with Image.open(path) as im:
+        assert im.format == "PNG"
+        w, h = im.size
+        assert w > 100 and h > 100
+        arr = np.asarray(im.convert("L"))
+        assert arr.std() > 5  # not a blank canvas
+
+
+def test_slice_maps_one_per_slice(series_ds, tmp_path):
+    files = maps.slice_maps(series_ds, tmp_path, dpi=60)
+    assert [p.name for p in files] == [f"suitability_{s}.png" for s in series_ds.slice.values]
+    for p in files:
+        _png_ok(p)
+
+
+@pytest.mark.parametrize("kind", ["series", "change", "nt2", "stability"])
+def test_panels(series_ds, tmp_path, kind):
+    small = series_ds.isel(slice=[0, 1, 2])
+    make = {
+        "series": lambda: maps.series_panel(small, tmp_path / "panel.png", dpi=50),
+        "change": lambda: maps.change_map(small, tmp_path / "change.png", dpi=50),
+        "nt2": lambda: maps.novelty_map(small, tmp_path / "nt2.png", variable="nt2", dpi=50),
+        "stability": lambda: maps.stability_map(small, tmp_path / "stab.png", dpi=50),
+    }[kind]
+    _png_ok(make())
+
+
+def test_map_errors_name_the_layer(series_ds, tmp_path):
+    with pytest.raises(DataError, match="'nope'"):
+        maps.slice_maps(series_ds, tmp_path, variable="nope")
+    with pytest.raises(DataError, match="'zzz'"):
+        maps.slice_maps(series_ds, tmp_path, slices=["zzz"])
+    with pytest.raises(DataError, match="variable"):
+        maps.novelty_map(series_ds, tmp_path / "x.png", variable="suitability")
+
+
+def test_change_palette_is_distinct():
+    # Okabe & Ito (2008) colours (from memory): four codes, four different colours,
+    # and the gain/loss pair differs strongly in lightness, so it survives greyscale printing.
+    from matplotlib.colors import to_rgb
+
+    cols = {k: to_rgb(v[1]) for k, v in maps.CHANGE_COLOURS.items()}
+    assert sorted(cols) == [0, 1, 2, 3] and len(set(cols.values())) == 4
+
+    def lum(c):  # ITU-R BT.709 relative luminance weights on the sRGB values
+        return 0.2126 * c[0] + 0.7152 * c[1] + 0.0722 * c[2]
+
+    assert abs(lum(cols[1]) - lum(cols[2])) > 0.2
+
+
+def test_scale_bar_length_matches_geodesic():
+    # The bar spans `length` km along its parallel on the authalic sphere; compare with the
+    # WGS84 geodesic along a short parallel segment (reference: pyproj.Geod.inv). A parallel is
+    # not a geodesic, but over a few degrees the two differ far less than the 1 % allowed.
+    pyproj = pytest.importorskip("pyproj")
+    from timeslice.grid import AUTHALIC_RADIUS_KM
+
+    lat = 47.0
+    km_per_deg = math.pi / 180 * AUTHALIC_RADIUS_KM * math.cos(math.radians(lat))
+    length = maps._nice_length(0.2 * 8.0 * km_per_deg)
+    assert length in (100.0, 200.0, 500.0)
+    dlon = length / km_per_deg
+    _, _, dist_m = pyproj.Geod(ellps="WGS84").inv(-30.0, lat, -30.0 + dlon, lat)
+    assert dist_m / 1000.0 == pytest.approx(length, rel=0.01)
+
+
+@pytest.mark.parametrize("km,expected", [(123.0, 100.0), (260.0, 200.0), (999.0, 500.0),
+                                         (7.0, 5.0), (1.0, 1.0)])
+def test_nice_length(km, expected):
+    assert maps._nice_length(km) == expected
+
+
+def test_summary_plots(summary_df, tmp_path):
+    _png_ok(plots.area_through_time(summary_df, tmp_path / "area.png", dpi=60))
+    _png_ok(plots.gain_loss_bars(summary_df, tmp_path / "bars.png", dpi=60))
+    _png_ok(plots.centroid_track(summary_df, tmp_path / "track.png", dpi=60))
+    shifts = summary_df.assign(mean_elevation_m=np.linspace(800, 1200, len(summary_df)))
+    _png_ok(plots.shift_plot(shifts, tmp_path / "shift.png", dpi=60))
+
+
+def test_centroid_track_with_coastline(summary_df, series_big, tmp_path):
+    land = series_big["land"].isel(slice=0)
+    _png_ok(plots.centroid_track(summary_df, tmp_path / "track.png", land=land, dpi=60))
+
+
+def test_response_curves(tmp_path):
+    x = np.linspace(-10, 20, 61)
+    rows = []
+    for var, mu in (("bio1", 5.0), ("bio12", 8.0)):
+        s = np.exp(-0.5 * ((x - mu) / 4.0) ** 2)
+        rows.append(pd.DataFrame({"variable": var, "value": x, "suitability": s,
+                                  "inside_calibration": (x > -4) & (x < 14)}))
+    _png_ok(plots.response_curves(pd.concat(rows), tmp_path / "resp.png", dpi=60))
+
+
+def test_plot_errors_name_columns(summary_df, tmp_path):
+    with pytest.raises(DataError, match="suitable_area_km2"):
+        plots.area_through_time(summary_df.drop(columns="suitable_area_km2"), tmp_path / "a.png")
+    with pytest.raises(DataError, match="no rows"):
+        plots.gain_loss_bars(summary_df.iloc[:0], tmp_path / "b.png")
+    with pytest.raises(DataError, match="inside_calibration"):
+        plots.response_curves(pd.DataFrame({"variable": [], "value": [], "suitability": []}),
+                              tmp_path / "c.png")

@@ -1,0 +1,144 @@
+"""CF NetCDF writer: compliance, round trip, flags, chunking, atomicity."""
+
+from __future__ import annotations
+
+import json
+
+import netCDF4
+import numpy as np
+import pytest
+import xarray as xr
+
+from timeslice.errors import DataError, InputFileError
+from timeslice.grid import cell_area
+from timeslice.report.netcdf import open_series, write_series
+
+
+def _cf_errors(path, tmp_path):
+    """High-priority failures of the offline CF 1.8 checker (compliance-checker >= 5.1)."""
+    from compliance_checker.runner import CheckSuite, ComplianceChecker
+
+    CheckSuite.load_all_available_checkers()
+    report = tmp_path / "cf_report.json"
+    passed, had_errors = ComplianceChecker.run_checker(
+        str(path), ["cf:1.8"], 0, "normal", output_filename=str(report), output_format="json"
+    )
+    result = json.loads(report.read_text())["cf:1.8"]
+    high = [(i["name"], i["msgs"]) for i in result["high_priorities"] if i["msgs"]]
+    medium = [(i["name"], i["msgs"]) for i in result["medium_priorities"] if i["msgs"]]
+    return passed, had_errors, high, medium
+
+
+def test_series_passes_cf_checker(series_ds, tmp_path):
+    # Reference: compliance-checker's "cf:1.8" suite (IOOS), run offline on the file.
+    path = write_series(series_ds, tmp_path / "series.nc", source="unit test")
+    passed, had_errors, high, medium = _cf_errors(path, tmp_path)
+    assert not had_errors, "the checker itself raised on this file"
+    assert high == []
+    assert medium == []
+    assert passed
+
+
+def test_ensemble_without_slice_dim_passes_cf_checker(series_ds, tmp_path):
+    # An ensemble summary has (lat, lon) layers only; the same writer must stay CF-clean.
+    ens = series_ds[["stability", "refugium", "elevation"]]
+    path = write_series(ens, tmp_path / "ensemble.nc")
+    passed, had_errors, high, _ = _cf_errors(path, tmp_path)
+    assert not had_errors and high == [] and passed
+
+
+def test_round_trip_values_and_types(series_ds, tmp_path):
+    path = write_series(series_ds, tmp_path / "series.nc")
+    back = open_series(path)
+    assert list(back["slice"].values) == list(series_ds["slice"].values)
+    for name in ("year", "period", "model", "scenario"):
+        assert list(back[name].values) == list(series_ds[name].values)
+    np.testing.assert_array_equal(back["suitability"].values, series_ds["suitability"].values)
+    assert back["suitable"].dtype == np.int8
+    np.testing.assert_array_equal(back["suitable"].values, series_ds["suitable"].values)
+    assert back["change"].dtype == np.int8
+    assert back["land"].dtype == bool and back["refugium"].dtype == bool
+    np.testing.assert_array_equal(back["refugium"].values, series_ds["refugium"].values)
+    # cell areas stored are the spherical formula of timeslice.grid (checked there vs pyproj)
+    np.testing.assert_allclose(back["cell_area"].values, cell_area(series_ds).values)
+
+
+def test_cf_attributes_and_encoding(series_ds, tmp_path):
+    path = write_series(series_ds, tmp_path / "series.nc", history="made in a test")
+    with netCDF4.Dataset(path) as nc:
+        assert nc.Conventions == "CF-1.8"
+        assert "made in a test" in nc.history
+        assert nc.variables["crs"].grid_mapping_name == "latitude_longitude"
+        # WGS84 defining constants (NIMA TR8350.2, 2000, table 3.1)
+        assert nc.variables["crs"].semi_major_axis == 6378137.0
+        assert nc.variables["crs"].inverse_flattening == 298.257223563
+        assert nc.variables["lat"].bounds == "lat_bnds"
+        assert nc.variables["lon"].bounds == "lon_bnds"
+        for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2", "change", "land",
+                     "elevation", "calibration_area", "stability", "refugium"):
+            v = nc.variables[name]
+            assert v.grid_mapping == "crs", name
+            assert hasattr(v, "units") and hasattr(v, "long_name"), name
+            filters = v.filters()
+            assert filters["zlib"], name
+        s = nc.variables["suitability"]
+        assert s.chunking() == [1, series_ds.sizes["lat"], series_ds.sizes["lon"]]
+        assert "year" in s.coordinates and "slice_label" in s.coordinates
+        land = nc.variables["land"]
+        assert land.dtype == np.int8
+        assert list(land.flag_values) == [0, 1]
+        assert nc.variables["elevation"].standard_name == "surface_altitude"
+        chg = nc.variables["change"]
+        assert chg.flag_meanings == "not_land absent gain loss stable"
+        assert chg.flag_values.dtype == np.int8
+        mod = nc.variables["mod"]
+        assert mod.flag_values.dtype == np.int16
+        assert mod.flag_meanings == "bio1 bio12 bio6"
+
+
+def test_lat_lon_bounds_contiguous(series_ds, tmp_path):
+    path = write_series(series_ds, tmp_path / "series.nc")
+    with xr.open_dataset(path) as ds:
+        lb = ds["lat_bnds"].values
+        np.testing.assert_allclose(lb[1:, 0], lb[:-1, 1])
+        np.testing.assert_allclose(lb.mean(axis=1), ds["lat"].values)
+        ob = ds["lon_bnds"].values
+        np.testing.assert_allclose(ob[:, 1] - ob[:, 0], 0.5)
+
+
+def test_dask_input_is_written(series_ds, tmp_path):
+    lazy = series_ds.chunk({"slice": 1})
+    path = write_series(lazy, tmp_path / "series.nc")
+    back = open_series(path)
+    np.testing.assert_array_equal(back["mess"].values, series_ds["mess"].values)
+
+
+def test_failed_write_keeps_previous_file(series_ds, tmp_path, monkeypatch):
+    path = write_series(series_ds, tmp_path / "series.nc")
+    before = path.read_bytes()
+
+    def boom(self, *a, **k):
+        raise RuntimeError("disk full")
+
+    monkeypatch.setattr(xr.Dataset, "to_netcdf", boom)
+    with pytest.raises(RuntimeError):
+        write_series(series_ds, path)
+    assert path.read_bytes() == before
+    assert [p.name for p in tmp_path.iterdir() if p.suffix == ".part"] == []
+
+
+def test_bad_inputs(series_ds, tmp_path):
+    with pytest.raises(DataError, match="xarray.Dataset"):
+        write_series(series_ds["suitability"], tmp_path / "x.nc")
+    with pytest.raises(DataError, match="`lat`"):
+        write_series(series_ds.drop_vars("lat"), tmp_path / "x.nc")
+    with pytest.raises(DataError, match="complevel"):
+        write_series(series_ds, tmp_path / "x.nc", complevel=11)
+    with pytest.raises(InputFileError, match="is a folder"):
+        write_series(series_ds, tmp_path)
+    with pytest.raises(InputFileError, match="no such file"):
+        open_series(tmp_path / "missing.nc")
+    bad = tmp_path / "bad.nc"
+    bad.write_text("not netcdf")
+    with pytest.raises(InputFileError, match="bad.nc"):
+        open_series(bad)

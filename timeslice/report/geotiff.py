@@ -1,0 +1,158 @@
+"""GeoTIFF export: one (Cloud-Optimised) GeoTIFF per layer and slice, WGS84."""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from timeslice.errors import DataError
+from timeslice.grid import cell_bounds
+from timeslice.io import atomic_path
+from timeslice.report._layers import LAYERS, flag_pairs
+
+__all__ = ["export"]
+
+_DEFAULT_VARIABLES = (
+    "suitability", "suitable", "mess", "mod", "nt1", "nt2", "change",
+    "stability", "refugium", "calibration_area", "elevation",
+)
+_SAFE = re.compile(r"[^A-Za-z0-9._-]+")
+
+
+def _safe(text: str) -> str:
+    return _SAFE.sub("_", str(text)).strip("_") or "unnamed"
+
+
+def _driver() -> str:
+    import rasterio
+
+    with rasterio.Env() as env:
+        return "COG" if "COG" in env.drivers() else "GTiff"
+
+
+def _write_one(array: np.ndarray, path: Path, *, transform, nodata, description: str,
+               tags: dict[str, str], driver: str) -> None:
+    import rasterio
+
+    height, width = array.shape
+    profile = {
+        "driver": driver, "height": height, "width": width, "count": 1,
+        "dtype": array.dtype.name, "crs": "EPSG:4326", "transform": transform,
+        "nodata": nodata,
+    }
+    if driver == "COG":
+        profile.update(compress="DEFLATE", blocksize=256, overview_resampling="nearest")
+    else:
+        profile.update(compress="deflate", tiled=width >= 256 and height >= 256)
+    with atomic_path(path) as tmp:
+        # GDAL picks the format from the driver, not the temporary file's suffix.
+        with rasterio.open(tmp, "w", **profile) as dst:
+            dst.write(array, 1)
+            dst.set_band_description(1, description)
+            dst.update_tags(**tags)
+            dst.update_tags(1, **tags)
+
+
+def export(
+    ds: xr.Dataset,
+    out_dir: str | os.PathLike,
+    *,
+    variables: Sequence[str] | None = None,
+) -> list[Path]:
+    """Write one single-band GeoTIFF per layer and slice.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Stacked series (``(slice, lat, lon)`` and ``(lat, lon)`` layers).
+    out_dir : path-like
+        Folder for the files ``<variable>_<slice>.tif`` (``<variable>.tif`` for layers
+        without a slice dimension).
+    variables : sequence of str, optional
+        Layers to export; default every known output layer present in `ds`.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written, in order.
+
+    Notes
+    -----
+    Rows run north to south (GDAL's convention), so the data are flipped from the ascending
+    latitude of the series. Float layers use NaN as nodata; integer flag layers use -1
+    ("not land"), booleans become uint8 with nodata 255. The CRS is EPSG:4326 (WGS 84); the
+    affine transform comes from the cell bounds. The "COG" driver (GDAL >= 3.1) is used when
+    available, else tiled GeoTIFF.
+    """
+    from affine import Affine
+
+    if not isinstance(ds, xr.Dataset):
+        raise DataError(f"geotiff.export: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
+    if variables is None:
+        names = [v for v in _DEFAULT_VARIABLES if v in ds.data_vars]
+    else:
+        names = list(variables)
+        missing = [v for v in names if v not in ds.data_vars]
+        if missing:
+            raise DataError(
+                f"geotiff.export: variables {missing} are not in the dataset; "
+                f"choose from {sorted(map(str, ds.data_vars))}"
+            )
+    lat = ds["lat"].values
+    lon = ds["lon"].values
+    lat_b = cell_bounds(lat, kind="lat")
+    lon_b = cell_bounds(lon, kind="lon")
+    dx = float(np.median(np.diff(lon_b, axis=1)))
+    dy = float(np.median(np.diff(lat_b, axis=1)))
+    # North-up: origin at the north-west corner, rows stepping south.
+    transform = Affine(dx, 0.0, float(lon_b[0, 0]), 0.0, -dy, float(lat_b[-1, 1]))
+    driver = _driver()
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    written: list[Path] = []
+    for name in names:
+        da = ds[name]
+        extra = [d for d in da.dims if d not in ("lat", "lon")]
+        if set(da.dims) - set(extra) != {"lat", "lon"} or len(extra) > 1:
+            raise DataError(
+                f"geotiff.export: layer {name!r} has dims {da.dims}; expected (lat, lon) "
+                "with at most one more dimension such as slice"
+            )
+        da = da.transpose(*extra, "lat", "lon")
+        values = np.asarray(da.values)
+        if values.dtype == bool:
+            values, nodata = values.astype("uint8"), 255
+        elif values.dtype.kind in "iu":
+            nodata = -1 if values.dtype.kind == "i" else None
+        else:
+            values, nodata = values.astype("float32"), float("nan")
+        spec = LAYERS.get(str(name), {})
+        desc = str(da.attrs.get("long_name", spec.get("long_name", name)))
+        tags = {"units": str(da.attrs.get("units", spec.get("units", "1")))}
+        pairs = flag_pairs(ds[name])
+        if pairs:
+            tags["flag_values"] = " ".join(str(v) for v, _ in pairs)
+            tags["flag_meanings"] = " ".join(m for _, m in pairs)
+        if extra:
+            dim = extra[0]
+            labels = ds[dim].values if dim in ds.coords else np.arange(da.sizes[dim])
+            for i, label in enumerate(labels):
+                path = out / f"{_safe(name)}_{_safe(label)}.tif"
+                t = dict(tags, slice=str(label))
+                for key in ("year", "period", "model", "scenario"):
+                    if key in ds.coords and ds[key].dims == (dim,):
+                        t[key] = str(ds[key].values[i])
+                _write_one(values[i][::-1].copy(), path, transform=transform, nodata=nodata,
+                           description=f"{desc} ({label})", tags=t, driver=driver)
+                written.append(path)
+        else:
+            path = out / f"{_safe(name)}.tif"
+            _write_one(values[::-1].copy(), path, transform=transform, nodata=nodata,
+                       description=desc, tags=tags, driver=driver)
+            written.append(path)
+    return written

@@ -1,0 +1,283 @@
+"""One self-contained HTML report: inline CSS, images embedded as base64, no scripts,
+no external requests. Every text that comes from inputs is HTML-escaped.
+"""
+
+from __future__ import annotations
+
+import base64
+import datetime as _dt
+import html as _html
+import math
+import os
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from timeslice.errors import DataError, InputFileError
+from timeslice.io import atomic_path
+
+__all__ = ["DEFAULT_CAUTIONS", "ReportContext", "render_report", "write_report"]
+
+#: The cautions every report carries in full.
+DEFAULT_CAUTIONS: tuple[str, ...] = (
+    "Projections are hypotheses. Each map says where the climate of a time slice resembles the "
+    "climate the species occupies today, as seen through one fitted model; it is not a "
+    "forecast of where the species will be found.",
+    "Biotic interactions (competitors, pollinators, pathogens, hosts), land use, and limits "
+    "to movement and establishment are outside the climate niche. A cell can be climatically "
+    "suitable and still unreachable or unoccupied.",
+    "Novel-climate areas (MESS < 0, or ExDet NT1 < 0 / NT2 > 1) lie outside the conditions "
+    "the model was calibrated on. They are flagged, not trusted: suitability there is an "
+    "extrapolation of the fitted response.",
+    "For conservation and planning decisions, defer to local expertise, field evidence and "
+    "the applicable regulations; use these results as one line of evidence among several.",
+)
+
+_PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+_JPEG_MAGIC = b"\xff\xd8\xff"
+
+_CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,Helvetica,Arial,sans-serif;
+margin:0;color:#1d1d1d;background:#fafafa;line-height:1.45}
+header{background:#123049;color:#fff;padding:1.2em 2em}
+header h1{margin:0 0 .2em 0;font-size:1.6em}header p{margin:.1em 0;opacity:.9}
+main{max-width:1100px;margin:0 auto;padding:1em 2em 3em 2em}
+h2{border-bottom:2px solid #123049;padding-bottom:.2em;margin-top:1.8em}
+h3{margin-bottom:.3em}
+.cautions{background:#fff4e0;border-left:6px solid #E69F00;padding:.6em 1.2em;margin:1em 0}
+.cautions li{margin:.35em 0}
+.keys{display:flex;flex-wrap:wrap;gap:.8em;margin:.8em 0}
+.key{background:#fff;border:1px solid #ccd;border-radius:6px;padding:.6em .9em;min-width:12em}
+.key b{display:block;font-size:1.25em}
+table{border-collapse:collapse;margin:.5em 0 1.2em 0;font-size:.85em;background:#fff}
+th,td{border:1px solid #ccd;padding:.25em .55em;text-align:left;vertical-align:top}
+th{background:#e8edf2}td.num{text-align:right;font-variant-numeric:tabular-nums}
+.scroll{overflow-x:auto}
+figure{margin:1em 0 2em 0;background:#fff;border:1px solid #dde;padding:.6em}
+figure img{max-width:100%;height:auto;display:block;margin:0 auto}
+figcaption{font-size:.9em;color:#333;margin-top:.4em}
+nav ul{columns:2;padding-left:1.2em}
+.methods p{text-align:justify}
+footer{font-size:.8em;color:#555;margin-top:3em}
+code{font-size:.95em}
+"""
+
+
+@dataclass
+class ReportContext:
+    """Everything the HTML report shows.
+
+    Attributes
+    ----------
+    title : str
+        Report title.
+    species : str
+        Taxon name as given in the inputs (escaped when rendered).
+    summary : pandas.DataFrame, optional
+        The per-slice summary table (summary.csv columns).
+    tables : dict of str to pandas.DataFrame
+        Further named tables in display order (e.g. "Record cleaning", "Variable screening",
+        "Model evaluation", "Climate inputs").
+    figures : list of (caption, path)
+        PNG (or JPEG) files embedded in order, each with its caption.
+    methods : str
+        Methods text; blank lines separate paragraphs.
+    cautions : sequence of str
+        Shown in full near the top; default :data:`DEFAULT_CAUTIONS`.
+    run_info : dict
+        Shown as a two-column table (command, output folder, seed, versions, ...).
+    highlights : list of str
+        Short statements shown under the summary (computed from `summary` when empty).
+    """
+
+    title: str = "timeslice report"
+    species: str = ""
+    summary: pd.DataFrame | None = None
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    figures: list[tuple[str, str | os.PathLike]] = field(default_factory=list)
+    methods: str = ""
+    cautions: Sequence[str] = DEFAULT_CAUTIONS
+    run_info: dict[str, Any] = field(default_factory=dict)
+    highlights: list[str] = field(default_factory=list)
+
+
+def _e(text: Any) -> str:
+    return _html.escape(str(text), quote=True)
+
+
+def _fmt(value: Any) -> tuple[str, bool]:
+    """Cell text and whether it is numeric."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "", False
+    if isinstance(value, (bool, np.bool_)):
+        return ("yes" if value else "no"), False
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,}", True
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        if not math.isfinite(v):
+            return str(v), True
+        if v != 0 and (abs(v) >= 1e7 or abs(v) < 1e-3):
+            return f"{v:.3g}", True
+        if abs(v) >= 100:
+            return f"{v:,.0f}", True
+        return f"{v:.3g}" if abs(v) < 1 else f"{v:.2f}", True
+    return str(value), False
+
+
+def _table(df: pd.DataFrame, *, max_rows: int = 500) -> str:
+    if not isinstance(df, pd.DataFrame):
+        raise DataError(f"report tables must be pandas.DataFrame, got {type(df).__name__}")
+    head = "".join(f"<th>{_e(c)}</th>" for c in df.columns)
+    rows = []
+    for rec in df.head(max_rows).itertuples(index=False, name=None):
+        cells = []
+        for v in rec:
+            text, num = _fmt(v)
+            cells.append(f'<td class="num">{_e(text)}</td>' if num else f"<td>{_e(text)}</td>")
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    more = ""
+    if len(df) > max_rows:
+        more = f"<p>First {max_rows} of {len(df):,} rows shown; the full table is in the CSV.</p>"
+    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead><tbody>'
+            + "".join(rows) + f"</tbody></table></div>{more}")
+
+
+def _image(path: str | os.PathLike) -> str:
+    p = Path(path)
+    if not p.is_file():
+        raise InputFileError(f"{p}: report figure not found; make the figure before the report")
+    data = p.read_bytes()
+    if data.startswith(_PNG_MAGIC):
+        mime = "image/png"
+    elif data.startswith(_JPEG_MAGIC):
+        mime = "image/jpeg"
+    else:
+        raise InputFileError(f"{p}: report figures must be PNG or JPEG files")
+    return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+
+
+def _highlights(summary: pd.DataFrame) -> list[str]:
+    """Plain statements of area, gain, loss and novelty per non-baseline slice."""
+    out: list[str] = []
+    need = {"slice", "scenario", "suitable_area_km2", "gain_km2", "loss_km2"}
+    if summary is None or not need <= set(summary.columns) or summary.empty:
+        return out
+    base = summary[summary["scenario"].astype(str) == "baseline"]
+    if len(base):
+        out.append(f"Baseline suitable area: {float(base['suitable_area_km2'].iloc[0]):,.0f} km².")
+    for rec in summary[summary["scenario"].astype(str) != "baseline"].itertuples(index=False):
+        r = rec._asdict()
+        text = (f"{r['slice']} ({r.get('model', '')}, {r['scenario']}): "
+                f"{float(r['suitable_area_km2']):,.0f} km² suitable, "
+                f"gains {float(r['gain_km2']):,.0f} km², loses {float(r['loss_km2']):,.0f} km²")
+        if "novel_area_km2" in r and pd.notna(r["novel_area_km2"]):
+            text += f"; {float(r['novel_area_km2']):,.0f} km² of land has novel climate"
+        out.append(text + ".")
+    return out
+
+
+def render_report(context: ReportContext) -> str:
+    """The report as one HTML string (see :func:`write_report`)."""
+    if not isinstance(context, ReportContext):
+        raise DataError(
+            f"write_report: `context` must be a ReportContext, got {type(context).__name__}"
+        )
+    parts: list[str] = []
+    title = _e(context.title)
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    sections: list[tuple[str, str]] = []
+    parts.append("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+                 "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+                 # A policy forbidding every fetch except embedded data makes the
+                 # "no request leaves the page" promise enforceable by the browser itself.
+                 "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
+                 "img-src data:; style-src 'unsafe-inline'\">"
+                 f"<title>{title}</title><style>{_CSS}</style></head><body>")
+    sub = f"<p><i>{_e(context.species)}</i></p>" if context.species else ""
+    parts.append(f"<header><h1>{title}</h1>{sub}<p>Generated {now}</p></header><main>")
+
+    body: list[str] = []
+    body.append('<section id="cautions"><h2>Read this first</h2><div class="cautions"><ul>'
+                + "".join(f"<li>{_e(c)}</li>" for c in context.cautions)
+                + "</ul></div></section>")
+    sections.append(("cautions", "Read this first"))
+
+    highlights = list(context.highlights) or _highlights(context.summary)
+    if context.summary is not None or highlights:
+        s = ['<section id="summary"><h2>Run summary</h2>']
+        if highlights:
+            s.append("<ul>" + "".join(f"<li>{_e(h)}</li>" for h in highlights) + "</ul>")
+        if context.summary is not None:
+            s.append(_table(context.summary))
+        s.append("</section>")
+        body.append("".join(s))
+        sections.append(("summary", "Run summary"))
+
+    if context.figures:
+        s = ['<section id="figures"><h2>Maps and plots</h2>']
+        for k, (caption, path) in enumerate(context.figures):
+            s.append(f'<figure id="fig{k + 1}"><img src="{_image(path)}" '
+                     f'alt="{_e(caption)}"><figcaption>Figure {k + 1}. {_e(caption)}'
+                     "</figcaption></figure>")
+        s.append("</section>")
+        body.append("".join(s))
+        sections.append(("figures", "Maps and plots"))
+
+    for k, (name, df) in enumerate(context.tables.items()):
+        body.append(f'<section id="table{k + 1}"><h2>{_e(name)}</h2>{_table(df)}</section>')
+        sections.append((f"table{k + 1}", str(name)))
+
+    if context.methods:
+        paras = [p.strip() for p in str(context.methods).split("\n\n") if p.strip()]
+        body.append('<section id="methods" class="methods"><h2>Methods</h2>'
+                    + "".join(f"<p>{_e(p)}</p>" for p in paras) + "</section>")
+        sections.append(("methods", "Methods"))
+
+    if context.run_info:
+        info = pd.DataFrame({"item": [str(k) for k in context.run_info],
+                             "value": [v if isinstance(v, (int, float)) else str(v)
+                                       for v in context.run_info.values()]})
+        body.append(f'<section id="run"><h2>Run information</h2>{_table(info)}</section>')
+        sections.append(("run", "Run information"))
+
+    nav = "<nav><h2>Contents</h2><ul>" + "".join(
+        f'<li><a href="#{a}">{_e(t)}</a></li>' for a, t in sections) + "</ul></nav>"
+    parts.append(nav)
+    parts.extend(body)
+    parts.append("<footer>Made with timeslice. All maps show climatic suitability only; see "
+                 "&ldquo;Read this first&rdquo;.</footer></main></body></html>\n")
+    return "".join(parts)
+
+
+def write_report(context: ReportContext, path: str | os.PathLike) -> Path:
+    """Write the self-contained HTML report.
+
+    Parameters
+    ----------
+    context : ReportContext
+        What to show.
+    path : path-like
+        Target ``report.html`` (written atomically).
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+
+    Notes
+    -----
+    Images are embedded as ``data:`` URIs, styles are inline, there is no script, and a
+    Content-Security-Policy (``default-src 'none'; img-src data:``) stops the browser from
+    fetching anything, so the file opens offline and leaks no request.
+    """
+    text = render_report(context)
+    target = Path(path)
+    with atomic_path(target) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+    return target
+

@@ -1,0 +1,314 @@
+"""CF-1.8 NetCDF writer for stacked series, ensemble summaries and any gridded output.
+
+The writer fills in what CF asks of every variable (``units``, ``long_name``,
+``standard_name`` where the standard name table has one, ``grid_mapping``, ``cell_measures``,
+``flag_values``/``flag_meanings`` for categorical layers), adds a WGS84 ``crs`` grid-mapping
+variable, ``lat_bnds``/``lon_bnds`` and the grid-cell areas, turns boolean masks into int8
+flags (NetCDF has no boolean type), compresses with zlib and chunks one slice at a time.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import os
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from timeslice.errors import DataError, InputFileError
+from timeslice.grid import cell_area, cell_bounds
+from timeslice.io import atomic_path
+from timeslice.report._layers import LAYERS
+
+__all__ = ["open_series", "prepare_cf", "write_series"]
+
+#: WGS84 ellipsoid (NIMA TR8350.2, 3rd ed., 2000): semi-major axis and inverse flattening.
+_WGS84_A = 6378137.0
+_WGS84_RF = 298.257223563
+_WGS84_WKT = (
+    'GEOGCRS["WGS 84",DATUM["World Geodetic System 1984",ELLIPSOID["WGS 84",6378137,'
+    '298.257223563,LENGTHUNIT["metre",1]]],PRIMEM["Greenwich",0,ANGLEUNIT["degree",'
+    '0.0174532925199433]],CS[ellipsoidal,2],AXIS["geodetic latitude (Lat)",north,ORDER[1],'
+    'ANGLEUNIT["degree",0.0174532925199433]],AXIS["geodetic longitude (Lon)",east,ORDER[2],'
+    'ANGLEUNIT["degree",0.0174532925199433]],ID["EPSG",4326]]'
+)
+
+_SLICE_COORD_ATTRS = {
+    "slice_label": {"long_name": "time-slice label", "cf_role": "timeseries_id"},
+    "year": {
+        "long_name": "representative calendar year of the slice (CE; a slice a years before "
+        "present has year = 1950 - a)",
+        "units": "1",
+    },
+    "period": {"long_name": "period the slice climatology describes"},
+    "model": {"long_name": "climate model (observed for the baseline)"},
+    "scenario": {"long_name": "scenario (baseline, past, or a forcing scenario label)"},
+}
+
+
+def _clean_attr(value: Any) -> Any:
+    """Turn an attribute value into something netCDF4 can store (str, number, 1-D array)."""
+    if isinstance(value, (bool, np.bool_)):
+        return np.int8(value)
+    if isinstance(value, (str, int, float, np.integer, np.floating)):
+        return value
+    if isinstance(value, np.ndarray) and value.dtype.kind in "iuf" and value.ndim <= 1:
+        return value
+    if isinstance(value, (list, tuple)) and value and all(
+        isinstance(v, (int, float)) and not isinstance(v, bool) for v in value
+    ):
+        return np.asarray(value)
+    return json.dumps(value, default=str)
+
+
+def _clean_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
+    return {str(k): _clean_attr(v) for k, v in attrs.items() if v is not None}
+
+
+def prepare_cf(
+    ds: xr.Dataset,
+    *,
+    history: str | None = None,
+    source: str | None = None,
+    title: str | None = None,
+) -> xr.Dataset:
+    """Return a copy of `ds` with the CF-1.8 metadata the writer needs (no I/O).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Gridded output with 1-D ``lat`` and ``lon`` (ascending), optionally a ``slice``
+        dimension with ``year``, ``period``, ``model``, ``scenario`` coordinates.
+    history, source, title : str, optional
+        Global attributes; defaults name the tool and its version.
+
+    Returns
+    -------
+    xarray.Dataset
+        Booleans as int8 with flags, ``crs``, ``lat_bnds``, ``lon_bnds``, ``cell_area``
+        added, attributes completed from the project's layer table.
+    """
+    from timeslice import __version__
+
+    if not isinstance(ds, xr.Dataset):
+        raise DataError(f"write_series: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
+    for name in ("lat", "lon"):
+        if name not in ds.coords or ds[name].ndim != 1:
+            raise DataError(
+                f"write_series: the dataset needs a 1-D `{name}` coordinate "
+                "(normalise it with timeslice.grid.normalise_lonlat first)"
+            )
+    out = ds.copy()
+    # Encodings from files read earlier (chunk sizes, fill values, dtypes) must not leak in.
+    for name in out.variables:
+        out[name].encoding = {}
+    gridded = []
+    for name in list(out.data_vars):
+        da = out[name]
+        spec = LAYERS.get(str(name), {})
+        attrs = dict(da.attrs)
+        if da.dtype == bool:
+            da = da.astype("int8")
+            if "flag_values" not in attrs:
+                attrs["flag_values"] = np.array([0, 1], dtype="int8")
+                attrs["flag_meanings"] = spec.get("bool_flags", "false true")
+        elif "flags" in spec and "flag_values" not in attrs:
+            attrs["flag_values"], attrs["flag_meanings"] = spec["flags"]
+        if "flag_values" in attrs:
+            # CF 1.8 section 3.5: flag_values must have the variable's type.
+            attrs["flag_values"] = np.asarray(attrs["flag_values"]).astype(da.dtype)
+            attrs.pop("units", None) if attrs.get("units") in ("", None) else None
+        for key in ("units", "standard_name", "long_name", "cell_methods", "description"):
+            if key in spec and key not in attrs:
+                attrs[key] = spec[key]
+        if "units" not in attrs and da.dtype.kind == "f":
+            attrs["units"] = "1"
+        if "long_name" not in attrs:
+            attrs["long_name"] = str(name).replace("_", " ")
+        if "lat" in da.dims and "lon" in da.dims:
+            attrs["grid_mapping"] = "crs"
+            attrs["cell_measures"] = "area: cell_area"
+            gridded.append(name)
+        # xarray owns these two keys (it writes them from the encoding).
+        attrs.pop("_FillValue", None)
+        attrs.pop("coordinates", None)
+        da.attrs = _clean_attrs(attrs)
+        out[name] = da
+    if "cell_area" not in out:
+        area = cell_area(out)
+        out["cell_area"] = area.astype("float64")
+        out["cell_area"].attrs = dict(LAYERS["cell_area"])
+        out["cell_area"].attrs["grid_mapping"] = "crs"
+    out["crs"] = xr.DataArray(
+        np.int32(0),
+        attrs={
+            "grid_mapping_name": "latitude_longitude",
+            "semi_major_axis": _WGS84_A,
+            "inverse_flattening": _WGS84_RF,
+            "longitude_of_prime_meridian": 0.0,
+            "crs_wkt": _WGS84_WKT,
+            "long_name": "WGS 84 (EPSG:4326)",
+        },
+    )
+    for name, kind in (("lat", "lat"), ("lon", "lon")):
+        bnds = cell_bounds(out[name].values, kind=kind)
+        out = out.assign_coords({f"{name}_bnds": ((name, "bnds"), bnds)})
+        attrs = dict(out[name].attrs)
+        attrs.update(
+            standard_name="latitude" if name == "lat" else "longitude",
+            units="degrees_north" if name == "lat" else "degrees_east",
+            axis="Y" if name == "lat" else "X",
+            long_name="latitude" if name == "lat" else "longitude",
+            bounds=f"{name}_bnds",
+        )
+        out[name].attrs = attrs
+        out[f"{name}_bnds"].attrs = {}
+    if "slice" in out.coords and out["slice"].dtype.kind in "OUS":
+        # CF coordinate variables are numeric and monotonic; text labels go into an
+        # auxiliary coordinate (CF 1.8 section 6.1) and `open_series` restores the index.
+        labels = out["slice"].values.astype(str)
+        slice_attrs = dict(out["slice"].attrs)
+        out = out.drop_vars("slice").assign_coords(slice_label=("slice", labels))
+        out["slice_label"].attrs = slice_attrs
+    for name, extra in _SLICE_COORD_ATTRS.items():
+        if name in out.coords:
+            attrs = dict(out[name].attrs)
+            for k, v in extra.items():
+                attrs.setdefault(k, v)
+            if out[name].dtype.kind in "OUS":
+                # Text labels are tiny: load them (a lazy object array makes xarray warn).
+                text = np.asarray(out[name].values).astype(str).astype(object)
+                out = out.assign_coords({name: (out[name].dims, text)})
+                attrs.pop("units", None)
+            out[name].attrs = _clean_attrs(attrs)
+    now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    line = history or f"{now} written by timeslice {__version__}"
+    old = str(ds.attrs.get("history", "")).strip()
+    gattrs = _clean_attrs({k: v for k, v in ds.attrs.items() if k != "history"})
+    gattrs.update(
+        Conventions="CF-1.8",
+        title=title or str(ds.attrs.get("title", "timeslice climatic suitability series")),
+        history=f"{old}\n{line}" if old else line,
+        source=source or str(ds.attrs.get("source", f"timeslice {__version__}")),
+    )
+    gattrs.setdefault(
+        "comment",
+        "Projections are hypotheses about climatic suitability; biotic interactions and "
+        "dispersal limits are outside the climate niche; areas with novel climate (mess < 0) "
+        "are extrapolations and flagged, not trusted.",
+    )
+    out.attrs = gattrs
+    return out
+
+
+def _encoding(ds: xr.Dataset, *, complevel: int) -> dict[str, dict[str, Any]]:
+    enc: dict[str, dict[str, Any]] = {}
+    for name in list(ds.data_vars) + list(ds.coords):
+        da = ds[name]
+        e: dict[str, Any] = {}
+        if da.dtype.kind == "O":
+            e["dtype"] = str
+        elif da.ndim >= 1:
+            e.update(zlib=True, complevel=complevel, shuffle=True)
+            # One slice (or one ensemble member) per chunk, the whole grid in it.
+            e["chunksizes"] = tuple(
+                1 if d not in ("lat", "lon", "bnds") else ds.sizes[d] for d in da.dims
+            ) if da.ndim >= 2 else (da.shape[0],)
+        if da.dtype.kind == "f" and name not in ("lat", "lon", "lat_bnds", "lon_bnds", "year"):
+            e["_FillValue"] = np.array(np.nan, dtype=da.dtype)
+        elif da.dtype.kind in "iub" or name in ("lat", "lon", "lat_bnds", "lon_bnds", "year"):
+            e["_FillValue"] = None
+        enc[str(name)] = e
+    return enc
+
+
+def write_series(
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    history: str | None = None,
+    source: str | None = None,
+    title: str | None = None,
+    complevel: int = 4,
+) -> Path:
+    """Write a stacked series (or any gridded output) as compressed CF-1.8 NetCDF-4.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Layers on ``(lat, lon)`` or ``(slice, lat, lon)`` (any leading dimensions work).
+    path : path-like
+        Target file; written to a temporary name beside it and renamed when complete.
+    history, source, title : str, optional
+        Global attributes (CF 1.8 section 2.6.2). `history` is appended to any existing line.
+    complevel : int, default 4
+        zlib level 1..9.
+
+    Returns
+    -------
+    pathlib.Path
+        The written file.
+
+    Notes
+    -----
+    Chunks hold one slice (the whole lat-lon grid each), so reading one slice reads one chunk
+    per variable. Boolean masks are int8 with ``flag_values = 0, 1``. The ``suitable`` and
+    ``change`` layers keep -1 as a flag value ("not_land") rather than a fill value, so they
+    stay integers when read back.
+
+    References
+    ----------
+    Eaton, B. et al. (2020). NetCDF Climate and Forecast (CF) Metadata Conventions, version 1.8.
+    https://cfconventions.org/Data/cf-conventions/cf-conventions-1.8/cf-conventions.html
+    """
+    if not 1 <= int(complevel) <= 9:
+        raise DataError(f"write_series: `complevel` must be in 1..9, got {complevel}")
+    target = Path(path)
+    if target.exists() and target.is_dir():
+        raise InputFileError(f"{target}: is a folder; give a file name ending in .nc")
+    out = prepare_cf(ds, history=history, source=source, title=title)
+    enc = _encoding(out, complevel=int(complevel))
+    with atomic_path(target) as tmp:
+        out.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=enc)
+    return target
+
+
+def open_series(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
+    """Open a file written by :func:`write_series` with the ``slice`` labels as its index.
+
+    Parameters
+    ----------
+    path : path-like
+        A NetCDF file from :func:`write_series`.
+    **kwargs
+        Passed to :func:`xarray.open_dataset` (e.g. ``chunks={"slice": 1}``).
+
+    Returns
+    -------
+    xarray.Dataset
+        ``slice`` coordinate restored from ``slice_label``; the flag layers stay integers.
+    """
+    target = Path(path)
+    if not target.is_file():
+        raise InputFileError(f"{target}: no such file; give the path of a series NetCDF file")
+    try:
+        ds = xr.open_dataset(target, engine="netcdf4", **kwargs)
+    except (OSError, ValueError) as err:
+        raise InputFileError(f"{target}: not a readable NetCDF file ({err})") from err
+    if "slice_label" in ds.coords and "slice" in ds.dims:
+        attrs = dict(ds["slice_label"].attrs)
+        ds = ds.assign_coords(slice=("slice", ds["slice_label"].values.astype(str)))
+        ds = ds.drop_vars("slice_label")
+        ds["slice"].attrs = attrs
+    for name in list(ds.data_vars):
+        spec = LAYERS.get(str(name), {})
+        flags = np.asarray(ds[name].attrs.get("flag_values", [])).tolist()
+        if "bool_flags" in spec and flags == [0, 1]:
+            attrs = {k: v for k, v in ds[name].attrs.items()
+                     if k not in ("flag_values", "flag_meanings")}
+            ds[name] = (ds[name] == 1).assign_attrs(attrs)
+    return ds
