@@ -1,0 +1,81 @@
+"""Niche estimators: scikit-learn contract and the published formulas."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from scipy.spatial.distance import mahalanobis
+from sklearn.utils.estimator_checks import parametrize_with_checks
+
+from timeslice.errors import ConfigError
+from timeslice.niche.models import MODEL_NAMES, EllipsoidNiche, EnvelopeNiche, make_model
+
+# The flexible learners are checked in test_learners.py. No check is skipped here: both
+# estimators declare `multi_class=False` (presence/background only), so scikit-learn runs
+# its binary-only check instead of the multiclass ones.
+
+
+@parametrize_with_checks([EllipsoidNiche(), EnvelopeNiche()])
+def test_sklearn_contract(estimator, check):
+    check(estimator)
+
+
+def _data(rng, n_p=80, n_b=400, k=3):
+    P = rng.normal(0, 1, (n_p, k))
+    B = rng.normal(0, 3, (n_b, k))
+    X = np.r_[P, B]
+    y = np.r_[np.ones(n_p), np.zeros(n_b)].astype(int)
+    return X, y
+
+
+def test_ellipsoid_matches_scipy_mahalanobis_and_chi2(rng):
+    X, y = _data(rng)
+    m = EllipsoidNiche(ridge=0.0).fit(X, y)
+    P = X[y == 1]
+    mu, cov = P.mean(0), np.cov(P, rowvar=False)  # numpy's unbiased covariance
+    VI = np.linalg.inv(cov)
+    x = X[200]
+    # Reference: scipy.spatial.distance.mahalanobis and scipy.stats.chi2 (Farber & Kadmon 2003:
+    # suitability = 1 - chi2_k CDF of the squared distance)
+    d2 = mahalanobis(x, mu, VI) ** 2
+    assert m.mahalanobis2(X[200:201])[0] == pytest.approx(d2, rel=1e-9)
+    assert m.predict_proba(X[200:201])[0, 1] == pytest.approx(stats.chi2.sf(d2, 3), rel=1e-9)
+    np.testing.assert_allclose(m.predict_proba(X).sum(1), 1.0)
+    assert m.predict_proba(mu[None])[0, 1] == pytest.approx(1.0)
+
+
+def test_envelope_graded_and_box(rng):
+    X, y = _data(rng, k=2)
+    m = EnvelopeNiche(percentile=5).fit(X, y)
+    P = X[y == 1]
+    s = m.predict_proba(X)[:, 1]
+    assert np.all((s >= 0) & (s <= 1))
+    # outside the observed presence range of any variable: 0
+    far = np.array([[P[:, 0].max() + 1, 0.0]])
+    assert m.predict_proba(far)[0, 1] == 0.0
+    # the box edge is suitability 2 * percentile / 100: inside the box <=> S >= 0.1 (up to ties)
+    inside = m.in_envelope(X)
+    np.testing.assert_array_equal(inside, s >= 0.1 - 1e-12)
+    # the presence medians score 1
+    med = np.median(P, axis=0)[None]
+    assert m.predict_proba(med)[0, 1] == pytest.approx(1.0, abs=2.0 / P.shape[0])
+
+
+def test_dataframe_feature_names(rng):
+    X, y = _data(rng, k=2)
+    df = pd.DataFrame(X, columns=["bio1", "bio12"])
+    m = EllipsoidNiche().fit(df, y)
+    assert list(m.feature_names_in_) == ["bio1", "bio12"]
+    np.testing.assert_allclose(m.predict_proba(df), m.predict_proba(df))
+
+
+def test_make_model_names_and_errors():
+    for name in MODEL_NAMES:
+        assert make_model(name).get_params() is not None
+    assert isinstance(make_model("Ellipsoid", ridge=1e-3), EllipsoidNiche)
+    with pytest.raises(ConfigError, match="did you mean 'ellipsoid'"):
+        make_model("elipsoid")
+    with pytest.raises(ConfigError, match="no parameter 'percentil'.*did you mean 'percentile'"):
+        make_model("envelope", percentil=3)

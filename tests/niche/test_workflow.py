@@ -1,0 +1,96 @@
+"""fit_niche end to end on a synthetic world, and saving/loading fitted models."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from timeslice.errors import ConfigError, DataError, InputFileError
+from timeslice.niche import fit_niche, load_model, save_model
+from timeslice.niche import persist
+
+
+@pytest.fixture(scope="module")
+def fitted(world):
+    ds, rec, _ = world
+    return fit_niche(rec, ds, n_background=1500, buffer_km=150, cv_block_km=100, cv_folds=4, seed=1)
+
+
+def test_fit_niche_outputs(fitted, world):
+    f = fitted
+    assert f.variables and set(f.variables) <= {"bio1", "bio4", "bio5", "bio12", "bio15"}
+    assert "bio5" not in f.variables  # |r| ~ 1 with bio1, which comes first
+    assert 0 < f.threshold < 1
+    assert list(f.presence.columns) == ["lon", "lat", *f.variables]
+    assert list(f.background.columns) == ["lon", "lat", *f.variables]
+    assert f.calibration_area.dtype == bool
+    assert {"reason", "n_dropped"} <= set(f.cleaning.columns)
+    assert list(f.evaluation["summary"].tail(2)) == ["mean", "sd"]
+    assert f.evaluation.query("summary == 'mean'")["auc"].iloc[0] > 0.7
+    assert list(f.response.columns) == ["variable", "value", "suitability", "inside_calibration"]
+    assert (~f.response["inside_calibration"]).any()  # the curves extend beyond calibration
+    assert list(f.importance.columns) == ["variable", "importance_mean", "importance_sd"]
+    assert f.params["threshold_rule"] == "p10" and f.params["seed"] == 1
+    # p10 rule (METHODS.md): numpy.quantile(presence scores, 0.1, method="higher"), so
+    # ceil(0.1 (n - 1)) training presences fall below it
+    s = f.suitability(f.presence)
+    assert f.threshold == np.quantile(s, 0.1, method="higher")
+    assert np.sum(s < f.threshold) == int(np.ceil(0.1 * (s.size - 1)))
+
+
+def test_fit_niche_too_few_records_lists_reasons(world):
+    ds, rec, _ = world
+    few = rec.head(12).copy()
+    few.loc[:5, "lat"] = 0.0
+    few.loc[:5, "lon"] = 0.0
+    with pytest.raises(DataError, match=r"only \d+ of 12 records left.*zero coordinates \(0, 0\): 6"):
+        fit_niche(few, ds, n_background=200)
+
+
+def test_fit_niche_no_record_in_grid(world):
+    ds, rec, _ = world
+    out = rec.assign(lon=rec["lon"] + 100)
+    with pytest.raises(DataError, match="no record lies inside the model grid"):
+        fit_niche(out, ds)
+
+
+def test_fit_niche_bad_names(world):
+    ds, rec, _ = world
+    with pytest.raises(ConfigError, match="did you mean 'envelope'"):
+        fit_niche(rec, ds, algorithm="envelop")
+    with pytest.raises(ConfigError, match="did you mean 'max_sss'"):
+        fit_niche(rec, ds, threshold_rule="max_ss")
+    with pytest.raises(DataError, match="no predictor.*bio7"):
+        fit_niche(rec, ds, variables=["bio1", "bio7"])
+
+
+def test_fit_niche_constant_predictor(world):
+    ds, rec, _ = world
+    ds2 = ds.assign(bio4=ds["bio4"].where(ds["bio4"].isnull(), 5.0))
+    with pytest.raises(DataError, match="predictor 'bio4' is constant"):
+        fit_niche(rec, ds2, n_background=300)
+
+
+def test_save_load_roundtrip(fitted, tmp_path, world):
+    path = save_model(fitted, tmp_path / "niche.joblib")
+    again = load_model(path)
+    X = fitted.background[fitted.variables]
+    np.testing.assert_array_equal(again.suitability(X), fitted.suitability(X))
+    assert not list(tmp_path.glob("*.part"))
+
+
+def test_load_refuses_other_version(fitted, tmp_path, monkeypatch):
+    path = save_model(fitted, tmp_path / "m.joblib")
+    monkeypatch.setattr(persist, "_version", lambda: "99.0")
+    with pytest.raises(InputFileError, match=r"saved by timeslice .* this is timeslice 99\.0; refit"):
+        load_model(path)
+
+
+def test_load_bad_files(tmp_path):
+    with pytest.raises(InputFileError, match="not found"):
+        load_model(tmp_path / "none.joblib")
+    junk = tmp_path / "junk.joblib"
+    junk.write_bytes(b"not a pickle")
+    with pytest.raises(InputFileError, match="not a .*timeslice model file"):
+        load_model(junk)

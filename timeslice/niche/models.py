@@ -1,0 +1,309 @@
+"""Niche estimators with the scikit-learn API.
+
+Every estimator is a binary classifier of presence (the greater label, usually 1) against
+background (usually 0); ``predict_proba(X)[:, 1]`` is the suitability in [0, 1]. Estimators are
+numpy-only; gridded prediction is :func:`timeslice.transfer.project.project`.
+"""
+
+from __future__ import annotations
+
+import difflib
+from typing import Any
+
+import numpy as np
+from scipy import stats
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import _check_sample_weight, check_is_fitted, validate_data
+
+from timeslice.errors import ConfigError, DataError
+
+__all__ = [
+    "EllipsoidNiche",
+    "EnvelopeNiche",
+    "MODEL_NAMES",
+    "make_model",
+]
+
+
+class _NicheBase(ClassifierMixin, BaseEstimator):
+    """Shared validation for presence/background classifiers."""
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.classifier_tags.multi_class = False
+        tags.classifier_tags.poor_score = True
+        return tags
+
+    def _validate_fit(self, X, y, sample_weight):
+        X, y = validate_data(self, X, y, dtype=np.float64, ensure_min_samples=2)
+        check_classification_targets(y)
+        classes = np.unique(y)
+        if classes.size > 2:
+            raise ValueError(
+                "Only binary classification is supported: "
+                f"{type(self).__name__} is a presence/background classifier; y has "
+                f"{classes.size} classes, expected 2 (1 = presence, 0 = background)"
+            )
+        if classes.size < 2:
+            raise ValueError(
+                f"{type(self).__name__} needs presence and background rows; y has only the class "
+                f"{classes.tolist()}"
+            )
+        self.classes_ = classes
+        presence = y == classes[-1]
+        sw = _check_sample_weight(sample_weight, X, dtype=np.float64)
+        return X, presence, sw
+
+    def _validate_predict(self, X):
+        check_is_fitted(self)
+        return validate_data(self, X, dtype=np.float64, reset=False)
+
+    def suitability(self, X) -> np.ndarray:
+        """Suitability in [0, 1] of each row (the presence column of :meth:`predict_proba`)."""
+        return self.predict_proba(X)[:, 1]
+
+    def predict(self, X) -> np.ndarray:
+        """Class with the larger probability (presence when suitability >= 0.5)."""
+        proba = self.predict_proba(X)
+        return self.classes_[(proba[:, 1] >= 0.5).astype(int)]
+
+    @staticmethod
+    def _two_columns(s: np.ndarray) -> np.ndarray:
+        s = np.clip(s, 0.0, 1.0)
+        return np.column_stack([1.0 - s, s])
+
+
+class EllipsoidNiche(_NicheBase):
+    """Ellipsoid (Mahalanobis) niche: suitability from distance to the presence centroid.
+
+    Parameters
+    ----------
+    ridge : float
+        Relative ridge added to the presence covariance, ``ridge * mean(diag(S)) * I``, so a
+        (near-)singular covariance stays invertible. 1e-6 by default.
+    random_state : int, numpy.random.Generator or None
+        Unused (the fit is deterministic); kept for a common interface.
+
+    Attributes
+    ----------
+    centroid_ : ndarray of shape (n_features,)
+        Weighted mean of the presences.
+    covariance_ : ndarray of shape (n_features, n_features)
+        Presence covariance with frequency weights, divisor :math:`\\sum w - 1`, plus the ridge.
+    precision_ : ndarray
+        Inverse of `covariance_`.
+
+    Notes
+    -----
+    With presence mean :math:`\\mu` and covariance :math:`\\Sigma` over :math:`k` predictors,
+
+    .. math:: D^2(x) = (x-\\mu)^\\top \\Sigma^{-1} (x-\\mu), \\qquad
+              S(x) = 1 - F_{\\chi^2_k}(D^2(x)),
+
+    the probability that a multivariate normal niche draw lies farther from the centroid
+    than :math:`x`. Background rows are not used in the fit. Suitability decays smoothly and
+    never reaches exactly 0, so transfers to novel climates give small but nonzero values:
+    read them with the novelty layers.
+
+    References
+    ----------
+    Farber, O., & Kadmon, R. (2003). Assessment of alternative approaches for bioclimatic
+    modeling with special emphasis on the Mahalanobis distance. Ecological Modelling 160:115-130.
+    """
+
+    def __init__(self, *, ridge: float = 1e-6, random_state=None):
+        self.ridge = ridge
+        self.random_state = random_state
+
+    def fit(self, X, y, sample_weight=None):
+        """Fit the centroid and covariance of the presence rows of `X`."""
+        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        P = X[presence]
+        w = sw[presence]
+        if P.shape[0] < 2 or w.sum() <= 0:
+            raise ValueError("EllipsoidNiche needs at least 2 presence rows with positive weight")
+        # frequency weights: a weight of 2 is the same as a repeated row
+        total = w.sum()
+        mu = (w @ P) / total
+        diff = P - mu
+        cov = (diff * w[:, None]).T @ diff / (total - 1.0 if total > 1.0 else total)
+        scale = float(np.mean(np.diag(cov))) if np.mean(np.diag(cov)) > 0 else 1.0
+        cov = cov + float(self.ridge) * scale * np.eye(cov.shape[0])
+        self.centroid_ = mu
+        self.covariance_ = cov
+        self.precision_ = np.linalg.pinv(cov, hermitian=True)
+        return self
+
+    def mahalanobis2(self, X) -> np.ndarray:
+        """Squared Mahalanobis distance of each row to the presence centroid."""
+        X = self._validate_predict(X)
+        diff = X - self.centroid_
+        return np.einsum("ij,jk,ik->i", diff, self.precision_, diff)
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Columns follow ``classes_``: [1 - suitability, suitability]."""
+        d2 = self.mahalanobis2(X)
+        return self._two_columns(stats.chi2.sf(d2, df=self.n_features_in_))
+
+
+class EnvelopeNiche(_NicheBase):
+    """Percentile-envelope niche with a graded suitability.
+
+    Parameters
+    ----------
+    percentile : float
+        Width of the core envelope: the box spans the `percentile` to ``100 - percentile``
+        percentiles of each predictor over the presences (default 5). Its edge is suitability
+        ``2 * percentile / 100``.
+    random_state : int, numpy.random.Generator or None
+        Unused; kept for a common interface.
+
+    Attributes
+    ----------
+    lower_, upper_ : ndarray of shape (n_features,)
+        Box edges at the `percentile` and ``100 - percentile`` presence percentiles.
+    sorted_ : list of ndarray
+        Sorted presence values per predictor (the empirical distribution).
+
+    Notes
+    -----
+    The box is the percentile envelope of Nix (1986) and Busby (1991). The graded suitability
+    (our design) scores each predictor by its two-sided position in the presence distribution
+    and takes the limiting one:
+
+    .. math:: s_i(x) = 2 \\min\\{F_i(x_i),\\, 1 - F_i(x_i)\\}, \\qquad S(x) = \\min_i s_i(x),
+
+    where :math:`F_i` is the empirical CDF of predictor :math:`i` over the presences, linearly
+    interpolated between the plotting positions :math:`(j - 0.5)/n` of the sorted values and
+    reaching 0 and 1 at the observed minimum and maximum. :math:`S = 1` at the joint median,
+    :math:`S \\ge 2p/100` exactly inside the box, and :math:`S = 0` outside the observed range of
+    any predictor (no extrapolation). Background rows are not used in the fit; sample weights
+    are ignored.
+
+    References
+    ----------
+    Nix, H. A. (1986). A biogeographic analysis of Australian elapid snakes. In R. Longmore
+    (ed.), Atlas of Elapid Snakes of Australia, Australian Flora and Fauna Series 7, pp. 4-15.
+    Busby, J. R. (1991). BIOCLIM - a bioclimate analysis and prediction system. Plant Protection
+    Quarterly 6:8-9.
+    """
+
+    def __init__(self, *, percentile: float = 5.0, random_state=None):
+        self.percentile = percentile
+        self.random_state = random_state
+
+    def fit(self, X, y, sample_weight=None):
+        """Fit the per-predictor presence distributions."""
+        X, presence, _ = self._validate_fit(X, y, sample_weight)
+        if not (0.0 <= float(self.percentile) < 50.0):
+            raise ValueError(f"`percentile` must be in [0, 50), got {self.percentile}")
+        P = X[presence]
+        if P.shape[0] < 1:
+            raise ValueError("EnvelopeNiche needs at least one presence row")
+        self.sorted_ = [np.sort(P[:, j]) for j in range(P.shape[1])]
+        q = float(self.percentile) / 100.0
+        self.lower_ = np.array([self._inverse(s, q) for s in self.sorted_])
+        self.upper_ = np.array([self._inverse(s, 1.0 - q) for s in self.sorted_])
+        return self
+
+    @staticmethod
+    def _positions(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        n = s.size
+        if n == 1:
+            return np.array([s[0], s[0]]), np.array([0.0, 1.0])
+        xs = np.concatenate([[s[0]], s, [s[-1]]])
+        fs = np.concatenate([[0.0], (np.arange(1, n + 1) - 0.5) / n, [1.0]])
+        return xs, fs
+
+    @classmethod
+    def _inverse(cls, s: np.ndarray, q: float) -> float:
+        xs, fs = cls._positions(s)
+        return float(np.interp(q, fs, xs))
+
+    @classmethod
+    def _cdf(cls, s: np.ndarray, x: np.ndarray) -> np.ndarray:
+        xs, fs = cls._positions(s)
+        if xs[0] == xs[-1]:
+            return np.where(x == xs[0], 0.5, np.where(x < xs[0], 0.0, 1.0))
+        # np.interp needs increasing x: average F over tied values (right-continuous mid-rank)
+        ux, inv = np.unique(xs, return_inverse=True)
+        uf = np.zeros(ux.size)
+        np.add.at(uf, inv, fs)
+        uf /= np.bincount(inv)
+        uf[0], uf[-1] = 0.0, 1.0
+        return np.interp(x, ux, uf, left=0.0, right=1.0)
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Columns follow ``classes_``: [1 - suitability, suitability]."""
+        X = self._validate_predict(X)
+        score = np.ones(X.shape[0])
+        for j, s in enumerate(self.sorted_):
+            F = self._cdf(s, X[:, j])
+            score = np.minimum(score, 2.0 * np.minimum(F, 1.0 - F))
+        return self._two_columns(score)
+
+    def in_envelope(self, X) -> np.ndarray:
+        """True where every predictor lies inside the percentile box."""
+        X = self._validate_predict(X)
+        return np.all((X >= self.lower_) & (X <= self.upper_), axis=1)
+
+
+def _registry() -> dict[str, type]:
+    """Algorithm name -> estimator class (the flexible learners live in `learners`)."""
+    reg: dict[str, type] = {"ellipsoid": EllipsoidNiche, "envelope": EnvelopeNiche}
+    try:
+        from timeslice.niche import learners
+    except ImportError:  # pragma: no cover - learners not available yet
+        return reg
+    reg.update(learners.LEARNERS)
+    return reg
+
+
+#: Algorithm names accepted by :func:`make_model`.
+MODEL_NAMES: tuple[str, ...] = ("ellipsoid", "envelope")
+
+
+def make_model(name: str, **params: Any):
+    """Build a niche estimator by name.
+
+    Parameters
+    ----------
+    name : str
+        One of :data:`MODEL_NAMES`.
+    **params
+        Hyperparameters of that estimator.
+
+    Raises
+    ------
+    ConfigError
+        Unknown name (the closest valid name is suggested) or unknown parameter.
+    """
+    registry = _registry()
+    key = str(name).strip().lower().replace("-", "_")
+    if key not in registry:
+        close = difflib.get_close_matches(key, list(registry), n=1, cutoff=0.5)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise ConfigError(
+            f"unknown algorithm {name!r}; {hint}choose one of {', '.join(sorted(registry))}"
+        )
+    cls = registry[key]
+    valid = cls().get_params(deep=False)
+    unknown = [p for p in params if p not in valid]
+    if unknown:
+        close = difflib.get_close_matches(unknown[0], list(valid), n=1)
+        hint = f"; did you mean {close[0]!r}?" if close else ""
+        raise ConfigError(
+            f"algorithm {key!r} has no parameter {unknown[0]!r} (valid: {', '.join(sorted(valid))}){hint}"
+        )
+    try:
+        return cls(**params)
+    except TypeError as err:  # pragma: no cover - guarded above
+        raise ConfigError(f"algorithm {key!r}: {err}") from err
+
+
+def _check_predictors_finite(X: np.ndarray, names: list[str]) -> None:
+    """Raise DataError naming the first predictor with missing values."""
+    bad = ~np.all(np.isfinite(X), axis=0)
+    if bad.any():
+        raise DataError(f"predictor {names[int(np.flatnonzero(bad)[0])]!r} has missing values")

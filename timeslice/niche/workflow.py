@@ -1,0 +1,401 @@
+"""The niche stage in one call: records and a baseline slice to a fitted, evaluated niche model."""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+from sklearn.inspection import permutation_importance
+
+from timeslice.errors import ConfigError, DataError
+from timeslice.niche import data as ndata
+from timeslice.niche import evaluate as nev
+from timeslice.niche.models import make_model
+from timeslice.niche.select import screen
+
+__all__ = ["MIN_RECORDS", "NicheFit", "fit_niche", "permutation_table", "response_curves"]
+
+#: Fewest records left after cleaning and thinning for a fit (common practice puts reliable
+#: presence-only models at a few tens of records; Pearson et al. 2007 tested down to 5).
+MIN_RECORDS = 10
+
+
+@dataclasses.dataclass
+class NicheFit:
+    """A fitted niche model and everything needed to report and transfer it.
+
+    Attributes
+    ----------
+    model : estimator
+        Fitted on all presences and background; ``model.predict_proba(X)[:, 1]`` is suitability.
+    variables : list of str
+        Predictors used, in the column order the model expects.
+    threshold : float
+        Suitable when suitability >= threshold.
+    presence, background : pandas.DataFrame
+        ``lon, lat`` and the predictors; `background` is the novelty reference set.
+    calibration_area : xarray.DataArray
+        Boolean (lat, lon).
+    cleaning, screening, evaluation, response, importance : pandas.DataFrame
+        Tables for the report (see :func:`fit_niche`).
+    params : dict
+        Every choice made, for the methods paragraph and the manifest.
+    """
+
+    model: Any
+    variables: list[str]
+    threshold: float
+    presence: pd.DataFrame
+    background: pd.DataFrame
+    calibration_area: xr.DataArray
+    cleaning: pd.DataFrame
+    screening: pd.DataFrame
+    evaluation: pd.DataFrame
+    response: pd.DataFrame
+    importance: pd.DataFrame
+    params: dict = dataclasses.field(default_factory=dict)
+
+    def suitability(self, X) -> np.ndarray:
+        """Suitability of rows of `X` (DataFrame with the model's variables, or array)."""
+        if isinstance(X, pd.DataFrame):
+            X = X[self.variables]
+        return self.model.predict_proba(X)[:, 1]
+
+
+def response_curves(
+    model,
+    background: pd.DataFrame,
+    variables: Sequence[str],
+    *,
+    n_points: int = 60,
+    widen: float = 0.25,
+) -> pd.DataFrame:
+    """Marginal response curves over a range wider than the calibration data.
+
+    Each predictor is varied over ``[min - widen*range, max + widen*range]`` of the background
+    while the others are held at their background medians.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``variable, value, suitability, inside_calibration`` (True within the background range).
+    """
+    variables = list(variables)
+    B = background[variables].to_numpy(dtype=float)
+    med = np.nanmedian(B, axis=0)
+    rows = []
+    for j, v in enumerate(variables):
+        lo, hi = np.nanmin(B[:, j]), np.nanmax(B[:, j])
+        span = hi - lo if hi > lo else max(abs(lo), 1.0)
+        grid = np.linspace(lo - widen * span, hi + widen * span, int(n_points))
+        grid = np.unique(np.concatenate([grid, [lo, hi]]))
+        Xg = np.tile(med, (grid.size, 1))
+        Xg[:, j] = grid
+        s = model.predict_proba(pd.DataFrame(Xg, columns=variables))[:, 1]
+        rows.append(
+            pd.DataFrame(
+                {"variable": v, "value": grid, "suitability": s, "inside_calibration": (grid >= lo) & (grid <= hi)}
+            )
+        )
+    return pd.concat(rows, ignore_index=True)
+
+
+def permutation_table(model, X: pd.DataFrame, y, *, n_repeats: int = 5, seed=0) -> pd.DataFrame:
+    """Permutation importance: drop in training AUC when one predictor is shuffled.
+
+    Breiman (2001), Random forests, Machine Learning 45:5-32 (the permutation idea), computed
+    with :func:`sklearn.inspection.permutation_importance` and ``scoring="roc_auc"``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``variable, importance_mean, importance_sd`` sorted by decreasing importance.
+    """
+    res = permutation_importance(
+        model, X, np.asarray(y), scoring="roc_auc", n_repeats=int(n_repeats), random_state=_int_seed(seed)
+    )
+    out = pd.DataFrame(
+        {"variable": list(X.columns), "importance_mean": res.importances_mean, "importance_sd": res.importances_std}
+    )
+    return out.sort_values("importance_mean", ascending=False, kind="stable").reset_index(drop=True)
+
+
+def _int_seed(seed) -> int:
+    if isinstance(seed, np.random.Generator):
+        return int(seed.integers(0, 2**31 - 1))
+    return int(seed) if seed is not None else 0
+
+
+def _summary_rows(evaluation: pd.DataFrame) -> pd.DataFrame:
+    metrics = ["threshold", "auc", "boyce", "tss", "omission"]
+    counts = ["n_train_presence", "n_train_background", "n_test_presence", "n_test_background"]
+    per = evaluation.copy()
+    per.insert(0, "summary", "fold")
+    mean = {"summary": "mean", "fold": -1, **{c: float(per[c].mean()) for c in counts}}
+    sd = {"summary": "sd", "fold": -1, **{c: np.nan for c in counts}}
+    for m in metrics:
+        mean[m] = float(per[m].mean(skipna=True)) if per[m].notna().any() else np.nan
+        sd[m] = float(per[m].std(ddof=1, skipna=True)) if per[m].notna().sum() > 1 else np.nan
+    return pd.concat([per, pd.DataFrame([mean, sd])], ignore_index=True)
+
+
+def fit_niche(
+    records: pd.DataFrame,
+    baseline: xr.Dataset,
+    *,
+    variables: Sequence[str] | None = None,
+    algorithm: str = "ellipsoid",
+    algorithm_params: Mapping[str, Any] | None = None,
+    buffer_km: float = 200.0,
+    calibration: str = "buffer",
+    calibration_mask: xr.DataArray | str | os.PathLike | None = None,
+    n_background: int = 10000,
+    background_file: str | os.PathLike | None = None,
+    thin: str | float | None = "cell",
+    uncertainty_max_m: float | None = None,
+    years: tuple[float | None, float | None] | None = None,
+    screen_max_r: float | None = 0.7,
+    screen_max_vif: float | None = 10.0,
+    priority: Sequence[str] | None = None,
+    cv_block_km: float = 100.0,
+    cv_folds: int = 5,
+    cv_scheme: str = "random",
+    threshold_rule: str = "p10",
+    threshold_value: float | None = None,
+    min_records: int = MIN_RECORDS,
+    importance_repeats: int = 5,
+    seed: int = 0,
+) -> NicheFit:
+    """Clean, thin, delimit, sample, screen, fit, validate and threshold a niche model.
+
+    Parameters
+    ----------
+    records : pandas.DataFrame
+        Occurrence records (:func:`timeslice.readers.read_occurrences`).
+    baseline : xarray.Dataset
+        Prepared baseline slice: ``bio*`` predictors, ``land`` (and ``ice``) on (lat, lon).
+    variables : sequence of str, optional
+        Candidate predictors (default every ``bio1``..``bio19`` present). Screening may drop some.
+    algorithm : str
+        A name of :data:`timeslice.niche.models.MODEL_NAMES`.
+    algorithm_params : mapping, optional
+        Hyperparameters of the algorithm.
+    buffer_km : float
+        Calibration buffer radius [km].
+    calibration : {"buffer", "hull_buffer", "mask"}
+        How the calibration area is delimited (``mask`` needs `calibration_mask`).
+    calibration_mask : DataArray or path, optional
+        Mask for ``calibration="mask"``.
+    n_background : int
+        Background points (all calibration cells if fewer).
+    background_file : path, optional
+        Target-group records (related species) to use as background instead of random cells.
+    thin : "cell", float or None
+        One record per cell, a minimum distance in km, or no thinning.
+    uncertainty_max_m, years
+        Cleaning limits (:func:`timeslice.niche.data.clean_records`).
+    screen_max_r, screen_max_vif, priority
+        Predictor screening (:func:`timeslice.niche.select.screen`); both limits None skips it.
+    cv_block_km, cv_folds, cv_scheme
+        Spatial block cross-validation (:func:`timeslice.niche.evaluate.spatial_folds`).
+    threshold_rule, threshold_value
+        Threshold (:func:`timeslice.niche.evaluate.threshold`) on the full-data fit.
+    min_records : int
+        Fewest records needed after cleaning and thinning.
+    importance_repeats : int
+        Repeats of permutation importance (0 skips it).
+    seed : int
+        Seed of every random step (thinning, background, folds, algorithms, importance).
+
+    Returns
+    -------
+    NicheFit
+
+    Raises
+    ------
+    DataError
+        Too few records (the message gives the drops per reason), no record in the grid, no land
+        in the calibration area, constant or missing predictors.
+    ConfigError
+        Unknown algorithm, threshold rule or option value.
+    """
+    if not isinstance(baseline, xr.Dataset):
+        raise DataError(f"`baseline` must be a prepared slice Dataset, got {type(baseline).__name__}")
+    if thin is not None and thin != "cell":
+        try:
+            thin = float(thin)
+        except (TypeError, ValueError) as err:
+            raise ConfigError(f"`thin` must be 'cell', a distance in km or none, got {thin!r}") from err
+    if calibration not in ("buffer", "hull_buffer", "mask"):
+        raise ConfigError(f"`calibration` must be 'buffer', 'hull_buffer' or 'mask', got {calibration!r}")
+    if int(min_records) < 2:
+        raise ConfigError(f"`min_records` must be >= 2, got {min_records}")
+    if variables is None:
+        variables = [f"bio{i}" for i in range(1, 20) if f"bio{i}" in baseline.data_vars]
+        if not variables:
+            raise DataError("baseline has no bio1..bio19 variables; pass `variables` or run the bioclim step")
+    variables = list(variables)
+    missing = [v for v in variables if v not in baseline.data_vars]
+    if missing:
+        raise DataError(
+            f"baseline slice has no predictor(s) {', '.join(missing)}; available: "
+            f"{', '.join(map(str, baseline.data_vars))}"
+        )
+    # build the model first so that a bad name fails before any work
+    model = make_model(algorithm, **dict(algorithm_params or {}))
+    if "random_state" in model.get_params(deep=False):
+        model.set_params(random_state=seed)
+    nev.threshold([0.5], [0.5], rule=threshold_rule, value=threshold_value)  # validate the rule early
+
+    land = ndata.land_of(baseline)
+    kept, cleaning = ndata.clean_records(records, land=land, uncertainty_max_m=uncertainty_max_m, years=years)
+    n_in = cleaning.attrs["n_input"]
+    by_reason = "; ".join(f"{r}: {n}" for r, n in zip(cleaning["reason"], cleaning["n_dropped"]) if n)
+    if len(kept) == 0:
+        inside = cleaning.set_index("reason")["n_dropped"]
+        if n_in > 0 and inside.get("outside grid", 0) > 0 and inside.get("outside grid", 0) == n_in - sum(
+            inside[r] for r in ndata.CLEANING_REASONS[: ndata.CLEANING_REASONS.index("outside grid")]
+        ):
+            raise DataError(
+                f"no record lies inside the model grid (lon {float(land.lon.min()):g}..{float(land.lon.max()):g}, "
+                f"lat {float(land.lat.min()):g}..{float(land.lat.max()):g}); drops per reason: {by_reason}; "
+                "check the coordinate columns (swapped lon/lat?) or the grid extent"
+            )
+    n_clean = len(kept)
+    if thin == "cell":
+        kept = ndata.thin(kept, grid=land, seed=seed)
+    elif thin is not None:
+        kept = ndata.thin(kept, min_distance_km=float(thin), seed=seed)
+    n_thinned = n_clean - len(kept)
+    if len(kept) < int(min_records):
+        raise DataError(
+            f"only {len(kept)} of {n_in} records left after cleaning and thinning, need at least "
+            f"{int(min_records)}; drops per reason: {by_reason or 'none'}"
+            + (f"; thinning: {n_thinned}" if n_thinned else "")
+            + "; add records, relax the cleaning limits or thin less"
+        )
+
+    if calibration == "mask":
+        if calibration_mask is None:
+            raise ConfigError("calibration 'mask' needs a `calibration_mask` (file or DataArray)")
+        area = ndata.calibration_area_from_mask(calibration_mask, land)
+    else:
+        area = ndata.calibration_area(kept, land, buffer_km=buffer_km, method=calibration)
+    if background_file is not None:
+        bg_pts = ndata.read_background_file(background_file, area, n=n_background, seed=seed)
+    else:
+        bg_pts = ndata.sample_background(area, n=n_background, seed=seed)
+
+    pres = ndata.extract(baseline, kept, variables=variables)
+    back = ndata.extract(baseline, bg_pts, variables=variables)
+    for v in variables:
+        col = back[v].to_numpy(dtype=float)
+        fin = col[np.isfinite(col)]
+        if fin.size == 0:
+            raise DataError(f"predictor {v!r} is missing everywhere in the calibration area; drop it or fix the baseline")
+        if np.ptp(fin) == 0:
+            raise DataError(f"predictor {v!r} is constant ({fin[0]:g}) in the calibration area; drop it from the variables")
+    ok_p = np.all(np.isfinite(pres[variables].to_numpy(dtype=float)), axis=1)
+    ok_b = np.all(np.isfinite(back[variables].to_numpy(dtype=float)), axis=1)
+    pres, back = pres[ok_p].reset_index(drop=True), back[ok_b].reset_index(drop=True)
+    extra = pd.DataFrame({"reason": ["missing predictor values"], "n_dropped": [int((~ok_p).sum())]})
+    cleaning = pd.concat([cleaning, extra], ignore_index=True)
+    cleaning.attrs.update(n_input=n_in, n_kept=len(pres), n_thinned=n_thinned)
+    if len(pres) < int(min_records):
+        raise DataError(
+            f"only {len(pres)} records have every predictor, need at least {int(min_records)}; "
+            "check the baseline predictors at the record locations"
+        )
+
+    if screen_max_r is None and screen_max_vif is None:
+        chosen = list(variables)
+        screening = pd.DataFrame(
+            {"variable": variables, "kept": True, "reason": "kept (screening off)", "max_abs_r": np.nan, "vif": np.nan}
+        )
+    else:
+        chosen, screening = screen(back[variables], max_abs_r=screen_max_r, max_vif=screen_max_vif, priority=priority)
+
+    X = pd.concat([pres[chosen], back[chosen]], ignore_index=True)
+    y = np.concatenate([np.ones(len(pres), dtype=int), np.zeros(len(back), dtype=int)])
+    lon = np.concatenate([pres["lon"].to_numpy(), back["lon"].to_numpy()])
+    lat = np.concatenate([pres["lat"].to_numpy(), back["lat"].to_numpy()])
+    try:
+        folds = nev.spatial_folds(lon, lat, block_km=cv_block_km, n_folds=cv_folds, seed=seed, scheme=cv_scheme)
+        if hasattr(model, "set_cv_folds"):
+            model.set_cv_folds(folds)
+        evaluation = nev.cross_validate(model, X, y, folds, threshold_rule=threshold_rule, threshold_value=threshold_value)
+    except DataError as err:
+        raise DataError(f"cross-validation: {err}") from err
+    evaluation = _summary_rows(evaluation)
+
+    model.fit(X, y)
+    s = model.predict_proba(X)[:, 1]
+    thr = nev.threshold(s[y == 1], s[y == 0], rule=threshold_rule, value=threshold_value)
+
+    response = response_curves(model, back, chosen)
+    if int(importance_repeats) > 0:
+        importance = permutation_table(model, X, y, n_repeats=importance_repeats, seed=seed)
+    else:
+        importance = pd.DataFrame({"variable": chosen, "importance_mean": np.nan, "importance_sd": np.nan})
+
+    from timeslice import __version__
+
+    params = {
+        "timeslice_version": __version__,
+        "algorithm": str(algorithm),
+        "algorithm_params": {k: _plain(v) for k, v in model.get_params(deep=False).items()},
+        "candidate_variables": list(variables),
+        "variables": list(chosen),
+        "buffer_km": float(buffer_km),
+        "calibration": calibration,
+        "n_background": int(len(back)),
+        "n_background_requested": int(n_background),
+        "background": "target-group file" if background_file is not None else "random cells by area",
+        "thin": thin,
+        "uncertainty_max_m": uncertainty_max_m,
+        "years": list(years) if years is not None else None,
+        "screen_max_r": screen_max_r,
+        "screen_max_vif": screen_max_vif,
+        "priority": list(priority or []),
+        "cv_block_km": float(cv_block_km),
+        "cv_folds": int(cv_folds),
+        "cv_scheme": cv_scheme,
+        "threshold_rule": threshold_rule,
+        "threshold_value": threshold_value,
+        "threshold": float(thr),
+        "min_records": int(min_records),
+        "n_records_input": int(n_in),
+        "n_records_used": int(len(pres)),
+        "seed": int(seed),
+        "training_auc": float(nev.auc(s[y == 1], s[y == 0])),
+    }
+    return NicheFit(
+        model=model,
+        variables=list(chosen),
+        threshold=float(thr),
+        presence=pres[["lon", "lat", *chosen]],
+        background=back[["lon", "lat", *chosen]],
+        calibration_area=area,
+        cleaning=cleaning,
+        screening=screening,
+        evaluation=evaluation,
+        response=response,
+        importance=importance,
+        params=params,
+    )
+
+
+def _plain(v):
+    """JSON-friendly representation of a hyperparameter."""
+    if isinstance(v, (str, int, float, bool)) or v is None:
+        return v
+    if isinstance(v, (list, tuple)):
+        return [_plain(x) for x in v]
+    if isinstance(v, dict):
+        return {str(k): _plain(x) for k, x in v.items()}
+    return repr(v)
