@@ -163,12 +163,111 @@ def _target_arrays(target: xr.Dataset, variables: Sequence[str], name: str) -> l
     return arrays
 
 
-def _stack_last(blocks: Sequence[np.ndarray]) -> np.ndarray:
-    """Stack same-shape blocks on a new last axis as float64."""
-    return np.stack([np.asarray(b, dtype=np.float64) for b in blocks], axis=-1)
+def _columns(blocks: Sequence[np.ndarray]) -> np.ndarray:
+    """Stack same-shape blocks as the rows of a C-contiguous float64 ``(k, n)`` matrix."""
+    blocks = [np.asarray(b) for b in blocks]
+    out = np.empty((len(blocks), blocks[0].size), dtype=np.float64)
+    for i, b in enumerate(blocks):
+        out[i] = b.reshape(-1)
+    return out
+
+
+def _split_valid(cols: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
+    """Finite columns of ``(k, n)`` and the mask of them (None when all are finite)."""
+    valid = np.isfinite(cols).all(axis=0)
+    if valid.all():
+        return cols, None
+    return np.ascontiguousarray(cols[:, valid]), valid
 
 
 # --------------------------------------------------------------------------------------- MESS
+
+#: Bins per reference point in the count look-up table (our choice, tuned in bench/transfer.py:
+#: a 10,000-point reference gives a 1.3 MB int32 table per variable and leaves about 95 % of
+#: target values in empty bins).
+_BINS_PER_POINT = 32
+_MAX_BINS = 2**20
+
+
+class _CountTable:
+    """Exact, mostly O(1) counts of reference values strictly smaller than a target value.
+
+    For each variable, the monotone map ``g(x) = min(trunc((x - lo) * scale), G - 1)`` sends the
+    sorted reference values to bins; ``first[j]`` is the number of reference values with
+    ``g < j``. Because ``g`` is non-decreasing in floating point too, every reference value in a
+    lower bin than ``g(p)`` is smaller than ``p`` and none in a higher bin is; so the count is
+    ``first[g(p)]`` exactly whenever the bin of ``p`` holds no reference value, and a binary
+    search (``searchsorted(side="left")``) settles the rest. The table stores ``first[j]`` for
+    empty bins and ``-1`` for occupied ones, so one look-up answers both questions.
+    """
+
+    __slots__ = ("code", "hi", "lo", "m", "n_bins", "scale", "sorted", "span")
+
+    def __init__(self, ref_sorted: np.ndarray) -> None:
+        ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
+        self.sorted = np.ascontiguousarray(ref_sorted.T)  # (k, m), rows ascending
+        self.m = ref_sorted.shape[0]
+        self.lo = self.sorted[:, 0].copy()
+        self.hi = self.sorted[:, -1].copy()
+        self.span = self.hi - self.lo
+        self.n_bins = int(min(max(_BINS_PER_POINT * self.m, 1024), _MAX_BINS))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            self.scale = np.where(self.span > 0, self.n_bins / self.span, 0.0)
+        edges = np.arange(self.n_bins + 1)
+        self.code = []
+        for i in range(self.sorted.shape[0]):
+            first = np.searchsorted(self._bins(i, self.sorted[i]), edges, side="left")
+            code = first[:-1].astype(np.int32)
+            code[first[1:] != first[:-1]] = -1
+            self.code.append(code)
+
+    def _bins(self, i: int, x: np.ndarray) -> np.ndarray:
+        g = ((x - self.lo[i]) * self.scale[i]).astype(np.intp)  # x >= lo: truncation = floor
+        np.minimum(g, self.n_bins - 1, out=g)
+        return g
+
+    def count_smaller(self, i: int, x: np.ndarray) -> np.ndarray:
+        """Number of reference values of variable `i` strictly smaller than each finite `x`."""
+        c = np.zeros(x.shape, dtype=np.int64)
+        c[x > self.hi[i]] = self.m
+        inside = (x > self.lo[i]) & (x <= self.hi[i])
+        c[inside] = self._count_inside(i, x[inside])
+        return c
+
+    def _count_inside(self, i: int, xi: np.ndarray) -> np.ndarray:
+        """Counts for values with lo < x <= hi (so 1 <= count <= m - 1)."""
+        ci = self.code[i][self._bins(i, xi)].astype(np.int64)
+        ambiguous = ci < 0
+        if ambiguous.any():
+            ci[ambiguous] = np.searchsorted(self.sorted[i], xi[ambiguous], side="left")
+        return ci
+
+    def similarity(self, i: int, x: np.ndarray) -> np.ndarray:
+        """MESS similarity ``S_i`` of each finite `x` (float64)."""
+        lo, hi, span = self.lo[i], self.hi[i], self.span[i]
+        # f = 0 (x <= lo) and f = 100 (x > hi) in one expression: 100 min(x - lo, hi - x) / span
+        s = np.minimum(x - lo, hi - x)
+        s *= 100.0 / span
+        inside = (x > lo) & (x <= hi)  # here 0 < f < 100
+        # 2f for f <= 50, 2 (100 - f) above: both are 100 - |100 - 2f|, f = 100 c / m
+        t = self._count_inside(i, x[inside]) * (200.0 / self.m)
+        t -= 100.0
+        np.abs(t, out=t)
+        s[inside] = 100.0 - t
+        return s
+
+
+def _mess_columns(table: _CountTable, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """MESS and argmin for finite columns ``cols`` of shape (k, n)."""
+    n = cols.shape[1]
+    best = np.full(n, np.inf)
+    arg = np.zeros(n, dtype=np.int16)
+    for i in range(cols.shape[0]):  # loop over variables only (k is small); cells are vectorised
+        s = table.similarity(i, cols[i])
+        better = s < best  # strict: the first variable keeps ties
+        np.copyto(best, s, where=better)
+        np.copyto(arg, np.int16(i), where=better)
+    return best, arg
 
 
 def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -191,44 +290,38 @@ def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray
 
     Notes
     -----
-    The percentage of reference values strictly smaller than ``p`` is
-    ``f = 100 c / M`` with ``c = searchsorted(ref, p, side="left")``; the case tests are made on
-    the integer count (``f <= 50`` is ``2 c <= M``), so they are exact.
+    The percentage of reference values strictly smaller than ``p`` is ``f = 100 c / M`` with
+    ``c = searchsorted(ref, p, side="left")`` (found through :class:`_CountTable`, exactly); the
+    case tests are made on the integer count (``f <= 50`` is ``2 c <= M``), so they are exact.
     """
     ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
     values = np.asarray(values, dtype=np.float64)
-    m, k = ref_sorted.shape
+    k = ref_sorted.shape[1]
     if values.shape[-1] != k:
         raise ValueError(f"values have {values.shape[-1]} variables, reference has {k}")
     out_shape = values.shape[:-1]
-    p = values.reshape(-1, k)
-    n = p.shape[0]
-    sim = np.empty((n, k), dtype=np.float64)
-    lo = ref_sorted[0]
-    hi = ref_sorted[-1]
-    span = hi - lo
-    for i in range(k):  # loop over variables only (k is small); cells are vectorised
-        pi = p[:, i]
-        c = np.searchsorted(ref_sorted[:, i], pi, side="left")
-        f = 100.0 * c / m
-        s = np.where(2 * c <= m, 2.0 * f, 2.0 * (100.0 - f))
-        s = np.where(c == 0, 100.0 * (pi - lo[i]) / span[i], s)
-        s = np.where(c == m, 100.0 * (hi[i] - pi) / span[i], s)
-        sim[:, i] = s
-    valid = np.isfinite(p).all(axis=1)
-    mod = np.full(n, MOD_FILL, dtype=np.int16)
-    mess = np.full(n, np.nan, dtype=np.float64)
-    if valid.any():
-        sv = sim[valid]
-        idx = np.argmin(sv, axis=1)  # argmin returns the first index on ties
-        mod[valid] = idx.astype(np.int16)
-        mess[valid] = sv[np.arange(sv.shape[0]), idx]
-    return mess.reshape(out_shape), mod.reshape(out_shape)
+    cols = np.ascontiguousarray(values.reshape(-1, k).T)
+    mess_v, mod_v = _mess_from_columns(_CountTable(ref_sorted), cols)
+    return mess_v.reshape(out_shape), mod_v.reshape(out_shape)
 
 
-def _mess_block(*blocks: np.ndarray, ref_sorted: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    mess_v, mod_v = _mess_kernel(ref_sorted, _stack_last(blocks))
-    return mess_v.astype(np.float32), mod_v
+def _mess_from_columns(table: _CountTable, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """MESS (float64, NaN) and mod (int16, -1) for columns (k, n) that may hold NaN."""
+    n = cols.shape[1]
+    good, valid = _split_valid(cols)
+    if valid is None:
+        return _mess_columns(table, good)
+    mess_v = np.full(n, np.nan)
+    mod_v = np.full(n, MOD_FILL, dtype=np.int16)
+    if good.shape[1]:
+        mess_v[valid], mod_v[valid] = _mess_columns(table, good)
+    return mess_v, mod_v
+
+
+def _mess_block(*blocks: np.ndarray, table: _CountTable) -> tuple[np.ndarray, np.ndarray]:
+    shape = np.shape(blocks[0])
+    mess_v, mod_v = _mess_from_columns(table, _columns(blocks))
+    return mess_v.astype(np.float32).reshape(shape), mod_v.reshape(shape)
 
 
 def mess(
@@ -283,16 +376,28 @@ def mess(
     """
     ref = reference_table(reference, variables=variables)
     arrays = _target_arrays(target, ref.variables, "target")
-    ref_sorted = np.sort(ref.values, axis=0)
+    table = _CountTable(np.sort(ref.values, axis=0))
     mess_da, mod_da = xr.apply_ufunc(
         _mess_block,
         *arrays,
-        kwargs={"ref_sorted": ref_sorted},
+        kwargs={"table": table},
         output_core_dims=[[], []],
         dask="parallelized",
         output_dtypes=[np.float32, np.int16],
         keep_attrs=False,
     )
+    _set_mess_attrs(mess_da, mod_da, ref)
+    out = xr.Dataset({"mess": mess_da.rename("mess"), "mod": mod_da.rename("mod")})
+    out.attrs = {
+        "reference_set": REFERENCE_DESCRIPTION,
+        "variables": " ".join(ref.variables),
+        "history": "timeslice.transfer.novelty.mess (Elith, Kearney & Phillips 2010)",
+    }
+    return out
+
+
+def _set_mess_attrs(mess_da: xr.DataArray, mod_da: xr.DataArray, ref: ReferenceSet) -> None:
+    """CF attributes of the MESS layers (in place)."""
     names = " ".join(_flag_name(v) for v in ref.variables)
     mess_da.attrs = {
         "units": "1",
@@ -317,13 +422,6 @@ def mess(
         "reference_set": REFERENCE_DESCRIPTION,
     }
     mod_da.encoding["_FillValue"] = MOD_FILL
-    out = xr.Dataset({"mess": mess_da.rename("mess"), "mod": mod_da.rename("mod")})
-    out.attrs = {
-        "reference_set": REFERENCE_DESCRIPTION,
-        "variables": " ".join(ref.variables),
-        "history": "timeslice.transfer.novelty.mess (Elith, Kearney & Phillips 2010)",
-    }
-    return out
 
 
 def _flag_name(v: str) -> str:
@@ -334,6 +432,22 @@ def _flag_name(v: str) -> str:
 # -------------------------------------------------------------------------------------- ExDet
 
 
+def _exdet_columns(params: dict, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """NT1 and NT2 for finite columns ``cols`` of shape (k, n)."""
+    lo, hi, span = params["lo"], params["hi"], params["hi"] - params["lo"]
+    nt1 = np.zeros(cols.shape[1])
+    for i in range(cols.shape[0]):
+        x = cols[i]
+        d = np.minimum(x - lo[i], hi[i] - x)
+        np.minimum(d, 0.0, out=d)
+        d /= span[i]
+        nt1 += d
+    # z = L^-1 (x - mean) as one matrix product with the precomputed triangular inverse
+    z = params["whiten"] @ (cols - params["mean"][:, None])
+    d2 = np.einsum("ij,ij->j", z, z)
+    return nt1, d2 / params["d2_max"]
+
+
 def _exdet_kernel(
     lo: np.ndarray,
     hi: np.ndarray,
@@ -341,6 +455,7 @@ def _exdet_kernel(
     chol: np.ndarray,
     d2_max: float,
     values: np.ndarray,
+    whiten: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """NT1 and NT2 for an array of target points.
 
@@ -356,6 +471,8 @@ def _exdet_kernel(
         Largest squared Mahalanobis distance among the reference points.
     values : numpy.ndarray, shape (..., k)
         Target values, variables on the last axis.
+    whiten : numpy.ndarray, shape (k, k), optional
+        ``L^-1``; computed from `chol` by a triangular solve when not given.
 
     Returns
     -------
@@ -365,21 +482,30 @@ def _exdet_kernel(
     values = np.asarray(values, dtype=np.float64)
     k = lo.shape[0]
     out_shape = values.shape[:-1]
-    p = values.reshape(-1, k)
-    span = hi - lo
-    nt1 = (np.minimum(np.minimum(p - lo, hi - p), 0.0) / span).sum(axis=1)
-    valid = np.isfinite(p).all(axis=1)
-    nt2 = np.full(p.shape[0], np.nan)
-    if valid.any():
-        z = scipy.linalg.solve_triangular(chol, (p[valid] - mean).T, lower=True, check_finite=False)
-        nt2[valid] = np.einsum("ij,ij->j", z, z) / d2_max
-    nt1[~valid] = np.nan
+    if whiten is None:
+        whiten = scipy.linalg.solve_triangular(chol, np.eye(k), lower=True)
+    params = {"lo": lo, "hi": hi, "mean": mean, "whiten": whiten, "d2_max": d2_max}
+    cols = np.ascontiguousarray(values.reshape(-1, k).T)
+    nt1, nt2 = _exdet_from_columns(params, cols)
     return nt1.reshape(out_shape), nt2.reshape(out_shape)
 
 
+def _exdet_from_columns(params: dict, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    n = cols.shape[1]
+    good, valid = _split_valid(cols)
+    if valid is None:
+        return _exdet_columns(params, good)
+    nt1 = np.full(n, np.nan)
+    nt2 = np.full(n, np.nan)
+    if good.shape[1]:
+        nt1[valid], nt2[valid] = _exdet_columns(params, good)
+    return nt1, nt2
+
+
 def _exdet_block(*blocks: np.ndarray, params: dict) -> tuple[np.ndarray, np.ndarray]:
-    nt1, nt2 = _exdet_kernel(values=_stack_last(blocks), **params)
-    return nt1.astype(np.float32), nt2.astype(np.float32)
+    shape = np.shape(blocks[0])
+    nt1, nt2 = _exdet_from_columns(params, _columns(blocks))
+    return nt1.astype(np.float32).reshape(shape), nt2.astype(np.float32).reshape(shape)
 
 
 def _exdet_params(ref: ReferenceSet) -> dict:
@@ -400,14 +526,42 @@ def _exdet_params(ref: ReferenceSet) -> dict:
             f"`reference` covariance of {list(ref.variables)} is numerically singular "
             f"(condition number {cond:.3g}); drop one of the collinear variables"
         )
-    z = scipy.linalg.solve_triangular(chol, (x - mean).T, lower=True)
+    whiten = scipy.linalg.solve_triangular(chol, np.eye(chol.shape[0]), lower=True)
+    z = whiten @ (x - mean).T  # the same arithmetic as for target cells
     d2_ref = np.einsum("ij,ij->j", z, z)
     return {
         "lo": x.min(axis=0),
         "hi": x.max(axis=0),
         "mean": mean,
         "chol": chol,
+        "whiten": whiten,
         "d2_max": float(d2_ref.max()),
+    }
+
+
+def _set_exdet_attrs(nt1: xr.DataArray, nt2: xr.DataArray, ref: ReferenceSet) -> None:
+    """CF attributes of the ExDet layers (in place)."""
+    nt1.attrs = {
+        "units": "1",
+        "long_name": "univariate novelty (ExDet NT1)",
+        "description": (
+            "sum over predictors of the distance outside the reference range, in units of "
+            "that range (Mesgaran et al. 2014); 0 inside every range, negative outside "
+            "(extrapolation: flagged, not trusted)"
+        ),
+        "reference_set": REFERENCE_DESCRIPTION,
+        "reference_points": ref.n_points,
+    }
+    nt2.attrs = {
+        "units": "1",
+        "long_name": "combinational novelty (ExDet NT2)",
+        "description": (
+            "squared Mahalanobis distance from the reference mean over the largest one among "
+            "reference points (Mesgaran et al. 2014); above 1 the combination of predictor "
+            "values is outside the reference"
+        ),
+        "reference_set": REFERENCE_DESCRIPTION,
+        "reference_points": ref.n_points,
     }
 
 
@@ -471,28 +625,7 @@ def exdet(
         output_dtypes=[np.float32, np.float32],
         keep_attrs=False,
     )
-    nt1.attrs = {
-        "units": "1",
-        "long_name": "univariate novelty (ExDet NT1)",
-        "description": (
-            "sum over predictors of the distance outside the reference range, in units of "
-            "that range (Mesgaran et al. 2014); 0 inside every range, negative outside "
-            "(extrapolation: flagged, not trusted)"
-        ),
-        "reference_set": REFERENCE_DESCRIPTION,
-        "reference_points": ref.n_points,
-    }
-    nt2.attrs = {
-        "units": "1",
-        "long_name": "combinational novelty (ExDet NT2)",
-        "description": (
-            "squared Mahalanobis distance from the reference mean over the largest one among "
-            "reference points (Mesgaran et al. 2014); above 1 the combination of predictor "
-            "values is outside the reference"
-        ),
-        "reference_set": REFERENCE_DESCRIPTION,
-        "reference_points": ref.n_points,
-    }
+    _set_exdet_attrs(nt1, nt2, ref)
     out = xr.Dataset({"nt1": nt1.rename("nt1"), "nt2": nt2.rename("nt2")})
     out.attrs = {
         "reference_set": REFERENCE_DESCRIPTION,

@@ -22,10 +22,17 @@ import xarray as xr
 
 from timeslice.errors import ConfigError, DataError
 from timeslice.transfer.novelty import (
+    MOD_FILL,
     REFERENCE_DESCRIPTION,
     ReferenceSet,
-    exdet,
-    mess,
+    _columns,
+    _CountTable,
+    _exdet_columns,
+    _exdet_params,
+    _mess_columns,
+    _set_exdet_attrs,
+    _set_mess_attrs,
+    _split_valid,
     reference_table,
 )
 
@@ -82,54 +89,89 @@ def _check_model(model: Any, variables: Sequence[str]) -> tuple[list[str], int, 
     return order, pos, as_frame
 
 
-def _predict_kernel(
-    values: np.ndarray,
+def _predict_rows(
+    x: np.ndarray,
     *,
     model: Any,
     columns: Sequence[str],
     positive: int,
     as_frame: bool,
-    lo: np.ndarray | None = None,
-    hi: np.ndarray | None = None,
 ) -> np.ndarray:
-    """Suitability for samples ``values`` of shape (n, k); NaN rows stay NaN.
-
-    With `lo`/`hi`, every predictor is first clipped to [lo, hi].
-    """
-    n = values.shape[0]
-    out = np.full(n, np.nan, dtype=np.float32)
-    valid = np.isfinite(values).all(axis=1)
-    if not valid.any():
-        return out
-    x = values[valid]
-    if lo is not None:
-        x = np.clip(x, lo, hi)
+    """Suitability (float32) of finite samples ``x`` of shape (n, k), columns as fitted."""
+    if x.shape[0] == 0:
+        return np.empty(0, dtype=np.float32)
     if as_frame:
         x = pd.DataFrame(x, columns=list(columns), copy=False)
     prob = np.asarray(model.predict_proba(x))
-    out[valid] = prob[:, positive].astype(np.float32)
+    return prob[:, positive].astype(np.float32)
+
+
+def _scatter(values: np.ndarray, valid: np.ndarray | None, n: int, fill: Any) -> np.ndarray:
+    if valid is None:
+        return values
+    out = np.full(n, fill, dtype=values.dtype)
+    out[valid] = values
     return out
 
 
-def _predict_block(*blocks: np.ndarray, **kw: Any) -> np.ndarray:
+def _predict_block(
+    *blocks: np.ndarray,
+    order: Sequence[int],
+    lo: np.ndarray | None = None,
+    hi: np.ndarray | None = None,
+    **kw: Any,
+) -> np.ndarray:
+    """Suitability of one chunk; `order` maps fitted columns to the blocks."""
     shape = np.shape(blocks[0])
-    values = np.stack([np.asarray(b, dtype=np.float64).reshape(-1) for b in blocks], axis=1)
-    return _predict_kernel(values, **kw).reshape(shape)
+    good, valid = _split_valid(_columns([blocks[j] for j in order]))
+    x = good.T
+    if lo is not None:
+        x = np.clip(x, lo, hi)
+    suit = _predict_rows(x, **kw)
+    return _scatter(suit, valid, int(np.prod(shape)), np.float32(np.nan)).reshape(shape)
 
 
-def _clamp_pair_block(*blocks: np.ndarray, **kw: Any) -> tuple[np.ndarray, np.ndarray]:
-    """Clamped suitability and clamped minus unclamped suitability, in one pass over a chunk."""
+def _slice_block(
+    *blocks: np.ndarray,
+    order: Sequence[int],
+    predict: dict[str, Any],
+    table: _CountTable,
+    exdet_params: dict[str, Any],
+    lo: np.ndarray | None,
+    hi: np.ndarray | None,
+) -> tuple[np.ndarray, ...]:
+    """Every per-slice layer of one chunk from one pass over its predictors.
+
+    Returns suitability, MESS, mod, NT1, NT2 and, when `lo` is given, the clamping effect.
+    The predictors are stacked once (variables in the reference order); the estimator gets
+    them in its fitted order.
+    """
     shape = np.shape(blocks[0])
-    values = np.stack([np.asarray(b, dtype=np.float64).reshape(-1) for b in blocks], axis=1)
-    lo, hi = kw.pop("lo"), kw.pop("hi")
-    clamped = _predict_kernel(values, lo=lo, hi=hi, **kw)
-    outside = ((values < lo) | (values > hi)).any(axis=1)
-    delta = np.where(np.isnan(clamped), np.nan, 0.0).astype(np.float32)
-    if outside.any():
-        # Only cells with a predictor outside the range can differ; predict those twice.
-        raw = _predict_kernel(values[outside], **kw)
-        delta[outside] = clamped[outside] - raw
-    return clamped.reshape(shape), delta.reshape(shape)
+    n = int(np.prod(shape))
+    good, valid = _split_valid(_columns(blocks))
+    x = good[list(order)].T  # (n_valid, k) in the fitted column order
+    nan32 = np.float32(np.nan)
+    if lo is None:
+        suit = _predict_rows(x, **predict)
+        extra: tuple[np.ndarray, ...] = ()
+    else:
+        suit = _predict_rows(np.clip(x, lo, hi), **predict)
+        delta = np.zeros_like(suit)
+        outside = ((x < lo) | (x > hi)).any(axis=1)
+        if outside.any():
+            # Only cells with a predictor outside the range can differ; predict those twice.
+            delta[outside] = suit[outside] - _predict_rows(x[outside], **predict)
+        extra = (_scatter(delta, valid, n, nan32).reshape(shape),)
+    mess_v, mod_v = _mess_columns(table, good)
+    nt1, nt2 = _exdet_columns(exdet_params, good)
+    return (
+        _scatter(suit, valid, n, nan32).reshape(shape),
+        _scatter(mess_v.astype(np.float32), valid, n, nan32).reshape(shape),
+        _scatter(mod_v, valid, n, MOD_FILL).reshape(shape),
+        _scatter(nt1.astype(np.float32), valid, n, nan32).reshape(shape),
+        _scatter(nt2.astype(np.float32), valid, n, nan32).reshape(shape),
+        *extra,
+    )
 
 
 def _predictor_arrays(ds: xr.Dataset, variables: Sequence[str], name: str) -> list[xr.DataArray]:
@@ -223,9 +265,9 @@ def project(
     variables = [str(v) for v in variables]
     arrays = _predictor_arrays(ds, variables, "ds")
     columns, positive, as_frame = _check_model(model, variables)
-    arrays = [arrays[variables.index(c)] for c in columns]
     kw: dict[str, Any] = {
         "model": model, "columns": columns, "positive": positive, "as_frame": as_frame,
+        "order": [variables.index(c) for c in columns],
     }
     if clamp:
         kw["lo"], kw["hi"] = _clamp_bounds(reference, columns)
@@ -370,25 +412,37 @@ def project_slice(
     ds = _resolve_chunks(ds, chunks, len(variables), chunk_budget_mb)
     ref = reference_table(reference, variables=variables)
 
-    layers: dict[str, xr.DataArray] = {}
+    columns, positive, as_frame = _check_model(model, variables)
+    lo = hi = None
     if clamp:
-        columns, positive, as_frame = _check_model(model, variables)
         lo, hi = _clamp_bounds(ref, columns)
-        suit, delta = xr.apply_ufunc(
-            _clamp_pair_block,
-            *_predictor_arrays(ds, columns, "ds"),
-            kwargs={
-                "model": model, "columns": columns, "positive": positive,
-                "as_frame": as_frame, "lo": lo, "hi": hi,
+    results = xr.apply_ufunc(
+        _slice_block,
+        *_predictor_arrays(ds, variables, "ds"),
+        kwargs={
+            "order": [variables.index(c) for c in columns],
+            "predict": {
+                "model": model, "columns": columns, "positive": positive, "as_frame": as_frame,
             },
-            output_core_dims=[[], []],
-            dask="parallelized",
-            output_dtypes=[np.float32, np.float32],
-            keep_attrs=False,
-        )
-        suit = suit.rename("suitability")
-        suit.attrs = _suitability_attrs(model, columns, True)
-        delta = delta.rename("clamp_effect")
+            "table": _CountTable(np.sort(ref.values, axis=0)),
+            "exdet_params": _exdet_params(ref),
+            "lo": lo,
+            "hi": hi,
+        },
+        output_core_dims=[[]] * (6 if clamp else 5),
+        dask="parallelized",
+        output_dtypes=[np.float32, np.float32, np.int16, np.float32, np.float32]
+        + ([np.float32] if clamp else []),
+        keep_attrs=False,
+    )
+    suit, mess_da, mod_da, nt1, nt2 = (r.rename(k) for r, k in zip(
+        results, ("suitability", "mess", "mod", "nt1", "nt2")))
+    suit.attrs = _suitability_attrs(model, columns, clamp)
+    _set_mess_attrs(mess_da, mod_da, ref)
+    _set_exdet_attrs(nt1, nt2, ref)
+    delta = None
+    if clamp:
+        delta = results[5].rename("clamp_effect")
         delta.attrs = {
             "units": "1",
             "long_name": "effect of clamping on suitability",
@@ -397,9 +451,6 @@ def project_slice(
                 "without clamping; non-zero only where a predictor leaves that range"
             ),
         }
-    else:
-        suit = project(model, ds, variables=variables)
-        delta = None
     has_pred = suit.notnull()
     if "land" in ds.data_vars:
         land = ds["land"]
@@ -424,12 +475,10 @@ def project_slice(
     }
     suitable.encoding["_FillValue"] = SUITABLE_FILL
 
-    layers["suitability"] = suit
-    layers["suitable"] = suitable
-    nov = mess(ref, ds)
-    layers["mess"], layers["mod"] = nov["mess"], nov["mod"]
-    ex = exdet(ref, ds)
-    layers["nt1"], layers["nt2"] = ex["nt1"], ex["nt2"]
+    layers = {
+        "suitability": suit, "suitable": suitable, "mess": mess_da, "mod": mod_da,
+        "nt1": nt1, "nt2": nt2,
+    }
     if delta is not None:
         layers["clamp_effect"] = delta
 
