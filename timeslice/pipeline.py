@@ -271,6 +271,92 @@ def summarise_stage(cfg: Config, stack: xr.Dataset) -> tuple[xr.Dataset, pd.Data
     return summarise(stack, reference=ref)
 
 
+# ----------------------------------------------------------------------------- report
+
+
+def report_stage(
+    cfg: Config,
+    *,
+    series: xr.Dataset,
+    summary: pd.DataFrame,
+    fit,
+    inputs: pd.DataFrame,
+    out: Path,
+    warnings_seen: list[str],
+) -> dict[str, Path]:
+    """Write the NetCDF, tables, maps, plots and HTML report of a finished run."""
+    from timeslice import report as R
+    from timeslice.narrative import findings, methods_paragraph
+
+    paths: dict[str, Path] = {}
+    title = f"{cfg.run.name}"
+    history = f"timeslice {__version__} run of {cfg.source.name if cfg.source else 'config'}"
+    paths["series"] = R.write_series(series, out / "series.nc", history=history, title=title)
+    paths["summary"] = R.write_csv(summary, out / "summary.csv")
+    tables = {
+        "inputs": inputs,
+        "cleaning": fit.cleaning,
+        "screening": fit.screening,
+        "evaluation": fit.evaluation,
+        "response": fit.response,
+        "importance": fit.importance,
+    }
+    for name, df in tables.items():
+        if df is not None:
+            R.write_csv(df, out / "tables" / f"{name}.csv")
+    paths["tables"] = out / "tables"
+    figures: list[tuple[str, Path]] = []
+    if cfg.output.maps:
+        maps = out / "maps"
+        R.slice_maps(series, maps)
+        figures.append(("Suitability in every slice (shared colour scale; hatched: novel climate, "
+                        "MESS < 0)", R.series_panel(series, maps / "panel_suitability.png")))
+        figures.append(("Gain, loss and stable range against the reference slice",
+                        R.change_map(series, maps / "panel_change.png")))
+        figures.append(("Novel climate: MESS per slice (negative = outside the calibration "
+                        "range)", R.novelty_map(series, maps / "panel_mess.png")))
+        figures.append(("Stability (fraction of slices suitable) with refugia outlined",
+                        R.stability_map(series, maps / "stability.png")))
+        paths["maps"] = maps
+    plots = out / "plots"
+    figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
+    figures.append(("Gain and loss per slice", R.gain_loss_bars(summary, plots / "gain_loss.png")))
+    figures.append(("Range-centroid track", R.centroid_track(
+        summary, plots / "centroid_track.png", land=series["land"].isel(slice=0))))
+    if fit.response is not None:
+        figures.append(("Response curves (shaded: calibration range; outside it the model "
+                        "extrapolates)", R.response_curves(fit.response, plots / "response.png")))
+    if cfg.output.geotiff:
+        R.export(series, out / "geotiff")
+        paths["geotiff"] = out / "geotiff"
+    if cfg.output.report:
+        models = sorted({str(m) for m in series["model"].values} - {"observed"})
+        scenarios = sorted({str(m) for m in series["scenario"].values} - {"baseline"})
+        ref_label = cfg.climate.baseline_label if cfg.series.reference == "baseline" else cfg.series.reference
+        refugium_km2 = None
+        if "refugium" in series:
+            from timeslice.grid import cell_area
+
+            refugium_km2 = float(cell_area(series).where(series["refugium"].astype(bool)).sum())
+        ctx = R.ReportContext(
+            title=title,
+            species=cfg.species.name,
+            summary=summary,
+            tables={k: v for k, v in tables.items() if v is not None and k != "response"},
+            figures=figures,
+            methods=methods_paragraph(
+                species=cfg.species.name, fit_params=fit.params, n_slices=series.sizes["slice"],
+                models=models, scenarios=scenarios, reference=ref_label,
+                clamp=cfg.transfer.clamp, evaluation=fit.evaluation,
+            ),
+            run_info={"config": str(cfg.source), "seed": cfg.run.seed, "version": __version__,
+                      "warnings": "; ".join(warnings_seen) or "none"},
+            highlights=findings(summary, refugium_km2=refugium_km2, reference=ref_label),
+        )
+        paths["report"] = R.write_report(ctx, out / "report.html")
+    return paths
+
+
 # ----------------------------------------------------------------------------- run
 
 
@@ -293,7 +379,7 @@ def run(
     force : bool
         Recompute every stage even if a cached result exists.
     """
-    from timeslice.report import run_report
+    from timeslice.report import write_manifest
 
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -312,12 +398,32 @@ def run(
                                    progress=progress)
         with _timed(t, "summarise"):
             series, summary = summarise_stage(cfg, stack)
+        if "period" not in summary and "period" in series.coords:
+            periods = dict(zip(series["slice"].values, series["period"].values))
+            summary.insert(4, "period", [str(periods.get(x, "")) for x in summary["slice"]])
         with _timed(t, "report"):
-            result.paths = run_report(
-                series=series, summary=summary, fit=fit, inputs=inputs, cfg=cfg, out=out,
-                timings=t, warnings=[str(w.message) for w in caught],
-                command=command or sys.argv,
+            result.paths = report_stage(
+                cfg, series=series, summary=summary, fit=fit, inputs=inputs, out=out,
+                warnings_seen=[str(w.message) for w in caught],
             )
+    inputs_used = [cfg.climate.baseline, cfg.climate.elevation, cfg.species.occurrences,
+                   *cfg.climate.models.values(), *[s.file for s in cfg.slice_specs()],
+                   *[s.ice for s in cfg.slices if s.ice is not None]]
+    if cfg.species.dated_records is not None:
+        inputs_used.append(cfg.species.dated_records)
+    result.paths["manifest"] = write_manifest(
+        {
+            "config": cfg.model_dump(mode="json"),
+            "config_path": str(cfg.source),
+            "inputs": sorted({str(p) for p in inputs_used}),
+            "seed": cfg.run.seed,
+            "timings": t,
+            "command": command or sys.argv,
+            "outputs": [str(p) for p in result.paths.values()],
+            "cache": {"reused": len(cache.hits), "computed": len(cache.misses)},
+        },
+        out / "manifest.json",
+    )
     result.summary = summary
     result.cache_hits, result.cache_misses = cache.hits, cache.misses
     return result
