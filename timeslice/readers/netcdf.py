@@ -56,6 +56,7 @@ _STANDARD_NAMES: dict[str, str] = {
 }
 
 _TEMPERATURE = ("tasmin", "tasmax", "tas")
+_RASTER_SUFFIXES = {".tif", ".tiff", ".asc", ".gtiff"}
 _MONTHLY = ("tasmin", "tasmax", "tas", "pr")
 
 _CANONICAL_ATTRS = {
@@ -161,7 +162,9 @@ def _identify(ds: xr.Dataset, aliases: Mapping[str, object] | None, source: str)
     return found
 
 
-def _time_name(da: xr.DataArray, ds: xr.Dataset) -> str | None:
+def _time_name(da: xr.DataArray, ds: xr.Dataset | None) -> str | None:
+    if ds is None:
+        return None
     for d in da.dims:
         if d in ds.coords:
             c = ds[d]
@@ -180,6 +183,34 @@ def _calendar(ds: xr.Dataset, tname: str) -> str:
     if cal is None and t.size and hasattr(t.values.flat[0], "calendar"):
         cal = t.values.flat[0].calendar
     return str(cal or "standard").lower()
+
+
+def _file_period(ds: xr.Dataset) -> str | None:
+    """The years a file's climatology describes, from CF climatology bounds (or None)."""
+    for name in ds.coords:
+        c = ds[name]
+        ref = c.attrs.get("climatology") or c.encoding.get("climatology")
+        if ref and ref in ds.variables:
+            vals = np.asarray(ds[ref].values).ravel()
+            if np.issubdtype(vals.dtype, np.number):
+                import cftime
+
+                t_units = ds[ref].attrs.get("units") or c.encoding.get("units")
+                if not t_units:
+                    return None
+                vals = cftime.num2date(vals, t_units, calendar=_calendar(ds, str(name)))
+            try:
+                years = [v.year for v in vals]
+                months = [v.month for v in vals]
+                days = [v.day for v in vals]
+            except AttributeError:
+                return None
+            y0 = min(years)
+            iy = int(np.argmax(years))
+            # an end bound of 1 January closes the previous year
+            y1 = years[iy] - (1 if (months[iy], days[iy]) == (1, 1) else 0)
+            return f"{y0}-{y1}"
+    return None
 
 
 def _parse_period(period, source: str) -> tuple[int, int]:
@@ -281,6 +312,9 @@ def open_climate(
     source: str | None = None,
     require: Sequence[str] | None = None,
     chunks=None,
+    variable: str | None = None,
+    units: str | Mapping[str, str] | None = None,
+    band_names: Sequence[str] | None = None,
 ) -> xr.Dataset:
     """Open CF NetCDF climate data as a canonical Dataset.
 
@@ -302,6 +336,8 @@ def open_climate(
         Canonical variables that must be present.
     chunks : optional
         Passed to :func:`xarray.open_dataset` (e.g. ``{}`` or ``{"lat": 256}`` for dask).
+    variable, units, band_names : optional
+        For GeoTIFF / ESRI ASCII inputs only; see :func:`timeslice.readers.open_raster`.
 
     Returns
     -------
@@ -325,24 +361,57 @@ def open_climate(
     out_vars: dict[str, xr.DataArray] = {}
     global_attrs: dict = {}
     found_names: list[str] = []
+    periods: dict[str, str] = {}
+    calendars: set[str] = set()
+    time_kinds: set[str] = set()
     for p in paths:
-        ds = _open_one(p, chunks)
         fsrc = source or str(p)
-        if not global_attrs:
-            global_attrs = dict(ds.attrs)
-        found_names.extend(str(v) for v in ds.data_vars)
-        mapping = _identify(ds, aliases, fsrc)
-        for canon, name in mapping.items():
+        if p.suffix.lower() in _RASTER_SUFFIXES:
+            from timeslice.readers.raster import open_raster
+
+            canon_ds = open_raster(
+                p, variable=variable, band_names=band_names, units=units, scale=scale,
+                source=fsrc, aliases=aliases,
+            )
+            found_names.extend(str(v) for v in canon_ds.data_vars)
+            log.extend(json.loads(canon_ds.attrs.get("harmonise_log", "[]")))
+            if not global_attrs:
+                global_attrs = {k: v for k, v in canon_ds.attrs.items()
+                                if k not in ("harmonise_log", "source_files")}
+            items = [(str(k), v) for k, v in canon_ds.data_vars.items()]
+        else:
+            ds = _open_one(p, chunks)
+            if not global_attrs:
+                global_attrs = dict(ds.attrs)
+            found_names.extend(str(v) for v in ds.data_vars)
+            fp = _file_period(ds)
+            if fp is not None:
+                periods[str(p)] = fp
+            mapping = _identify(ds, aliases, fsrc)
+            for name in mapping.values():
+                tn = _time_name(ds[name], ds)
+                if tn is not None:
+                    calendars.add(_calendar(ds, tn))
+                    time_kinds.add("12-step climatology" if ds.sizes[tn] == 12
+                                   else f"{ds.sizes[tn]} monthly steps")
+            items = []
+            for canon, name in mapping.items():
+                da = normalise_lonlat(ds[name], source=fsrc)
+                items.append((canon, _convert(
+                    da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log
+                )))
+        for canon, da in items:
             if canon in out_vars:
                 raise DataError(
                     f"{fsrc}: variable {canon!r} is given twice (also in an earlier file); "
                     "give each variable once"
                 )
-            da = ds[name]
-            da = normalise_lonlat(da, source=fsrc)
-            out_vars[canon] = _convert(
-                da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log
-            )
+            out_vars[canon] = da
+    if len(set(periods.values())) > 1:
+        raise DataError(
+            f"{src}: the files of one slice disagree on the period "
+            f"({', '.join(f'{k}: {v}' for k, v in periods.items())}); give files of one period"
+        )
     if not out_vars:
         raise DataError(
             f"{src}: no climate variable recognised (found {sorted(set(found_names)) or 'none'}); "
@@ -367,11 +436,57 @@ def open_climate(
             )
         out_vars[k] = v.assign_coords(lat=ref["lat"], lon=ref["lon"])
     out = xr.Dataset(out_vars)
+    if "pr" in out:
+        out["pr"] = _check_negative_pr(out["pr"], src, log)
+    info = {
+        "files": [str(p) for p in paths],
+        "grid": f"{ref['lat'].size} x {ref['lon'].size}",
+        "lat_range": [float(ref["lat"].min()), float(ref["lat"].max())],
+        "lon_range": [float(ref["lon"].min()), float(ref["lon"].max())],
+        "resolution": _res_text(ref),
+        "units": {k: v.attrs.get("source_units", v.attrs.get("units", "")) for k, v in out_vars.items()},
+        "calendar": sorted(calendars) if calendars else None,
+        "time": sorted(time_kinds) if time_kinds else "none",
+        "period": (str(period) if period is not None else
+                   (next(iter(periods.values())) if periods else None)),
+        "variables": {k: v.attrs.get("source_variable", k) for k, v in out_vars.items()},
+    }
     keep = {k: v for k, v in global_attrs.items() if isinstance(v, (str, int, float))}
     out.attrs.update(keep)
     out.attrs["source_files"] = json.dumps([str(p) for p in paths])
     out.attrs["harmonise_log"] = json.dumps(log)
+    out.attrs["source_info"] = json.dumps(info)
     return out
+
+
+#: Negative monthly precipitation above this magnitude (mm month-1) is an input error, below it
+#: rounding (float32 fluxes times ~2.6e6 s give errors of a few 0.001 mm).
+NEGATIVE_PR_TOLERANCE = 0.05
+
+
+def _check_negative_pr(pr: xr.DataArray, source: str, log: list[str]) -> xr.DataArray:
+    n_bad = int((pr < -NEGATIVE_PR_TOLERANCE).sum())
+    if n_bad:
+        raise DataError(
+            f"{source}: precipitation is negative beyond rounding in {n_bad} cell-months "
+            f"(min {float(pr.min()):.3g} mm month-1); check the units and sign convention of 'pr'"
+        )
+    n_small = int((pr < 0).sum())
+    if n_small:
+        log.append(f"pr: {n_small} cell-months of small negative values (rounding) set to 0")
+        attrs = dict(pr.attrs)
+        pr = pr.clip(min=0.0)
+        pr.attrs = attrs
+    return pr
+
+
+def _res_text(da: xr.DataArray) -> str:
+    from timeslice.grid import resolution
+
+    try:
+        return f"{resolution(da['lat']):g} x {resolution(da['lon']):g} deg"
+    except DataError:
+        return "single cell"
 
 
 def _scale_for(scale, canon: str) -> float:

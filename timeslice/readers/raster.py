@@ -1,7 +1,187 @@
-"""GeoTIFF / ESRI ASCII reader (placeholder until implemented)."""
+"""GeoTIFF and ESRI ASCII grid reader (through rioxarray/rasterio) to canonical Datasets."""
 
 from __future__ import annotations
 
+import json
+import os
+import re
+import warnings
+from collections.abc import Mapping, Sequence
+from pathlib import Path
 
-def open_raster(path, **kwargs):  # pragma: no cover - replaced by the implementation
-    raise NotImplementedError
+import numpy as np
+import xarray as xr
+
+from timeslice.errors import DataError, InputFileError
+
+__all__ = ["open_raster"]
+
+_MONTH_ABBR = ("jan", "feb", "mar", "apr", "may", "jun", "jul", "aug", "sep", "oct", "nov", "dec")
+_MONTHLY = ("tasmin", "tasmax", "tas", "pr")
+
+
+def _month_of(label: str) -> int | None:
+    text = str(label).strip().lower()
+    if re.fullmatch(r"(m|month_?)?0?([1-9]|1[0-2])", text):
+        return int(re.sub(r"\D", "", text))
+    for i, abbr in enumerate(_MONTH_ABBR):
+        if text.startswith(abbr):
+            return i + 1
+    return None
+
+
+def _canonical_from_stem(stem: str, aliases) -> str | None:
+    from timeslice.readers.netcdf import DEFAULT_ALIASES
+
+    low = stem.lower()
+    for canon, names in (aliases or {}).items():
+        names = [names] if isinstance(names, str) else list(names)
+        if low in [n.lower() for n in names]:
+            return canon
+    for canon, names in DEFAULT_ALIASES.items():
+        if low in names:
+            return canon
+    # names like "tmin_2041-2060" or "bio_01"
+    m = re.match(r"([a-z]+_?\d*)", low)
+    if m:
+        head = m.group(1)
+        for canon, names in DEFAULT_ALIASES.items():
+            if head in names or head.rstrip("_") in names:
+                return canon
+    return None
+
+
+def open_raster(
+    path: str | os.PathLike,
+    *,
+    variable: str | None = None,
+    band_names: Sequence[str] | None = None,
+    units: str | Mapping[str, str] | None = None,
+    scale: float | Mapping[str, float] | None = None,
+    source: str | None = None,
+    aliases: Mapping[str, str | Sequence[str]] | None = None,
+) -> xr.Dataset:
+    """Read a GeoTIFF or ESRI ASCII grid as a canonical Dataset.
+
+    Parameters
+    ----------
+    path : path-like
+        ``.tif``/``.tiff`` or ``.asc`` file on a geographic (lon/lat) CRS. An ASCII grid
+        without a ``.prj`` is taken as geographic when its coordinates fit lon/lat ranges.
+    variable : str, optional
+        Canonical name of the layer (``tasmin``, ``pr``, ``elevation``, ``bio``...). Default:
+        from the file name (``tmin.tif`` -> ``tasmin``).
+    band_names : sequence of str, optional
+        One name per band: month labels (``1``..``12``, ``jan``..``dec``) for a monthly
+        variable, or variable names (``bio1``..``bio19``) for one variable per band. Without
+        it, 12 bands of a monthly variable are months 1..12 and 19 bands of ``bio`` are
+        ``bio1``..``bio19``.
+    units : str or mapping, optional
+        Units of the stored values when the file does not say (rasters rarely do).
+    scale : float or mapping, optional
+        Multiplier for integer-scaled layers (e.g. 0.1 for degC x 10).
+
+    Returns
+    -------
+    xarray.Dataset
+        As :func:`timeslice.readers.open_climate`.
+    """
+    import rioxarray  # optional dependency, imported only when a raster is read
+
+    from timeslice.grid import normalise_lonlat
+    from timeslice.readers.netcdf import _convert
+
+    p = Path(path)
+    src = source or str(p)
+    if not p.is_file():
+        raise InputFileError(f"{p}: file not found; check the path in the config")
+    try:
+        with warnings.catch_warnings():
+            # affine's matmul deprecation notice, raised inside rioxarray, is not the user's concern
+            warnings.simplefilter("ignore", PendingDeprecationWarning)
+            da = rioxarray.open_rasterio(p, masked=True, mask_and_scale=True)
+            da = da.load() if da.size <= 50_000_000 else da
+    except Exception as err:  # rasterio raises its own error types
+        raise InputFileError(
+            f"{p}: cannot be read as a GeoTIFF or ESRI ASCII grid ({type(err).__name__}); "
+            "give a valid raster file"
+        ) from err
+    if isinstance(da, list):
+        raise InputFileError(f"{p}: holds several sub-datasets; give one raster per file")
+    log: list[str] = []
+    crs = da.rio.crs
+    xs = da["x"].values
+    ys = da["y"].values
+    if crs is None:
+        if xs.min() < -180.5 or xs.max() > 360.5 or ys.min() < -90.5 or ys.max() > 90.5:
+            raise DataError(
+                f"{src}: the raster has no CRS and its coordinates are not longitude/latitude; "
+                "reproject it to a geographic CRS (EPSG:4326)"
+            )
+        log.append(f"{p.name}: no CRS in the file; taken as geographic lon/lat")
+    elif not crs.is_geographic:
+        raise DataError(
+            f"{src}: the raster is on a projected CRS ({crs.to_string()[:60]}); reproject it to a "
+            "geographic lon/lat CRS (EPSG:4326), e.g. with gdalwarp -t_srs EPSG:4326"
+        )
+    da = da.drop_vars([c for c in ("spatial_ref",) if c in da.coords])
+    da = da.rename({"x": "lon", "y": "lat"})
+    da["lon"].attrs.update(units="degrees_east", standard_name="longitude")
+    da["lat"].attrs.update(units="degrees_north", standard_name="latitude")
+    nb = da.sizes["band"]
+    canon = variable or _canonical_from_stem(p.stem, aliases)
+    if band_names is not None and len(band_names) != nb:
+        raise DataError(
+            f"{src}: `band_names` has {len(band_names)} names but the file has {nb} bands; "
+            "give one name per band"
+        )
+    layers: dict[str, xr.DataArray] = {}
+    base_attrs = {k: v for k, v in da.attrs.items()
+                  if k not in ("scale_factor", "add_offset", "_FillValue", "AREA_OR_POINT")}
+    months = [_month_of(b) for b in band_names] if band_names is not None else None
+    if band_names is not None and all(m is not None for m in months) and nb == 12:
+        if canon is None:
+            raise DataError(f"{src}: monthly bands but no `variable`; say which variable it is")
+        layers[canon] = (da.assign_coords(band=months).rename(band="month").sortby("month"))
+    elif band_names is not None:
+        for i, name in enumerate(band_names):
+            layers[str(name)] = da.isel(band=i, drop=True)
+    elif nb == 1:
+        if canon is None:
+            raise DataError(
+                f"{src}: cannot tell which variable the file holds from its name; give "
+                "`variable` (e.g. 'tasmin', 'pr', 'elevation', 'bio1')"
+            )
+        layers[canon] = da.isel(band=0, drop=True)
+    elif nb == 12 and canon in _MONTHLY:
+        layers[canon] = da.assign_coords(band=np.arange(1, 13)).rename(band="month")
+    elif nb == 19 and (canon in (None, "bio") or str(canon).startswith("bio")):
+        for i in range(19):
+            layers[f"bio{i + 1}"] = da.isel(band=i, drop=True)
+    else:
+        raise DataError(
+            f"{src}: {nb} bands for variable {canon!r}; give `band_names` (12 months or one "
+            "variable name per band)"
+        )
+    out: dict[str, xr.DataArray] = {}
+    for name, layer in layers.items():
+        layer = normalise_lonlat(layer, source=src)
+        u = units.get(name) if isinstance(units, Mapping) else units
+        attrs = dict(base_attrs)
+        if u is not None:
+            attrs["units"] = u
+        elif name in _MONTHLY or name in ("elevation", "ice"):
+            if "units" not in attrs:
+                defaults = {"tasmin": "degC", "tasmax": "degC", "tas": "degC",
+                            "pr": "mm month-1", "elevation": "m", "ice": "1"}
+                attrs["units"] = defaults[name]
+                log.append(f"{name}: no units in {p.name}; assumed {defaults[name]}")
+        layer.attrs = attrs
+        out[name] = _convert(layer, None, name, name, period=None, scale=scale,
+                             source=src, log=log)
+    ds = xr.Dataset(out)
+    ds.attrs["source_files"] = json.dumps([str(p)])
+    ds.attrs["harmonise_log"] = json.dumps(log)
+    if crs is not None:
+        ds.attrs["source_crs"] = crs.to_string()
+    return ds
