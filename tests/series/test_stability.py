@@ -95,11 +95,16 @@ def test_summarise_adds_layers_and_table(stack_factory):
     assert out["change"].dims == ("slice", "lat", "lon")
     assert out["stability"].dims == ("lat", "lon")
     assert out["refugium"].dtype == bool
-    assert "refugium_past" in out and out["refugium_past"].attrs["slices"] == "21ka 6ka baseline"
+    assert out["refugium_chain"].dims == ("chain", "lat", "lon")
+    assert out["chain_slices"].values.tolist() == ["21ka 6ka baseline"]
     assert len(table) == ds.sizes["slice"]
     assert "history" in out.attrs
-    # the past-window refugium contains the all-slice refugium
-    assert not bool((out["refugium"] & ~out["refugium_past"]).any())
+    # the past-chain refugium contains the all-slice refugium
+    past = out["refugium_chain"].sel(chain="past")
+    assert not bool((out["refugium"] & ~past).any())
+    for v in ("refugium_analog", "static_stability", "geometric_mean_suitability",
+              "minimum_suitability", "refugium_analog_chain", "static_stability_chain"):
+        assert v in out, v
 
 
 def test_summarise_unknown_reference_lists_labels(stack_factory):
@@ -124,3 +129,103 @@ def test_stability_is_lazy(stack_factory, raise_if_dask_computes):
     with raise_if_dask_computes(max_computes=1):
         out, _ = summarise(ds)
     assert out["stability"].chunks is not None and out["change"].chunks is not None
+
+
+# ---- dynamic stability, windows, analog refugia -------------------------------------------
+
+from timeslice.grid import make_grid  # noqa: E402
+from timeslice.series import dynamic_stability, select_window  # noqa: E402
+
+
+def _strip(values, years=None):
+    """Slices x cells along the equator, 1-degree cells (~111.2 km apart)."""
+    arr = np.asarray(values, dtype=float)[:, None, :]
+    ns, _, nx = arr.shape
+    g = make_grid(lon_min=0, lon_max=nx, lat_min=-0.5, lat_max=0.5, resolution=1.0)
+    years = np.arange(ns) * 1000.0 if years is None else np.asarray(years, float)
+    return xr.DataArray(arr, dims=("slice", "lat", "lon"),
+                        coords={"slice": [f"s{i}" for i in range(ns)], "year": ("slice", years),
+                                "lat": g.lat, "lon": g.lon})
+
+
+def test_dynamic_stability_worked_example():
+    # Worked example of the recursion in METHODS.md (a_0 = ln S_0; a_t = ln S_t + max over
+    # cells within d of a_(t-1)): a suitable peak (0.9) moves one cell east per slice over a
+    # background of 0.1. With d = 120 km (> 111.2 km cell spacing at the equator) the peak's
+    # track scores 3 ln 0.9 = -0.316082 [computed]; static stability there is
+    # ln 0.1 + ln 0.1 + ln 0.9 = -4.710531 [computed].
+    S = np.full((3, 5), 0.1)
+    S[0, 1] = S[1, 2] = S[2, 3] = 0.9
+    da = _strip(S)
+    dyn = dynamic_stability(da, distance_km=120.0)
+    assert float(dyn[0, 3]) == pytest.approx(3 * np.log(0.9), rel=1e-6)
+    assert float(static_stability(da)[0, 3]) == pytest.approx(2 * np.log(0.1) + np.log(0.9),
+                                                              rel=1e-6)
+    # cell 0 can only reach back to cell 0/1: ln 0.1 + (ln 0.1 + ln 0.9) = -4.710531 [computed]
+    assert float(dyn[0, 0]) == pytest.approx(2 * np.log(0.1) + np.log(0.9), rel=1e-6)
+    # with d = 100 km (< cell spacing) no move is possible: equal to static stability
+    np.testing.assert_allclose(dynamic_stability(da, distance_km=100.0).values,
+                               static_stability(da).values, rtol=1e-6)
+
+
+def test_dynamic_zero_distance_is_static(stack_factory):
+    # METHODS.md: d = 0 reduces to static stability
+    ds = stack_factory()
+    np.testing.assert_allclose(dynamic_stability(ds["suitability"], distance_km=0.0).values,
+                               static_stability(ds["suitability"]).values, rtol=1e-6)
+
+
+def test_dynamic_stability_bounds(stack_factory):
+    # dynamic >= static (more paths), and <= T * ln max S (the best possible path)
+    ds = stack_factory()
+    s = ds["suitability"]
+    dyn = dynamic_stability(s, distance_km=1000.0).values
+    sta = static_stability(s).values
+    ok = np.isfinite(sta)
+    assert (dyn[ok] >= sta[ok] - 1e-5).all()
+    # with d covering the whole grid, a_T = ln S_T + sum_t max_j ln S_t(j)
+    logs = np.log(np.maximum(s.fillna(0).values, 1e-6))
+    expect = logs[-1] + logs[:-1].reshape(s.shape[0] - 1, -1).max(axis=1).sum()
+    big = dynamic_stability(s, distance_km=1e5).values
+    np.testing.assert_allclose(big[ok], expect[ok], rtol=1e-5)
+
+
+def test_dynamic_stability_rate_and_errors():
+    S = np.full((3, 5), 0.1)
+    S[0, 1] = S[1, 2] = S[2, 3] = 0.9
+    da = _strip(S, years=[0, 1000, 2000])
+    # 150 km/kyr over 1000-year steps = 150 km per step
+    by_rate = dynamic_stability(da, rate="150 km/kyr")
+    np.testing.assert_allclose(by_rate.values, dynamic_stability(da, distance_km=150).values)
+    with pytest.raises(DataError, match="exactly one of"):
+        dynamic_stability(da)
+    with pytest.raises(DataError, match="`distance_km`"):
+        dynamic_stability(da, distance_km=[1, 2])
+
+
+def test_select_window_labels_and_years(stack_factory):
+    ds = stack_factory()
+    assert list(select_window(ds, ["6ka", "baseline"])["slice"].values) == ["baseline", "6ka"]
+    past = select_window(ds, (-19050, 2000))
+    assert list(past["slice"].values) == ["baseline", "21ka", "6ka"]
+    with pytest.raises(DataError, match="contain no slice"):
+        select_window(ds, (5000.0, 6000.0))
+    with pytest.raises(DataError, match=r"unknown slice label\(s\) \['3ka'\]"):
+        select_window(ds, ["3ka"])
+
+
+def test_analog_refugium_is_inside_refugium(stack_factory):
+    from timeslice.series import novel_mask
+
+    ds = stack_factory()
+    analog = ~novel_mask(ds)
+    win = ["21ka", "6ka", "baseline"]
+    r = refugium(ds["suitable"], window=win)
+    ra = refugium(ds["suitable"], window=win, analog=analog)
+    assert not bool((ra & ~r).any())
+    # by hand: suitable and analog in every window slice
+    sub = ds.sel(slice=win)
+    hand = ((sub["suitable"] == 1) & (sub["mess"] >= 0) & (sub["nt1"] >= 0)
+            & (sub["nt2"] <= 1)).all("slice")
+    np.testing.assert_array_equal(ra.values, hand.values)
+    assert ra.name == "refugium_analog" and ra.attrs["slices"] == "baseline 21ka 6ka"

@@ -3,35 +3,61 @@ hindcast checks."""
 
 from __future__ import annotations
 
+from timeslice.series import dispersal, ensemble, hindcast
 from timeslice.series.change import (
     CHANGE_FLAG_MEANINGS,
     CHANGE_FLAG_VALUES,
+    DETAIL_COLUMNS,
     SUMMARY_COLUMNS,
+    bearing_deg,
     centroid,
     change_map,
     change_table,
+    novel_mask,
     suitable_area,
 )
+from timeslice.series.dispersal import movement, parse_rate, reachable
+from timeslice.series.ensemble import agreement, partition
 from timeslice.series.stability import (
+    dynamic_stability,
     geometric_mean,
     minimum_suitability,
     refugium,
+    select_window,
     stability,
     static_stability,
 )
-from timeslice.series.summary import summarise
+from timeslice.series.stacking import chains, check_same_grid, stack_slices
+from timeslice.series.summary import movement_table, summarise
 
 __all__ = [
     "CHANGE_FLAG_MEANINGS",
     "CHANGE_FLAG_VALUES",
+    "DETAIL_COLUMNS",
     "SUMMARY_COLUMNS",
+    "agreement",
+    "bearing_deg",
     "centroid",
+    "chains",
     "change_map",
     "change_table",
+    "check_same_grid",
+    "dispersal",
+    "dynamic_stability",
+    "ensemble",
     "geometric_mean",
+    "hindcast",
     "minimum_suitability",
+    "movement",
+    "movement_table",
+    "novel_mask",
+    "parse_rate",
+    "partition",
+    "reachable",
     "refugium",
+    "select_window",
     "stability",
+    "stack_slices",
     "static_stability",
     "suitable_area",
     "summarise",

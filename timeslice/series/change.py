@@ -28,10 +28,13 @@ from timeslice.series._checks import (
 __all__ = [
     "CHANGE_FLAG_MEANINGS",
     "CHANGE_FLAG_VALUES",
+    "DETAIL_COLUMNS",
     "SUMMARY_COLUMNS",
+    "bearing_deg",
     "centroid",
     "change_map",
     "change_table",
+    "novel_mask",
     "suitable_area",
 ]
 
@@ -53,6 +56,30 @@ SUMMARY_COLUMNS = [
     "centroid_lat",
     "centroid_lon",
     "centroid_shift_km",
+]
+
+
+#: Extra columns of ``change_table(..., detail=True)``, in order, after SUMMARY_COLUMNS.
+DETAIL_COLUMNS = [
+    "gain_pct",
+    "loss_pct",
+    "stable_pct",
+    "centroid_bearing_deg",
+    "lat_mean",
+    "lat_q10",
+    "lat_q50",
+    "lat_q90",
+    "elevation_mean_m",
+    "elevation_q10_m",
+    "elevation_q50_m",
+    "elevation_q90_m",
+    "analog_area_km2",
+    "novel_mess_km2",
+    "novel_nt1_km2",
+    "novel_nt2_km2",
+    "novel_any_km2",
+    "gain_novel_km2",
+    "gain_novel_share",
 ]
 
 
@@ -256,7 +283,149 @@ def _slice_meta(meta: xr.Dataset, name: str, n: int, fill) -> list:
     return [fill] * n
 
 
-def change_table(stack: xr.Dataset, *, reference: str = "baseline") -> pd.DataFrame:
+#: Novelty criteria: variable -> (test, description).
+NOVELTY_RULES = {
+    "mess": (lambda x: x < 0, "MESS < 0"),
+    "nt1": (lambda x: x < 0, "NT1 < 0"),
+    "nt2": (lambda x: x > 1, "NT2 > 1"),
+}
+
+
+def novel_mask(stack: xr.Dataset, *, criteria=("mess", "nt1", "nt2")) -> xr.DataArray:
+    """Cells whose climate is novel by any of `criteria` present in `stack` (lazy, bool).
+
+    MESS < 0 (Elith, Kearney & Phillips 2010, Methods Ecol. Evol. 1:330); NT1 < 0 (outside a
+    univariate range) or NT2 > 1 (novel combination) (Mesgaran, Cousens & Webber 2014,
+    Divers. Distrib. 20:1147). Criteria whose variable is missing are skipped; with none present
+    this is a DataError naming them.
+    """
+    unknown = [c for c in criteria if c not in NOVELTY_RULES]
+    if unknown:
+        raise DataError(f"unknown novelty criteria {unknown}; use some of {list(NOVELTY_RULES)}")
+    present = [c for c in criteria if c in stack.data_vars]
+    if not present:
+        raise DataError(
+            f"the stack has none of the novelty variables {list(criteria)}; run the novelty "
+            "step of transfer first"
+        )
+    out = None
+    for c in present:
+        m = NOVELTY_RULES[c][0](stack[c])
+        out = m if out is None else (out | m)
+    out.name = "novel"
+    out.attrs = {
+        "units": "1",
+        "long_name": "novel climate",
+        "description": "true where " + " or ".join(NOVELTY_RULES[c][1] for c in present),
+    }
+    return out
+
+
+def bearing_deg(lon1, lat1, lon2, lat2) -> np.ndarray:
+    """Initial great-circle bearing from point 1 to point 2, degrees clockwise from north.
+
+    Notes
+    -----
+    .. math:: \\theta = \\operatorname{atan2}\\big(\\sin\\Delta\\lambda\\cos\\varphi_2,\\;
+              \\cos\\varphi_1\\sin\\varphi_2 - \\sin\\varphi_1\\cos\\varphi_2\\cos\\Delta\\lambda\\big)
+
+    in [0, 360); NaN where the points coincide or either is NaN.
+
+    References
+    ----------
+    Snyder, J. P. (1987). Map Projections: A Working Manual. USGS Professional Paper 1395,
+    azimuth on the sphere (eq. 5-4b, equation number from memory).
+    """
+    lon1, lat1, lon2, lat2 = (np.deg2rad(np.asarray(a, dtype=float))
+                              for a in (lon1, lat1, lon2, lat2))
+    dl = lon2 - lon1
+    y = np.sin(dl) * np.cos(lat2)
+    x = np.cos(lat1) * np.sin(lat2) - np.sin(lat1) * np.cos(lat2) * np.cos(dl)
+    theta = np.rad2deg(np.arctan2(y, x)) % 360.0
+    same = (np.abs(y) < 1e-15) & (np.abs(x) < 1e-15)
+    return np.where(same, np.nan, theta)
+
+
+def _weighted_quantiles(values: np.ndarray, weights: np.ndarray, qs) -> np.ndarray:
+    """Inverse of the weighted empirical CDF: the smallest v with F_w(v) >= q, per row.
+
+    `values`, `weights` have shape (n_rows, n); weight 0 or NaN value means "not included".
+    """
+    out = np.full((values.shape[0], len(qs)), np.nan)
+    for r in range(values.shape[0]):
+        v, w = values[r], weights[r]
+        keep = np.isfinite(v) & (w > 0)
+        if not keep.any():
+            continue
+        order = np.argsort(v[keep], kind="stable")
+        vs, ws = v[keep][order], w[keep][order]
+        cum = np.cumsum(ws) / ws.sum()
+        for k, q in enumerate(qs):
+            idx = int(np.searchsorted(cum, q - 1e-12, side="left"))
+            out[r, k] = vs[min(idx, vs.size - 1)]
+    return out
+
+
+def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
+                    table: pd.DataFrame) -> pd.DataFrame:
+    ref_area = table["suitable_area_km2"].iloc[iref]
+    for k in ("gain", "loss", "stable"):
+        table[f"{k}_pct"] = (100.0 * table[f"{k}_km2"] / ref_area) if ref_area > 0 else np.nan
+    table["centroid_bearing_deg"] = bearing_deg(
+        table["centroid_lon"].iloc[iref], table["centroid_lat"].iloc[iref],
+        table["centroid_lon"].to_numpy(), table["centroid_lat"].to_numpy(),
+    )
+    suit = suitable_mask(computed["suitable"].values)
+    area = np.broadcast_to(cell_area(stack).values, suit.shape)
+    w = np.where(suit, area, 0.0).reshape(suit.shape[0], -1)
+    total = w.sum(axis=1)
+    lat = np.broadcast_to(stack["lat"].values[:, None], suit.shape[1:])
+    lat = np.broadcast_to(lat, suit.shape).reshape(suit.shape[0], -1)
+    qs = (0.1, 0.5, 0.9)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        table["lat_mean"] = (w * lat).sum(axis=1) / np.where(total > 0, total, np.nan)
+    table[["lat_q10", "lat_q50", "lat_q90"]] = _weighted_quantiles(lat, w, qs)
+    if "elevation" in computed:
+        elev = np.asarray(computed["elevation"].values, dtype=float)
+        elev = np.broadcast_to(elev, suit.shape).reshape(suit.shape[0], -1)
+        ok = np.isfinite(elev)
+        we = np.where(ok, w, 0.0)
+        tot_e = we.sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            table["elevation_mean_m"] = (we * np.where(ok, elev, 0.0)).sum(axis=1) / np.where(
+                tot_e > 0, tot_e, np.nan)
+        table[["elevation_q10_m", "elevation_q50_m", "elevation_q90_m"]] = _weighted_quantiles(
+            elev, we, qs)
+    else:
+        for c in ("elevation_mean_m", "elevation_q10_m", "elevation_q50_m", "elevation_q90_m"):
+            table[c] = np.nan
+    novel = {}
+    rules = {k: v[0] for k, v in NOVELTY_RULES.items()}
+    for var, rule in rules.items():
+        if var in computed:
+            with np.errstate(invalid="ignore"):
+                novel[var] = rule(np.asarray(computed[var].values)).reshape(suit.shape[0], -1)
+    for var in rules:
+        table[f"novel_{var}_km2"] = (w * novel[var]).sum(axis=1) if var in novel else np.nan
+    if novel:
+        any_novel = np.logical_or.reduce(list(novel.values()))
+        table["novel_any_km2"] = (w * any_novel).sum(axis=1)
+        table["analog_area_km2"] = total - table["novel_any_km2"].to_numpy()
+        gain = (np.asarray(computed["change"].values) == 1).reshape(suit.shape[0], -1)
+        ref_w = area.reshape(suit.shape[0], -1)
+        table["gain_novel_km2"] = (ref_w * (gain & any_novel)).sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            table["gain_novel_share"] = table["gain_novel_km2"] / table["gain_km2"].where(
+                table["gain_km2"] > 0)
+    else:
+        for c in ("novel_any_km2", "analog_area_km2", "gain_novel_km2", "gain_novel_share"):
+            table[c] = np.nan
+    return table
+
+
+def change_table(
+    stack: xr.Dataset, *, reference: str = "baseline", detail: bool = False
+) -> pd.DataFrame:
     """Per-slice summary: suitable area, gain/loss/stable, novel area, centroid and its shift.
 
     Parameters
@@ -272,7 +441,13 @@ def change_table(stack: xr.Dataset, *, reference: str = "baseline") -> pd.DataFr
     -------
     pandas.DataFrame
         One row per slice with exactly the columns of :data:`SUMMARY_COLUMNS` (areas in km²,
-        centroid in degrees, shift in km).
+        centroid in degrees, shift in km), followed by :data:`DETAIL_COLUMNS` when `detail`.
+    detail : bool, default False
+        Add gain/loss/stable in % of the reference area, the centroid bearing (degrees clockwise
+        from north, from the reference centroid), the area-weighted mean and 10/50/90 %
+        quantiles of latitude and of ``elevation`` over suitable cells, and the suitable area
+        split into analog and novel climate by each criterion (MESS < 0, NT1 < 0, NT2 > 1, any
+        of them), plus the gain area in novel climate (any criterion) and its share of the gain.
 
     Notes
     -----
@@ -308,8 +483,15 @@ def change_table(stack: xr.Dataset, *, reference: str = "baseline") -> pd.DataFr
         for k in ("year", "model", "scenario")
         if k in stack.coords or k in stack.data_vars
     }
+    layers = {}
+    if detail:
+        layers["suitable"] = drop_nondim(suitable)
+        layers["change"] = drop_nondim(change)
+        for var in ("mess", "nt1", "nt2", "elevation"):
+            if var in stack.data_vars:
+                layers[var] = drop_nondim(stack[var])
     computed = xr.Dataset({**{k: drop_nondim(v) for k, v in sums.items()},
-                           **{f"meta_{k}": v for k, v in meta.items()}})
+                           **{f"meta_{k}": v for k, v in meta.items()}, **layers})
     computed = computed.compute()  # one pass over the stack
     meta = xr.Dataset({k: computed[f"meta_{k}"] for k in meta})
     table = pd.DataFrame(
@@ -335,4 +517,7 @@ def change_table(stack: xr.Dataset, *, reference: str = "baseline") -> pd.DataFr
         table["centroid_lon"].to_numpy(),
         table["centroid_lat"].to_numpy(),
     )
+    if detail:
+        table = _detail_columns(stack, computed, iref, table)
+        return table[SUMMARY_COLUMNS + DETAIL_COLUMNS]
     return table[SUMMARY_COLUMNS]

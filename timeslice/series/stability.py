@@ -7,6 +7,8 @@ in no slice are NaN (fractions, sums) or False (refugium).
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 import xarray as xr
 
@@ -15,9 +17,11 @@ from timeslice.series._checks import check_dataarray, is_suitable, is_valid
 
 __all__ = [
     "DEFAULT_EPS",
+    "dynamic_stability",
     "geometric_mean",
     "minimum_suitability",
     "refugium",
+    "select_window",
     "stability",
     "static_stability",
 ]
@@ -75,7 +79,56 @@ def stability(suitable: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
     return out
 
 
-def refugium(suitable: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
+def select_window(obj, window=None, *, dim: str = "slice"):
+    """Select the slices of a window: all (None), a list of labels, or a year range.
+
+    Parameters
+    ----------
+    obj : xarray.Dataset or xarray.DataArray
+        Anything with dim `dim` (and a ``year`` coordinate for a year range).
+    window : None, sequence of str, or (float, float)
+        Slice labels, or ``(year_min, year_max)`` in years CE, inclusive (a slice *a* years
+        BP has year 1950 − a, so 21 ka BP → present is ``(-19050, 2000)``).
+
+    Returns
+    -------
+    same type as `obj`, with only the window's slices (in their original order).
+    """
+    if window is None:
+        return obj
+    if dim not in obj.dims:
+        raise DataError(f"no dimension {dim!r} to select a window from (has {list(obj.dims)})")
+    if isinstance(window, str):
+        window = [window]
+    window = list(window)
+    if len(window) == 2 and all(isinstance(v, (int, float, np.number)) and not isinstance(v, bool)
+                                for v in window):
+        if "year" not in obj.coords:
+            raise DataError("a year-range window needs a 'year' coordinate on the slices; "
+                            "give slice labels instead")
+        lo, hi = sorted(float(v) for v in window)
+        years = np.asarray(obj["year"].values, dtype=float)
+        keep = (years >= lo) & (years <= hi)
+        if not keep.any():
+            raise DataError(
+                f"window years {lo:g}..{hi:g} contain no slice (slice years "
+                f"{sorted(years.tolist())}); widen the window"
+            )
+        return obj.isel({dim: np.flatnonzero(keep)})
+    from timeslice.series._checks import check_labels
+
+    labels = set(check_labels(obj, window, what="window", dim=dim))
+    keep = [i for i, v in enumerate(obj[dim].values) if str(v) in labels]
+    return obj.isel({dim: keep})
+
+
+def refugium(
+    suitable: xr.DataArray,
+    *,
+    dim: str = "slice",
+    window=None,
+    analog: xr.DataArray | None = None,
+) -> xr.DataArray:
     """Cells suitable in every slice along `dim` (climatic refugia).
 
     Parameters
@@ -83,7 +136,11 @@ def refugium(suitable: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
     suitable : xarray.DataArray
         Suitable layers with dim `dim`.
     dim : str, default "slice"
-        Dimension (select the window of slices before calling).
+    window : None, sequence of str, or (float, float), optional
+        Slices to require (see :func:`select_window`); all slices if omitted.
+    analog : xarray.DataArray of bool, optional
+        True where the slice's climate is analog (inside the calibration range); if given, a
+        refugium must be suitable *and* analog in every slice of the window.
 
     Returns
     -------
@@ -99,14 +156,22 @@ def refugium(suitable: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
     """
     check_dataarray(suitable, name="suitable", dims=())
     _check_dim(suitable, dim, "suitable")
-    out = is_suitable(suitable).all(dim)
-    out.name = "refugium"
+    suitable = select_window(suitable, window, dim=dim)
+    ok = is_suitable(suitable)
+    if analog is not None:
+        check_dataarray(analog, name="analog", dims=())
+        ok = ok & select_window(analog, window, dim=dim).astype(bool)
+    out = ok.all(dim)
+    out.name = "refugium_analog" if analog is not None else "refugium"
+    labels = " ".join(map(str, suitable[dim].values)) if dim in suitable.coords else ""
     out.attrs = {
         "units": "1",
-        "long_name": "climatic refugium",
+        "long_name": "climatic refugium" + (" in analog climate" if analog is not None else ""),
         "description": (
-            f"true where suitable in every one of the {suitable.sizes[dim]} slices along '{dim}'"
+            f"true where suitable{' and analog (not novel)' if analog is not None else ''} "
+            f"in every one of the {suitable.sizes[dim]} slices along '{dim}'"
         ),
+        "slices": labels,
         "flag_values": np.array([0, 1], dtype=np.int8),
         "flag_meanings": "not_refugium refugium",
     }
@@ -224,5 +289,149 @@ def minimum_suitability(suitability: xr.DataArray, *, dim: str = "slice") -> xr.
         "description": (
             f"minimum over {suitability.sizes[dim]} slices; not-land counts as 0"
         ),
+    }
+    return out
+
+
+def _row_offsets(lat: np.ndarray, lon: np.ndarray, d_km: float) -> list[list[tuple[int, int]]]:
+    """For each row i: list of (di, m) such that cells (i+di, j±0..m) lie within d_km."""
+    from timeslice.grid import haversine_km, resolution
+
+    ny, nx = lat.size, lon.size
+    dlon = resolution(lon) if nx > 1 else 360.0
+    djs = np.arange(nx)
+    out = []
+    for i in range(ny):
+        row = []
+        for i2 in range(ny):
+            dist = haversine_km(0.0, lat[i], djs * dlon, lat[i2])
+            ok = dist <= d_km * (1 + 1e-12)
+            if not ok[0]:
+                if i2 > i:
+                    break
+                continue
+            m = int(np.argmin(ok)) - 1 if not ok.all() else nx - 1
+            row.append((i2 - i, m))
+        out.append(row)
+    return out
+
+
+def _neighbour_max(field: np.ndarray, offsets, *, wrap: bool) -> np.ndarray:
+    """Max of `field` over each cell's great-circle neighbourhood (offsets per row)."""
+    from scipy.ndimage import maximum_filter1d
+
+    ny, nx = field.shape
+    out = np.full(field.shape, -np.inf)
+    for i, row in enumerate(offsets):
+        for di, m in row:
+            src = field[i + di]
+            if m >= nx - 1 and wrap:
+                best = np.full(nx, src.max())
+            else:
+                best = maximum_filter1d(src, size=2 * m + 1,
+                                        mode="wrap" if wrap else "constant", cval=-np.inf)
+            np.maximum(out[i], best, out=out[i])
+    return out
+
+
+def _dynamic_kernel(logs: np.ndarray, distances: np.ndarray, lat, lon, wrap: bool) -> np.ndarray:
+    acc = logs[0].copy()
+    cache: dict[float, list] = {}
+    for t in range(1, logs.shape[0]):
+        d = float(distances[t])
+        if d > 0:
+            if d not in cache:
+                cache[d] = _row_offsets(lat, lon, d)
+            acc = logs[t] + _neighbour_max(acc, cache[d], wrap=wrap)
+        else:
+            acc = logs[t] + acc
+    return acc
+
+
+def dynamic_stability(
+    suitability: xr.DataArray,
+    *,
+    distance_km: float | Sequence[float] | None = None,
+    rate: str | None = None,
+    dim: str = "slice",
+    eps: float = DEFAULT_EPS,
+) -> xr.DataArray:
+    """Dispersal-aware stability: the best log-suitability path through the series.
+
+    Parameters
+    ----------
+    suitability : xarray.DataArray
+        Continuous suitability ``(slice, lat, lon)`` of one chain in time order; NaN not land
+        (taken as 0).
+    distance_km : float or sequence of float, optional
+        Dispersal distance between consecutive slices (one number, or one per slice with the
+        first ignored). 0 gives static stability.
+    rate : str, optional
+        Instead of `distance_km`: a rate with units (``"500 km/kyr"``), times |Δyear| of the
+        ``year`` coordinate.
+    dim : str, default "slice"
+    eps : float, default 1e-6
+
+    Returns
+    -------
+    xarray.DataArray, [1]
+        ``dynamic_stability`` (≤ 0) at the last slice; NaN where never land.
+
+    Notes
+    -----
+    .. math:: a_0(j) = \\ln \\max(S_0(j), \\varepsilon), \\qquad
+              a_t(j) = \\ln \\max(S_t(j), \\varepsilon) + \\max_{k: d(k, j) \\le D_t} a_{t-1}(k)
+
+    with :math:`d` the great-circle distance between cell centres on the authalic sphere
+    (barriers are not considered here; see :mod:`timeslice.series.dispersal` for paths through
+    land). With :math:`D_t = 0` the neighbourhood is the cell itself and the result equals
+    static stability. The result is the log-suitability of the best sequence of cells ending in
+    :math:`j` with each move no longer than the step distance.
+
+    References
+    ----------
+    Graham, C. H., VanDerWal, J., Phillips, S. J., Moritz, C., & Williams, S. E. (2010).
+    Dynamic refugia and species persistence: tracking spatial shifts in habitat through time.
+    Ecography 33:1062-1069. (The recursion is this project's formalisation of their idea.)
+    """
+    from timeslice.series.dispersal import parse_rate, step_distances
+
+    _check_suitability(suitability, dim, eps)
+    check_dataarray(suitability, name="suitability", dims=(dim, "lat", "lon"))
+    da = suitability.transpose(dim, "lat", "lon")
+    ns = da.sizes[dim]
+    if (distance_km is None) == (rate is None):
+        raise DataError("give exactly one of `distance_km` or `rate` for dynamic stability")
+    if rate is not None:
+        if "year" not in da.coords:
+            raise DataError("`suitability` has no 'year' coordinate to turn `rate` into "
+                            "distances; give `distance_km` instead")
+        dist = step_distances(da["year"].values, parse_rate(rate))
+    else:
+        dist = np.asarray(distance_km, dtype=float)
+        if dist.ndim == 0:
+            dist = np.full(ns, float(dist))
+        if dist.shape != (ns,) or np.any(~np.isfinite(dist[1:])) or np.any(dist[1:] < 0):
+            raise DataError(f"`distance_km` must be one number >= 0 or {ns} of them, "
+                            f"got {distance_km!r}")
+    lat = np.asarray(da["lat"].values, float)
+    lon = np.asarray(da["lon"].values, float)
+    from timeslice.series.dispersal import _is_global
+
+    logs = np.asarray(_log_floor(da, eps).values, dtype=float)
+    acc = _dynamic_kernel(logs, dist, lat, lon, _is_global(lon))
+    out = xr.DataArray(acc.astype(np.float32), dims=("lat", "lon"),
+                       coords={"lat": da["lat"], "lon": da["lon"]})
+    out = out.where(da.notnull().any(dim))
+    out.name = "dynamic_stability"
+    out.attrs = {
+        "units": "1",
+        "long_name": "dynamic stability (best log-suitability path)",
+        "description": (
+            f"a_t = ln(max(S_t, {eps:g})) + max of a_(t-1) within the step distance "
+            "(great-circle between cell centres); value at the last slice"
+        ),
+        "step_distance_km": dist.astype(float),
+        "eps": float(eps),
     }
     return out
