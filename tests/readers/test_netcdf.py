@@ -133,3 +133,104 @@ def test_errors(tmp_path, model_file):
         open_climate(tmp_path / "pru.nc")
     with pytest.raises(DataError, match="required variable 'tas'.*found"):
         open_climate(p, require=["tas"])
+
+
+def test_one_file_per_variable_by_glob(tmp_path, model_file):
+    path = model_file(tmin_c=1.0, pr_mm_day=1.0)
+    ds = xr.open_dataset(path)
+    for v in ("tasmin", "tasmax", "pr"):
+        ds[[v]].to_netcdf(tmp_path / f"part_{v}.nc")
+    out = open_climate(str(tmp_path / "part_*.nc"))
+    ref = open_climate(path)
+    xr.testing.assert_allclose(out, ref)
+    assert len(json.loads(out.attrs["source_files"])) == 3
+
+
+def test_packed_int16(tmp_path, model_file):
+    path = model_file(tmin_c=1.5, pr_mm_day=2.0)
+    ds = xr.open_dataset(path)
+    enc = {"tasmin": {"dtype": "int16", "scale_factor": 0.01, "add_offset": 273.15,
+                      "_FillValue": -32768}}
+    ds.to_netcdf(tmp_path / "packed.nc", encoding=enc)
+    out = open_climate(tmp_path / "packed.nc")
+    np.testing.assert_allclose(out["tasmin"].values, 1.5, atol=0.006)  # packing step 0.01 K
+
+
+def test_curvilinear_grid_is_refused(tmp_path):
+    y, x = np.meshgrid(np.arange(3.0), np.arange(4.0), indexing="ij")
+    ds = xr.Dataset(
+        {"elevation": (("y", "x"), np.zeros((3, 4)), {"units": "m"})},
+        coords={"nav_lat": (("y", "x"), 40 + y, {"standard_name": "latitude"}),
+                "nav_lon": (("y", "x"), -30 + x + 0.1 * y, {"standard_name": "longitude"})},
+    )
+    ds.to_netcdf(tmp_path / "curvi.nc")
+    with pytest.raises(DataError, match=r"curvi\.nc.*'nav_lon'.*'nav_lat'.*2-D"):
+        open_climate(tmp_path / "curvi.nc")
+
+
+def test_non_monotonic_longitude(tmp_path, model_file):
+    path = model_file()
+    ds = xr.open_dataset(path)
+    lon = ds["lon"].values.copy()
+    lon[[3, 4]] = lon[[4, 3]]
+    ds.assign_coords(lon=lon).to_netcdf(tmp_path / "shuffled.nc")
+    with pytest.raises(DataError, match="'lon' is not monotonic"):
+        open_climate(tmp_path / "shuffled.nc")
+
+
+def test_time_axis_without_12_months(tmp_path, model_file):
+    path = model_file()
+    ds = xr.open_dataset(path, decode_times=False)
+    ds.isel(time=slice(0, 6)).to_netcdf(tmp_path / "half.nc")
+    with pytest.raises(DataError, match="not a 12-month climatology"):
+        open_climate(tmp_path / "half.nc")
+    with pytest.raises(DataError, match=r"no data for months \[7, 8, 9, 10, 11, 12\]"):
+        open_climate(tmp_path / "half.nc", period="2001-2001")
+    ds2 = ds.copy()
+    ds2["time"].attrs = {"units": "steps", "standard_name": "time"}
+    ds2.to_netcdf(tmp_path / "undated.nc")
+    with pytest.raises(DataError, match="cannot be decoded into dates"):
+        open_climate(tmp_path / "undated.nc")
+
+
+def test_files_disagreeing_on_period(tmp_path, model_file):
+    import cftime
+
+    paths = []
+    for v, (y0, y1) in (("tasmin", (1971, 2000)), ("tasmax", (1981, 2010))):
+        ds = xr.open_dataset(model_file(name=f"src_{v}.nc"), decode_times=False)[[v, "time"]]
+        b0 = [cftime.date2num(cftime.datetime(y0, m, 1, calendar="noleap"),
+                              "days since 1900-01-01", calendar="noleap") for m in range(1, 13)]
+        b1 = [cftime.date2num(cftime.datetime(y1 + (m == 12), m % 12 + 1, 1, calendar="noleap"),
+                              "days since 1900-01-01", calendar="noleap") for m in range(1, 13)]
+        ds["climatology_bnds"] = (("time", "nv"), np.stack([b0, b1], 1),
+                                  {"units": "days since 1900-01-01"})
+        ds["time"].attrs["climatology"] = "climatology_bnds"
+        p = tmp_path / f"{v}.nc"
+        ds.to_netcdf(p)
+        paths.append(p)
+    with pytest.raises(DataError, match="disagree on the period"):
+        open_climate(paths)
+    one = open_climate(paths[0])
+    assert json.loads(one.attrs["source_info"])["period"] == "1971-2000"
+
+
+def test_negative_precipitation(tmp_path, model_file):
+    path = model_file(pr_mm_day=-1.0)
+    # 12 months x 25 x 30 cells
+    with pytest.raises(DataError, match="negative beyond rounding in 9000 cell-months"):
+        open_climate(path)
+    ds = xr.open_dataset(model_file(name="tiny.nc", pr_mm_day=1.0))
+    ds["pr"][0, 0, 0] = -1e-9  # rounding-size negative flux
+    ds.to_netcdf(tmp_path / "tiny_neg.nc")
+    out = open_climate(tmp_path / "tiny_neg.nc")
+    assert float(out["pr"].min()) == 0.0
+    assert any("rounding" in x for x in json.loads(out.attrs["harmonise_log"]))
+
+
+def test_missing_variable_lists_found(tmp_path):
+    ds = xr.Dataset({"foo": (("lat", "lon"), np.zeros((2, 2)))},
+                    coords={"lat": [1.0, 2.0], "lon": [1.0, 2.0]})
+    ds.to_netcdf(tmp_path / "foo.nc")
+    with pytest.raises(DataError, match=r"no climate variable recognised \(found \['foo'\]\)"):
+        open_climate(tmp_path / "foo.nc")

@@ -199,6 +199,15 @@ def _file_period(ds: xr.Dataset) -> str | None:
                 if not t_units:
                     return None
                 vals = cftime.num2date(vals, t_units, calendar=_calendar(ds, str(name)))
+            cal = _calendar(ds, str(name))
+            first = vals[0] if vals.size else None
+            if getattr(first, "calendar", cal) not in (cal, "") and ds[ref].encoding.get("units"):
+                # bounds decoded without the parent's calendar: redo it with the right one
+                import cftime
+
+                units_b = ds[ref].encoding["units"]
+                nums = cftime.date2num(list(vals), units_b, calendar=first.calendar)
+                vals = np.asarray(cftime.num2date(nums, units_b, calendar=cal)).ravel()
             try:
                 years = [v.year for v in vals]
                 months = [v.month for v in vals]
