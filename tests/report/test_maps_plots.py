@@ -43,6 +43,22 @@ def test_panels(series_ds, tmp_path, kind):
     _png_ok(make())
 
 
+def test_ice_sheet_is_drawn_and_joins_the_coastline(series_ds, tmp_path):
+    ds = series_ds.isel(slice=[1]).copy()
+    land = ds["land"].values.copy()
+    ice = np.zeros_like(land)
+    ice[:, 7:10, 6:10] = True
+    ds["land"] = (ds["land"].dims, land & ~ice)
+    ds["ice"] = (ds["land"].dims, ice)
+    ds["suitability"] = ds["suitability"].where(~ds["ice"])  # ice is not land: no value
+    (path,) = maps.slice_maps(ds, tmp_path, dpi=60)
+    _png_ok(path)
+    with Image.open(path) as im:
+        rgb = np.asarray(im.convert("RGB")).reshape(-1, 3)
+    # the ice colour (#D6EAF8) is on the map
+    assert (np.abs(rgb.astype(int) - [0xD6, 0xEA, 0xF8]).sum(axis=1) < 6).sum() > 50
+
+
 def test_map_errors_name_the_layer(series_ds, tmp_path):
     with pytest.raises(DataError, match="'nope'"):
         maps.slice_maps(series_ds, tmp_path, variable="nope")

@@ -93,7 +93,9 @@ def test_cf_attributes_and_encoding(series_ds, tmp_path):
         assert chg.flag_values.dtype == np.int8
         mod = nc.variables["mod"]
         assert mod.flag_values.dtype == np.int16
-        assert mod.flag_meanings == "bio1 bio12 bio6"
+        # the fixture marks not-land with -1, which becomes a named flag
+        assert mod.flag_meanings == "no_data bio1 bio12 bio6"
+        assert list(mod.flag_values) == [-1, 0, 1, 2]
 
 
 def test_lat_lon_bounds_contiguous(series_ds, tmp_path):
@@ -142,3 +144,30 @@ def test_bad_inputs(series_ds, tmp_path):
     bad.write_text("not netcdf")
     with pytest.raises(InputFileError, match="bad.nc"):
         open_series(bad)
+
+
+def test_stage_conventions_become_named_flags(series_ds, tmp_path):
+    # As the transfer stage hands it over: flags 0/1 and -1 as an encoding fill value;
+    # a land mask that inherited the attributes of the elevation it came from.
+    ds = series_ds.copy()
+    ds["suitable"].attrs = {"flag_values": np.array([0, 1], dtype="int8"),
+                            "flag_meanings": "unsuitable suitable", "units": "1"}
+    ds["suitable"].encoding["_FillValue"] = np.int8(-1)
+    ds["land"].attrs = {"standard_name": "height_above_mean_sea_level", "positive": "up",
+                        "source_units": "%", "long_name": "land"}
+    ds = ds.assign_coords(sea_level=("slice", np.zeros(ds.sizes["slice"])))
+    path = write_series(ds, tmp_path / "series.nc")
+    with netCDF4.Dataset(path) as nc:
+        s = nc.variables["suitable"]
+        assert list(s.flag_values) == [-1, 0, 1]
+        assert s.flag_meanings == "not_land unsuitable suitable"
+        assert "_FillValue" not in s.ncattrs()
+        land = nc.variables["land"]
+        assert land.standard_name == "land_binary_mask"
+        assert "positive" not in land.ncattrs() and "source_units" not in land.ncattrs()
+        assert nc.variables["sea_level"].units == "m"
+        assert "coordinates" not in nc.ncattrs()
+    passed, had_errors, high, medium = _cf_errors(path, tmp_path)
+    assert not had_errors and high == [] and medium == [] and passed
+    back = open_series(path)
+    assert back["suitable"].dtype == np.int8 and int(back["suitable"].min()) == -1

@@ -61,9 +61,30 @@ LAYERS: dict[str, dict[str, Any]] = {
         "units": "1",
         "standard_name": "land_binary_mask",
         "long_name": "land in the slice",
-        "bool_flags": "sea_or_ice_free_ocean land",
+        "bool_flags": "sea_or_ice land",
         "description": "1 where the cell is land in the slice (elevation above the slice's sea "
         "level and not under an ice sheet)",
+    },
+    "ice": {
+        "units": "1",
+        "long_name": "ice sheet in the slice",
+        "bool_flags": "no_ice ice",
+        "description": "1 where an ice sheet covers the cell in the slice (not land for the niche)",
+    },
+    "exposed_shelf": {
+        "units": "1",
+        "long_name": "exposed continental shelf",
+        "bool_flags": "not_exposed exposed",
+        "description": "land in the slice that lies below present sea level",
+    },
+    "reachable": {
+        "units": "1",
+        "long_name": "suitable and reachable",
+        "flags": ([-1, 0, 1], "not_land not_reached reached"),
+    },
+    "clamp_effect": {
+        "units": "1",
+        "long_name": "effect of clamping on suitability",
     },
     "elevation": {
         "units": "m",
@@ -104,6 +125,25 @@ LAYERS: dict[str, dict[str, Any]] = {
 
 SLICE_COORDS = ("year", "period", "model", "scenario")
 
+#: Layers whose -1 means "not land" (or "no prediction") by the stage contracts.
+NOT_LAND_FLAG = {"suitable": "not_land", "change": "not_land", "reachable": "not_land",
+                 "mod": "no_data"}
+
+#: Attributes a mask may inherit from the field it was derived from that would mislabel it.
+INHERITED_NOISE = ("standard_name", "positive", "source_units", "source_variable",
+                   "regrid_method", "valid_min", "valid_max", "valid_range", "axis")
+
+
+def layer_spec(name: str) -> dict[str, Any]:
+    """Table entry of a layer; ``stability_<chain>`` / ``refugium_<chain>`` use the base entry."""
+    key = str(name)
+    if key in LAYERS:
+        return LAYERS[key]
+    for base in ("stability", "refugium", "static_stability", "reachable"):
+        if key.startswith(base + "_") and base in LAYERS:
+            return LAYERS[base]
+    return {}
+
 
 def slice_title(ds: xr.Dataset, i: int) -> str:
     """Human title of slice `i`: "label — model, scenario, period"."""
@@ -121,7 +161,7 @@ def flag_pairs(da: xr.DataArray) -> list[tuple[int, str]]:
     values = attrs.get("flag_values")
     meanings = attrs.get("flag_meanings")
     if values is None or meanings is None:
-        spec = LAYERS.get(str(da.name), {})
+        spec = layer_spec(str(da.name))
         if "flags" in spec:
             values, meanings = spec["flags"]
         elif "bool_flags" in spec:

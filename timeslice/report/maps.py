@@ -53,6 +53,7 @@ _CONTINUOUS = {
     "nt2": ("cividis", "NT2 (> 1: novel combination)"),
 }
 _NOVEL_HATCH = "////"
+_ICE_COLOUR = "#D6EAF8"
 
 
 def _check(ds: xr.Dataset, variable: str) -> None:
@@ -114,6 +115,33 @@ def _scale_bar(ax, lon: np.ndarray, lat: np.ndarray, crs) -> None:
             bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.7, "pad": 1})
 
 
+def _graticule(ax, crs, west: float, east: float, south: float, north: float, *,
+               labels: bool = True) -> None:
+    """Labelled graticule from plain axis ticks.
+
+    On PlateCarree the graticule is straight lines, so axis ticks with cartopy's degree
+    formatters give the same picture as cartopy's gridliner at a fraction of its drawing cost
+    (the gridliner was ~70 % of a map's rendering time in profiling).
+    """
+    from cartopy.mpl.ticker import LatitudeFormatter, LongitudeFormatter
+    from matplotlib.ticker import MaxNLocator
+
+    loc = MaxNLocator(nbins=5, steps=[1, 2, 2.5, 5, 10])
+    xt = [t for t in loc.tick_values(west, east) if west <= t <= east]
+    yt = [t for t in loc.tick_values(south, north) if south <= t <= north]
+    ax.set_xticks(xt, crs=crs)
+    ax.set_yticks(yt, crs=crs)
+    ax.xaxis.set_major_formatter(LongitudeFormatter())
+    ax.yaxis.set_major_formatter(LatitudeFormatter())
+    ax.tick_params(labelsize=7, length=2, labelbottom=labels, labelleft=labels)
+    for x in xt:
+        ax.plot([x, x], [south, north], color="0.5", linewidth=0.4, linestyle=":",
+                alpha=0.6, transform=crs, zorder=3)
+    for y in yt:
+        ax.plot([west, east], [y, y], color="0.5", linewidth=0.4, linestyle=":",
+                alpha=0.6, transform=crs, zorder=3)
+
+
 def _axes(fig: Figure, spec, ds: xr.Dataset, i: int | None, *, labels: bool = True):
     import cartopy.crs as ccrs
 
@@ -123,22 +151,35 @@ def _axes(fig: Figure, spec, ds: xr.Dataset, i: int | None, *, labels: bool = Tr
     lat_b = cell_bounds(ds["lat"].values, kind="lat")
     ax.set_extent([lon_b[0, 0], lon_b[-1, 1], lat_b[0, 0], lat_b[-1, 1]], crs=crs)
     ax.set_facecolor("white")
-    gl = ax.gridlines(crs=crs, draw_labels=labels, linewidth=0.4, color="0.5",
-                      alpha=0.6, linestyle=":")
-    if labels:
-        gl.top_labels = False
-        gl.right_labels = False
-        gl.xlabel_style = {"size": 7}
-        gl.ylabel_style = {"size": 7}
+    _graticule(ax, crs, lon_b[0, 0], lon_b[-1, 1], lat_b[0, 0], lat_b[-1, 1], labels=labels)
     return ax, crs
 
 
-def _coastline(ax, ds: xr.Dataset, i: int | None, crs) -> None:
+def _coastline(ax, ds: xr.Dataset, i: int | None, crs) -> str | None:
+    """Draw the slice's coastline; return the legend label (None when nothing was drawn).
+
+    With an ``ice`` layer the coastline is the edge of land-or-ice and the ice sheet is
+    shaded; without one the land mask's edge runs along coasts and ice margins alike.
+    """
     land = _layer(ds, "land", i)
-    if land is None or not np.any(land) or np.all(land):
-        return
-    ax.contour(ds["lon"].values, ds["lat"].values, land.astype(float), levels=[0.5],
-               colors="black", linewidths=0.8, transform=crs, zorder=5)
+    if land is None:
+        return None
+    land = land.astype(bool)
+    ice = _layer(ds, "ice", i)
+    lon, lat = ds["lon"].values, ds["lat"].values
+    label = "coastline of the slice"
+    if ice is not None and np.any(ice.astype(bool)):
+        ice = ice.astype(bool)
+        ax.contourf(lon, lat, ice.astype(float), levels=[0.5, 1.5], colors=[_ICE_COLOUR],
+                    transform=crs, zorder=1)
+        land = land | ice
+    elif ice is None:
+        label = "land edge (coast or ice margin)"
+    if np.any(land) and not np.all(land):
+        ax.contour(lon, lat, land.astype(float), levels=[0.5], colors="black",
+                   linewidths=0.8, transform=crs, zorder=5)
+        return label
+    return None
 
 
 def _outline(ax, ds, mask: np.ndarray | None, crs, **kw) -> None:
@@ -208,8 +249,12 @@ def _decorate(ax, crs, ds, i, name: str, *, scale_bar: bool = True) -> list:
     from matplotlib.lines import Line2D
 
     handles: list = []
-    _coastline(ax, ds, i, crs)
-    handles.append(Line2D([], [], color="black", linewidth=0.8, label="coastline of the slice"))
+    coast = _coastline(ax, ds, i, crs)
+    if coast:
+        handles.append(Line2D([], [], color="black", linewidth=0.8, label=coast))
+    ice = _layer(ds, "ice", i)
+    if ice is not None and np.any(ice.astype(bool)):
+        handles.append(Patch(facecolor=_ICE_COLOUR, edgecolor="0.5", label="ice sheet"))
     if name in ("suitability", "mess", "nt1", "nt2", "change"):
         if _hatch_novel(ax, ds, i, crs):
             handles.append(Patch(facecolor="none", edgecolor="0.2", hatch=_NOVEL_HATCH,

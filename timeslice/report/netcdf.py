@@ -22,7 +22,7 @@ import xarray as xr
 from timeslice.errors import DataError, InputFileError
 from timeslice.grid import cell_area, cell_bounds
 from timeslice.io import atomic_path
-from timeslice.report._layers import LAYERS
+from timeslice.report._layers import INHERITED_NOISE, LAYERS, NOT_LAND_FLAG, layer_spec
 
 __all__ = ["open_series", "prepare_cf", "write_series"]
 
@@ -47,6 +47,8 @@ _SLICE_COORD_ATTRS = {
     "period": {"long_name": "period the slice climatology describes"},
     "model": {"long_name": "climate model (observed for the baseline)"},
     "scenario": {"long_name": "scenario (baseline, past, or a forcing scenario label)"},
+    "sea_level": {"long_name": "sea level of the slice relative to present mean sea level",
+                  "units": "m"},
 }
 
 
@@ -103,25 +105,45 @@ def prepare_cf(
                 "(normalise it with timeslice.grid.normalise_lonlat first)"
             )
     out = ds.copy()
+    fills = {name: out[name].encoding.get("_FillValue") for name in out.data_vars}
     # Encodings from files read earlier (chunk sizes, fill values, dtypes) must not leak in.
     for name in out.variables:
         out[name].encoding = {}
-    gridded = []
     for name in list(out.data_vars):
         da = out[name]
-        spec = LAYERS.get(str(name), {})
+        spec = layer_spec(str(name))
         attrs = dict(da.attrs)
         if da.dtype == bool:
             da = da.astype("int8")
+            if spec:
+                # A mask built from another field inherits that field's attributes
+                # (e.g. `land` carrying elevation's standard_name); the table's words win.
+                for key in INHERITED_NOISE:
+                    attrs.pop(key, None)
+                attrs.update({k: v for k, v in spec.items()
+                              if k in ("units", "standard_name", "long_name")})
             if "flag_values" not in attrs:
                 attrs["flag_values"] = np.array([0, 1], dtype="int8")
                 attrs["flag_meanings"] = spec.get("bool_flags", "false true")
         elif "flags" in spec and "flag_values" not in attrs:
             attrs["flag_values"], attrs["flag_meanings"] = spec["flags"]
-        if "flag_values" in attrs:
+        if "flag_values" in attrs and da.dtype.kind in "iu":
+            values = np.atleast_1d(np.asarray(attrs["flag_values"])).tolist()
+            meanings = str(attrs.get("flag_meanings", "")).split()
+            fill = fills.get(name)
+            missing = None
+            if fill is not None and np.isfinite(float(fill)) and int(fill) not in values:
+                missing = int(fill)
+            elif str(name) in NOT_LAND_FLAG and -1 not in values and da.dtype.kind == "i":
+                missing = -1
+            if missing is not None and len(meanings) == len(values):
+                # The stages mark "not land / no prediction" with a fill value; here it is a
+                # named flag instead, so the layer stays an integer when read back.
+                values = [missing, *values]
+                meanings = [NOT_LAND_FLAG.get(str(name), "no_data"), *meanings]
+                attrs["flag_meanings"] = " ".join(meanings)
             # CF 1.8 section 3.5: flag_values must have the variable's type.
-            attrs["flag_values"] = np.asarray(attrs["flag_values"]).astype(da.dtype)
-            attrs.pop("units", None) if attrs.get("units") in ("", None) else None
+            attrs["flag_values"] = np.asarray(values).astype(da.dtype)
         for key in ("units", "standard_name", "long_name", "cell_methods", "description"):
             if key in spec and key not in attrs:
                 attrs[key] = spec[key]
@@ -132,7 +154,6 @@ def prepare_cf(
         if "lat" in da.dims and "lon" in da.dims:
             attrs["grid_mapping"] = "crs"
             attrs["cell_measures"] = "area: cell_area"
-            gridded.append(name)
         # xarray owns these two keys (it writes them from the encoding).
         attrs.pop("_FillValue", None)
         attrs.pop("coordinates", None)
@@ -156,7 +177,9 @@ def prepare_cf(
     )
     for name, kind in (("lat", "lat"), ("lon", "lon")):
         bnds = cell_bounds(out[name].values, kind=kind)
-        out = out.assign_coords({f"{name}_bnds": ((name, "bnds"), bnds)})
+        # Bounds are data variables: CF bounds are not coordinates of anything.
+        out[f"{name}_bnds"] = xr.DataArray(bnds, dims=(name, "bnds"),
+                                           coords={name: out[name]})
         attrs = dict(out[name].attrs)
         attrs.update(
             standard_name="latitude" if name == "lat" else "longitude",
@@ -185,6 +208,10 @@ def prepare_cf(
                 out = out.assign_coords({name: (out[name].dims, text)})
                 attrs.pop("units", None)
             out[name].attrs = _clean_attrs(attrs)
+    for name in out.coords:
+        if name not in out.dims and "long_name" not in out[name].attrs and name not in (
+                "lat_bnds", "lon_bnds"):
+            out[name].attrs["long_name"] = str(name).replace("_", " ")
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     line = history or f"{now} written by timeslice {__version__}"
     old = str(ds.attrs.get("history", "")).strip()
@@ -218,9 +245,10 @@ def _encoding(ds: xr.Dataset, *, complevel: int) -> dict[str, dict[str, Any]]:
             e["chunksizes"] = tuple(
                 1 if d not in ("lat", "lon", "bnds") else ds.sizes[d] for d in da.dims
             ) if da.ndim >= 2 else (da.shape[0],)
-        if da.dtype.kind == "f" and name not in ("lat", "lon", "lat_bnds", "lon_bnds", "year"):
+        is_coord = name in ds.coords or name in ("lat_bnds", "lon_bnds")
+        if da.dtype.kind == "f" and not is_coord:
             e["_FillValue"] = np.array(np.nan, dtype=da.dtype)
-        elif da.dtype.kind in "iub" or name in ("lat", "lon", "lat_bnds", "lon_bnds", "year"):
+        elif da.dtype.kind in "iub" or is_coord:
             e["_FillValue"] = None
         enc[str(name)] = e
     return enc
@@ -305,7 +333,7 @@ def open_series(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
         ds = ds.drop_vars("slice_label")
         ds["slice"].attrs = attrs
     for name in list(ds.data_vars):
-        spec = LAYERS.get(str(name), {})
+        spec = layer_spec(str(name))
         flags = np.asarray(ds[name].attrs.get("flag_values", [])).tolist()
         if "bool_flags" in spec and flags == [0, 1]:
             attrs = {k: v for k, v in ds[name].attrs.items()
