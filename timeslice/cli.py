@@ -161,5 +161,78 @@ def demo(
     _report_done(result, verbose)
 
 
+@app.command()
+@_guard
+def harmonise(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
+    out: OutOpt = Path("timeslice_out"),
+    force: ForceOpt = False,
+) -> None:
+    """Put every slice on the common grid and variable set; one NetCDF per slice."""
+    from timeslice.config import load_config
+    from timeslice.pipeline import run_harmonise
+
+    with _progress(True) as progress:
+        paths = run_harmonise(load_config(config), out, force=force, progress=progress)
+    typer.echo(f"{len(paths) - 1} harmonised slices in {Path(out).resolve() / 'harmonised'}")
+
+
+@app.command()
+@_guard
+def fit(
+    config: Annotated[Path, typer.Argument(help="Run configuration (TOML).")],
+    out: OutOpt = Path("timeslice_out"),
+    force: ForceOpt = False,
+) -> None:
+    """Clean the records and fit the niche on the baseline; write the model and its evaluation."""
+    from timeslice.config import load_config
+    from timeslice.pipeline import run_fit
+
+    paths = run_fit(load_config(config), out, force=force)
+    for name, path in paths.items():
+        typer.echo(f"  {name:<12} {path}")
+
+
+@app.command()
+@_guard
+def summarise(
+    run_dir: Annotated[Path, typer.Argument(help="Output folder of a finished run.")],
+    reference: Annotated[str, typer.Option("--reference", help="Slice label to compare against.")] = "baseline",
+) -> None:
+    """Recompute change, stability and refugia from a finished run's series.nc."""
+    from timeslice.pipeline import run_summarise
+
+    for name, path in run_summarise(run_dir, reference=reference).items():
+        typer.echo(f"  {name:<12} {path}")
+
+
+@app.command()
+@_guard
+def export(
+    run_dir: Annotated[Path, typer.Argument(help="Output folder of a finished run.")],
+    format: Annotated[str, typer.Option("--format", help="Export format: geotiff.")] = "geotiff",
+) -> None:
+    """Export the layers of a finished run (one GeoTIFF per layer and slice)."""
+    from timeslice.pipeline import run_export
+
+    paths = run_export(run_dir, fmt=format)
+    typer.echo(f"{len(paths)} files in {Path(run_dir).resolve() / 'geotiff'}")
+
+
+@app.command()
+@_guard
+def rerun(
+    manifest: Annotated[Path, typer.Argument(help="manifest.json of an earlier run.")],
+    out: Annotated[Optional[Path], typer.Option("--out", "-o", help="Output folder (default: the manifest's).")] = None,
+    verbose: VerboseOpt = 0,
+) -> None:
+    """Repeat a run from its manifest (refused if an input file changed)."""
+    from timeslice.pipeline import rerun as rerun_pipeline
+
+    with _progress(True) as progress:
+        result = rerun_pipeline(manifest, out, progress=progress)
+    _report_done(result, verbose)
+
+
 if __name__ == "__main__":  # pragma: no cover
     app()

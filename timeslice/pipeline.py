@@ -25,7 +25,7 @@ import xarray as xr
 from timeslice import __version__
 from timeslice.cache import StageCache, content_key, file_digest
 from timeslice.config import Config, SliceSpec
-from timeslice.errors import DataError, TimesliceWarning
+from timeslice.errors import DataError, TimesliceError, TimesliceWarning
 
 __all__ = ["RunResult", "fit_stage", "harmonise_stage", "run", "summarise_stage", "transfer_stage"]
 
@@ -58,6 +58,18 @@ def _timed(timings: dict[str, float], name: str) -> Iterator[None]:
 
 
 # ----------------------------------------------------------------------------- harmonise
+
+
+@contextlib.contextmanager
+def _about(path: Path | str | None) -> Iterator[None]:
+    """Prefix an error raised while working on `path` with the file name, if it lacks it."""
+    try:
+        yield
+    except TimesliceError as err:
+        name = str(path)
+        if path is None or name in str(err) or Path(name).name in str(err):
+            raise
+        raise type(err)(f"{name}: {err}") from err
 
 
 def _open(path: Path, aliases: dict | None = None):
@@ -134,12 +146,13 @@ def harmonise_stage(
             if spec.model not in model_baselines:
                 model_baselines[spec.model] = _open(spec.model_baseline, c.aliases)
             ice = _ice_field(_open(spec.ice, c.aliases)) if spec.ice else None
-            return prepare_slice(
-                fine_baseline=fine, elevation=elev, model_slice=_open(spec.file, c.aliases),
-                model_baseline=model_baselines[spec.model], sea_level=spec.sea_level,
-                ice=ice, ice_threshold=c.ice_threshold, label=spec.label, year=spec.year,
-                period=spec.period, model=spec.model, scenario=spec.scenario,
-            )
+            with _about(spec.file):
+                return prepare_slice(
+                    fine_baseline=fine, elevation=elev, model_slice=_open(spec.file, c.aliases),
+                    model_baseline=model_baselines[spec.model], sea_level=spec.sea_level,
+                    ice=ice, ice_threshold=c.ice_threshold, label=spec.label, year=spec.year,
+                    period=spec.period, model=spec.model, scenario=spec.scenario,
+                )
 
         ds = cache.dataset("harmonise", key, compute)
         slices.append(ds)
@@ -189,6 +202,10 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
 
     def compute():
         records = read_occurrences(cfg.species.occurrences, columns=cfg.species.columns)
+        with _about(cfg.species.occurrences):
+            return _fit(records)
+
+    def _fit(records):
         return fit_niche(
             records, baseline, variables=n.variables, algorithm=n.algorithm,
             algorithm_params=n.params or None, buffer_km=n.buffer_km,
@@ -427,3 +444,92 @@ def run(
     result.summary = summary
     result.cache_hits, result.cache_misses = cache.hits, cache.misses
     return result
+
+
+# ----------------------------------------------------------------------------- single stages
+
+
+def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
+                  progress: Progress = _quiet) -> dict[str, Path]:
+    """Harmonise every slice and write one CF NetCDF per slice plus the input table."""
+    from timeslice.report import write_csv, write_series
+
+    out = Path(out)
+    cfg.check_files()
+    cache = StageCache(out / ".cache", force=force)
+    baseline, slices, inputs = harmonise_stage(cfg, cache, progress=progress)
+    paths: dict[str, Path] = {}
+    for ds in [baseline, *slices]:
+        label = str(ds.attrs["slice_label"])
+        paths[label] = write_series(
+            ds, out / "harmonised" / f"{label}.nc",
+            history=f"timeslice {__version__} harmonise", title=f"harmonised slice {label}",
+        )
+    paths["inputs"] = write_csv(inputs, out / "tables" / "inputs.csv")
+    return paths
+
+
+def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict[str, Path]:
+    """Fit the niche on the harmonised baseline; write the model, tables and response curves."""
+    from timeslice.niche.persist import save_model
+    from timeslice.report import response_curves, write_csv
+
+    out = Path(out)
+    cfg.check_files()
+    cache = StageCache(out / ".cache", force=force)
+    cfg_base = cfg.model_copy(update={"slices": []})
+    baseline, _, _ = harmonise_stage(cfg_base, cache)
+    fit, _ = fit_stage(cfg, baseline, cache, base_key=_dataset_key(baseline))
+    paths = {"model": save_model(fit, out / "model.pkl")}
+    for name in ("cleaning", "screening", "evaluation", "response", "importance"):
+        df = getattr(fit, name, None)
+        if df is not None:
+            paths[name] = write_csv(df, out / "tables" / f"{name}.csv")
+    if fit.response is not None:
+        paths["response_plot"] = response_curves(fit.response, out / "plots" / "response.png")
+    return paths
+
+
+def run_summarise(out: str | os.PathLike, *, reference: str = "baseline") -> dict[str, Path]:
+    """Recompute the series summaries from a finished run's ``series.nc``."""
+    from timeslice.report import open_series, write_csv, write_series
+    from timeslice.series.summary import summarise
+
+    out = Path(out)
+    path = out / "series.nc"
+    if not path.is_file():
+        raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
+    stack = open_series(path).load()
+    derived = [v for v in ("change", "stability", "refugium") if v in stack]
+    series, summary = summarise(stack.drop_vars(derived), reference=reference)
+    return {
+        "series": write_series(series, path, history=f"timeslice {__version__} summarise"),
+        "summary": write_csv(summary, out / "summary.csv"),
+    }
+
+
+def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
+               variables: list[str] | None = None) -> list[Path]:
+    """Export the layers of a finished run's ``series.nc`` (GeoTIFF)."""
+    from timeslice.report import export, open_series
+
+    out = Path(out)
+    if fmt != "geotiff":
+        raise DataError(f"--format must be 'geotiff', got {fmt!r}")
+    path = out / "series.nc"
+    if not path.is_file():
+        raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
+    return export(open_series(path).load(), out / "geotiff", variables=variables)
+
+
+def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
+          progress: Progress = _quiet) -> RunResult:
+    """Repeat the run recorded in `manifest` (inputs must still have their recorded hashes)."""
+    from timeslice.config import parse_config
+    from timeslice.report import read_manifest
+
+    info = read_manifest(manifest, verify=True)
+    cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
+    target = Path(out) if out is not None else Path(manifest).resolve().parent
+    return run(cfg, target, force=True, progress=progress,
+               command=["timeslice", "rerun", str(manifest)])

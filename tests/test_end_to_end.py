@@ -1,0 +1,132 @@
+"""The whole path on a reduced invented demo: harmonise -> fit -> transfer -> summarise -> report."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from typer.testing import CliRunner
+
+from timeslice.cli import app
+from timeslice.demo import generate
+from timeslice.demo_config import render_demo_config
+from timeslice.grid import cell_area
+from timeslice.report import open_series
+
+SUMMARY_COLUMNS = [
+    "slice", "year", "model", "scenario", "suitable_area_km2", "gain_km2", "loss_km2",
+    "stable_km2", "novel_area_km2", "centroid_lat", "centroid_lon", "centroid_shift_km",
+]
+
+
+def _one_model_config(text: str) -> str:
+    # keep one invented model so the end-to-end run stays fast
+    return "\n".join(l for l in text.splitlines() if not l.startswith(("birch =", "cedar =")))
+
+
+@pytest.fixture(scope="module")
+def demo_run(tmp_path_factory):
+    root = tmp_path_factory.mktemp("e2e")
+    data = root / "demo_data"
+    generate(data, resolution=0.5)
+    cfg = data / "demo.toml"
+    cfg.write_text(_one_model_config(render_demo_config(".")).replace("maps = true", "maps = false"))
+    out = root / "out"
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    return out, data, result
+
+
+def test_outputs_exist(demo_run):
+    out, _, result = demo_run
+    for name in ("series.nc", "summary.csv", "report.html", "manifest.json"):
+        assert (out / name).is_file(), name
+    assert str(out.resolve()) in result.stdout
+
+
+def test_series_names_and_ranges(demo_run):
+    out, _, _ = demo_run
+    with xr.open_dataset(out / "series.nc") as ds:
+        for name in ("suitability", "suitable", "mess", "nt1", "nt2", "stability", "refugium"):
+            assert name in ds, name
+        assert ds["suitability"].dims == ("slice", "lat", "lon")
+        s = ds["suitability"].values
+        assert np.nanmin(s) >= 0 and np.nanmax(s) <= 1
+        st = ds["stability"].values
+        assert np.nanmin(st) >= 0 and np.nanmax(st) <= 1
+        suitable = ds["suitable"].values == 1
+        refugium = ds["refugium"].values.astype(bool)
+        # a refugium is suitable in every slice
+        assert np.all(suitable[:, refugium])
+        assert ds.attrs["Conventions"].startswith("CF-")
+
+
+def test_summary_identities(demo_run):
+    out, _, _ = demo_run
+    df = pd.read_csv(out / "summary.csv")
+    assert list(df.columns[: len(SUMMARY_COLUMNS)]) == SUMMARY_COLUMNS or set(SUMMARY_COLUMNS) <= set(df.columns)
+    base = df.loc[df["slice"] == "baseline", "suitable_area_km2"].iloc[0]
+    # area(t) - area(ref) = gain - loss and stable + loss = area(ref) (METHODS.md identities)
+    np.testing.assert_allclose(df["suitable_area_km2"] - base, df["gain_km2"] - df["loss_km2"],
+                               rtol=1e-9, atol=1e-6)
+    np.testing.assert_allclose(df["stable_km2"] + df["loss_km2"], base, rtol=1e-9)
+    assert base > 0
+    assert len(df) == 1 + 6  # baseline + 6 slices of one model
+
+
+def test_lgm_land_mask_exposes_shelf(demo_run):
+    out, _, _ = demo_run
+    with open_series(out / "series.nc") as ds:
+        land = ds["land"].astype(bool)
+        area = cell_area(ds)
+        base = float(area.where(land.sel(slice="baseline")).sum())
+        lgm = float(area.where(land.sel(slice="alder_21ka")).sum())
+        assert lgm > base * 1.05
+        # novelty: somewhere the 21 ka climate leaves the calibration range
+        assert float(ds["mess"].sel(slice="alder_21ka").min()) < 0
+
+
+def test_report_and_manifest(demo_run):
+    out, _, _ = demo_run
+    html = (out / "report.html").read_text()
+    assert "hypothes" in html and "novel" in html
+    assert "http://" not in html and "https://" not in html.replace("https://doi", "")
+    man = json.loads((out / "manifest.json").read_text())
+    for key in ("config", "inputs", "seed", "timings", "command"):
+        assert key in man
+
+
+def test_rerun_uses_cache(demo_run):
+    out, data, _ = demo_run
+    result = CliRunner().invoke(app, ["run", str(data / "demo.toml"), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    man = json.loads((out / "manifest.json").read_text())
+    assert man["cache"]["computed"] == 0
+
+
+def test_occurrences_without_coordinates(demo_run, tmp_path):
+    _, data, _ = demo_run
+    bad = tmp_path / "occ.csv"
+    bad.write_text("species,easting,northing\nfoo,1,2\n")
+    text = render_demo_config(str(data)).replace(f'occurrences = "{data}/occurrences.csv"', f'occurrences = "{bad}"')
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(_one_model_config(text))
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(tmp_path / "o")])
+    assert result.exit_code == 2
+    assert "occ.csv" in result.stderr and "decimalLatitude" in result.stderr
+
+
+def test_slice_missing_variable(demo_run, tmp_path):
+    _, data, _ = demo_run
+    with xr.open_dataset(data / "models" / "alder" / "6ka.nc") as ds:
+        ds.drop_vars("pr").to_netcdf(tmp_path / "6ka.nc")
+    text = _one_model_config(render_demo_config(str(data))).replace(
+        f'file = "{data}/models/{{model}}/6ka.nc"', f'file = "{tmp_path}/6ka.nc"')
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(text)
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(tmp_path / "o")])
+    assert result.exit_code == 2, result.output
+    assert "6ka.nc" in result.stderr and "pr" in result.stderr
