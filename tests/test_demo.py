@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -72,7 +73,9 @@ def test_fine_baseline_conventions(demo_dir):
         assert b.sizes["lon"] == 80 and b.sizes["lat"] == 60
         assert float(b.lon[0]) == pytest.approx(-39.875)
         assert float(b.lat[-1]) == pytest.approx(54.875)
-        assert "history" not in b.attrs  # no timestamps
+        # a history line without a timestamp, so that the bytes are reproducible
+        assert "timeslice.demo.generate" in b.attrs["history"]
+        assert not re.search(r"\d{4}-\d{2}-\d{2}|\d{2}:\d{2}", b.attrs["history"])
         with xr.open_dataset(out / "dem.nc") as d:
             land = d["elevation"].values > 0
         # NaN at sea on purpose (exposed shelf has to be filled downstream), values on land
@@ -327,7 +330,7 @@ def test_occurrences_darwin_core_and_bad_share(demo_dir):
 
 
 def test_occurrences_follow_the_known_niche(demo_dir):
-    """Clean presences sit in the niche: warmest-quarter mean temperature near 9 degC."""
+    """Clean presences sit in the niche: warmest-quarter mean temperature near the optimum."""
     out, _ = demo_dir
     occ = pd.read_csv(out / "occurrences.csv").drop_duplicates()
     occ = occ[(occ["occurrenceStatus"] == "present") & occ["decimalLongitude"].between(-40, -20)
@@ -348,11 +351,17 @@ def test_occurrences_follow_the_known_niche(demo_dir):
         p_pts = prob.sel(lon=xr.DataArray(occ["decimalLongitude"].values),
                          lat=xr.DataArray(occ["decimalLatitude"].values), method="nearest")
     land_bio10 = bio10.values[np.isfinite(bio10.values)]
-    # presences are pulled from the land's climate towards the optimum (9 degC) ...
+    # presences are pulled from the land's climate towards the optimum ...
     assert np.median(vals) < np.median(land_bio10) - 0.3
     assert 7.0 < np.median(vals) < 12.5
-    # ... and sit where the known presence probability is high
-    assert float(p_pts.mean()) > 1.5 * float(prob.mean())
+    # ... and the known presence probability tells presence cells from land cells
+    # (AUC reference: sklearn.metrics.roc_auc_score; sampling bias keeps it well below 1)
+    from sklearn.metrics import roc_auc_score
+
+    land_p = prob.values[np.isfinite(prob.values)]
+    pres_p = p_pts.values[np.isfinite(p_pts.values)]
+    y = np.r_[np.ones(pres_p.size), np.zeros(land_p.size)]
+    assert roc_auc_score(y, np.r_[pres_p, land_p]) > 0.6
 
 
 def test_dated_records(demo_dir):
@@ -381,7 +390,7 @@ def test_truth_json(demo_dir):
     out, _ = demo_dir
     truth = json.loads((out / "truth.json").read_text())
     assert truth["species"] == demo.SPECIES
-    assert truth["niche"]["bio10_optimum_degC"] == 9.0
+    assert truth["niche"]["bio10_optimum_degC"] == demo.NICHE["bio10_optimum_degC"]
     assert 0 < truth["true_niche_area_km2"] < truth["land_area_km2"]
     geod = Geod(ellps="WGS84")
     with xr.open_dataset(out / "dem.nc") as d:

@@ -80,11 +80,17 @@ KM_PER_DEGREE = 111.195
 #: Niche of the invented plant (in bioclimatic terms computed from the monthly fields):
 #: Gaussian in the mean temperature of the warmest quarter, logistic in annual precipitation.
 NICHE = {
-    "bio10_optimum_degC": 9.0,
-    "bio10_sd_degC": 2.0,
-    "bio12_midpoint_mm": 900.0,
-    "bio12_scale_mm": 80.0,
+    "bio10_optimum_degC": 8.5,
+    "bio10_sd_degC": 2.5,
+    "bio12_midpoint_mm": 700.0,
+    "bio12_scale_mm": 60.0,
     "presence_threshold": 0.5,
+}
+
+#: Invented sea-level climate of the truth.
+CLIMATE = {
+    "t_sea_40N_degC": 15.0,
+    "t_lat_gradient_K_per_deg": 0.75,
 }
 
 #: Model biases against the invented truth (baseline runs).
@@ -105,10 +111,13 @@ MODELS: dict[str, dict] = {
 #: ``summer`` seasonal amplitude (K, + in July), ``pr`` annual factor, ``pr_summer`` extra
 #: summer factor.
 SLICES: dict[str, dict] = {
+    # glacial cooling much stronger towards the ice in the north than in the oceanic south,
+    # and weaker in summer than in winter
     "21ka": {"scenario": "past", "period": "21ka", "age_bp": 21000, "years": (1, 30),
-             "change": {"alder": {"dT": -6.6, "summer": -0.5, "pr": 0.65, "pr_summer": 0.0},
-                        "birch": {"dT": -5.3, "summer": -0.3, "pr": 0.75, "pr_summer": 0.0},
-                        "cedar": {"dT": -6.0, "summer": -0.8, "pr": 0.70, "pr_summer": 0.0}}},
+             "lat_gradient": 0.10, "elevation_gradient": 0.0,
+             "change": {"alder": {"dT": -6.2, "summer": 1.0, "pr": 0.65, "pr_summer": 0.0},
+                        "birch": {"dT": -5.2, "summer": 0.8, "pr": 0.75, "pr_summer": 0.0},
+                        "cedar": {"dT": -5.7, "summer": 0.9, "pr": 0.70, "pr_summer": 0.0}}},
     "6ka": {"scenario": "past", "period": "6ka", "age_bp": 6000, "years": (1, 30),
             "change": {"alder": {"dT": 0.1, "summer": 0.8, "pr": 1.02, "pr_summer": -0.03},
                        "birch": {"dT": 0.0, "summer": 0.6, "pr": 1.04, "pr_summer": -0.02},
@@ -146,6 +155,11 @@ _MONTH_DAYS = {
 
 #: Demo files are plain data meant to be shared (temporary files start as 0600).
 _FILE_MODE = 0o644
+
+# CF 1.8 section 7.4 climatological statistics: a month of each year, then over the years
+_CM_TMIN = "time: minimum within days time: mean over days time: mean over years"
+_CM_TMAX = "time: maximum within days time: mean over days time: mean over years"
+_CM_PR = "time: mean within years time: mean over years"
 
 _TITLE = "timeslice invented demo scenario"
 _COMMENT = (
@@ -282,7 +296,8 @@ def _truth_climate(lon: np.ndarray, lat: np.ndarray, z: np.ndarray, res: float,
     wobble = _noise(x, y, p["climate_noise"])
 
     # sea-level annual mean temperature by latitude (invented), then the standard lapse rate
-    t_sea = 14.0 - 0.55 * (lat2 - 40.0) + 0.25 * wobble
+    c = CLIMATE
+    t_sea = c["t_sea_40N_degC"] - c["t_lat_gradient_K_per_deg"] * (lat2 - 40.0) + 0.25 * wobble
     t_annual = t_sea - LAPSE_RATE_K_PER_M * zc
     amplitude = 3.5 + 4.0 * (1.0 - np.exp(-dist / 120.0))  # continentality
     dtr = 5.0 + 5.0 * (1.0 - np.exp(-dist / 80.0))
@@ -350,6 +365,8 @@ def _global_attrs(seed: int, **extra) -> dict:
         "institution": "none (invented)",
         "source": f"timeslice.demo.generate, seed {seed}",
         "comment": _COMMENT,
+        # fixed text, no timestamp: the files must be reproducible bit for bit
+        "history": f"created by timeslice.demo.generate(seed={seed})",
     }
     attrs.update(extra)
     return attrs
@@ -521,23 +538,26 @@ def _rows_to_csv(rows: list[dict], columns: list[str]) -> str:
     return buf.getvalue()
 
 
-def _dated_records(rng, *, lon, lat, res, z, prob21, n: int = 12) -> list[dict]:
-    """Invented fossil-like records: glacial ones on lowlands, shelf and the south, Holocene
-    ones at mid elevations."""
+def _dated_records(rng, *, lon, lat, res, z, prob, prob21) -> list[dict]:
+    """Invented fossil-like records: glacial ones on the exposed shelf and in the southern
+    lowlands where the true 21 ka niche lies, Holocene ones at mid elevations in the present
+    niche. Ages are chosen so that each record is nearest in time to the 21 ka or the 6 ka
+    slice."""
     lon2, lat2 = np.meshgrid(lon, lat)
     shelf = (z <= 0) & (z > SEA_LEVEL_21KA)
-    low_south = (z > 0) & (z < 400) & (lat2 < 47.0)
-    montane = (z > 600) & (z < 1600)
-    plans = [("shelf", shelf, 3, (17000, 22000)), ("low_south", low_south, 4, (12000, 21000)),
-             ("montane", montane, 5, (4000, 9000))]
+    low_south = (z > 0) & (z < 500) & (lat2 < 47.0)
+    montane = (z > 400) & (z < 1800)
+    plans = [("exposed shelf", shelf, prob21, 3, (17000, 22000)),
+             ("southern lowland", low_south, prob21, 4, (15000, 21500)),
+             ("montane", montane, prob, 5, (4000, 9000))]
     materials = ["pollen", "macrofossil", "seed", "leaf fragment"]
     out = []
-    for kind, mask, k, (a0, a1) in plans:
-        w = np.where(mask, 0.2 + (prob21 if kind != "montane" else 1.0), 0.0)
-        if w.sum() == 0:  # very coarse test grids
-            w = np.where(z > 0, 1.0, 0.0)
-        plon, plat = _sample_points(rng, w, lon, lat, res, k)
-        for i in range(k):
+    for kind, mask, pr_, n, (a0, a1) in plans:
+        wts = np.where(mask, 0.02 + pr_**2, 0.0)
+        if wts.sum() == 0:  # very coarse test grids
+            wts = np.where(z > SEA_LEVEL_21KA, 1.0, 0.0)
+        plon, plat = _sample_points(rng, wts, lon, lat, res, n)
+        for i in range(n):
             age = float(np.round(rng.uniform(a0, a1), -1))
             sd = float(np.round(30 + 0.02 * age * rng.uniform(0.5, 1.5), 0))
             out.append({"lon": f"{plon[i]:.4f}", "lat": f"{plat[i]:.4f}",
@@ -579,18 +599,23 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     ----------
     out_dir : path
         Folder to write into (created if missing). Existing demo files are replaced
-        atomically; other files are left alone.
+        atomically (temporary name, then rename); other files are left alone.
     seed : int
         Seed of every random choice; the same seed and resolution give identical bytes.
     resolution : float
-        Fine-grid cell size in degrees; must divide 1 degree (0.1 for the committed demo;
-        0.25 or 0.5 for quick tests).
+        Fine-grid cell size in degrees; must divide 1 degree and be at most 0.5 (0.1 for
+        the committed demo; 0.25 or 0.5 for quick tests).
 
     Returns
     -------
     dict of str to pathlib.Path
         Keys ``baseline``, ``dem``, ``ice_21ka``, ``occurrences``, ``dated_records``,
         ``truth`` and ``<model>/<slice>`` (e.g. ``alder/baseline``, ``cedar/21ka``).
+
+    Raises
+    ------
+    timeslice.errors.ConfigError
+        `seed` not an integer, `resolution` not usable, or `out_dir` an existing file.
 
     Notes
     -----
@@ -600,7 +625,21 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
 
     (ICAO 1993, Manual of the ICAO Standard Atmosphere, Doc 7488/3). Precipitation fluxes
     in the model files are depths per month divided by the month's length in the model's
-    calendar and multiplied by the density of water, 1000 kg m-3.
+    calendar (CF Conventions 1.8, section 4.4.1) and multiplied by the density of water,
+    1000 kg m-3. The presence probability of the invented plant is
+
+    .. math:: p = \\exp\\left(-\\tfrac12\\left(\\tfrac{B_{10} - \\mu}{\\sigma}\\right)^2\\right)
+              \\left(1 + \\exp\\left(-\\tfrac{B_{12} - m}{s}\\right)\\right)^{-1}
+
+    with :math:`B_{10}` the mean temperature of the warmest quarter and :math:`B_{12}` the
+    annual precipitation (O'Donnell & Ignizio 2012, USGS Data Series 691), parameters in
+    :data:`NICHE`.
+
+    Examples
+    --------
+    >>> paths = generate(tmp_path, resolution=0.5)  # doctest: +SKIP
+    >>> sorted(paths)[:3]  # doctest: +SKIP
+    ['alder/21ka', 'alder/6ka', 'alder/baseline']
     """
     if not isinstance(seed, (int, np.integer)) or isinstance(seed, bool):
         raise ConfigError(f"demo `seed` must be an integer, got {seed!r}")
@@ -612,27 +651,166 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     out.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(seed)
     p = _landscape_params(rng)
+    w = _build_world(p, res, k)
     paths: dict[str, Path] = {}
+    paths["dem"] = _write_dem(w, out / "dem.nc", seed)
+    paths["baseline"] = _write_baseline(w, out / "baseline.nc", seed)
+    paths["ice_21ka"] = _write_ice(p, out / "ice_21ka.nc", seed)
+    paths.update(_write_models(w, out / "models", seed))
 
-    # truth on the model domain at the fine resolution; the fine grid is a sub-box of it
-    big = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1], lat_min=MODEL_EXTENT[2],
-                    lat_max=MODEL_EXTENT[3], resolution=res)
-    blon, blat = big["lon"].values, big["lat"].values
-    blon2, blat2 = np.meshgrid(blon, blat)
-    bz = _elevation(blon2, blat2, p)
-    truth = _truth_climate(blon, blat, bz, res, p)
+    prob = np.where(w.land, _presence_probability(*_bio10_bio12(**w.fine)), 0.0)
+    clim21, land21 = _true_21ka(w)
+    prob21 = np.where(land21, _presence_probability(*_bio10_bio12(**clim21)), 0.0)
+    n_clean = 480
+    occ_rows, bad_counts = _occurrences(rng, lon=w.lon, lat=w.lat, res=res, z=w.z, prob=prob,
+                                        dist=w.dist, n_clean=n_clean)
+    paths["occurrences"] = out / "occurrences.csv"
+    _write_text(_rows_to_csv(occ_rows, _DWC_COLUMNS), paths["occurrences"])
+    dated = _dated_records(rng, lon=w.lon, lat=w.lat, res=res, z=w.z, prob=prob, prob21=prob21)
+    paths["dated_records"] = out / "dated_records.csv"
+    _write_text(_rows_to_csv(dated, ["record_id", "lon", "lat", "age_bp", "age_sd", "material"]),
+                paths["dated_records"])
 
-    fx = (blon > FINE_EXTENT[0]) & (blon < FINE_EXTENT[1])
-    fy = (blat > FINE_EXTENT[2]) & (blat < FINE_EXTENT[3])
-    lon, lat = blon[fx], blat[fy]
-    z = bz[np.ix_(fy, fx)]
-    land = z > 0
-    fine = {k2: v[:, fy][:, :, fx] for k2, v in truth.items()}
+    area = cell_area(xr.Dataset(coords={"lat": ("lat", w.lat), "lon": ("lon", w.lon)})).values
+    thr = NICHE["presence_threshold"]
+    suitable, suitable21 = w.land & (prob >= thr), land21 & (prob21 >= thr)
+    shelf21 = land21 & ~w.land
+    km2 = lambda m: round(float(area[m].sum()), 1)  # noqa: E731
+    n_bad = sum(bad_counts.values())
+    truth_doc = {
+        "description": "Known parameters of the invented demo scenario (for checks). "
+                       "Areas in km2 are sums of spherical cell areas (timeslice.grid.cell_area).",
+        "seed": int(seed),
+        "resolution_deg": res,
+        "species": SPECIES,
+        "niche": {
+            **NICHE,
+            "formula": "p = exp(-0.5*((bio10 - opt)/sd)^2) / (1 + exp(-(bio12 - mid)/scale)); "
+                       "suitable where p >= presence_threshold",
+            "bio10": "mean of (tasmin+tasmax)/2 over the warmest rolling 3-month window "
+                     "(wrapping December-January), degC",
+            "bio12": "annual precipitation total, mm",
+        },
+        "true_niche_area_km2": km2(suitable),
+        "true_niche_cells": int(suitable.sum()),
+        "true_21ka": {
+            "description": "the niche under the invented true 21 ka climate: the mean of the "
+                           "three models' changes on the fine grid, land above -120 m and "
+                           "not under ice, shelf climate from the nearest present land cell "
+                           "with the lapse-rate correction",
+            "niche_area_km2": km2(suitable21),
+            "niche_area_on_exposed_shelf_km2": km2(suitable21 & shelf21),
+            "stable_with_baseline_km2": km2(suitable21 & suitable),
+        },
+        "land_area_km2": km2(w.land),
+        "land_cells": int(w.land.sum()),
+        "land_area_21ka_km2": km2(land21),
+        "shelf_exposed_at_21ka_km2": km2(shelf21),
+        "sea_level_21ka_m": SEA_LEVEL_21KA,
+        "lapse_rate_K_per_km": LAPSE_RATE_K_PER_M * 1000.0,
+        "max_elevation_m": round(float(w.z.max()), 1),
+        "climate": CLIMATE,
+        "records": {"clean": n_clean, "bad": {**bad_counts}, "total": n_clean + n_bad,
+                    "bad_fraction": round(n_bad / (n_clean + n_bad), 4)},
+        "dated_records": {"n": len(dated),
+                          "settings": {r["record_id"]: r["_setting"] for r in dated}},
+        "models": MODELS,
+        "slices": SLICES,
+        "landscape": {k2: v for k2, v in p.items() if not k2.endswith("noise")},
+    }
+    paths["truth"] = out / "truth.json"
+    _write_text(json.dumps(_jsonable(truth_doc), indent=2, sort_keys=True) + "\n", paths["truth"])
+    return paths
 
-    # --- DEM -----------------------------------------------------------------------------
-    coords, bnds = _coord_vars(lon, lat, res=res)
+
+class _World:
+    """The invented truth on the model domain at the fine resolution, and the fine sub-box."""
+
+    def __init__(self, p: dict, res: float, k: int):
+        self.res, self.k = res, k
+        big = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1],
+                        lat_min=MODEL_EXTENT[2], lat_max=MODEL_EXTENT[3], resolution=res)
+        self.blon, self.blat = big["lon"].values, big["lat"].values
+        blon2, blat2 = np.meshgrid(self.blon, self.blat)
+        self.bz = _elevation(blon2, blat2, p)
+        self.truth = _truth_climate(self.blon, self.blat, self.bz, res, p)
+        self.bice = _ice_shape(blon2, blat2, p) > _ICE_LEVEL
+        fx = (self.blon > FINE_EXTENT[0]) & (self.blon < FINE_EXTENT[1])
+        fy = (self.blat > FINE_EXTENT[2]) & (self.blat < FINE_EXTENT[3])
+        self.lon, self.lat = self.blon[fx], self.blat[fy]
+        self.z = self.bz[np.ix_(fy, fx)]
+        self.ice = self.bice[np.ix_(fy, fx)]
+        self.land = self.z > 0
+        self.fine = {v: a[:, fy][:, :, fx] for v, a in self.truth.items()}
+        self.dist = _coast_distance_km(self.land, self.lat, res)
+        cg = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1],
+                       lat_min=MODEL_EXTENT[2], lat_max=MODEL_EXTENT[3],
+                       resolution=MODEL_RESOLUTION)
+        self.clon, self.clat = cg["lon"].values, cg["lat"].values
+        wlat = np.cos(np.deg2rad(self.blat))
+        self.coarse = {v: _block_mean(a, k, wlat) for v, a in self.truth.items()}
+        self.czpos = _block_mean(np.maximum(self.bz, 0.0), k, wlat)
+        self.cice = _block_mean(self.bice.astype(float), k, wlat)
+
+
+def _build_world(p: dict, res: float, k: int) -> _World:
+    return _World(p, res, k)
+
+
+_ICE_LEVEL = 0.35
+_MONTH = np.arange(1, 13)[:, None, None]
+_SUMMER = np.cos(2 * np.pi * (_MONTH - 7.0) / 12.0)  # +1 in July, -1 in January
+
+
+def _ice_shape(lon2, lat2, p: dict) -> np.ndarray:
+    """Smooth ice-sheet footprint around the northern massif (> _ICE_LEVEL = ice)."""
+    q = p["north_massif"]
+    xq, yq = _km(lon2, lat2, q["lon"], q["lat"])
+    return np.exp(-((xq / (2.6 * q["sx_km"])) ** 2) - (yq / (1.7 * q["sy_km"])) ** 2)
+
+
+def _pattern(spec: dict, lat2: np.ndarray, zpos: np.ndarray, norm: float | None = None):
+    """Spatial pattern of a slice's temperature change (mean 1 over the model domain)."""
+    g = 1.0 + spec.get("lat_gradient", 0.01) * (lat2 - 47.5) \
+        + spec.get("elevation_gradient", 0.15) * zpos / 1000.0
+    return g / (g.mean() if norm is None else norm)
+
+
+def _slice_change(spec: dict, ch: dict, lat2, zpos, ice, *, norm=None):
+    """Monthly temperature change (K) and precipitation factor of one slice."""
+    dT = ch["dT"] * _pattern(spec, lat2, zpos, norm) + ch["summer"] * _SUMMER
+    if spec["period"] == "21ka":
+        dT = dT - 3.0 * ice  # extra cooling over the ice sheet
+    dry_south = 1.0 + 0.5 * (47.5 - lat2) / 12.5
+    fac = ch["pr"] * (1.0 + ch["pr_summer"] * np.clip(_SUMMER, 0, None) * dry_south)
+    return dT, fac
+
+
+def _true_21ka(w: _World):
+    """Invented true 21 ka climate on the fine grid (mean of the models' changes)."""
+    spec = SLICES["21ka"]
+    ch = {key: float(np.mean([spec["change"][m][key] for m in MODELS]))
+          for key in ("dT", "summer", "pr", "pr_summer")}
+    clat2 = np.broadcast_to(w.clat[:, None], w.czpos.shape)
+    norm = float(_pattern(spec, clat2, w.czpos, 1.0).mean())
+    lat2 = np.broadcast_to(w.lat[:, None], w.z.shape)
+    dT, fac = _slice_change(spec, ch, lat2, np.maximum(w.z, 0.0), w.ice.astype(float),
+                            norm=norm)
+    land21 = (w.z > SEA_LEVEL_21KA) & ~w.ice
+    idx = ndimage.distance_transform_edt(~w.land, return_distances=False, return_indices=True)
+    iy, ix = idx
+    lapse = LAPSE_RATE_K_PER_M * (w.z[iy, ix] - w.z)  # shelf is lower, so warmer
+    clim = {}
+    for v in ("tasmin", "tasmax"):
+        clim[v] = w.fine[v][:, iy, ix] + lapse[None] + dT * (1.04 if v == "tasmin" else 0.96)
+    clim["pr"] = w.fine["pr"][:, iy, ix] * fac
+    return clim, land21
+
+
+def _write_dem(w: _World, path: Path, seed: int) -> Path:
+    coords, bnds = _coord_vars(w.lon, w.lat, res=w.res)
     dem = xr.Dataset(
-        {"elevation": (("lat", "lon"), z.astype("float32"), {
+        {"elevation": (("lat", "lon"), w.z.astype("float32"), {
             "standard_name": "height_above_mean_sea_level", "long_name": "surface elevation",
             "units": "m", "positive": "up",
             "description": "invented terrain and bathymetry relative to present sea level; "
@@ -640,44 +818,42 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
          **bnds},
         coords=coords, attrs=_global_attrs(seed),
     )
-    paths["dem"] = out / "dem.nc"
-    _write_nc(dem, paths["dem"], {"elevation": _float_enc(lsd=1)})
+    _write_nc(dem, path, {"elevation": _float_enc(lsd=1)})
+    return path
 
-    # --- fine baseline (NaN at sea) ------------------------------------------------------
+
+def _write_baseline(w: _World, path: Path, seed: int) -> Path:
+    """Fine monthly climatology, NaN at sea on purpose (the shelf must be filled downstream)."""
+    coords, bnds = _coord_vars(w.lon, w.lat, res=w.res)
     time, clim_b = _time_vars("standard", _BASELINE_YEARS, _OBS_TIME_UNITS)
     dims = ("time", "lat", "lon")
-    mask = land[None]
-    base_vars = {
-        "tasmin": (dims, np.where(mask, fine["tasmin"], np.nan).astype("float32"), {
-            "standard_name": "air_temperature", "long_name": "mean daily minimum near-surface air temperature",
-            "units": "degC", "cell_methods": "time: minimum within days time: mean over days "
-                                             "time: mean over years"}),
-        "tasmax": (dims, np.where(mask, fine["tasmax"], np.nan).astype("float32"), {
-            "standard_name": "air_temperature", "long_name": "mean daily maximum near-surface air temperature",
-            "units": "degC", "cell_methods": "time: maximum within days time: mean over days "
-                                             "time: mean over years"}),
-        "pr": (dims, np.where(mask, fine["pr"], np.nan).astype("float32"), {
-            "standard_name": "lwe_thickness_of_precipitation_amount",
-            "long_name": "monthly precipitation total", "units": "mm/month",
-            "cell_methods": "time: sum within months time: mean over years"}),
-    }
-    base = xr.Dataset({**base_vars, "climatology_bnds": clim_b, **bnds},
+    mask = w.land[None]
+    longs = {"tasmin": "mean daily minimum near-surface air temperature",
+             "tasmax": "mean daily maximum near-surface air temperature"}
+    cms = {"tasmin": _CM_TMIN, "tasmax": _CM_TMAX}
+    data = {v: (dims, np.where(mask, w.fine[v], np.nan).astype("float32"),
+                {"standard_name": "air_temperature", "long_name": longs[v], "units": "degC",
+                 "cell_methods": cms[v]})
+            for v in ("tasmin", "tasmax")}
+    data["pr"] = (dims, np.where(mask, w.fine["pr"], np.nan).astype("float32"), {
+        "standard_name": "lwe_precipitation_rate", "long_name": "monthly precipitation total",
+        "units": "mm/month", "comment": "depth of liquid water per calendar month",
+        "cell_methods": _CM_PR})
+    base = xr.Dataset({**data, "climatology_bnds": clim_b, **bnds},
                       coords={**coords, "time": time},
                       attrs=_global_attrs(seed, model="observed", scenario="baseline",
                                           period=f"{_BASELINE_YEARS[0]}-{_BASELINE_YEARS[1]}",
                                           note="values over sea are missing on purpose"))
-    paths["baseline"] = out / "baseline.nc"
-    _write_nc(base, paths["baseline"], {v: _float_enc(lsd=2) for v in base_vars})
+    _write_nc(base, path, {v: _float_enc(lsd=2) for v in ("tasmin", "tasmax", "pr")})
+    return path
 
-    # --- ice sheet at 21 ka on 0.5 degree --------------------------------------------------
+
+def _write_ice(p: dict, path: Path, seed: int) -> Path:
     ig = make_grid(lon_min=FINE_EXTENT[0], lon_max=FINE_EXTENT[1], lat_min=FINE_EXTENT[2],
                    lat_max=FINE_EXTENT[3], resolution=ICE_RESOLUTION)
     ilon, ilat = ig["lon"].values, ig["lat"].values
     ilon2, ilat2 = np.meshgrid(ilon, ilat)
-    q = p["north_massif"]
-    xq, yq = _km(ilon2, ilat2, q["lon"], q["lat"])
-    ice_shape = np.exp(-((xq / (2.6 * q["sx_km"])) ** 2) - (yq / (1.7 * q["sy_km"])) ** 2)
-    sftgif = np.where(ice_shape > 0.35, 100.0, 0.0)
+    sftgif = np.where(_ice_shape(ilon2, ilat2, p) > _ICE_LEVEL, 100.0, 0.0)
     icoords, ibnds = _coord_vars(ilon, ilat, res=ICE_RESOLUTION)
     ice = xr.Dataset(
         {"sftgif": (("lat", "lon"), sftgif.astype("float32"), {
@@ -687,37 +863,21 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
          **ibnds},
         coords=icoords, attrs=_global_attrs(seed, period="21ka", age_bp=21000),
     )
-    paths["ice_21ka"] = out / "ice_21ka.nc"
-    _write_nc(ice, paths["ice_21ka"], {"sftgif": _float_enc()})
+    _write_nc(ice, path, {"sftgif": _float_enc()})
+    return path
 
-    # --- climate models -------------------------------------------------------------------
-    wlat = np.cos(np.deg2rad(blat))
-    cg = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1], lat_min=MODEL_EXTENT[2],
-                   lat_max=MODEL_EXTENT[3], resolution=MODEL_RESOLUTION)
-    clon, clat = cg["lon"].values, cg["lat"].values
-    clon2, clat2 = np.meshgrid(clon, clat)
-    coarse = {k2: _block_mean(v, k, wlat) for k2, v in truth.items()}
-    czpos = _block_mean(np.maximum(bz, 0.0), k, wlat)
-    ice_big = np.zeros_like(bz)
-    qx, qy = _km(blon2, blat2, q["lon"], q["lat"])
-    ice_big[np.exp(-((qx / (2.6 * q["sx_km"])) ** 2) - (qy / (1.7 * q["sy_km"])) ** 2) > 0.35] = 1
-    cice = _block_mean(ice_big, k, wlat)
-    month = np.arange(1, 13)[:, None, None]
-    summer = np.cos(2 * np.pi * (month - 7.0) / 12.0)
-    # warming pattern: more in the north and at high elevation, domain mean about 1
-    pattern = 1.0 + 0.12 * (clat2 - 47.5) / 12.5 + 0.15 * czpos / 1000.0
-    pattern = pattern / pattern.mean()
-    dry_south = 1.0 + 0.5 * (47.5 - clat2) / 12.5
 
+def _write_models(w: _World, folder: Path, seed: int) -> dict[str, Path]:
+    clon2, clat2 = np.meshgrid(w.clon, w.clat)
+    paths = {}
     for mname, mb in MODELS.items():
-        cal = mb["calendar"]
-        days = _MONTH_DAYS[cal][:, None, None]
+        days = _MONTH_DAYS[mb["calendar"]][:, None, None]
         bias_t = mb["dT"] + mb["dT_per_deg_lat"] * (clat2 - 47.5)
         bias_p = mb["pr_factor"] * (1.0 + mb["pr_per_deg_lon"] * (clon2 + 30.0))
         mbase = {
-            "tasmin": coarse["tasmin"] + bias_t - 0.5 * mb["dtr"],
-            "tasmax": coarse["tasmax"] + bias_t + 0.5 * mb["dtr"],
-            "pr": coarse["pr"] * bias_p,
+            "tasmin": w.coarse["tasmin"] + bias_t - 0.5 * mb["dtr"],
+            "tasmax": w.coarse["tasmax"] + bias_t + 0.5 * mb["dtr"],
+            "pr": w.coarse["pr"] * bias_p,
         }
         entries = [("baseline", None, {"scenario": "baseline", "period": "1981-2010",
                                        "years": _BASELINE_YEARS, "age_bp": None})]
@@ -726,76 +886,15 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
             if ch is None:
                 fields = mbase
             else:
-                dT = ch["dT"] * pattern + ch["summer"] * summer
-                if label == "21ka":
-                    dT = dT - 3.0 * cice  # extra cooling over the ice sheet
-                fac = ch["pr"] * (1.0 + ch["pr_summer"] * np.clip(summer, 0, None) * dry_south)
-                fields = {
-                    "tasmin": mbase["tasmin"] + dT * 1.04,
-                    "tasmax": mbase["tasmax"] + dT * 0.96,
-                    "pr": mbase["pr"] * fac,
-                }
+                dT, fac = _slice_change(spec, ch, clat2, w.czpos, w.cice)
+                fields = {"tasmin": mbase["tasmin"] + dT * 1.04,
+                          "tasmax": mbase["tasmax"] + dT * 0.96,
+                          "pr": mbase["pr"] * fac}
             paths[f"{mname}/{label}"] = _write_model_file(
-                out / "models" / mname / f"{label}.nc", fields, clon, clat, days,
-                model=mname, calendar=cal, lat_descending=mb["lat_descending"],
+                folder / mname / f"{label}.nc", fields, w.clon, w.clat, days,
+                model=mname, calendar=mb["calendar"], lat_descending=mb["lat_descending"],
                 scenario=spec["scenario"], period=spec["period"], years=spec["years"],
                 age_bp=spec["age_bp"], seed=seed)
-
-    # --- records --------------------------------------------------------------------------
-    bio10, bio12 = _bio10_bio12(fine["tasmin"], fine["tasmax"], fine["pr"])
-    prob = np.where(land, _presence_probability(bio10, bio12), 0.0)
-    dist = _coast_distance_km(land, lat, res)
-    n_clean = 480
-    occ_rows, bad_counts = _occurrences(rng, lon=lon, lat=lat, res=res, z=z, prob=prob,
-                                        dist=dist, n_clean=n_clean)
-    paths["occurrences"] = out / "occurrences.csv"
-    _write_text(_rows_to_csv(occ_rows, _DWC_COLUMNS), paths["occurrences"])
-
-    # glacial probability with a uniform -6 K (invented, only to place the dated records)
-    prob21 = _presence_probability(bio10 - 6.0 - LAPSE_RATE_K_PER_M * np.minimum(z, 0.0),
-                                   bio12 * 0.7)
-    prob21 = np.where(z > SEA_LEVEL_21KA, np.nan_to_num(prob21), 0.0)
-    dated = _dated_records(rng, lon=lon, lat=lat, res=res, z=z, prob21=prob21)
-    paths["dated_records"] = out / "dated_records.csv"
-    _write_text(_rows_to_csv(dated, ["record_id", "lon", "lat", "age_bp", "age_sd", "material"]),
-                paths["dated_records"])
-
-    # --- truth ----------------------------------------------------------------------------
-    grid_ds = xr.Dataset(coords={"lat": ("lat", lat), "lon": ("lon", lon)})
-    area = cell_area(grid_ds).values
-    suitable = land & (prob >= NICHE["presence_threshold"])
-    n_bad = sum(bad_counts.values())
-    truth_doc = {
-        "description": "Known parameters of the invented demo scenario (for checks).",
-        "seed": int(seed),
-        "resolution_deg": res,
-        "species": SPECIES,
-        "niche": {
-            **NICHE,
-            "formula": "p = exp(-0.5*((bio10 - opt)/sd)^2) / (1 + exp(-(bio12 - mid)/scale))",
-            "bio10": "mean of (tasmin+tasmax)/2 over the warmest rolling 3-month window "
-                     "(wrapping), degC",
-            "bio12": "annual precipitation total, mm",
-        },
-        "true_niche_area_km2": round(float(area[suitable].sum()), 1),
-        "true_niche_cells": int(suitable.sum()),
-        "land_area_km2": round(float(area[land].sum()), 1),
-        "land_cells": int(land.sum()),
-        "shelf_exposed_at_21ka_km2": round(float(area[(z <= 0) & (z > SEA_LEVEL_21KA)].sum()), 1),
-        "sea_level_21ka_m": SEA_LEVEL_21KA,
-        "lapse_rate_K_per_km": LAPSE_RATE_K_PER_M * 1000.0,
-        "max_elevation_m": round(float(z.max()), 1),
-        "records": {"clean": n_clean, "bad": {**bad_counts}, "total": n_clean + n_bad,
-                    "bad_fraction": round(n_bad / (n_clean + n_bad), 4)},
-        "dated_records": len(dated),
-        "models": {m: {k2: v for k2, v in mb.items()} for m, mb in MODELS.items()},
-        "slices": {lab: {"scenario": s["scenario"], "period": s["period"],
-                         "age_bp": s["age_bp"], "change": s["change"]}
-                   for lab, s in SLICES.items()},
-        "landscape": {k2: v for k2, v in p.items() if not k2.endswith("noise")},
-    }
-    paths["truth"] = out / "truth.json"
-    _write_text(json.dumps(_jsonable(truth_doc), indent=2, sort_keys=True) + "\n", paths["truth"])
     return paths
 
 
@@ -834,15 +933,14 @@ def _write_model_file(path: Path, fields: dict, clon, clat, days, *, model, cale
             "tasmin": (dims, tmin.astype("float32"), {
                 "standard_name": "air_temperature",
                 "long_name": "daily minimum near-surface air temperature", "units": "K",
-                "cell_methods": "time: minimum within days time: mean over years"}),
+                "cell_methods": _CM_TMIN}),
             "tasmax": (dims, tmax.astype("float32"), {
                 "standard_name": "air_temperature",
                 "long_name": "daily maximum near-surface air temperature", "units": "K",
-                "cell_methods": "time: maximum within days time: mean over years"}),
+                "cell_methods": _CM_TMAX}),
             "pr": (dims, flux.astype("float32"), {
                 "standard_name": "precipitation_flux", "long_name": "precipitation",
-                "units": "kg m-2 s-1", "cell_methods": "time: mean within months "
-                                                       "time: mean over years"}),
+                "units": "kg m-2 s-1", "cell_methods": _CM_PR}),
             "climatology_bnds": clim_b,
             **bnds,
         },
