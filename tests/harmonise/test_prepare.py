@@ -85,3 +85,46 @@ def test_delta_needs_both_model_files(inputs):
     with pytest.raises(DataError, match="model_slice"):
         prepare_slice(fine_baseline=fb, elevation=elev, model_baseline=mb, label="x",
                       year=2050.0, period="2041-2060", model="m", scenario="s")
+
+
+def test_areas_input_table_and_atomic_write(inputs, tmp_path):
+    from timeslice.grid import cell_area
+    from timeslice.harmonise import input_table, write_prepared
+    from timeslice.readers import open_climate
+
+    fb, elev, mb, ms = inputs
+    mb_ds, ms_ds = open_climate(mb), open_climate(ms)
+    lgm = prepare_slice(fine_baseline=fb, elevation=elev, model_slice=ms_ds,
+                        model_baseline=mb_ds, sea_level=-120.0, label="a_21ka",
+                        year=-19050.0, period="21ka", model="a", scenario="past")
+    area = cell_area(lgm)
+    # areas are sums of spherical cell areas (docs/methods.md), never cell counts
+    assert lgm.attrs["exposed_shelf_km2"] == pytest.approx(
+        float(area.where(lgm["exposed_shelf"]).sum()))
+    table = input_table(
+        [{"slice": "a_21ka", "role": "model_slice", "data": ms_ds},
+         {"slice": "a_21ka", "role": "model_baseline", "data": mb_ds}],
+        prepared={"a_21ka": lgm},
+    )
+    assert list(table["role"]) == ["model_slice", "model_baseline"]
+    row = table.iloc[0]
+    assert row["calendar"] == "360_day"
+    assert "K -> degC" in row["converted"]
+    assert row["grid"] == "25 x 30" and row["resolution"] == "1 x 1 deg"
+    assert "delta" in row["downscaled"]
+    out = tmp_path / "slices" / "a_21ka.nc"
+    write_prepared(lgm, out)
+    back = xr.open_dataset(out)
+    assert back["land"].dtype == np.int8 and back["land"].attrs["flag_meanings"] == "not_land land"
+    np.testing.assert_allclose(back["bio1"].values, lgm["bio1"].values, equal_nan=True)
+    assert json.loads(back.attrs["harmonise_log"]) == json.loads(lgm.attrs["harmonise_log"])
+    assert not [p for p in out.parent.iterdir() if p.suffix == ".part"]
+
+
+def test_no_overlap_is_an_error(inputs):
+    from timeslice.harmonise import regrid
+
+    fb, elev, _, _ = inputs
+    far = elev.assign_coords(lon=elev["lon"] + 100)
+    with pytest.raises(DataError, match="does not overlap the target area"):
+        regrid(far, fb, source="elevation.nc")

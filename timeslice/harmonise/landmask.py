@@ -7,15 +7,20 @@ import xarray as xr
 from scipy.spatial import cKDTree
 
 from timeslice.errors import DataError
+from timeslice.grid import cell_area
 from timeslice.harmonise.regrid import regrid
 
-__all__ = ["STANDARD_LAPSE_RATE", "fill_exposed", "land_mask"]
+__all__ = ["STANDARD_LAPSE_RATE", "TEMPERATURE_LEVELS", "fill_exposed", "land_mask"]
 
 #: Temperature lapse rate of the standard atmosphere below 11 km, 6.5 K per km = 0.0065 K m-1
 #: (ICAO Doc 7488, Manual of the ICAO Standard Atmosphere, 3rd ed. 1993; ISO 2533:1975).
 STANDARD_LAPSE_RATE = 0.0065
 
-_TEMPERATURES = ("tasmin", "tasmax", "tas")
+#: Variables that are temperature levels (lapse-rate corrected when filled); ranges and
+#: seasonality indices (BIO2, BIO3, BIO4, BIO7) and precipitation are copied unchanged.
+TEMPERATURE_LEVELS = frozenset(
+    {"tasmin", "tasmax", "tas", "bio1", "bio5", "bio6", "bio8", "bio9", "bio10", "bio11"}
+)
 
 
 def _as_dataarray(obj, name: str, what: str) -> xr.DataArray:
@@ -73,7 +78,8 @@ def land_mask(
     -------
     xarray.Dataset
         ``land`` (elevation > sea_level and not ice), ``ice`` (bool), ``exposed_shelf``
-        (land and elevation <= 0, i.e. below present sea level).
+        (land and elevation <= 0, i.e. below present sea level); attrs ``land_km2``,
+        ``ice_km2``, ``exposed_shelf_km2`` (sums of spherical cell areas).
     """
     elev = _as_dataarray(elevation, "elevation", "elevation")
     if not 0.0 <= float(ice_threshold) <= 1.0:
@@ -108,6 +114,9 @@ def land_mask(
     for v in out.data_vars:
         out[v] = out[v].astype(bool)
     out.attrs["sea_level"] = float(sea_level)
+    area = cell_area(elev)
+    for v in ("land", "ice", "exposed_shelf"):
+        out.attrs[f"{v}_km2"] = float(area.where(out[v]).sum())
     return out
 
 
@@ -123,7 +132,8 @@ def fill_exposed(
     Parameters
     ----------
     climate : xarray.Dataset
-        Monthly ``tasmin``, ``tasmax`` (degC), ``pr`` (mm month-1), NaN where unknown.
+        Monthly ``tasmin``, ``tasmax`` (degC), ``pr`` (mm month-1), or bioclimatic layers
+        ``bio1``..``bio19``, NaN where unknown. Every variable with ``lat`` and ``lon`` is filled.
     land : xarray.DataArray of bool
         The slice's land mask.
     elevation : xarray.DataArray, [m]
@@ -140,8 +150,10 @@ def fill_exposed(
     -----
     The donor is the nearest cell with complete climate by chord distance between unit
     vectors :math:`(\\cos\\varphi\\cos\\lambda, \\cos\\varphi\\sin\\lambda, \\sin\\varphi)`
-    (same order as great-circle distance). Temperatures are corrected for the elevation
-    difference, :math:`T = T_{donor} - \\Gamma (z - z_{donor})`; precipitation is copied.
+    (same order as great-circle distance). Temperatures (``tasmin``, ``tasmax``, ``tas`` and
+    the temperature levels BIO1, BIO5, BIO6, BIO8-BIO11) are corrected for the elevation
+    difference, :math:`T = T_{donor} - \\Gamma (z - z_{donor})`; precipitation and the
+    temperature ranges and seasonality indices (BIO2-BIO4, BIO7) are copied.
 
     References
     ----------
@@ -151,19 +163,24 @@ def fill_exposed(
         raise DataError(
             f"`lapse_rate` must be between 0 and 0.0098 K m-1 (dry adiabatic), got {lapse_rate}"
         )
-    monthly = [v for v in climate.data_vars if "month" in climate[v].dims]
-    if not monthly:
-        raise DataError("`climate` has no monthly variable to fill")
+    spatial = [v for v in climate.data_vars
+               if "lat" in climate[v].dims and "lon" in climate[v].dims and v != "filled"]
+    if not spatial:
+        raise DataError("`climate` has no variable on (lat, lon) to fill")
     land = land.astype(bool)
-    have = xr.concat(
-        [climate[v].notnull().all("month") for v in monthly], dim="v"
-    ).all("v").transpose("lat", "lon")
-    need = (land & ~have).values
+
+    def complete(v):
+        da = climate[v].notnull()
+        other = [d for d in da.dims if d not in ("lat", "lon")]
+        return (da.all(other) if other else da).transpose("lat", "lon")
+
+    have = xr.concat([complete(v) for v in spatial], dim="v").all("v")
+    need = np.asarray((land & ~have).values)
     filled = xr.DataArray(need, dims=("lat", "lon"),
                           coords={"lat": climate["lat"], "lon": climate["lon"]})
     out = climate.copy()
     if need.any():
-        donors = have.values
+        donors = np.asarray(have.values)
         if not donors.any():
             raise DataError("`climate` has no cell with complete climate to fill from")
         lat = np.deg2rad(climate["lat"].values)
@@ -177,14 +194,16 @@ def fill_exposed(
         si, sj = di[idx], dj[idx]
         z = np.asarray(elevation.transpose("lat", "lon").values, dtype=float)
         dz = z[ni, nj] - z[si, sj]
-        for v in monthly:
-            da = climate[v].transpose("month", "lat", "lon")
+        for v in spatial:
+            dims = climate[v].dims
+            lead = [d for d in dims if d not in ("lat", "lon")]
+            da = climate[v].transpose(*lead, "lat", "lon")
             arr = np.array(da.values, copy=True)
-            vals = arr[:, si, sj]
-            if v in _TEMPERATURES:
-                vals = vals - lapse_rate * dz[None, :]
-            arr[:, ni, nj] = vals
-            out[v] = da.copy(data=arr).transpose(*climate[v].dims)
+            vals = arr[..., si, sj]
+            if v in TEMPERATURE_LEVELS:
+                vals = vals - lapse_rate * dz
+            arr[..., ni, nj] = vals
+            out[v] = da.copy(data=arr).transpose(*dims)
             out[v].attrs = dict(climate[v].attrs)
     out["filled"] = filled.assign_attrs(
         units="1", long_name="climate filled from nearest baseline land cell",

@@ -4,17 +4,18 @@ from __future__ import annotations
 
 import json
 import os
+from pathlib import Path
 
 import numpy as np
 import xarray as xr
 
 from timeslice.errors import DataError
-from timeslice.harmonise.bioclim import BIO_NAMES, from_monthly
+from timeslice.harmonise.bioclim import BIO_ATTRS, BIO_NAMES, from_monthly
 from timeslice.harmonise.downscale import delta
 from timeslice.harmonise.landmask import STANDARD_LAPSE_RATE, fill_exposed, land_mask
 from timeslice.harmonise.regrid import regrid
 
-__all__ = ["prepare_slice"]
+__all__ = ["prepare_slice", "write_prepared"]
 
 
 def _load(obj, what: str, require=None) -> xr.Dataset:
@@ -64,6 +65,8 @@ def prepare_slice(
     period: str,
     model: str,
     scenario: str,
+    bio=None,
+    regrid_method: str | dict[str, str] = "auto",
     pr_floor: float = 0.1,
     ratio_quantile: float = 0.98,
     lapse_rate: float = STANDARD_LAPSE_RATE,
@@ -73,7 +76,8 @@ def prepare_slice(
     Parameters
     ----------
     fine_baseline : xarray.Dataset or path
-        Observed monthly ``tasmin``, ``tasmax``, ``pr`` on the fine (target) grid.
+        Observed monthly ``tasmin``, ``tasmax``, ``pr`` on the fine (target) grid. May be None
+        when `bio` is given (the target grid is then the elevation grid).
     elevation : xarray.DataArray, Dataset or path, [m]
         Present-day elevation relative to present sea level; regridded to the fine grid if
         it is on another grid.
@@ -88,13 +92,24 @@ def prepare_slice(
         Ice fraction at and above which a cell is ice.
     label, year, period, model, scenario
         Slice metadata (year in CE; a slice `a` years BP has year = 1950 - a).
+    bio : xarray.Dataset or path, optional
+        Pre-computed ``bio1``..``bio19`` of this slice on any grid (regridded onto the target
+        grid); replaces the monthly path (no downscaling, no bioclimatic computation).
+    regrid_method : str or mapping
+        Method for inputs that need regridding onto the target grid ("auto",
+        "conservative", "bilinear"), or one per variable.
+    pr_floor, ratio_quantile : float
+        Delta-method safeguards (see :func:`timeslice.harmonise.downscale.delta`).
+    lapse_rate : float, [K m-1]
+        For filling land without baseline climate.
 
     Returns
     -------
     xarray.Dataset
         ``bio1..bio19`` (float32, NaN off land), ``land``, ``elevation``, ``ice``,
         ``exposed_shelf``, ``filled``; attrs ``slice_label``, ``year``, ``period``, ``model``,
-        ``scenario``, ``sea_level``, ``harmonise_log`` (JSON list of lines).
+        ``scenario``, ``sea_level``, ``n_swapped``, ``land_km2``, ``ice_km2``,
+        ``exposed_shelf_km2``, ``harmonise_log`` (JSON list of lines).
     """
     if (model_slice is None) != (model_baseline is None):
         which = "model_baseline" if model_baseline is None else "model_slice"
@@ -102,7 +117,12 @@ def prepare_slice(
             f"slice {label!r}: `{which}` is missing; a downscaled slice needs both the model's "
             "slice and the same model's baseline run"
         )
-    fb = _load(fine_baseline, "fine_baseline", require=("tasmin", "tasmax", "pr"))
+    if bio is not None and model_slice is not None:
+        raise DataError(
+            f"slice {label!r}: give either pre-computed `bio` layers or model files, not both"
+        )
+    if fine_baseline is None and bio is None:
+        raise DataError(f"slice {label!r}: `fine_baseline` is required for monthly slices")
     elev_ds = _load(elevation, "elevation")
     if "elevation" in elev_ds.data_vars:
         elev = elev_ds["elevation"]
@@ -112,19 +132,42 @@ def prepare_slice(
         raise DataError(
             f"`elevation` input has no variable 'elevation' (found {sorted(elev_ds.data_vars)})"
         )
-    log = list(_log_of(fb))
-    if not _same_grid(elev, fb):
-        elev = regrid(elev, fb, method="auto", source="elevation")
+    fb = None
+    if fine_baseline is not None:
+        fb = _load(fine_baseline, "fine_baseline", require=("tasmin", "tasmax", "pr"))
+        target = fb
+        log = list(_log_of(fb))
+    else:
+        target = elev
+        log = []
+    if not _same_grid(elev, target):
+        elev = regrid(elev, target, method="auto", source="elevation")
         log.append(f"elevation regridded onto the fine grid ({elev.attrs.get('regrid_method')})")
     elev = elev.astype(np.float32)
 
-    if model_slice is not None:
+    n_swapped = 0
+    if bio is not None:
+        bds = _load(bio, "bio")
+        missing = [b for b in BIO_NAMES if b not in bds.data_vars]
+        if missing:
+            raise DataError(
+                f"slice {label!r}: pre-computed `bio` layers lack {missing} (found "
+                f"{sorted(map(str, bds.data_vars))}); give all of bio1..bio19"
+            )
+        log += [f"bio layers: {line}" for line in _log_of(bds)]
+        clim = bds[list(BIO_NAMES)]
+        if not _same_grid(clim, target):
+            clim = regrid(clim, target, method=regrid_method, source=f"slice {label!r} bio")
+            methods = sorted({str(clim[b].attrs.get("regrid_method")) for b in BIO_NAMES})
+            log.append(f"bio layers regridded onto the target grid ({', '.join(methods)})")
+        clim = clim.assign_coords(lat=target["lat"], lon=target["lon"])
+    elif model_slice is not None:
         ms = _load(model_slice, "model_slice", require=("tasmin", "tasmax", "pr"))
         mb = _load(model_baseline, "model_baseline", require=("tasmin", "tasmax", "pr"))
         log += [f"model slice: {line}" for line in _log_of(ms)]
         log += [f"model baseline: {line}" for line in _log_of(mb)]
         if not _same_grid(ms, mb):
-            ms = regrid(ms, mb, method="auto", source="model_slice")
+            ms = regrid(ms, mb, method=regrid_method, source=f"slice {label!r} model slice")
             log.append("model slice regridded onto its model baseline grid")
         clim = delta(ms, mb, fb, pr_floor=pr_floor, ratio_quantile=ratio_quantile)
         ms_log = set(_log_of(ms))
@@ -132,7 +175,6 @@ def prepare_slice(
         n_swapped = int(clim.attrs.get("n_swapped", 0))
     else:
         clim = fb[["tasmin", "tasmax", "pr"]]
-        n_swapped = 0
         log.append("observed baseline: no downscaling")
 
     ice_da = None
@@ -143,25 +185,42 @@ def prepare_slice(
     log.append(
         f"land = elevation > {sea_level:g} m"
         + (f" and ice fraction < {ice_threshold:g}" if ice is not None else "")
+        + f": land {masks.attrs['land_km2']:.0f} km2, ice {masks.attrs['ice_km2']:.0f} km2, "
+        f"exposed shelf {masks.attrs['exposed_shelf_km2']:.0f} km2"
     )
-    clim = clim.transpose("month", "lat", "lon")
-    clim = fill_exposed(clim, masks["land"], elev, lapse_rate=lapse_rate)
+    land = masks["land"]
+    if bio is None:
+        clim = clim.transpose("month", "lat", "lon")
+    for v in clim.data_vars:
+        if bool(clim[v].where(land).isnull().all()) and bool(land.any()):
+            raise DataError(
+                f"slice {label!r}: variable {v!r} has no value on any land cell of the target "
+                "grid; check that the input covers the target area"
+            )
+    clim = fill_exposed(clim, land, elev, lapse_rate=lapse_rate)
     n_filled = int(clim["filled"].sum())
     if n_filled:
         log.append(
             f"{n_filled} land cells without baseline climate filled from the nearest baseline "
             f"cell ({lapse_rate * 1000:g} K/km lapse-rate correction)"
         )
-    neg = int((clim["pr"] < -1e-6).sum())
-    if neg:
-        log.append(f"{neg} cell-months of negative precipitation set to 0")
-    clim["pr"] = clim["pr"].clip(min=0.0)
-    bio = from_monthly(clim)
-    land = masks["land"]
+    if bio is None:
+        neg = int((clim["pr"] < -1e-6).sum())
+        if neg:
+            log.append(f"{neg} cell-months of negative precipitation set to 0")
+        clim["pr"] = clim["pr"].clip(min=0.0)
+        bio_ds = from_monthly(clim)
+    else:
+        bio_ds = clim
     out = xr.Dataset()
     for name in BIO_NAMES:
-        da = bio[name].where(land).astype(np.float32)
-        da.attrs = dict(bio[name].attrs)
+        da = bio_ds[name].where(land).astype(np.float32)
+        attrs = dict(bio_ds[name].attrs)
+        attrs.pop("regrid_method", None)
+        if not attrs.get("long_name") and name in BIO_ATTRS:
+            u, ln, desc = BIO_ATTRS[name]
+            attrs.update(units=attrs.get("units") or u, long_name=ln, description=desc)
+        da.attrs = attrs
         out[name] = da
     out["land"] = land
     out["elevation"] = elev.assign_attrs(
@@ -170,9 +229,9 @@ def prepare_slice(
     )
     out["ice"] = masks["ice"]
     out["exposed_shelf"] = masks["exposed_shelf"]
-    out["filled"] = clim["filled"] & land
+    out["filled"] = (clim["filled"] & land).assign_attrs(clim["filled"].attrs)
     for c in ("lat", "lon"):
-        out[c].attrs.update(fb[c].attrs)
+        out[c].attrs.update(target[c].attrs)
     out.attrs = {
         "slice_label": str(label),
         "year": float(year),
@@ -181,6 +240,37 @@ def prepare_slice(
         "scenario": str(scenario),
         "sea_level": float(sea_level),
         "n_swapped": n_swapped,
+        "land_km2": masks.attrs["land_km2"],
+        "ice_km2": masks.attrs["ice_km2"],
+        "exposed_shelf_km2": masks.attrs["exposed_shelf_km2"],
         "harmonise_log": json.dumps(log),
     }
     return out
+
+
+def write_prepared(ds: xr.Dataset, path) -> Path:
+    """Write a prepared slice as compressed CF NetCDF, atomically (temporary name, rename).
+
+    Boolean masks are stored as int8 0/1 with CF ``flag_values``/``flag_meanings``.
+    """
+    from timeslice.io import atomic_path
+
+    out = ds.copy()
+    encoding = {}
+    for v in out.data_vars:
+        if out[v].dtype == bool:
+            attrs = dict(out[v].attrs)
+            attrs.pop("units", None)
+            out[v] = out[v].astype(np.int8)
+            out[v].attrs = {**attrs, "flag_values": np.array([0, 1], dtype=np.int8),
+                            "flag_meanings": f"not_{v} {v}"}
+            encoding[v] = {"zlib": True, "complevel": 4}
+        elif np.issubdtype(out[v].dtype, np.floating):
+            encoding[v] = {"zlib": True, "complevel": 4, "_FillValue": np.float32(np.nan)}
+    out.attrs.setdefault("Conventions", "CF-1.8")
+    out.attrs["history"] = (str(out.attrs.get("history", "")) + "\n").lstrip() + \
+        "prepared by timeslice.harmonise.prepare_slice"
+    target = Path(path)
+    with atomic_path(target) as tmp:
+        out.to_netcdf(tmp, encoding=encoding, format="NETCDF4")
+    return target

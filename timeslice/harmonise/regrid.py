@@ -267,6 +267,13 @@ def regrid(
             return da
         m = method.get(name, "auto") if isinstance(method, dict) else method
         m, (w_lat, w_lon, area) = weights(m)
+        if w_lat.nnz == 0 or w_lon.nnz == 0:
+            raise DataError(
+                f"{source}: grid (lon {slon.min():g}..{slon.max():g}, lat {slat.min():g}.."
+                f"{slat.max():g}) does not overlap the target area (lon {float(tlon.min()):g}.."
+                f"{float(tlon.max()):g}, lat {float(tlat.min()):g}..{float(tlat.max()):g}); "
+                "give an input that covers it"
+            )
         data = da
         if data.dtype == bool or np.issubdtype(data.dtype, np.integer):
             data = data.astype(np.float32)
