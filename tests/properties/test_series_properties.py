@@ -11,7 +11,7 @@ from hypothesis.extra.numpy import arrays
 from timeslice.grid import cell_area, make_grid
 from timeslice.series import change_map, change_table, stability, refugium, suitable_area
 
-_SETTINGS = settings(max_examples=60, deadline=None)
+_SETTINGS = settings(max_examples=40, deadline=None)
 
 
 @st.composite
@@ -94,3 +94,48 @@ def test_area_additive(ds, data):
     total = float(suitable_area(s))
     np.testing.assert_allclose(float(suitable_area(a)) + float(suitable_area(b)), total,
                                rtol=1e-12, atol=1e-9)
+
+
+@_SETTINGS
+@given(stacks(), st.floats(0.0, 3000.0), st.sampled_from(["land", "suitable", "any"]))
+def test_movement_nested(ds, d_km, through):
+    # none (d = 0) <= limited <= unlimited, and everything reached is suitable
+    from timeslice.series.dispersal import reachable
+
+    s = ds["suitable"]
+    start = s.isel(slice=0) == 1
+    none = reachable(s, start, assumption="none").values
+    lim = reachable(s, start, distance_km=d_km, through=through).values
+    unl = reachable(s, start, assumption="unlimited").values
+    assert (none <= lim).all() and (lim <= unl).all()
+    assert ((lim == 1) <= (s.values == 1)).all()
+    assert ((lim == -1) == (s.values == -1)).all()
+
+
+@_SETTINGS
+@given(stacks(), st.floats(0.0, 5000.0))
+def test_dynamic_stability_between_static_and_best(ds, d_km):
+    # static <= dynamic <= sum_t max_j ln max(S_t, eps)  (more freedom never lowers the score)
+    from timeslice.series.stability import dynamic_stability, static_stability
+
+    suit = xr.where(ds["suitable"] >= 0, (ds["mess"] + 50) / 100, np.nan)
+    dyn = dynamic_stability(suit, distance_km=d_km).values
+    sta = static_stability(suit).values
+    ok = np.isfinite(sta)
+    assert (dyn[ok] >= sta[ok] - 1e-4).all()
+    logs = np.log(np.maximum(suit.fillna(0).values, 1e-6))
+    best = logs.reshape(logs.shape[0], -1).max(axis=1).sum()
+    assert (dyn[ok] <= best + 1e-4).all()
+
+
+@_SETTINGS
+@given(st.integers(2, 3), st.integers(2, 3), st.integers(2, 3), st.integers(0, 2**32 - 1))
+def test_partition_shares_sum_to_one(na, nb, nc, seed):
+    from timeslice.series.ensemble import partition
+
+    rng = np.random.default_rng(seed)
+    y = rng.random((na, nb, nc, 2, 2))
+    parts = partition(xr.DataArray(y, dims=("algorithm", "model", "scenario", "lat", "lon")))
+    share = parts["share"].values
+    assert np.all(share >= -1e-6)
+    np.testing.assert_allclose(share.sum(axis=0), 1.0, rtol=1e-5)

@@ -229,3 +229,28 @@ def test_analog_refugium_is_inside_refugium(stack_factory):
             & (sub["nt2"] <= 1)).all("slice")
     np.testing.assert_array_equal(ra.values, hand.values)
     assert ra.name == "refugium_analog" and ra.attrs["slices"] == "baseline 21ka 6ka"
+
+
+@pytest.mark.parametrize(("lat_min", "lat_max", "lon_min", "lon_max", "res", "d_km"), [
+    (40.0, 50.0, -10.0, 0.0, 0.5, 130.0),
+    (70.0, 89.0, -20.0, 20.0, 1.0, 400.0),
+    (-10.0, 10.0, -180.0, 180.0, 10.0, 2500.0),  # global in longitude: windows wrap
+])
+def test_neighbour_max_against_brute_force(rng, lat_min, lat_max, lon_min, lon_max, res, d_km):
+    # The sparse-table neighbourhood max equals a direct search over all cell pairs with the
+    # haversine distance (timeslice.grid.haversine_km; Sinnott 1984, Sky and Telescope 68:159).
+    from timeslice.grid import haversine_km
+    from timeslice.series.dispersal import _is_global
+    from timeslice.series.stability import _half_widths, _neighbour_max
+
+    g = make_grid(lon_min=lon_min, lon_max=lon_max, lat_min=lat_min, lat_max=lat_max,
+                  resolution=res)
+    lat, lon = g.lat.values, g.lon.values
+    field = rng.normal(size=(lat.size, lon.size))
+    got = _neighbour_max(field, _half_widths(lat, lon, d_km), wrap=_is_global(lon))
+    LON, LAT = np.meshgrid(lon, lat)
+    d = haversine_km(LON.ravel()[:, None], LAT.ravel()[:, None], LON.ravel()[None, :],
+                     LAT.ravel()[None, :])
+    within = d <= d_km * (1 + 1e-9)
+    expect = np.where(within, field.ravel()[None, :], -np.inf).max(axis=1).reshape(field.shape)
+    np.testing.assert_array_equal(got, expect)

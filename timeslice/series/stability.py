@@ -293,55 +293,93 @@ def minimum_suitability(suitability: xr.DataArray, *, dim: str = "slice") -> xr.
     return out
 
 
-def _row_offsets(lat: np.ndarray, lon: np.ndarray, d_km: float) -> list[list[tuple[int, int]]]:
-    """For each row i: list of (di, m) such that cells (i+di, j±0..m) lie within d_km."""
-    from timeslice.grid import haversine_km, resolution
+def _half_widths(lat: np.ndarray, lon: np.ndarray, d_km: float) -> np.ndarray:
+    """m[i, i2]: cells (i2, j + k) with |k| <= m lie within `d_km` of (i, j); -1 if none.
 
-    ny, nx = lat.size, lon.size
-    dlon = resolution(lon) if nx > 1 else 360.0
-    djs = np.arange(nx)
-    out = []
-    for i in range(ny):
-        row = []
-        for i2 in range(ny):
-            dist = haversine_km(0.0, lat[i], djs * dlon, lat[i2])
-            ok = dist <= d_km * (1 + 1e-12)
-            if not ok[0]:
-                if i2 > i:
-                    break
-                continue
-            m = int(np.argmin(ok)) - 1 if not ok.all() else nx - 1
-            row.append((i2 - i, m))
-        out.append(row)
-    return out
+    From the haversine formula solved for the longitude difference:
+    sin²(Δλ/2) <= (sin²(d/2R) − sin²(Δφ/2)) / (cos φ cos φ2).
+    """
+    from timeslice.grid import AUTHALIC_RADIUS_KM, resolution
+
+    nx = lon.size
+    dlon = np.deg2rad(resolution(lon)) if nx > 1 else 2 * np.pi
+    phi = np.deg2rad(lat)
+    half = min(d_km / (2 * AUTHALIC_RADIUS_KM), np.pi / 2)
+    h = np.sin(half) ** 2 - np.sin((phi[None, :] - phi[:, None]) / 2) ** 2
+    c = np.cos(phi)[:, None] * np.cos(phi)[None, :]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s2 = np.where(c > 0, h / c, np.inf)
+    tol = 1e-12
+    m = np.full(h.shape, -1, dtype=np.int64)
+    ok = h >= -tol
+    full = ok & (s2 >= 1.0)
+    part = ok & ~full
+    dl = 2 * np.arcsin(np.sqrt(np.clip(s2[part], 0.0, 1.0)))
+    m[part] = np.floor(dl / dlon + 1e-9).astype(np.int64)
+    m[full] = nx
+    return np.minimum(m, nx)
 
 
-def _neighbour_max(field: np.ndarray, offsets, *, wrap: bool) -> np.ndarray:
-    """Max of `field` over each cell's great-circle neighbourhood (offsets per row)."""
-    from scipy.ndimage import maximum_filter1d
+def _neighbour_max(field: np.ndarray, widths: np.ndarray, *, wrap: bool) -> np.ndarray:
+    """Max of `field` over each cell's great-circle neighbourhood.
 
+    A sparse table of row-wise window maxima (levels 2**k) answers every window
+    [j - m, j + m] with two look-ups; vectorised over source rows and columns, looped over
+    target rows so memory stays at one (rows x columns) block.
+    """
     ny, nx = field.shape
+    if wrap:
+        base = np.concatenate([field, field, field], axis=1)  # windows wrap in longitude
+        off = nx
+    else:
+        base = field
+        off = 0
+    width = base.shape[1]
+    levels = [base]
+    k = 1
+    while 2 * k <= width:
+        prev = levels[-1]
+        nxt = np.full_like(prev, -np.inf)
+        nxt[:, : width - k] = np.maximum(prev[:, : width - k], prev[:, k:])
+        levels.append(nxt)
+        k *= 2
+    table = np.stack(levels)  # (K, ny, width); table[k][:, j] = max(base[:, j:j+2**k])
+    row_max = field.max(axis=1)
+    j = np.arange(nx)
     out = np.full(field.shape, -np.inf)
-    for i, row in enumerate(offsets):
-        for di, m in row:
-            src = field[i + di]
-            if m >= nx - 1 and wrap:
-                best = np.full(nx, src.max())
-            else:
-                best = maximum_filter1d(src, size=2 * m + 1,
-                                        mode="wrap" if wrap else "constant", cval=-np.inf)
-            np.maximum(out[i], best, out=out[i])
+    for i in range(ny):
+        rows = np.flatnonzero(widths[i] >= 0)
+        if rows.size == 0:
+            continue
+        m = widths[i, rows]
+        whole = m >= (nx // 2 if wrap else nx)
+        if whole.any():
+            out[i] = np.maximum(out[i], row_max[rows[whole]].max())
+        rows, m = rows[~whole], m[~whole]
+        if rows.size == 0:
+            continue
+        lo = j[None, :] - m[:, None] + off
+        hi = j[None, :] + m[:, None] + off
+        if not wrap:
+            lo = np.maximum(lo, 0)
+            hi = np.minimum(hi, nx - 1)
+        length = hi - lo + 1
+        lev = np.floor(np.log2(length)).astype(np.int64)
+        r = np.broadcast_to(rows[:, None], lo.shape)
+        a = table[lev, r, lo]
+        b = table[lev, r, hi - (1 << lev) + 1]
+        out[i] = np.maximum(out[i], np.maximum(a, b).max(axis=0))
     return out
 
 
 def _dynamic_kernel(logs: np.ndarray, distances: np.ndarray, lat, lon, wrap: bool) -> np.ndarray:
     acc = logs[0].copy()
-    cache: dict[float, list] = {}
+    cache: dict[float, np.ndarray] = {}
     for t in range(1, logs.shape[0]):
         d = float(distances[t])
         if d > 0:
             if d not in cache:
-                cache[d] = _row_offsets(lat, lon, d)
+                cache[d] = _half_widths(lat, lon, d)
             acc = logs[t] + _neighbour_max(acc, cache[d], wrap=wrap)
         else:
             acc = logs[t] + acc
