@@ -168,6 +168,7 @@ def test_model_biases_and_slice_changes(demo_dir):
 
 
 def test_bit_for_bit_reproducible(tmp_path, demo_dir):
+    """Same seed and resolution, same bytes (SHA-256 of every file)."""
     _, first = demo_dir
     second = demo.generate(tmp_path / "again", resolution=0.25)
     assert {k: _sha(p) for k, p in first.items()} == {k: _sha(p) for k, p in second.items()}
@@ -176,28 +177,90 @@ def test_bit_for_bit_reproducible(tmp_path, demo_dir):
     assert _sha(third["dem"]) != _sha(first["dem"])
 
 
-def test_full_size_demo_is_small(tmp_path):
-    paths = demo.generate(tmp_path / "full", resolution=0.1)
-    total = sum(p.stat().st_size for p in paths.values())
+@pytest.fixture(scope="module")
+def full_demo(tmp_path_factory) -> dict:
+    return demo.generate(tmp_path_factory.mktemp("demo_full"))
+
+
+def test_full_size_demo_is_small(full_demo):
+    total = sum(p.stat().st_size for p in full_demo.values())
     assert total <= 15 * 2**20
-    with xr.open_dataset(paths["baseline"], decode_times=False) as b:
+    with xr.open_dataset(full_demo["baseline"], decode_times=False) as b:
         assert (b.sizes["lat"], b.sizes["lon"]) == (150, 200)
 
 
-def test_committed_demo_matches_generator(tmp_path):
+def test_committed_demo_matches_generator(full_demo):
     committed = Path(demo.__file__).resolve().parent.parent / "demo_data"
     if not (committed / "dem.nc").is_file():
         pytest.skip("demo_data/ not generated in this checkout")
-    fresh = demo.generate(tmp_path / "fresh")
-    for key, path in fresh.items():
-        old = committed / path.relative_to(tmp_path / "fresh")
+    root = full_demo["truth"].parent
+    for key, path in full_demo.items():
+        old = committed / path.relative_to(root)
+        assert old.is_file(), f"demo_data/{path.relative_to(root)} missing: run python -m timeslice.demo"
         if path.suffix == ".nc":
-            # compare contents, not bytes: the HDF5 library version is written into the file
+            # compare contents, not bytes: the netCDF/HDF5 library versions are written
+            # into each file
             with xr.open_dataset(old, decode_times=False) as a, \
                     xr.open_dataset(path, decode_times=False) as b:
                 xr.testing.assert_identical(a, b)
         else:
-            assert old.read_bytes() == path.read_bytes(), f"demo_data/{key} is stale"
+            assert old.read_bytes() == path.read_bytes(), \
+                f"demo_data/{key} is stale: run python -m timeslice.demo"
+
+
+@pytest.fixture
+def no_network(monkeypatch):
+    """Fail loudly if anything tries to open a network connection."""
+    import socket
+
+    def refuse(*args, **kwargs):
+        raise RuntimeError("network access attempted during a test")
+
+    monkeypatch.setattr(socket.socket, "connect", refuse)
+    monkeypatch.setattr(socket, "create_connection", refuse)
+
+
+@pytest.mark.filterwarnings("ignore::DeprecationWarning")
+def test_files_pass_cf_checker(demo_dir, tmp_path, no_network):
+    """Reference: IOOS compliance-checker, CF 1.8 suite, run offline; no high-priority
+    (error) failures and no climatology (section 7.4) findings."""
+    pytest.importorskip("compliance_checker")
+    from compliance_checker.runner import CheckSuite, ComplianceChecker
+
+    CheckSuite().load_all_available_checkers()
+    out, _ = demo_dir
+    for rel in ("baseline.nc", "dem.nc", "ice_21ka.nc", "models/cedar/21ka.nc",
+                "models/alder/baseline.nc"):
+        report = tmp_path / "cc.json"
+        passed, errors = ComplianceChecker.run_checker(
+            ds_loc=str(out / rel), checker_names=["cf:1.8"], verbose=0, criteria="normal",
+            output_filename=str(report), output_format="json")
+        res = json.loads(report.read_text())["cf:1.8"]
+        failed = [(p["name"], p["msgs"]) for lvl in ("high_priorities", "medium_priorities",
+                                                     "low_priorities")
+                  for p in res[lvl] if p["value"][0] < p["value"][1]]
+        assert passed and not errors, (rel, failed)
+        assert not failed, (rel, failed)
+
+
+def test_failed_generation_leaves_no_partial_files(tmp_path, monkeypatch):
+    """A crash part-way leaves complete files and no temporary ones."""
+    calls = {"n": 0}
+    real = demo._write_model_file
+
+    def flaky(*args, **kwargs):
+        calls["n"] += 1
+        if calls["n"] == 3:
+            raise RuntimeError("disk full (simulated)")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(demo, "_write_model_file", flaky)
+    with pytest.raises(RuntimeError, match="simulated"):
+        demo.generate(tmp_path, resolution=0.5)
+    assert not list(tmp_path.rglob("*.part"))
+    assert not (tmp_path / "models" / "alder" / "6ka.nc").exists()
+    with xr.open_dataset(tmp_path / "models" / "alder" / "21ka.nc", decode_times=False) as ds:
+        assert ds.sizes["time"] == 12
 
 
 # --- landscape ---------------------------------------------------------------------------
@@ -403,6 +466,12 @@ def test_truth_json(demo_dir):
                                                [la - h, la - h, la + h, la + h])
             total += abs(a) / 1e6
     assert truth["land_area_km2"] == pytest.approx(total, rel=0.01)
+    # the scenario tells a refugia story: at 21 ka the niche reaches the exposed shelf and
+    # overlaps the present niche somewhere
+    t21 = truth["true_21ka"]
+    assert t21["niche_area_on_exposed_shelf_km2"] > 0
+    assert 0 < t21["stable_with_baseline_km2"] < truth["true_niche_area_km2"]
+    assert truth["land_area_21ka_km2"] > truth["land_area_km2"]
 
 
 # --- bad inputs --------------------------------------------------------------------------
