@@ -66,6 +66,23 @@ class StageCache:
             return None
         return self.root / stage / f"{key}.{ext}"
 
+    def load(self, stage: str, key: str) -> xr.Dataset | None:
+        """The cached Dataset for (stage, key), or None (always None with `force`)."""
+        path = self._path(stage, key, "nc")
+        if path is None or self.force or not path.exists():
+            return None
+        self.hits.append(f"{stage}/{key}")
+        with xr.open_dataset(path) as ds:
+            return _restore_bools(ds.load())
+
+    def store(self, stage: str, key: str, ds: xr.Dataset) -> None:
+        """Write a computed Dataset under (stage, key), atomically."""
+        self.misses.append(f"{stage}/{key}")
+        path = self._path(stage, key, "nc")
+        if path is not None:
+            with atomic_path(path) as tmp:
+                _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+
     def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
         """Return the cached Dataset for (stage, key), or compute, store and return it."""
         path = self._path(stage, key, "nc")

@@ -228,22 +228,32 @@ def transfer_stage(
     """Project the fitted niche onto every prepared slice and stack the results."""
     from timeslice.transfer.project import project_slice
 
+    import dask
+
     variables = list(fit.variables)
     reference = fit.background[variables]
     chunks = {"lat": cfg.transfer.chunks, "lon": cfg.transfer.chunks}
+    keys = [content_key("transfer", fit_key, _dataset_key(ds), cfg.transfer.model_dump())
+            for ds in slices]
+    results: list[xr.Dataset | None] = [cache.load("transfer", k) for k in keys]
+    todo = [i for i, r in enumerate(results) if r is None]
+    progress("transfer", len(slices) - len(todo), len(slices))
+    # slices are independent: compute them in batches of one graph each, so the scheduler runs
+    # them in parallel while each finished batch is cached before the next starts
+    batch = max(1, int(os.environ.get("TIMESLICE_TRANSFER_BATCH", "4")))
+    for start in range(0, len(todo), batch):
+        idx = todo[start:start + batch]
+        lazy = [
+            project_slice(fit.model, slices[i].chunk(chunks), variables=variables,
+                          reference=reference, threshold=fit.threshold, clamp=cfg.transfer.clamp)
+            for i in idx
+        ]
+        for i, res in zip(idx, dask.compute(*lazy, optimize_graph=False)):
+            cache.store("transfer", keys[i], res)
+            results[i] = res
+        progress("transfer", len(slices) - len(todo) + start + len(idx), len(slices))
     outs = []
-    progress("transfer", 0, len(slices))
-    for i, ds in enumerate(slices):
-        key = content_key("transfer", fit_key, _dataset_key(ds), cfg.transfer.model_dump())
-
-        def compute(ds: xr.Dataset = ds) -> xr.Dataset:
-            res = project_slice(
-                fit.model, ds.chunk(chunks), variables=variables, reference=reference,
-                threshold=fit.threshold, clamp=cfg.transfer.clamp,
-            )
-            return res.compute()
-
-        res = cache.dataset("transfer", key, compute)
+    for ds, res in zip(slices, results):
         res = res.assign(land=ds["land"].astype(bool))
         res = res.expand_dims(slice=[ds.attrs["slice_label"]])
         res = res.assign_coords(
@@ -254,7 +264,6 @@ def transfer_stage(
             sea_level=("slice", [float(ds.attrs.get("sea_level", 0.0))]),
         )
         outs.append(res)
-        progress("transfer", i + 1, len(slices))
     stack = xr.concat(outs, dim="slice", combine_attrs="drop_conflicts")
     stack["land"] = stack["land"].fillna(False).astype(bool)
     stack["elevation"] = slices[0]["elevation"].astype("float32")
@@ -404,7 +413,10 @@ def run(
     cache = StageCache(out / ".cache", force=force)
     result = RunResult(out=out)
     t = result.timings
-    with warnings.catch_warnings(record=True) as caught:
+    from timeslice.transfer.scheduler import scheduler
+
+    address = None if cfg.run.scheduler in ("threads", "") else cfg.run.scheduler
+    with scheduler(address, cfg.run.workers), warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", TimesliceWarning)
         with _timed(t, "harmonise"):
             baseline, slices, inputs = harmonise_stage(cfg, cache, progress=progress)
