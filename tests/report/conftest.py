@@ -108,7 +108,8 @@ def make_summary(ds: xr.Dataset) -> pd.DataFrame:
         clon = float((w * lon2).sum() / w.sum())
         if c0 is None:
             c0 = (clat, clon)
-        novel = area[(ds["mess"].values[i] < 0)].sum()
+        # contract: suitable area whose climate is novel (MESS < 0)
+        novel = area[s & (ds["mess"].values[i] < 0)].sum()
         rows.append({
             "slice": str(label), "year": float(ds.year.values[i]),
             "model": str(ds.model.values[i]), "scenario": str(ds.scenario.values[i]),

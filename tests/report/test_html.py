@@ -83,3 +83,29 @@ def test_errors(summary_df, tmp_path):
         write_report({"title": "x"}, tmp_path / "r.html")
     with pytest.raises(DataError, match="DataFrame"):
         render_report(_context(summary_df, tmp_path, tables={"t": [1, 2]}))
+
+
+def test_key_numbers_from_summary(summary_df, tmp_path):
+    # change in % of the reference area, median over the models of each scenario and period
+    text = render_report(_context(summary_df, tmp_path))
+    a0 = summary_df.loc[summary_df.scenario == "baseline", "suitable_area_km2"].iloc[0]
+    g = summary_df[(summary_df.scenario == "low-forcing") & (summary_df.year == 2050.0)]
+    pct = 100 * (g.suitable_area_km2 - a0) / a0
+    assert f"{pct.median():+.0f} %" in text
+    assert f"range {pct.min():+.0f} to {pct.max():+.0f} % over 2 models" in text
+
+
+def test_headline_figures_and_table_titles(summary_df, tmp_path):
+    fig = tmp_path / "bars.png"
+    ctx = _context(summary_df, tmp_path, tables={"cleaning": pd.DataFrame({"a": [1]})})
+    ctx.headline_figures = [("Refugia", fig)]
+    text = render_report(ctx)
+    assert text.index('id="headline"') < text.index('id="summary"')
+    assert "Occurrence record cleaning" in text
+    ctx.headline_figures = [("a", fig)] * 3
+    with pytest.raises(DataError, match="at most 2"):
+        render_report(ctx)
+    ctx.headline_figures = []
+    ctx.key_numbers = [("only label",)]
+    with pytest.raises(DataError, match="key_numbers"):
+        render_report(ctx)

@@ -43,24 +43,29 @@ _JPEG_MAGIC = b"\xff\xd8\xff"
 _CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,Helvetica,Arial,sans-serif;
 margin:0;color:#1d1d1d;background:#fafafa;line-height:1.45}
-header{background:#123049;color:#fff;padding:1.2em 2em}
+header{background:#123049;color:#fff;padding:.9em 2em}
 header h1{margin:0 0 .2em 0;font-size:1.6em}header p{margin:.1em 0;opacity:.9}
 main{max-width:1100px;margin:0 auto;padding:1em 2em 3em 2em}
 h2{border-bottom:2px solid #123049;padding-bottom:.2em;margin-top:1.8em}
 h3{margin-bottom:.3em}
-.cautions{background:#fff4e0;border-left:6px solid #E69F00;padding:.6em 1.2em;margin:1em 0}
-.cautions li{margin:.35em 0}
+.cautions{background:#fff4e0;border-left:6px solid #E69F00;padding:.3em 1em;margin:.6em 0;
+font-size:.92em}
+.cautions li{margin:.25em 0}
 .keys{display:flex;flex-wrap:wrap;gap:.8em;margin:.8em 0}
-.key{background:#fff;border:1px solid #ccd;border-radius:6px;padding:.6em .9em;min-width:12em}
-.key b{display:block;font-size:1.25em}
+.key{background:#fff;border:1px solid #ccd;border-radius:6px;padding:.5em .8em;
+min-width:11em;flex:1 1 11em}
+.key span{display:block;font-size:.8em;color:#444}
+.key b{display:block;font-size:1.35em;color:#123049}
+.key small{display:block;font-size:.75em;color:#555}
 table{border-collapse:collapse;margin:.5em 0 1.2em 0;font-size:.85em;background:#fff}
 th,td{border:1px solid #ccd;padding:.25em .55em;text-align:left;vertical-align:top}
 th{background:#e8edf2}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .scroll{overflow-x:auto}
 figure{margin:1em 0 2em 0;background:#fff;border:1px solid #dde;padding:.6em}
 figure img{max-width:100%;height:auto;display:block;margin:0 auto}
+.pair{display:flex;flex-wrap:wrap;gap:1em}.pair figure{flex:1 1 420px;margin:.5em 0}
 figcaption{font-size:.9em;color:#333;margin-top:.4em}
-nav ul{columns:2;padding-left:1.2em}
+nav{font-size:.85em;margin:.8em 0;color:#555}nav a{color:#0b4f8a}
 .methods p{text-align:justify}
 footer{font-size:.8em;color:#555;margin-top:3em}
 code{font-size:.95em}
@@ -92,6 +97,13 @@ class ReportContext:
         Shown as a two-column table (command, output folder, seed, versions, ...).
     highlights : list of str
         Short statements shown under the summary (computed from `summary` when empty).
+    key_numbers : list of (label, value) or (label, value, detail)
+        Headline cards at the top of the page (computed from `summary` when empty): the
+        reference suitable area and, per scenario and period, the median change across models
+        with its range and the share of the suitable area in novel climate.
+    headline_figures : list of (caption, path)
+        Up to two figures shown side by side right after the cautions (e.g. the stability and
+        refugia map and the change panel), so the first screen answers the main questions.
     """
 
     title: str = "timeslice report"
@@ -103,6 +115,8 @@ class ReportContext:
     cautions: Sequence[str] = DEFAULT_CAUTIONS
     run_info: dict[str, Any] = field(default_factory=dict)
     highlights: list[str] = field(default_factory=list)
+    key_numbers: list[tuple[str, ...]] = field(default_factory=list)
+    headline_figures: list[tuple[str, str | os.PathLike]] = field(default_factory=list)
 
 
 def _e(text: Any) -> str:
@@ -176,8 +190,54 @@ def _highlights(summary: pd.DataFrame) -> list[str]:
                 f"{float(r['suitable_area_km2']):,.0f} km² suitable, "
                 f"gains {float(r['gain_km2']):,.0f} km², loses {float(r['loss_km2']):,.0f} km²")
         if "novel_area_km2" in r and pd.notna(r["novel_area_km2"]):
-            text += f"; {float(r['novel_area_km2']):,.0f} km² of land has novel climate"
+            text += (f"; {float(r['novel_area_km2']):,.0f} km² of the suitable area is in novel "
+                     "climate (MESS < 0)")
         out.append(text + ".")
+    return out
+
+
+#: Display names of the tables the pipeline passes under short keys.
+TABLE_TITLES = {
+    "inputs": "Climate inputs and harmonisation",
+    "cleaning": "Occurrence record cleaning",
+    "screening": "Predictor screening",
+    "evaluation": "Model evaluation (spatial cross-validation)",
+    "importance": "Predictor importance",
+    "response": "Response curves",
+    "thresholds": "Thresholds",
+    "hindcast": "Hindcast against dated records",
+    "ensemble": "Ensemble agreement",
+    "partition": "Uncertainty partitioning",
+}
+
+
+def _key_numbers(summary: pd.DataFrame | None) -> list[tuple[str, ...]]:
+    need = {"scenario", "suitable_area_km2"}
+    if summary is None or summary.empty or not need <= set(summary.columns):
+        return []
+    s = summary.copy()
+    s["scenario"] = s["scenario"].astype(str)
+    base = s[s["scenario"] == "baseline"]
+    out: list[tuple[str, ...]] = []
+    if not len(base):
+        return out
+    a0 = float(base["suitable_area_km2"].iloc[0])
+    out.append(("Suitable area, reference slice", f"{a0:,.0f} km²"))
+    when = "period" if "period" in s.columns else "year"
+    rest = s[s["scenario"] != "baseline"]
+    for (scen, per), g in rest.groupby(["scenario", when], sort=False):
+        if a0 <= 0:
+            break
+        pct = 100.0 * (g["suitable_area_km2"].to_numpy(float) - a0) / a0
+        n = len(g)
+        value = f"{np.median(pct):+.0f} %"
+        detail = (f"range {pct.min():+.0f} to {pct.max():+.0f} % over {n} models" if n > 1
+                  else "1 model")
+        if "novel_area_km2" in g.columns:
+            tot = float(g["suitable_area_km2"].sum())
+            if tot > 0:
+                detail += f"; {100 * float(g['novel_area_km2'].sum()) / tot:.0f} % in novel climate"
+        out.append((f"{scen}, {per}: change in suitable area", value, detail))
     return out
 
 
@@ -202,10 +262,30 @@ def render_report(context: ReportContext) -> str:
     parts.append(f"<header><h1>{title}</h1>{sub}<p>Generated {now}</p></header><main>")
 
     body: list[str] = []
+    cards = list(context.key_numbers) or _key_numbers(context.summary)
+    if cards:
+        items = []
+        for card in cards:
+            if not 2 <= len(card) <= 3:
+                raise DataError("ReportContext.key_numbers: each entry must be (label, value) or "
+                                f"(label, value, detail), got {card!r}")
+            label, main, detail = (*card, "")[:3]
+            items.append(f'<div class="key"><span>{_e(label)}</span><b>{_e(main)}</b>'
+                         + (f"<small>{_e(detail)}</small>" if detail else "") + "</div>")
+        body.append('<section id="keys"><div class="keys">' + "".join(items) + "</div></section>")
     body.append('<section id="cautions"><h2>Read this first</h2><div class="cautions"><ul>'
                 + "".join(f"<li>{_e(c)}</li>" for c in context.cautions)
                 + "</ul></div></section>")
     sections.append(("cautions", "Read this first"))
+
+    if context.headline_figures:
+        if len(context.headline_figures) > 2:
+            raise DataError("ReportContext.headline_figures: give at most 2 figures, got "
+                            f"{len(context.headline_figures)}; put the others in `figures`")
+        body.append('<section id="headline"><div class="pair">' + "".join(
+            f'<figure><img src="{_image(path)}" alt="{_e(caption)}"><figcaption>{_e(caption)}'
+            "</figcaption></figure>" for caption, path in context.headline_figures)
+            + "</div></section>")
 
     highlights = list(context.highlights) or _highlights(context.summary)
     if context.summary is not None or highlights:
@@ -229,8 +309,9 @@ def render_report(context: ReportContext) -> str:
         sections.append(("figures", "Maps and plots"))
 
     for k, (name, df) in enumerate(context.tables.items()):
-        body.append(f'<section id="table{k + 1}"><h2>{_e(name)}</h2>{_table(df)}</section>')
-        sections.append((f"table{k + 1}", str(name)))
+        shown = TABLE_TITLES.get(str(name), str(name))
+        body.append(f'<section id="table{k + 1}"><h2>{_e(shown)}</h2>{_table(df)}</section>')
+        sections.append((f"table{k + 1}", shown))
 
     if context.methods:
         paras = [p.strip() for p in str(context.methods).split("\n\n") if p.strip()]
@@ -245,8 +326,8 @@ def render_report(context: ReportContext) -> str:
         body.append(f'<section id="run"><h2>Run information</h2>{_table(info)}</section>')
         sections.append(("run", "Run information"))
 
-    nav = "<nav><h2>Contents</h2><ul>" + "".join(
-        f'<li><a href="#{a}">{_e(t)}</a></li>' for a, t in sections) + "</ul></nav>"
+    nav = '<nav aria-label="contents">' + " · ".join(
+        f'<a href="#{a}">{_e(t)}</a>' for a, t in sections) + "</nav>"
     parts.append(nav)
     parts.extend(body)
     parts.append("<footer>Made with timeslice. All maps show climatic suitability only; see "
