@@ -14,6 +14,7 @@ and each chunk is processed independently.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -180,6 +181,24 @@ def _split_valid(cols: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
     return np.ascontiguousarray(cols[:, valid]), valid
 
 
+def _valid_columns(blocks: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray | None]:
+    """Finite cells of same-shape blocks as a float64 ``(k, n_valid)`` matrix, and their mask
+    (None when every cell is finite). Cells with any missing predictor are never copied."""
+    flat = [np.asarray(b).reshape(-1) for b in blocks]
+    valid = np.isfinite(flat[0])
+    for f in flat[1:]:
+        valid &= np.isfinite(f)
+    if valid.all():
+        good = np.empty((len(flat), flat[0].size), dtype=np.float64)
+        for i, f in enumerate(flat):
+            good[i] = f
+        return good, None
+    good = np.empty((len(flat), int(np.count_nonzero(valid))), dtype=np.float64)
+    for i, f in enumerate(flat):
+        good[i] = f[valid]
+    return good, valid
+
+
 # --------------------------------------------------------------------------------------- MESS
 
 #: Bins per reference point in the count look-up table (our choice, tuned in bench/transfer.py:
@@ -192,16 +211,19 @@ _MAX_BINS = 2**20
 class _CountTable:
     """Exact, mostly O(1) counts of reference values strictly smaller than a target value.
 
-    For each variable, the monotone map ``g(x) = min(trunc((x - lo) * scale), G - 1)`` sends the
-    sorted reference values to bins; ``first[j]`` is the number of reference values with
-    ``g < j``. Because ``g`` is non-decreasing in floating point too, every reference value in a
-    lower bin than ``g(p)`` is smaller than ``p`` and none in a higher bin is; so the count is
-    ``first[g(p)]`` exactly whenever the bin of ``p`` holds no reference value, and a binary
+    For each variable, the monotone map ``g(x) = trunc(clip((x - lo) * scale, 0, G - 1))``
+    sends the sorted reference values to bins; ``first[j]`` is the number of reference values
+    with ``g < j``. Because ``g`` is non-decreasing in floating point too, every reference value
+    in a lower bin than ``g(p)`` is smaller than ``p`` and none in a higher bin is; so the count
+    is ``first[g(p)]`` exactly whenever the bin of ``p`` holds no reference value, and a binary
     search (``searchsorted(side="left")``) settles the rest. The table stores ``first[j]`` for
     empty bins and ``-1`` for occupied ones, so one look-up answers both questions.
+
+    Pickling sends only the sorted reference; the tables are rebuilt (once per process) where
+    the object is unpickled, e.g. on ``dask.distributed`` workers.
     """
 
-    __slots__ = ("code", "hi", "lo", "m", "n_bins", "scale", "sorted", "span")
+    __slots__ = ("code", "hi", "lo", "m", "n_bins", "scale", "sim_of_count", "sorted", "span")
 
     def __init__(self, ref_sorted: np.ndarray) -> None:
         ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
@@ -220,41 +242,64 @@ class _CountTable:
             code = first[:-1].astype(np.int32)
             code[first[1:] != first[:-1]] = -1
             self.code.append(code)
+        # S for 0 < f < 100 as a function of the count c: 2f for f <= 50, 2 (100 - f) above,
+        # i.e. 100 - |100 - 2f| with f = 100 c / m
+        c = np.arange(self.m + 1)
+        self.sim_of_count = 100.0 - np.abs(100.0 - c * (200.0 / self.m))
+
+    def __reduce__(self):
+        return (_count_table_cached, (self.sorted.T.copy(),))
 
     def _bins(self, i: int, x: np.ndarray) -> np.ndarray:
-        g = ((x - self.lo[i]) * self.scale[i]).astype(np.intp)  # x >= lo: truncation = floor
-        np.minimum(g, self.n_bins - 1, out=g)
-        return g
+        g = x - self.lo[i]
+        g *= self.scale[i]
+        np.clip(g, 0.0, self.n_bins - 1, out=g)
+        return g.astype(np.intp)  # non-negative: truncation = floor
 
     def count_smaller(self, i: int, x: np.ndarray) -> np.ndarray:
         """Number of reference values of variable `i` strictly smaller than each finite `x`."""
         c = np.zeros(x.shape, dtype=np.int64)
         c[x > self.hi[i]] = self.m
         inside = (x > self.lo[i]) & (x <= self.hi[i])
-        c[inside] = self._count_inside(i, x[inside])
-        return c
-
-    def _count_inside(self, i: int, xi: np.ndarray) -> np.ndarray:
-        """Counts for values with lo < x <= hi (so 1 <= count <= m - 1)."""
+        xi = x[inside]
         ci = self.code[i][self._bins(i, xi)].astype(np.int64)
         ambiguous = ci < 0
         if ambiguous.any():
             ci[ambiguous] = np.searchsorted(self.sorted[i], xi[ambiguous], side="left")
-        return ci
+        c[inside] = ci
+        return c
 
     def similarity(self, i: int, x: np.ndarray) -> np.ndarray:
         """MESS similarity ``S_i`` of each finite `x` (float64)."""
-        lo, hi, span = self.lo[i], self.hi[i], self.span[i]
+        lo, hi = self.lo[i], self.hi[i]
         # f = 0 (x <= lo) and f = 100 (x > hi) in one expression: 100 min(x - lo, hi - x) / span
         s = np.minimum(x - lo, hi - x)
-        s *= 100.0 / span
-        inside = (x > lo) & (x <= hi)  # here 0 < f < 100
-        # 2f for f <= 50, 2 (100 - f) above: both are 100 - |100 - 2f|, f = 100 c / m
-        t = self._count_inside(i, x[inside]) * (200.0 / self.m)
-        t -= 100.0
-        np.abs(t, out=t)
-        s[inside] = 100.0 - t
+        s *= 100.0 / self.span[i]
+        inside = x > lo
+        inside &= x <= hi  # here 0 < f < 100
+        c = self.code[i][self._bins(i, x)]
+        ambiguous = c < 0
+        ambiguous &= inside
+        if ambiguous.any():
+            c[ambiguous] = np.searchsorted(self.sorted[i], x[ambiguous], side="left")
+        np.copyto(s, self.sim_of_count[c], where=inside)
         return s
+
+
+_TABLE_CACHE: dict[bytes, _CountTable] = {}
+
+
+def _count_table_cached(ref_sorted: np.ndarray) -> _CountTable:
+    """Rebuild a pickled :class:`_CountTable` once per process (small LRU-free cache)."""
+    import hashlib
+
+    key = hashlib.sha1(np.ascontiguousarray(ref_sorted).tobytes()).digest()
+    table = _TABLE_CACHE.get(key)
+    if table is None:
+        if len(_TABLE_CACHE) > 16:
+            _TABLE_CACHE.clear()
+        table = _TABLE_CACHE[key] = _CountTable(ref_sorted)
+    return table
 
 
 def _mess_columns(table: _CountTable, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -320,8 +365,21 @@ def _mess_from_columns(table: _CountTable, cols: np.ndarray) -> tuple[np.ndarray
 
 def _mess_block(*blocks: np.ndarray, table: _CountTable) -> tuple[np.ndarray, np.ndarray]:
     shape = np.shape(blocks[0])
-    mess_v, mod_v = _mess_from_columns(table, _columns(blocks))
-    return mess_v.astype(np.float32).reshape(shape), mod_v.reshape(shape)
+    good, valid = _valid_columns(blocks)
+    mess_v, mod_v = _mess_columns(table, good)
+    return (
+        _scatter(mess_v.astype(np.float32), valid, np.float32(np.nan)).reshape(shape),
+        _scatter(mod_v, valid, MOD_FILL).reshape(shape),
+    )
+
+
+def _scatter(values: np.ndarray, valid: np.ndarray | None, fill: Any) -> np.ndarray:
+    """Values of the valid cells back onto all cells (`fill` elsewhere)."""
+    if valid is None:
+        return values
+    out = np.full(valid.shape, fill, dtype=values.dtype)
+    out[valid] = values
+    return out
 
 
 def mess(
@@ -434,17 +492,30 @@ def _flag_name(v: str) -> str:
 
 def _exdet_columns(params: dict, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """NT1 and NT2 for finite columns ``cols`` of shape (k, n)."""
-    lo, hi, span = params["lo"], params["hi"], params["hi"] - params["lo"]
-    nt1 = np.zeros(cols.shape[1])
-    for i in range(cols.shape[0]):
+    lo, hi, mean = params["lo"], params["hi"], params["mean"]
+    whiten = params["whiten"]
+    k, n = cols.shape
+    nt1 = np.zeros(n)
+    centred = np.empty_like(cols)
+    for i in range(k):
         x = cols[i]
         d = np.minimum(x - lo[i], hi[i] - x)
         np.minimum(d, 0.0, out=d)
-        d /= span[i]
+        d /= hi[i] - lo[i]
         nt1 += d
-    # z = L^-1 (x - mean) as one matrix product with the precomputed triangular inverse
-    z = params["whiten"] @ (cols - params["mean"][:, None])
-    d2 = np.einsum("ij,ij->j", z, z)
+        np.subtract(x, mean[i], out=centred[i])
+    # z = L^-1 (x - mean) row by row with the lower-triangular inverse (no BLAS threads inside
+    # dask threads, and the same summation order whatever the chunk or thread count)
+    d2 = np.zeros(n)
+    z = np.empty(n)
+    tmp = np.empty(n)
+    for i in range(k):
+        np.multiply(centred[0], whiten[i, 0], out=z)
+        for j in range(1, i + 1):
+            np.multiply(centred[j], whiten[i, j], out=tmp)
+            z += tmp
+        np.multiply(z, z, out=tmp)
+        d2 += tmp
     return nt1, d2 / params["d2_max"]
 
 
@@ -504,8 +575,13 @@ def _exdet_from_columns(params: dict, cols: np.ndarray) -> tuple[np.ndarray, np.
 
 def _exdet_block(*blocks: np.ndarray, params: dict) -> tuple[np.ndarray, np.ndarray]:
     shape = np.shape(blocks[0])
-    nt1, nt2 = _exdet_from_columns(params, _columns(blocks))
-    return nt1.astype(np.float32).reshape(shape), nt2.astype(np.float32).reshape(shape)
+    good, valid = _valid_columns(blocks)
+    nt1, nt2 = _exdet_columns(params, good)
+    nan32 = np.float32(np.nan)
+    return (
+        _scatter(nt1.astype(np.float32), valid, nan32).reshape(shape),
+        _scatter(nt2.astype(np.float32), valid, nan32).reshape(shape),
+    )
 
 
 def _exdet_params(ref: ReferenceSet) -> dict:

@@ -25,14 +25,14 @@ from timeslice.transfer.novelty import (
     MOD_FILL,
     REFERENCE_DESCRIPTION,
     ReferenceSet,
-    _columns,
     _CountTable,
     _exdet_columns,
     _exdet_params,
     _mess_columns,
     _set_exdet_attrs,
     _set_mess_attrs,
-    _split_valid,
+    _scatter,
+    _valid_columns,
     reference_table,
 )
 
@@ -44,10 +44,12 @@ SUITABLE_FILL = np.int8(-1)
 #: Default memory budget per chunk for ``chunks="auto"``, MB (our choice).
 DEFAULT_CHUNK_BUDGET_MB = 64.0
 
-# Rough bytes held per cell and per predictor while one chunk is processed: the float32 inputs,
-# the float64 sample matrix, a clamped copy, the per-variable MESS similarities and a DataFrame
-# copy for estimators that want column names (measured in bench/transfer.py; our estimate).
-_BYTES_PER_CELL_PER_VAR = 48
+# Working memory per cell of one chunk in the fused slice kernel: about 32 bytes per predictor
+# (float64 stacks, the valid-cell copy, the estimator's input copy, MESS temporaries) plus
+# about 35 bytes of outputs and masks, measured with tracemalloc for 2-16 predictors and the
+# ellipsoid estimator (bench/transfer.py, --measure-kernel). Rounded up: estimators that expand
+# features (splines, hinges) need a larger budget.
+_BYTES_PER_CELL_PER_VAR = 40
 _BYTES_PER_CELL_FIXED = 64
 
 
@@ -106,14 +108,6 @@ def _predict_rows(
     return prob[:, positive].astype(np.float32)
 
 
-def _scatter(values: np.ndarray, valid: np.ndarray | None, n: int, fill: Any) -> np.ndarray:
-    if valid is None:
-        return values
-    out = np.full(n, fill, dtype=values.dtype)
-    out[valid] = values
-    return out
-
-
 def _predict_block(
     *blocks: np.ndarray,
     order: Sequence[int],
@@ -123,12 +117,12 @@ def _predict_block(
 ) -> np.ndarray:
     """Suitability of one chunk; `order` maps fitted columns to the blocks."""
     shape = np.shape(blocks[0])
-    good, valid = _split_valid(_columns([blocks[j] for j in order]))
+    good, valid = _valid_columns([blocks[j] for j in order])
     x = good.T
     if lo is not None:
         x = np.clip(x, lo, hi)
     suit = _predict_rows(x, **kw)
-    return _scatter(suit, valid, int(np.prod(shape)), np.float32(np.nan)).reshape(shape)
+    return _scatter(suit, valid, np.float32(np.nan)).reshape(shape)
 
 
 def _slice_block(
@@ -147,9 +141,10 @@ def _slice_block(
     them in its fitted order.
     """
     shape = np.shape(blocks[0])
-    n = int(np.prod(shape))
-    good, valid = _split_valid(_columns(blocks))
-    x = good[list(order)].T  # (n_valid, k) in the fitted column order
+    good, valid = _valid_columns(blocks)
+    order = list(order)
+    # (n_valid, k) in the fitted column order; a view when the orders agree
+    x = good.T if order == list(range(len(order))) else good[order].T
     nan32 = np.float32(np.nan)
     if lo is None:
         suit = _predict_rows(x, **predict)
@@ -161,15 +156,15 @@ def _slice_block(
         if outside.any():
             # Only cells with a predictor outside the range can differ; predict those twice.
             delta[outside] = suit[outside] - _predict_rows(x[outside], **predict)
-        extra = (_scatter(delta, valid, n, nan32).reshape(shape),)
+        extra = (_scatter(delta, valid, nan32).reshape(shape),)
     mess_v, mod_v = _mess_columns(table, good)
     nt1, nt2 = _exdet_columns(exdet_params, good)
     return (
-        _scatter(suit, valid, n, nan32).reshape(shape),
-        _scatter(mess_v.astype(np.float32), valid, n, nan32).reshape(shape),
-        _scatter(mod_v, valid, n, MOD_FILL).reshape(shape),
-        _scatter(nt1.astype(np.float32), valid, n, nan32).reshape(shape),
-        _scatter(nt2.astype(np.float32), valid, n, nan32).reshape(shape),
+        _scatter(suit, valid, nan32).reshape(shape),
+        _scatter(mess_v.astype(np.float32), valid, nan32).reshape(shape),
+        _scatter(mod_v, valid, MOD_FILL).reshape(shape),
+        _scatter(nt1.astype(np.float32), valid, nan32).reshape(shape),
+        _scatter(nt2.astype(np.float32), valid, nan32).reshape(shape),
         *extra,
     )
 

@@ -1,0 +1,403 @@
+"""Benchmark of the transfer stage against an I/O floor measured in the same run.
+
+Run by hand (not part of the test suite)::
+
+    python bench/transfer.py                      # both sizes, 10 slices, 8 predictors
+    python bench/transfer.py --sizes half --slices 3
+    python bench/transfer.py --write-docs         # also put the table into docs/performance.md
+
+For each size (``full``: global 5 arc-minute grid, 4320 x 2160; ``half``: 10 arc-minutes,
+2160 x 1080) it writes a synthetic data set of N slices with K float32 predictors (uncompressed
+NetCDF, about 30 % land, NaN at sea), then, each in a fresh process so that peak memory (RSS)
+is its own:
+
+* ``floor``: read every predictor value of every slice once (netCDF4, row blocks) and write one
+  float32 per cell per output layer (6 layers: the count of layers of ``project_slice``);
+* ``run``: ``timeslice.transfer.project_slice`` for an estimator (ellipsoid by default) with
+  MESS and ExDet on every slice, lazily chunked with ``chunks="auto"``, written to NetCDF by
+  dask on local threads.
+
+It prints wall time, peak RSS, the ratio run / floor, and the time per million cell-slices (flat
+across sizes = linear scaling). Goals: ratio <= 3, peak RSS < 2 GB at both sizes.
+
+Caveat: the data were just written, so both the floor and the run read from the page cache;
+on a cold disk both get slower by the same read time and the ratio drops.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import shutil
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+SIZES = {"full": (2160, 4320), "half": (1080, 2160)}  # (lat, lon)
+N_LAYERS_OUT = 6  # suitability, suitable, mess, mod, nt1, nt2
+ROW_BLOCK = 120
+DOC_BEGIN = "<!-- transfer-bench:begin -->"
+DOC_END = "<!-- transfer-bench:end -->"
+
+
+# ------------------------------------------------------------------------------ synthetic data
+
+def _var_names(k: int) -> list[str]:
+    return [f"bio{i}" for i in range(1, k + 1)]
+
+
+def _fields(lat: np.ndarray, lon: np.ndarray, k: int, s: int) -> tuple[np.ndarray, np.ndarray]:
+    """Smooth invented climate for rows `lat`: (k, rows, cols) float32 and the land mask."""
+    la = np.deg2rad(lat)[:, None]
+    lo = np.deg2rad(lon)[None, :]
+    land = (np.sin(2 * lo + 1.3) * np.cos(3 * la) + 0.6 * np.sin(5 * lo) * np.sin(4 * la + 0.5)
+            + 0.4 * np.cos(7 * lo - 2 * la)) > 0.3
+    out = np.empty((k, lat.size, lon.size), dtype=np.float32)
+    warm = 0.4 * s  # each slice a little warmer and shifted
+    for i in range(k):
+        f = (np.cos(la) * (20 + 3 * i) + warm * (1 + 0.1 * i)
+             + (2 + i) * np.sin((i + 1) * lo + 0.7 * i + 0.05 * s) * np.cos((i % 3 + 1) * la)
+             + 0.8 * np.sin(11 * lo + 13 * la + i))
+        if i % 2:
+            f = f + 0.5 * out[i - 1]  # correlated predictors, like temperature indices
+        out[i] = f
+    out[:, ~land] = np.nan
+    return out, land
+
+
+def generate(workdir: Path, size: str, n_slices: int, k: int) -> list[Path]:
+    """Write (or reuse) the synthetic slices of one size; return their paths."""
+    import netCDF4
+
+    ny, nx = SIZES[size]
+    res = 180.0 / ny
+    lat = -90 + res * (np.arange(ny) + 0.5)
+    lon = -180 + res * (np.arange(nx) + 0.5)
+    folder = workdir / size
+    folder.mkdir(parents=True, exist_ok=True)
+    names = _var_names(k)
+    paths = []
+    for s in range(n_slices):
+        path = folder / f"slice_{s:02d}.nc"
+        paths.append(path)
+        if path.exists():
+            continue
+        tmp = path.with_suffix(".part")
+        with netCDF4.Dataset(tmp, "w") as nc:
+            nc.createDimension("lat", ny)
+            nc.createDimension("lon", nx)
+            vlat = nc.createVariable("lat", "f8", ("lat",))
+            vlat[:] = lat
+            vlat.units = "degrees_north"
+            vlon = nc.createVariable("lon", "f8", ("lon",))
+            vlon[:] = lon
+            vlon.units = "degrees_east"
+            vs = [nc.createVariable(v, "f4", ("lat", "lon"), fill_value=np.float32(np.nan))
+                  for v in names]
+            for v in vs:
+                v.units = "1"
+            for r0 in range(0, ny, ROW_BLOCK):
+                block, _ = _fields(lat[r0:r0 + ROW_BLOCK], lon, k, s)
+                for i, v in enumerate(vs):
+                    v[r0:r0 + ROW_BLOCK, :] = block[i]
+            nc.slice_label = f"s{s:02d}"
+            nc.year = 1990.0 + 10 * s
+        os.replace(tmp, path)
+    return paths
+
+
+def training_sample(size: str, k: int, seed: int = 1) -> tuple[np.ndarray, np.ndarray]:
+    """Presences (inside an invented niche) and background from land cells of slice 0."""
+    rng = np.random.default_rng(seed)
+    ny, nx = SIZES["half"]  # the same sample for both sizes
+    res = 180.0 / ny
+    lat = -90 + res * (np.arange(ny) + 0.5)
+    lon = -180 + res * (np.arange(nx) + 0.5)
+    fields, land = _fields(lat, lon, k, 0)
+    x = fields[:, land].T.astype(np.float64)
+    bg = x[rng.choice(x.shape[0], 10_000, replace=False)]
+    centre = np.quantile(x, 0.6, axis=0)
+    spread = x.std(axis=0)
+    z = ((x - centre) / spread) ** 2
+    inside = np.flatnonzero(z.sum(axis=1) < 0.5 * k)
+    pres = x[rng.choice(inside, min(500, inside.size), replace=False)]
+    return pres, bg
+
+
+# ------------------------------------------------------------------------------ measurements
+
+def _peak_rss_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: KiB
+
+
+def floor(paths: list[Path], out_dir: Path, k: int) -> dict:
+    """Read every predictor value once and write N_LAYERS_OUT float32 layers per slice."""
+    import netCDF4
+
+    from timeslice.transfer.scheduler import set_chunk_cache
+
+    set_chunk_cache()
+    names = _var_names(k)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    t0 = time.perf_counter()
+    checksum = 0.0
+    for path in paths:
+        target = out_dir / f"floor_{path.stem}.nc"
+        with netCDF4.Dataset(path) as src, netCDF4.Dataset(target, "w") as dst:
+            src.set_auto_mask(False)
+            dst.set_auto_mask(False)
+            ny, nx = src.dimensions["lat"].size, src.dimensions["lon"].size
+            dst.createDimension("lat", ny)
+            dst.createDimension("lon", nx)
+            outs = [dst.createVariable(f"layer{j}", "f4", ("lat", "lon")) for j in range(N_LAYERS_OUT)]
+            for r0 in range(0, ny, ROW_BLOCK):
+                block = None
+                for v in names:
+                    block = src.variables[v][r0:r0 + ROW_BLOCK, :]
+                    checksum += float(block[0, 0])  # make sure it is really read
+                for o in outs:
+                    o[r0:r0 + ROW_BLOCK, :] = block
+        target.unlink()
+    return {"wall_s": time.perf_counter() - t0, "peak_rss_mb": _peak_rss_mb()}
+
+
+def _fallback_ellipsoid():
+    """A minimal Mahalanobis niche, used only if timeslice.niche.models has none."""
+    from scipy import stats
+    from sklearn.base import BaseEstimator, ClassifierMixin
+
+    class MiniEllipsoid(ClassifierMixin, BaseEstimator):
+        def fit(self, X, y):
+            X = np.asarray(X, dtype=np.float64)
+            p = X[np.asarray(y) == 1]
+            self.classes_ = np.array([0, 1])
+            self.n_features_in_ = X.shape[1]
+            self.mu_ = p.mean(axis=0)
+            self.prec_ = np.linalg.inv(np.cov(p, rowvar=False))
+            return self
+
+        def predict_proba(self, X):
+            d = np.asarray(X, dtype=np.float64) - self.mu_
+            s = stats.chi2.sf(np.einsum("ij,jk,ik->i", d, self.prec_, d), self.n_features_in_)
+            return np.column_stack([1 - s, s])
+
+    return MiniEllipsoid()
+
+
+def make_estimator(name: str):
+    try:
+        from timeslice.niche.models import make_model
+    except ImportError:
+        make_model = None
+    if make_model is not None:
+        return make_model(name)
+    if name == "ellipsoid":
+        return _fallback_ellipsoid()
+    raise SystemExit(f"estimator {name!r} needs timeslice.niche.models.make_model")
+
+
+def run(paths: list[Path], out_dir: Path, k: int, size: str, estimator: str, budget_mb: float,
+        threads: int) -> dict:
+    import dask
+    import pandas as pd
+    import xarray as xr
+
+    from timeslice.io import atomic_path
+    from timeslice.transfer import auto_chunks, project_slice
+    from timeslice.transfer.scheduler import set_chunk_cache
+
+    set_chunk_cache()
+    names = _var_names(k)
+    pres, bg = training_sample(size, k)
+    X = pd.DataFrame(np.vstack([pres, bg]), columns=names)
+    y = np.r_[np.ones(len(pres), dtype=int), np.zeros(len(bg), dtype=int)]
+    model = make_estimator(estimator).fit(X, y)
+    reference = pd.DataFrame(bg, columns=names)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    # Warm-up outside the clock: xarray's backend discovery and first-use imports cost ~1 s once
+    # per process, whatever the grid size.
+    with xr.open_dataset(paths[0], engine="netcdf4") as warm:
+        small = warm.isel(lat=slice(0, 8), lon=slice(0, 8)).load()
+    project_slice(model, small, variables=names, reference=reference, threshold=0.1).to_netcdf(
+        out_dir / "warm.nc")
+    t_fit = time.perf_counter()
+    chunks = auto_chunks(dict(zip(("lat", "lon"), SIZES[size])), n_variables=k, budget_mb=budget_mb)
+    n_suitable = 0
+    opts = {"scheduler": "threads", "num_workers": threads} if threads else {"scheduler": "sync"}
+    with dask.config.set(**opts):  # threads=0: synchronous (for profiling)
+        for path in paths:
+            ds = xr.open_dataset(path, chunks=chunks, engine="netcdf4", cache=False)
+            out = project_slice(model, ds, variables=names, reference=reference,
+                                threshold=0.1)
+            target = out_dir / f"out_{path.stem}.nc"
+            with atomic_path(target) as tmp:
+                out.to_netcdf(tmp, engine="netcdf4")
+            ds.close()
+            n_suitable += 1
+            target.unlink()
+    return {
+        "wall_s": time.perf_counter() - t_fit,
+        "peak_rss_mb": _peak_rss_mb(),
+        "chunks": chunks,
+        "estimator": type(model).__name__,
+    }
+
+
+def measure_kernel(k: int = 8, n: int = 200_000) -> dict:
+    """Working memory per cell of the fused kernel (tracemalloc), for auto chunk sizing."""
+    import tracemalloc
+
+    import pandas as pd
+
+    from timeslice.transfer.novelty import _CountTable, _exdet_params, reference_table
+    from timeslice.transfer.project import _check_model, _slice_block
+
+    names = _var_names(k)
+    pres, bg = training_sample("half", k)
+    X = pd.DataFrame(np.vstack([pres, bg]), columns=names)
+    y = np.r_[np.ones(len(pres), dtype=int), np.zeros(len(bg), dtype=int)]
+    model = make_estimator("ellipsoid").fit(X, y)
+    ref = reference_table(pd.DataFrame(bg, columns=names))
+    cols, pos, as_frame = _check_model(model, names)
+    kw = {
+        "order": list(range(k)),
+        "predict": {"model": model, "columns": cols, "positive": pos, "as_frame": as_frame},
+        "table": _CountTable(np.sort(ref.values, axis=0)),
+        "exdet_params": _exdet_params(ref),
+        "lo": None, "hi": None,
+    }
+    rng = np.random.default_rng(0)
+    blocks = [rng.choice(bg[:, i], n).astype(np.float32) for i in range(k)]
+    tracemalloc.start()
+    base = tracemalloc.get_traced_memory()[0]
+    t0 = time.process_time()
+    _slice_block(*blocks, **kw)
+    cpu = time.process_time() - t0
+    peak = tracemalloc.get_traced_memory()[1] - base
+    tracemalloc.stop()
+    return {"bytes_per_cell": peak / n, "cpu_ns_per_cell": cpu / n * 1e9}
+
+
+# ------------------------------------------------------------------------------------ driver
+
+def _child(args: argparse.Namespace) -> None:
+    paths = sorted((Path(args.workdir) / args.size).glob("slice_*.nc"))[: args.slices]
+    out_dir = Path(args.workdir) / "out"
+    if args.child == "floor":
+        res = floor(paths, out_dir, args.vars)
+    elif args.child == "run":
+        res = run(paths, out_dir, args.vars, args.size, args.estimator, args.chunk_mb, args.threads)
+    else:
+        res = measure_kernel(args.vars)
+    print(json.dumps(res))
+
+
+def _spawn(args: argparse.Namespace, what: str, size: str, estimator: str = "ellipsoid") -> dict:
+    cmd = [sys.executable, __file__, "--child", what, "--size", size, "--workdir", args.workdir,
+           "--slices", str(args.slices), "--vars", str(args.vars), "--estimator", estimator,
+           "--chunk-mb", str(args.chunk_mb), "--threads", str(args.threads)]
+    res = subprocess.run(cmd, check=True, capture_output=True, text=True)
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def _table(rows: list[dict], args: argparse.Namespace) -> str:
+    head = ("| size | grid (lon x lat) | slices | estimator | floor s | run s | run / floor "
+            "| s per 10^6 cell-slices | peak RSS floor MB | peak RSS run MB | chunk (lat x lon) |")
+    lines = [head, "|" + "---|" * 11]
+    for r in rows:
+        ny, nx = SIZES[r["size"]]
+        per = r["run"]["wall_s"] / (ny * nx * args.slices / 1e6)
+        lines.append(
+            f"| {r['size']} | {nx} x {ny} | {args.slices} | {r['run']['estimator']} "
+            f"| {r['floor']['wall_s']:.1f} | {r['run']['wall_s']:.1f} "
+            f"| {r['run']['wall_s'] / r['floor']['wall_s']:.2f} | {per:.3f} "
+            f"| {r['floor']['peak_rss_mb']:.0f} | {r['run']['peak_rss_mb']:.0f} "
+            f"| {r['run']['chunks']['lat']} x {r['run']['chunks']['lon']} |"
+        )
+    return "\n".join(lines)
+
+
+def _write_docs(text: str) -> None:
+    from timeslice.io import atomic_path
+
+    doc = Path(__file__).resolve().parents[1] / "docs" / "performance.md"
+    old = doc.read_text() if doc.exists() else "# Performance\n"
+    if DOC_BEGIN in old and DOC_END in old:
+        pre, rest = old.split(DOC_BEGIN, 1)
+        post = rest.split(DOC_END, 1)[1]
+    else:
+        pre, post = old.rstrip() + "\n\n", "\n"
+    with atomic_path(doc) as tmp:
+        tmp.write_text(pre + DOC_BEGIN + "\n" + text + "\n" + DOC_END + post)
+
+
+def main(argv: list[str] | None = None) -> None:
+    p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    p.add_argument("--sizes", default="half,full")
+    p.add_argument("--slices", type=int, default=10)
+    p.add_argument("--vars", type=int, default=8)
+    p.add_argument("--estimators", default="ellipsoid")
+    p.add_argument("--estimator", default="ellipsoid", help=argparse.SUPPRESS)
+    p.add_argument("--chunk-mb", type=float, default=64.0)
+    p.add_argument("--threads", type=int, default=os.cpu_count() or 1)
+    p.add_argument("--workdir", default="/tmp/timeslice-bench")
+    p.add_argument("--repeat", type=int, default=1,
+                   help="alternate floor and run this many times, keep the fastest of each "
+                        "(damps noise from other load on the machine)")
+    p.add_argument("--keep", action="store_true", help="keep the synthetic data afterwards")
+    p.add_argument("--write-docs", action="store_true")
+    p.add_argument("--child", choices=["floor", "run", "kernel"], help=argparse.SUPPRESS)
+    p.add_argument("--size", help=argparse.SUPPRESS)
+    args = p.parse_args(argv)
+    if args.child:
+        _child(args)
+        return
+    work = Path(args.workdir)
+    rows = []
+    kern = _spawn(args, "kernel", "half")
+    print(f"fused kernel: {kern['bytes_per_cell']:.0f} B/cell working memory, "
+          f"{kern['cpu_ns_per_cell']:.0f} ns CPU per cell ({args.vars} predictors, all land)")
+    for size in args.sizes.split(","):
+        t0 = time.perf_counter()
+        generate(work, size, args.slices, args.vars)
+        print(f"[{size}] data ready in {time.perf_counter() - t0:.1f} s", flush=True)
+        best: dict[str, dict] = {}
+        for _ in range(max(args.repeat, 1)):
+            fl = _spawn(args, "floor", size)
+            print(f"[{size}] floor {fl['wall_s']:.1f} s, peak {fl['peak_rss_mb']:.0f} MB", flush=True)
+            if "floor" not in best or fl["wall_s"] < best["floor"]["wall_s"]:
+                best["floor"] = fl
+            for est in args.estimators.split(","):
+                rn = _spawn(args, "run", size, est)
+                print(f"[{size}] {est}: {rn['wall_s']:.1f} s, peak {rn['peak_rss_mb']:.0f} MB",
+                      flush=True)
+                if est not in best or rn["wall_s"] < best[est]["wall_s"]:
+                    best[est] = rn
+        for est in args.estimators.split(","):
+            rows.append({"size": size, "floor": best["floor"], "run": best[est]})
+    table = _table(rows, args)
+    print(table)
+    if args.write_docs:
+        import platform
+
+        text = (
+            f"Measured {time.strftime('%Y-%m-%d')} on {os.cpu_count()} cores "
+            f"({platform.processor() or platform.machine()}), {args.threads} dask threads, "
+            f"{args.vars} predictors, chunk budget {args.chunk_mb:g} MB, warm page cache, "
+            f"fastest of {max(args.repeat, 1)} alternating repeats; load average at the end "
+            f"{os.getloadavg()[0]:.1f}; `python bench/transfer.py`.\n"
+            f"Fused kernel: {kern['bytes_per_cell']:.0f} B per cell working memory, "
+            f"{kern['cpu_ns_per_cell']:.0f} ns CPU per cell.\n\n" + table
+        )
+        _write_docs(text)
+    if not args.keep:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
