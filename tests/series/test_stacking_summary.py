@@ -143,3 +143,12 @@ def test_summarise_bad_window_and_chains(stack_factory):
         summarise(ds, window=(3000.0, 4000.0))
     with pytest.raises(DataError, match="`chains` must be 'auto'"):
         summarise(ds, chains="all")
+
+
+def test_summarise_again_with_other_chains(stack_factory):
+    ds = stack_factory()
+    first, _ = summarise(ds, chains="auto")
+    again, tab = summarise(first, chains={"only": ["baseline", "6ka"]})
+    assert list(again["chain"].values) == ["only"]
+    plain, _ = summarise(first)
+    assert "chain" not in plain.dims and "refugium_chain" not in plain

@@ -4,6 +4,7 @@ hindcast checks."""
 from __future__ import annotations
 
 from timeslice.series import dispersal, ensemble, hindcast
+from timeslice.series.analysis import SeriesResult, analyse_series
 from timeslice.series.change import (
     CHANGE_FLAG_MEANINGS,
     CHANGE_FLAG_VALUES,
@@ -35,7 +36,9 @@ __all__ = [
     "CHANGE_FLAG_VALUES",
     "DETAIL_COLUMNS",
     "SUMMARY_COLUMNS",
+    "SeriesResult",
     "agreement",
+    "analyse_series",
     "bearing_deg",
     "centroid",
     "chains",

@@ -34,7 +34,17 @@ from timeslice.series.stability import (
 )
 from timeslice.series.stacking import chains as find_chains
 
-__all__ = ["movement_table", "summarise"]
+__all__ = ["DERIVED_VARIABLES", "movement_table", "summarise"]
+
+#: Variables (and coords) that :func:`summarise` adds; dropped from the input first, so a
+#: finished series can be summarised again with other options.
+DERIVED_VARIABLES = (
+    "change", "stability", "refugium", "refugium_analog", "static_stability",
+    "geometric_mean_suitability", "minimum_suitability", "refugium_window",
+    "refugium_window_analog", "stability_chain", "refugium_chain", "refugium_analog_chain",
+    "static_stability_chain", "dynamic_stability_chain", "reachable_none",
+    "reachable_limited", "reachable_unlimited", "chain_slices", "chain",
+)
 
 ChainSpec = Mapping[str, Sequence[str]] | Literal["auto"] | None
 
@@ -184,6 +194,7 @@ def summarise(
         or `window`.
     """
     check_stack(stack)
+    stack = stack.drop_vars([v for v in DERIVED_VARIABLES if v in stack.variables])
     iref = check_label(stack, reference)
     suitable = stack["suitable"]
     ref = suitable.isel(slice=iref)

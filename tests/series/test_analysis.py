@@ -1,0 +1,69 @@
+"""analyse_series: every series output in one call."""
+
+from __future__ import annotations
+
+import itertools
+import warnings
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from timeslice.errors import DataError, TimesliceWarning
+from timeslice.series import analyse_series
+
+
+def _full_stack(stack_factory):
+    labels, years, models, scens, pers = ["baseline"], [1990.0], ["observed"], ["baseline"], ["now"]
+    for m in ("alder", "birch"):
+        for lab, y, s, p in [("21ka", -19050.0, "past", "21 ka"), ("6ka", -4050.0, "past", "6 ka")]:
+            labels.append(f"{m}_{lab}"); years.append(y); models.append(m); scens.append(s)
+            pers.append(p)
+        for s, p in itertools.product(("low", "high"), ("2041-2060", "2081-2100")):
+            labels.append(f"{m}_{s}_{p}"); years.append(2050.0 if p[:4] == "2041" else 2090.0)
+            models.append(m); scens.append(s); pers.append(p)
+    ds = stack_factory(labels=labels, years=years, models=models, scenarios=scens)
+    return ds.assign_coords(period=("slice", pers))
+
+
+def test_analyse_series_everything(stack_factory):
+    ds = _full_stack(stack_factory)
+    rec = pd.DataFrame({"lon": [-9.5, -8.5, -7.5], "lat": [40.5, 41.5, 42.5],
+                        "age_bp": [21000, 20000, 6000]})
+    with warnings.catch_warnings():  # records on random not-land cells are skipped with a warning
+        warnings.simplefilter("ignore", TimesliceWarning)
+        res = analyse_series(ds, window=(-19050, 2000), rate="1 km/yr", records=rec,
+                             records_source="dated.csv")
+    assert set(res.tables) == {"summary", "movement", "agreement", "partition", "hindcast"}
+    assert "refugium_window_analog" in res.series
+    assert res.series["dynamic_stability_chain"].sizes["chain"] == 6
+    assert set(res.ensemble["source"].values) == {"model", "scenario", "model:scenario"}
+    part = res.tables["partition"]
+    np.testing.assert_allclose(part.groupby("period")["mean_share"].sum(), 1.0, rtol=1e-5)
+    assert set(res.tables["hindcast"]["chain"]) == {"alder past", "birch past"}
+
+
+def test_analyse_series_notes_without_rate_and_one_model(stack_factory):
+    ds = stack_factory()  # one model only
+    ds["suitable"][:, 0, 0] = 1  # the record's cell is land and suitable in every slice
+    with pytest.warns(TimesliceWarning, match="records skipped"):
+        res = analyse_series(ds, records=pd.DataFrame({"lon": [-9.5, -9.5], "lat": [40.5, 40.5],
+                                                       "age_bp": [21000, 900000]}))
+    assert res.ensemble is None
+    assert any("no rate" in n for n in res.notes)
+    assert any("fewer than two climate models" in n for n in res.notes)
+
+
+def test_analyse_series_single_level_factor_error(stack_factory):
+    ds = _full_stack(stack_factory)
+    ds = ds.sel(slice=[s for s in ds["slice"].values if "high" not in s])
+    with pytest.raises(DataError, match="'scenario' has a single level"):
+        analyse_series(ds, factors=("model", "scenario"))
+
+
+def test_analyse_series_records_without_past(stack_factory):
+    ds = stack_factory(labels=("baseline", "low_2090"), years=(1990, 2090),
+                       models=("observed", "alder"), scenarios=("baseline", "low"))
+    with pytest.raises(DataError, match="dated.csv: the series has no past slices"):
+        analyse_series(ds, records=pd.DataFrame({"lon": [0.0], "lat": [0.0], "age_bp": [0]}),
+                       records_source="dated.csv")

@@ -1,0 +1,179 @@
+"""Everything the series stage reports, in one call (for the pipeline and the CLI)."""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Sequence
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from timeslice.errors import DataError
+from timeslice.series._checks import check_stack
+from timeslice.series.ensemble import agreement, agreement_table, factorial, partition
+from timeslice.series.ensemble import partition_table
+from timeslice.series.hindcast import check as hindcast_check
+from timeslice.series.stacking import chains as find_chains
+from timeslice.series.summary import movement_table, summarise
+
+__all__ = ["SeriesResult", "analyse_series"]
+
+
+@dataclasses.dataclass
+class SeriesResult:
+    """Outputs of :func:`analyse_series`.
+
+    Attributes
+    ----------
+    series : xarray.Dataset
+        The stacked series with every summary layer (for ``series.nc``).
+    ensemble : xarray.Dataset or None
+        Agreement and variance partitioning across climate models (for ``ensemble.nc``);
+        None with fewer than two models.
+    tables : dict of str to pandas.DataFrame
+        ``"summary"`` (one row per slice) and, where computed, ``"movement"``,
+        ``"agreement"``, ``"partition"``, ``"hindcast"``.
+    notes : list of str
+        What was skipped and why (for the report and the log).
+    """
+
+    series: xr.Dataset
+    ensemble: xr.Dataset | None
+    tables: dict[str, pd.DataFrame]
+    notes: list[str]
+
+
+def _models(stack: xr.Dataset) -> list[str]:
+    if "model" not in stack.coords:
+        return []
+    return sorted({str(m) for m in stack["model"].values} - {"observed"})
+
+
+def _partition_by_period(stack: xr.Dataset, factors: Sequence[str] | None, notes: list[str]):
+    if "period" not in stack.coords or "scenario" not in stack.coords:
+        notes.append("partition: no period/scenario coordinates; skipped")
+        return None
+    scen = np.asarray(stack["scenario"].values).astype(str)
+    per = np.asarray(stack["period"].values).astype(str)
+    future = ~np.isin(scen, ["baseline", "past"])
+    results, periods = [], []
+    for p in dict.fromkeys(per[future]):
+        sub = stack.isel(slice=np.flatnonzero(future & (per == p)))
+        if factors is None:
+            cand = [f for f in ("algorithm", "model", "scenario")
+                    if (f in sub["suitability"].dims and sub.sizes[f] > 1)
+                    or (f in sub.coords and sub[f].dims == ("slice",)
+                        and len(set(map(str, sub[f].values))) > 1)]
+            if len(cand) < 2:
+                notes.append(f"partition {p}: fewer than two factors with two or more levels "
+                             f"({cand or 'none'}); skipped")
+                continue
+        else:
+            cand = list(factors)
+        design = factorial(sub, factors=cand)
+        parts = partition(design, factors=cand)
+        results.append(parts)
+        periods.append(p)
+    if not results:
+        return None
+    srcs = [tuple(r["source"].values) for r in results]
+    if len(set(srcs)) > 1:
+        notes.append("partition: periods have different factors; only the first kept")
+        results, periods = results[:1], periods[:1]
+    out = xr.concat(results, dim=xr.DataArray(periods, dims="partition_period",
+                                              name="partition_period"),
+                    combine_attrs="override")
+    return out
+
+
+def analyse_series(
+    stack: xr.Dataset,
+    *,
+    reference: str = "baseline",
+    window=None,
+    rate: str | None = None,
+    through: Literal["land", "suitable", "any"] = "land",
+    neighbours: Literal[8, 16] = 8,
+    factors: Sequence[str] | None = None,
+    records: pd.DataFrame | None = None,
+    records_source: str = "dated records",
+    max_offset_years: float | None = None,
+) -> SeriesResult:
+    """Summarise a stacked series fully: change, stability, refugia, movement, ensembles,
+    hindcast.
+
+    Parameters
+    ----------
+    stack : xarray.Dataset
+        Stacked series (see docs/architecture.md).
+    reference : str, default "baseline"
+    window : list of slice labels or (year_min, year_max), optional
+        Refugium window (e.g. ``(-19050, 2000)`` for 21 ka BP to the present).
+    rate : str, optional
+        Spread rate with units for limited movement and dynamic stability.
+    through, neighbours
+        Movement rule and graph (see :func:`timeslice.series.dispersal.reachable`).
+    factors : sequence of str, optional
+        Ensemble factors for the variance partitioning; default: those of ``algorithm``,
+        ``model``, ``scenario`` with at least two levels, per future period. Given explicitly,
+        a factor with one level is an error.
+    records : pandas.DataFrame, optional
+        Dated records (``lon``, ``lat``, ``age_bp``) for the hindcast check, run on every paleo
+        chain (one per model).
+    records_source : str
+        File name for messages.
+    max_offset_years : float, optional
+        Cap on |record year − slice year| in the hindcast.
+
+    Returns
+    -------
+    SeriesResult
+    """
+    check_stack(stack)
+    notes: list[str] = []
+    series, summary = summarise(stack, reference=reference, chains="auto", detail=True,
+                                window=window, rate=rate, through=through,
+                                neighbours=neighbours)
+    tables: dict[str, pd.DataFrame] = {"summary": summary}
+    chain_map = find_chains(stack, reference=reference)
+    if chain_map:
+        tables["movement"] = movement_table(stack, reference=reference, chains=chain_map,
+                                            rate=rate, through=through, neighbours=neighbours)
+    if rate is None:
+        notes.append("movement: no rate given; limited movement and dynamic stability skipped")
+    ensemble = None
+    if len(_models(stack)) >= 2:
+        agree = agreement(stack)
+        tables["agreement"] = agreement_table(agree)
+        ensemble = agree
+        if "suitability" in stack.data_vars:
+            parts = _partition_by_period(stack, factors, notes)
+            if parts is not None:
+                ensemble = xr.merge([agree, parts.rename({"share": "variance_share"})],
+                                    combine_attrs="drop_conflicts")
+                rows = []
+                for p in parts["partition_period"].values:
+                    t = partition_table(parts.sel(partition_period=p))
+                    t.insert(0, "period", str(p))
+                    rows.append(t)
+                tables["partition"] = pd.concat(rows, ignore_index=True)
+    else:
+        notes.append("ensemble: fewer than two climate models; agreement and partitioning "
+                     "skipped")
+    if records is not None:
+        paleo = {k: v for k, v in chain_map.items()
+                 if "scenario" in stack.coords
+                 and str(stack["scenario"].sel(slice=v[0]).values) == "past"}
+        if not paleo:
+            raise DataError(f"{records_source}: the series has no past slices to check dated "
+                            "records against; add paleo slices or leave the records out")
+        rows = []
+        for name, labels in paleo.items():
+            t = hindcast_check(records, stack.sel(slice=labels), source=records_source,
+                               max_offset_years=max_offset_years)
+            t.insert(0, "chain", name)
+            rows.append(t)
+        tables["hindcast"] = pd.concat(rows, ignore_index=True)
+    return SeriesResult(series=series, ensemble=ensemble, tables=tables, notes=notes)
