@@ -99,3 +99,15 @@ def test_bad_record_tables():
     dup = ds.assign_coords(year=("slice", [0.0, 0.0, 1990.0]))
     with pytest.raises(DataError, match="several slices at year 0"):
         check(pd.DataFrame({"lon": [1.0], "lat": [45.0], "age_bp": [10]}), dup)
+
+
+def test_ambiguous_ages_flagged():
+    ds = _paleo()
+    # 6ka window is -11550..-1030 CE; a record at 9000 BP (-7050 CE) with SD 1000 stays inside,
+    # with SD 3000 its 2-SD range (-13050..-1050) reaches the 21ka window
+    rec = pd.DataFrame({"lon": [0.5, 0.5], "lat": [45.5, 45.5], "age_bp": [9000, 9000],
+                        "age_sd": [1000, 3000]})
+    a = assign(rec, ds)
+    assert list(a["ambiguous"]) == [False, True]
+    out = check(rec, ds)
+    assert out.set_index("slice").loc["6ka", "n_ambiguous"] == 1

@@ -89,7 +89,8 @@ def assign(
     -------
     pandas.DataFrame
         The records plus ``year`` (CE), ``slice``, ``offset_years``, ``status`` ("ok",
-        "outside_windows", "off_grid", "not_land") and ``in_suitable`` (bool).
+        "outside_windows", "off_grid", "not_land"), ``in_suitable`` (bool) and ``ambiguous``
+        (bool: age ± 2 ``age_sd`` reaches into another slice's window).
     """
     check_stack(stack)
     if not isinstance(records, pd.DataFrame):
@@ -136,6 +137,15 @@ def assign(
     out["offset_years"] = np.where(in_win, rec_year - years[k], np.nan)
     out["status"] = status
     out["in_suitable"] = (status == "ok") & suitable_mask(cell)
+    # a record whose age +- 2 SD reaches into another slice's window could belong there
+    if "age_sd" in out.columns:
+        sd = pd.to_numeric(out["age_sd"], errors="coerce").to_numpy(dtype=float)
+        sd = np.where(np.isfinite(sd), np.abs(sd), 0.0)
+        lo, hi = rec_year - 2 * sd, rec_year + 2 * sd
+        overlaps = (lo[:, None] <= win[None, :, 1]) & (hi[:, None] >= win[None, :, 0])
+        out["ambiguous"] = in_win & (overlaps.sum(axis=1) > 1)
+    else:
+        out["ambiguous"] = False
     return out
 
 
@@ -172,7 +182,9 @@ def check(
     pandas.DataFrame
         One row per slice with records, and a last row ``slice = "all"``: ``n_records``,
         ``n_hits``, ``hit_rate``, ``expected_share`` (suitable area / land area of the slice),
-        ``p_value``, ``n_skipped`` (outside every window, off the grid or not land).
+        ``p_value``, ``n_ambiguous`` (records whose age ± 2 SD reaches another window; they
+        stay assigned to the nearest slice), ``n_skipped`` (outside every window, off the grid
+        or not land).
 
     Notes
     -----
@@ -220,7 +232,8 @@ def check(
         n, hits = len(sel), int(sel["in_suitable"].sum())
         res = binomtest(hits, n, p, alternative=alternative)
         rows.append({"slice": lab, "year": years[s], "n_records": n, "n_hits": hits,
-                     "hit_rate": hits / n, "expected_share": p, "p_value": float(res.pvalue)})
+                     "hit_rate": hits / n, "expected_share": p, "p_value": float(res.pvalue),
+                     "n_ambiguous": int(sel["ambiguous"].sum())})
         p_rec.extend([p] * n)
     n_tot = int(ok.sum())
     hits_tot = int(table.loc[ok, "in_suitable"].sum())
@@ -231,7 +244,7 @@ def check(
                                 alternative=alternative).pvalue)
     rows.append({"slice": "all", "year": np.nan, "n_records": n_tot, "n_hits": hits_tot,
                  "hit_rate": hits_tot / n_tot, "expected_share": float(np.mean(p_rec)),
-                 "p_value": p_all})
+                 "p_value": p_all, "n_ambiguous": int(table.loc[ok, "ambiguous"].sum())})
     out = pd.DataFrame(rows)
     out["n_skipped"] = 0
     out.loc[out["slice"] == "all", "n_skipped"] = n_all - n_tot

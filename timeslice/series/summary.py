@@ -28,7 +28,6 @@ from timeslice.series.stability import (
     geometric_mean,
     minimum_suitability,
     refugium,
-    select_window,
     stability,
     static_stability,
 )
