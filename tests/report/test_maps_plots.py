@@ -108,8 +108,32 @@ def test_summary_plots(summary_df, tmp_path):
     _png_ok(plots.area_through_time(summary_df, tmp_path / "area.png", dpi=60))
     _png_ok(plots.gain_loss_bars(summary_df, tmp_path / "bars.png", dpi=60))
     _png_ok(plots.centroid_track(summary_df, tmp_path / "track.png", dpi=60))
-    shifts = summary_df.assign(mean_elevation_m=np.linspace(800, 1200, len(summary_df)))
+    shifts = summary_df.assign(elevation_mean_m=np.linspace(800, 1200, len(summary_df)))
     _png_ok(plots.shift_plot(shifts, tmp_path / "shift.png", dpi=60))
+
+
+def test_shift_plot_with_quantile_columns(summary_df, tmp_path):
+    # the columns of change_table(detail=True)
+    q = summary_df.assign(lat_q50=summary_df.centroid_lat, lat_q10=summary_df.centroid_lat - 1,
+                          lat_q90=summary_df.centroid_lat + 1, elevation_q50_m=900.0,
+                          elevation_q10_m=400.0, elevation_q90_m=1500.0)
+    _png_ok(plots.shift_plot(q, tmp_path / "shift.png", dpi=60))
+    with pytest.raises(DataError, match="lat_q50"):
+        plots.shift_plot(summary_df.drop(columns=["centroid_lat"]), tmp_path / "x.png")
+
+
+@pytest.mark.parametrize("keep", ["future", "past"])
+def test_area_plot_one_kind_of_slice(summary_df, tmp_path, keep):
+    past = summary_df.scenario == "past"
+    base = summary_df.scenario == "baseline"
+    sub = summary_df[base | (past if keep == "past" else ~past)]
+    _png_ok(plots.area_through_time(sub, tmp_path / "area.png", dpi=60))
+
+
+def test_past_axis_is_ka_bp():
+    # BP counts back from 1950 CE (Stuiver & Polach 1977): 21 ka BP is year -19050 CE.
+    df = pd.DataFrame({"year": [-19050.0, 1985.0], "scenario": ["past", "baseline"]})
+    np.testing.assert_allclose(plots._x(df, "past"), [21.0, -0.035])
 
 
 def test_centroid_track_with_coastline(summary_df, series_big, tmp_path):

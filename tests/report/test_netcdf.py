@@ -171,3 +171,28 @@ def test_stage_conventions_become_named_flags(series_ds, tmp_path):
     assert not had_errors and high == [] and medium == [] and passed
     back = open_series(path)
     assert back["suitable"].dtype == np.int8 and int(back["suitable"].min()) == -1
+
+
+def test_ensemble_with_text_dimensions(series_ds, tmp_path):
+    # An ensemble summary indexed by scenario and period labels (text dimensions).
+    rng = np.random.default_rng(3)
+    shape = (2, 2, series_ds.sizes["lat"], series_ds.sizes["lon"])
+    ens = xr.Dataset(
+        {
+            "agreement": (("scenario", "period", "lat", "lon"),
+                          rng.uniform(0, 1, shape).astype("float32"),
+                          {"units": "1", "long_name": "share of models projecting suitable"}),
+            "elevation": series_ds["elevation"],
+        },
+        coords={"scenario": ["low-forcing", "high-forcing"],
+                "period": ["2041-2060", "2081-2100"],
+                "lat": series_ds.lat, "lon": series_ds.lon},
+    )
+    path = write_series(ens, tmp_path / "ensemble.nc")
+    passed, had_errors, high, medium = _cf_errors(path, tmp_path)
+    assert not had_errors and high == [] and medium == [] and passed
+    with netCDF4.Dataset(path) as nc:
+        assert nc.variables["agreement"].chunking() == [1, 1, *shape[2:]]
+    back = open_series(path)
+    assert list(back["scenario"].values) == ["low-forcing", "high-forcing"]
+    np.testing.assert_array_equal(back["agreement"].values, ens["agreement"].values)

@@ -50,7 +50,9 @@ def test_manifest_contents_and_verify(tmp_path):
     path = write_manifest(info, tmp_path / "manifest.json")
     data = json.loads(path.read_text())
     assert data["seed"] == 42 and data["timings"]["niche"] == 0.25
-    assert data["inputs"][str(inp)]["sha256"] == hashlib.sha256(b"a,b\n1,2\n").hexdigest()
+    rec = data["inputs"][str(inp.resolve())]
+    assert rec["sha256"] == hashlib.sha256(b"a,b\n1,2\n").hexdigest()
+    assert rec["bytes"] == 8
     assert data["versions"]["numpy"] and data["versions"]["xarray"]
     assert data["command"] == ["timeslice", "run", "demo.toml"]
     assert data["config_path"] == str(tmp_path / "demo.toml")
@@ -68,3 +70,14 @@ def test_manifest_bad_files(tmp_path):
     bad.write_text("{not json")
     with pytest.raises(InputFileError, match="not a JSON manifest"):
         read_manifest(bad)
+
+
+def test_manifest_relative_inputs_resolve(tmp_path, monkeypatch):
+    (tmp_path / "data").mkdir()
+    (tmp_path / "data" / "dem.nc").write_bytes(b"xyz")
+    monkeypatch.chdir(tmp_path)
+    path = write_manifest({"inputs": ["data/dem.nc"]}, tmp_path / "m.json")
+    monkeypatch.chdir("/")
+    data = read_manifest(path)  # verifies from another working directory
+    assert str(tmp_path / "data" / "dem.nc") in data["inputs"]
+    assert data["working_directory"] == str(tmp_path)

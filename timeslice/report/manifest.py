@@ -104,20 +104,27 @@ def write_manifest(info: Mapping[str, Any], path: str | os.PathLike) -> Path:
     Notes
     -----
     Versions come from :func:`importlib.metadata.version`; missing ones are ``null``. The
-    fields ``config``, ``seed`` and ``command`` are what a rerun needs; ``inputs`` lets the
-    rerun check that the input files are unchanged (:func:`read_manifest`).
+    fields ``config``, ``seed``, ``command`` and ``working_directory`` are what a rerun needs;
+    ``inputs`` (absolute path -> ``sha256``, ``bytes``) lets the rerun check that the input
+    files are unchanged (:func:`read_manifest`).
     """
     data: dict[str, Any] = {"manifest_version": MANIFEST_VERSION}
     data["created_utc"] = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     raw_inputs = info.get("inputs", [])
+    inputs: dict[str, dict[str, Any]] = {}
     if isinstance(raw_inputs, Mapping):
-        inputs = {str(k): str(v) for k, v in raw_inputs.items()}
+        for k, v in raw_inputs.items():
+            inputs[str(Path(k).resolve())] = {"sha256": str(v)}
     else:
-        inputs = {str(Path(p)): hash_file(p) for p in raw_inputs}
+        for p in raw_inputs:
+            # Absolute paths, so a rerun from another working directory finds the same files.
+            full = Path(p).resolve()
+            inputs[str(full)] = {"sha256": hash_file(full), "bytes": full.stat().st_size}
     for key, value in info.items():
         if key != "inputs":
             data[str(key)] = _jsonable(value)
-    data["inputs"] = {k: {"sha256": v} for k, v in sorted(inputs.items())}
+    data["inputs"] = dict(sorted(inputs.items()))
+    data.setdefault("working_directory", os.getcwd())
     data.setdefault("command", list(sys.argv))
     data.setdefault("seed", None)
     data.setdefault("timings", {})

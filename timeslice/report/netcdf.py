@@ -190,13 +190,16 @@ def prepare_cf(
         )
         out[name].attrs = attrs
         out[f"{name}_bnds"].attrs = {}
-    if "slice" in out.coords and out["slice"].dtype.kind in "OUS":
-        # CF coordinate variables are numeric and monotonic; text labels go into an
-        # auxiliary coordinate (CF 1.8 section 6.1) and `open_series` restores the index.
-        labels = out["slice"].values.astype(str)
-        slice_attrs = dict(out["slice"].attrs)
-        out = out.drop_vars("slice").assign_coords(slice_label=("slice", labels))
-        out["slice_label"].attrs = slice_attrs
+    for dim in [d for d in out.dims if d not in ("lat", "lon", "bnds")]:
+        if dim in out.coords and out[dim].dtype.kind in "OUS":
+            # CF coordinate variables are numeric and monotonic; text labels go into an
+            # auxiliary coordinate `<dim>_label` (CF 1.8 section 6.1); `open_series`
+            # restores the index.
+            labels = np.asarray(out[dim].values).astype(str).astype(object)
+            attrs = dict(out[dim].attrs)
+            attrs.setdefault("long_name", f"{dim} label")
+            out = out.drop_vars(dim).assign_coords({f"{dim}_label": (dim, labels)})
+            out[f"{dim}_label"].attrs = attrs
     for name, extra in _SLICE_COORD_ATTRS.items():
         if name in out.coords:
             attrs = dict(out[name].attrs)
@@ -327,11 +330,13 @@ def open_series(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
         ds = xr.open_dataset(target, engine="netcdf4", **kwargs)
     except (OSError, ValueError) as err:
         raise InputFileError(f"{target}: not a readable NetCDF file ({err})") from err
-    if "slice_label" in ds.coords and "slice" in ds.dims:
-        attrs = dict(ds["slice_label"].attrs)
-        ds = ds.assign_coords(slice=("slice", ds["slice_label"].values.astype(str)))
-        ds = ds.drop_vars("slice_label")
-        ds["slice"].attrs = attrs
+    for dim in list(ds.dims):
+        label = f"{dim}_label"
+        if label in ds.variables and ds[label].dims == (dim,) and dim not in ds.coords:
+            attrs = dict(ds[label].attrs)
+            ds = ds.assign_coords({dim: (dim, ds[label].values.astype(str))})
+            ds = ds.drop_vars(label)
+            ds[dim].attrs = attrs
     for name in list(ds.data_vars):
         spec = layer_spec(str(name))
         flags = np.asarray(ds[name].attrs.get("flag_values", [])).tolist()

@@ -13,6 +13,7 @@ from timeslice.errors import DataError
 from timeslice.io import atomic_path
 
 __all__ = [
+    "PAST_BEFORE_YEAR",
     "SCENARIO_COLOURS",
     "area_through_time",
     "centroid_track",
@@ -59,12 +60,85 @@ def _baseline_rows(df: pd.DataFrame) -> pd.DataFrame:
     return df[df["scenario"].astype(str) == "baseline"]
 
 
-def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110) -> Path:
-    """Suitable area against year per scenario: ensemble median line, min-max band, members.
+#: Slices before this year (CE) are drawn on the "past" panel in thousands of years before
+#: present (BP = before 1950 CE, the radiocarbon convention; Stuiver & Polach 1977,
+#: Radiocarbon 19:355).
+PAST_BEFORE_YEAR = 1850.0
 
-    Each scenario's chain starts at the baseline slice, so the lines share a starting point.
-    Paleo slices (scenario "past") are plotted on the same year axis (CE; negative = BCE),
-    with a symmetric-log year axis when the series spans more than 1,000 years.
+
+def _is_past(df: pd.DataFrame) -> np.ndarray:
+    return (df["scenario"].astype(str).to_numpy() == "past") | (
+        df["year"].to_numpy(float) < PAST_BEFORE_YEAR)
+
+
+def _time_panels(fig: Figure, df: pd.DataFrame, *, rows: int = 1):
+    """Axes for a time series that may hold past (ka BP) and future (year CE) slices.
+
+    Returns a list (one per row) of lists of ``(axes, kind)`` with kind "past" or "future".
+    Past slices are plotted against ka BP with the axis running from old to young, so time
+    flows left to right across both panels; the baseline appears on both.
+    """
+    past = _is_past(df)
+    kinds = [k for k, present in (("past", past.any()), ("future", (~past).any())) if present]
+    if df["scenario"].astype(str).eq("baseline").all():
+        kinds = ["future"]
+    grid = fig.add_gridspec(rows, len(kinds), wspace=0.08)
+    out = []
+    for r in range(rows):
+        row = []
+        for c, kind in enumerate(kinds):
+            share = row[0][0] if row else None
+            ax = fig.add_subplot(grid[r, c], sharey=share)
+            if kind == "past":
+                ax.invert_xaxis()
+            if share is not None:
+                ax.tick_params(labelleft=False)
+            row.append((ax, kind))
+        out.append(row)
+    return out
+
+
+def _x(df: pd.DataFrame, kind: str) -> np.ndarray:
+    years = df["year"].to_numpy(float)
+    return (1950.0 - years) / 1000.0 if kind == "past" else years
+
+
+def _rows_for(df: pd.DataFrame, kind: str) -> pd.DataFrame:
+    """Rows drawn on a panel: its own slices plus the baseline that starts every chain."""
+    past = _is_past(df)
+    base = df["scenario"].astype(str).eq("baseline").to_numpy()
+    keep = (past if kind == "past" else ~past) | base
+    return df[keep]
+
+
+def _thousands(ax) -> None:
+    from matplotlib.ticker import FuncFormatter
+
+    ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v:,.0f}"))
+
+
+def _label_time(ax, kind: str) -> None:
+    ax.set_xlabel("thousand years before present (ka BP)" if kind == "past" else "year (CE)")
+
+
+def _chains(df: pd.DataFrame, kind: str, value: str):
+    """Yield (scenario, model, x, y) per chain, each starting at the baseline."""
+    rows = _rows_for(df, kind)
+    base = rows[rows["scenario"].astype(str) == "baseline"]
+    for (scen, model), g in rows[rows["scenario"].astype(str) != "baseline"].groupby(
+            ["scenario", "model"], sort=True):
+        g = pd.concat([base, g])
+        x = _x(g, kind)
+        order = np.argsort(x)
+        yield str(scen), str(model), x[order], g[value].to_numpy(float)[order]
+
+
+def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110) -> Path:
+    """Suitable area through time per scenario: median across models, min-max band, members.
+
+    Every chain starts at the baseline slice. Past slices (scenario "past" or before
+    :data:`PAST_BEFORE_YEAR`) go on a left panel in ka BP, future ones on a right panel in
+    years CE, with one shared area axis; a run with only one kind gets one panel.
 
     Parameters
     ----------
@@ -72,50 +146,49 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
         The summary table (columns ``year``, ``model``, ``scenario``, ``suitable_area_km2``).
     path : path-like
         PNG file.
+
+    Returns
+    -------
+    pathlib.Path
     """
     _need(summary, ("year", "model", "scenario", "suitable_area_km2"), "area_through_time")
     df = summary.copy()
     df["scenario"] = df["scenario"].astype(str)
-    base = _baseline_rows(df)
-    others = df[df["scenario"] != "baseline"]
     colours = _colours(df["scenario"])
-    fig = Figure(figsize=(7.0, 4.0))
-    ax = fig.add_subplot(111)
-    b_year = float(base["year"].iloc[0]) if len(base) else None
-    b_area = float(base["suitable_area_km2"].iloc[0]) if len(base) else None
-    for scen, g in others.groupby("scenario", sort=True):
-        c = colours[scen]
-        for _, m in g.groupby("model", sort=True):
-            m = m.sort_values("year")
-            x, y = m["year"].to_numpy(float), m["suitable_area_km2"].to_numpy(float)
-            if b_year is not None:
-                x, y = np.r_[b_year, x], np.r_[b_area, y]
+    fig = Figure(figsize=(8.0, 4.2), layout="constrained")
+    (row,) = _time_panels(fig, df)
+    for ax, kind in row:
+        rows = _rows_for(df, kind)
+        base = rows[rows["scenario"] == "baseline"]
+        for scen, _model, x, y in _chains(df, kind, "suitable_area_km2"):
+            ax.plot(x, y, color=colours[scen], alpha=0.35, linewidth=0.8, marker=".",
+                    markersize=3)
+        others = rows[rows["scenario"] != "baseline"]
+        for scen, g in others.groupby("scenario", sort=True):
+            stats = g.assign(_x=_x(g, kind)).groupby("_x")["suitable_area_km2"].agg(
+                ["median", "min", "max"])
+            x = stats.index.to_numpy(float)
+            med, lo, hi = (stats[k].to_numpy(float) for k in ("median", "min", "max"))
+            if len(base):
+                bx, ba = _x(base, kind)[0], float(base["suitable_area_km2"].iloc[0])
+                x, med, lo, hi = np.r_[bx, x], np.r_[ba, med], np.r_[ba, lo], np.r_[ba, hi]
                 order = np.argsort(x)
-                x, y = x[order], y[order]
-            ax.plot(x, y, color=c, alpha=0.35, linewidth=0.8, marker=".", markersize=3)
-        stats = g.groupby("year")["suitable_area_km2"].agg(["median", "min", "max"])
-        x = stats.index.to_numpy(float)
-        med, lo, hi = (stats[k].to_numpy(float) for k in ("median", "min", "max"))
-        if b_year is not None:
-            x, med, lo, hi = (np.r_[b_year, x], np.r_[b_area, med], np.r_[b_area, lo],
-                              np.r_[b_area, hi])
-            order = np.argsort(x)
-            x, med, lo, hi = x[order], med[order], lo[order], hi[order]
-        n_models = g["model"].nunique()
-        ax.fill_between(x, lo, hi, color=c, alpha=0.18, linewidth=0)
-        ax.plot(x, med, color=c, linewidth=2, label=f"{scen} (median, range of {n_models} "
-                f"model{'s' if n_models != 1 else ''})")
-    if b_year is not None:
-        ax.plot([b_year], [b_area], marker="o", color="black", linestyle="none",
-                label="baseline")
-    years = df["year"].to_numpy(float)
-    if np.ptp(years) > 1000:
-        ax.set_xscale("symlog", linthresh=100.0)
-    ax.set_xlabel("year (CE; negative = BCE)")
-    ax.set_ylabel("suitable area (km²)")
-    ax.set_title("Climatically suitable area through time")
-    ax.grid(alpha=0.3)
-    ax.legend(fontsize=7)
+                x, med, lo, hi = x[order], med[order], lo[order], hi[order]
+            n_models = g["model"].nunique()
+            ax.fill_between(x, lo, hi, color=colours[scen], alpha=0.18, linewidth=0)
+            ax.plot(x, med, color=colours[scen], linewidth=2,
+                    label=f"{scen}: median and range of {n_models} model"
+                          f"{'s' if n_models != 1 else ''}")
+        if len(base):
+            ax.plot(_x(base, kind), base["suitable_area_km2"], marker="o", color="black",
+                    linestyle="none", label="baseline")
+        _label_time(ax, kind)
+        ax.grid(alpha=0.3)
+        ax.legend(fontsize=7)
+    ax0 = row[0][0]
+    ax0.set_ylabel("suitable area (km²)")
+    _thousands(ax0)
+    fig.suptitle("Climatically suitable area through time", fontsize=11)
     return _save(fig, path, dpi)
 
 
@@ -138,6 +211,9 @@ def gain_loss_bars(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int =
                       zip(df["slice"], df["model"], df["scenario"])], fontsize=7)
     ax.invert_yaxis()
     ax.set_xlabel("area against the reference slice (km²)")
+    from matplotlib.ticker import FuncFormatter
+
+    ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _p: f"{v:,.0f}"))
     ax.set_title("Gain and loss of suitable area per slice")
     ax.grid(axis="x", alpha=0.3)
     ax.legend(fontsize=7, loc="lower right")
@@ -173,28 +249,46 @@ def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
         ax.set_extent([float(land.lon.min()), float(land.lon.max()),
                        float(land.lat.min()), float(land.lat.max())], crs=crs)
     base = _baseline_rows(df)
-    for (scen, model), g in df[df["scenario"] != "baseline"].groupby(["scenario", "model"]):
-        g = pd.concat([base, g]).sort_values("year") if scen != "past" else \
-            pd.concat([base, g]).sort_values("year", ascending=False)
+    seen: set[str] = set()
+    for (scen, _model), g in df[df["scenario"] != "baseline"].groupby(["scenario", "model"]):
+        # every chain runs away from the baseline: back in time for the past, forward else
+        g = pd.concat([base, g.sort_values("year", ascending=(scen != "past"))])
+        n = df.loc[df["scenario"] == scen, "model"].nunique()
         ax.plot(g["centroid_lon"], g["centroid_lat"], color=colours[scen], marker="o",
-                markersize=3, linewidth=1, transform=crs, label=f"{scen} / {model}")
-        last = g.iloc[-1]
-        ax.annotate(str(last.get("slice", "")), (last["centroid_lon"], last["centroid_lat"]),
-                    fontsize=6, xytext=(3, 3), textcoords="offset points",
-                    transform=crs._as_mpl_transform(ax))
+                markersize=3, linewidth=1, transform=crs,
+                label=None if scen in seen else f"{scen} ({n} model{'s' if n != 1 else ''})")
+        ax.plot(g["centroid_lon"].iloc[-1:], g["centroid_lat"].iloc[-1:], color=colours[scen],
+                marker="s", markersize=5, linestyle="none", transform=crs)
+        seen.add(scen)
     if len(base):
         ax.plot(base["centroid_lon"], base["centroid_lat"], marker="*", color="black",
                 markersize=10, linestyle="none", transform=crs, label="baseline")
     if land is None:
-        pad = 0.5
-        ax.set_extent([df.centroid_lon.min() - pad, df.centroid_lon.max() + pad,
-                       df.centroid_lat.min() - pad, df.centroid_lat.max() + pad], crs=crs)
-    gl = ax.gridlines(crs=crs, draw_labels=True, linewidth=0.4, color="0.5", alpha=0.6,
-                      linestyle=":")
-    gl.top_labels = gl.right_labels = False
-    ax.legend(fontsize=6, loc="upper right")
-    ax.set_title("Track of the suitable-range centroid", fontsize=9)
+        # a square-ish window around the track, at least 2 degrees across
+        lat_c = float(df.centroid_lat.mean())
+        half_lat = max(1.0, 0.6 * float(np.ptp(df.centroid_lat)),
+                       0.6 * float(np.ptp(df.centroid_lon)) * np.cos(np.radians(lat_c)))
+        half_lon = half_lat / max(np.cos(np.radians(lat_c)), 0.2)
+        lon_c = float(df.centroid_lon.mean())
+        ax.set_extent([lon_c - half_lon, lon_c + half_lon, lat_c - half_lat,
+                       lat_c + half_lat], crs=crs)
+    from timeslice.report.maps import _graticule
+
+    w, e, so, no = ax.get_extent(crs=crs)
+    _graticule(ax, crs, w, e, so, no)
+    ax.legend(fontsize=7, loc="upper right", title="squares: last slice", title_fontsize=6)
+    ax.set_title("Track of the area-weighted centroid of the suitable range", fontsize=9)
     return _save(fig, path, dpi)
+
+
+#: Candidate columns of the shift plot: (median column, low, high, axis label). The
+#: quantile columns are those of ``timeslice.series.change.change_table(detail=True)``.
+_SHIFT_PANELS = (
+    (("lat_q50", "lat_q10", "lat_q90"), ("centroid_lat", None, None),
+     "latitude of suitable cells (°N)"),
+    (("elevation_q50_m", "elevation_q10_m", "elevation_q90_m"),
+     ("elevation_mean_m", None, None), "elevation of suitable cells (m)"),
+)
 
 
 def shift_plot(shifts: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110) -> Path:
@@ -203,37 +297,59 @@ def shift_plot(shifts: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110)
     Parameters
     ----------
     shifts : pandas.DataFrame
-        Columns ``year, model, scenario`` and any of ``centroid_lat`` (degrees north),
-        ``mean_elevation_m`` (area-weighted mean elevation of the suitable cells, m);
-        one panel per column present.
+        Columns ``year, model, scenario`` and, for latitude, ``lat_q50`` (with ``lat_q10`` and
+        ``lat_q90`` drawn as a band: area-weighted quantiles over suitable cells) or
+        ``centroid_lat``; for elevation ``elevation_q50_m`` (with ``elevation_q10_m``,
+        ``elevation_q90_m``) or ``elevation_mean_m``. One row of panels per quantity present;
+        past and future slices on separate panels as in :func:`area_through_time`.
+
+    Returns
+    -------
+    pathlib.Path
     """
     _need(shifts, ("year", "model", "scenario"), "shift_plot")
-    panels = [(c, lab) for c, lab in (("centroid_lat", "range centroid latitude (°N)"),
-                                      ("mean_elevation_m", "mean elevation of suitable "
-                                       "cells (m)")) if c in shifts.columns]
+    panels = []
+    for first, fallback, label in _SHIFT_PANELS:
+        for cols in (first, fallback):
+            if cols[0] in shifts.columns and shifts[cols[0]].notna().any():
+                band = cols[1:] if all(c in shifts.columns for c in cols[1:] if c) and cols[1] \
+                    else (None, None)
+                panels.append((cols[0], band, label))
+                break
     if not panels:
-        raise DataError("shift_plot: table needs `centroid_lat` or `mean_elevation_m`")
+        raise DataError(
+            "shift_plot: table needs `lat_q50` or `centroid_lat`, or `elevation_q50_m` or "
+            "`elevation_mean_m` (change_table(detail=True) gives the quantiles)"
+        )
     df = shifts.copy()
     df["scenario"] = df["scenario"].astype(str)
     colours = _colours(df["scenario"])
-    base = _baseline_rows(df)
-    fig = Figure(figsize=(7.0, 2.8 * len(panels)), layout="constrained")
-    for k, (col, lab) in enumerate(panels):
-        ax = fig.add_subplot(len(panels), 1, k + 1)
-        for (scen, model), g in df[df["scenario"] != "baseline"].groupby(["scenario", "model"]):
-            g = pd.concat([base, g]).sort_values("year")
-            ax.plot(g["year"], g[col], color=colours[scen], marker="o", markersize=3,
-                    linewidth=1, alpha=0.8, label=f"{scen} / {model}")
-        if len(base):
-            ax.axhline(float(base[col].iloc[0]), color="black", linewidth=0.8, linestyle=":",
-                       label="baseline")
-        if np.ptp(df["year"].to_numpy(float)) > 1000:
-            ax.set_xscale("symlog", linthresh=100.0)
-        ax.set_ylabel(lab, fontsize=8)
-        ax.grid(alpha=0.3)
-        if k == 0:
-            ax.legend(fontsize=6, ncols=2)
-    ax.set_xlabel("year (CE; negative = BCE)")
+    fig = Figure(figsize=(8.0, 2.9 * len(panels) + 0.4), layout="constrained")
+    rows = _time_panels(fig, df, rows=len(panels))
+    for (col, (lo, hi), label), row in zip(panels, rows):
+        for ax, kind in row:
+            seen: set[str] = set()
+            for scen, _model, x, y in _chains(df, kind, col):
+                n = df.loc[df["scenario"] == scen, "model"].nunique()
+                ax.plot(x, y, color=colours[scen], marker="o", markersize=3, linewidth=1,
+                        alpha=0.8, label=None if scen in seen else
+                        f"{scen} ({n} model{'s' if n != 1 else ''})")
+                seen.add(scen)
+            if lo and hi:
+                sub = _rows_for(df, kind)
+                base = sub[sub["scenario"] == "baseline"]
+                if len(base):
+                    bx = _x(base, kind)[0]
+                    ax.errorbar([bx], [float(base[col].iloc[0])],
+                                yerr=[[float(base[col].iloc[0] - base[lo].iloc[0])],
+                                      [float(base[hi].iloc[0] - base[col].iloc[0])]],
+                                color="black", capsize=3, linewidth=1,
+                                label="baseline (median, 10-90 % of suitable area)")
+            ax.grid(alpha=0.3)
+            _label_time(ax, kind)
+        row[0][0].set_ylabel(label, fontsize=8)
+        for ax, _kind in row:
+            ax.legend(fontsize=6)
     fig.suptitle("Latitude and elevation shifts of the suitable range", fontsize=10)
     return _save(fig, path, dpi)
 
