@@ -67,3 +67,23 @@ def test_analyse_series_records_without_past(stack_factory):
     with pytest.raises(DataError, match="dated.csv: the series has no past slices"):
         analyse_series(ds, records=pd.DataFrame({"lon": [0.0], "lat": [0.0], "age_bp": [0]}),
                        records_source="dated.csv")
+
+
+def test_every_added_layer_is_described(stack_factory):
+    # STYLE.md: every output variable carries units, long_name and description; categorical
+    # layers carry CF flag_values / flag_meanings of the variable's dtype
+    ds = _full_stack(stack_factory)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TimesliceWarning)
+        res = analyse_series(ds, rate="1 km/yr", window=(-19050, 2000))
+    for out in (res.series, res.ensemble):
+        for v in out.data_vars:
+            if v in ds.data_vars:
+                continue
+            for key in ("units", "long_name", "description"):
+                assert key in out[v].attrs, (v, key)
+            if "flag_values" in out[v].attrs:
+                fv = np.asarray(out[v].attrs["flag_values"])
+                assert len(out[v].attrs["flag_meanings"].split()) == fv.size, v
+                if out[v].dtype != bool:
+                    assert fv.dtype == out[v].dtype, v

@@ -206,3 +206,13 @@ def test_change_is_lazy(stack_factory, raise_if_dask_computes):
     assert ch.chunks is not None and area.chunks is not None
     eager = change_map(ds["suitable"].load(), ds["suitable"].isel(slice=0).load())
     np.testing.assert_array_equal(ch.values, eager.values)
+
+
+def test_change_table_dask_equals_numpy(stack_factory, raise_if_dask_computes):
+    ds = stack_factory()
+    eager = change_table(ds, detail=True)
+    with raise_if_dask_computes(max_computes=1):  # one pass over the chunked stack
+        lazy = change_table(ds.chunk({"lat": 2, "lon": 3}), detail=True)
+    import pandas as pd
+
+    pd.testing.assert_frame_equal(eager, lazy, check_exact=False, rtol=1e-12)

@@ -131,7 +131,8 @@ def agreement(
     })
     if has_cont:
         out["suitability_mean"] = (dims, np.stack(mean), {
-            "units": "1", "long_name": "mean suitability across climate models"})
+            "units": "1", "long_name": "mean suitability across climate models",
+            "description": "arithmetic mean over the models of the group with a value"})
         out["suitability_sd"] = (dims, np.stack(sd), {
             "units": "1", "long_name": "standard deviation of suitability across climate models",
             "description": "divisor n (spread of the ensemble members)"})
@@ -343,9 +344,11 @@ def partition(
                                     f"replication over {' x '.join(factors)}; the last source "
                                     "is the highest-order interaction (the residual)"})
     out["ss_total"] = (tuple(cells), total.reshape(shape_cells).astype(np.float32),
-                       {"units": "1", "long_name": "total sum of squares of suitability"})
+                       {"units": "1", "long_name": "total sum of squares of suitability",
+                        "description": "sum over all factor combinations of (y - mean)^2"})
     out["dominant"] = (tuple(cells), dominant.reshape(shape_cells), {
         "units": "1", "long_name": "source with the largest share of variance",
+        "description": "index into the source coordinate; -1 where shares are undefined",
         "flag_values": np.arange(-1, len(names), dtype=np.int8),
         "flag_meanings": " ".join(["undefined"] + [n.replace(":", "_x_") for n in names]),
     })
