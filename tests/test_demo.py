@@ -414,9 +414,10 @@ def test_occurrences_follow_the_known_niche(demo_dir):
         p_pts = prob.sel(lon=xr.DataArray(occ["decimalLongitude"].values),
                          lat=xr.DataArray(occ["decimalLatitude"].values), method="nearest")
     land_bio10 = bio10.values[np.isfinite(bio10.values)]
-    # presences are pulled from the land's climate towards the optimum ...
-    assert np.median(vals) < np.median(land_bio10) - 0.3
-    assert 7.0 < np.median(vals) < 12.5
+    # presences sit around the optimum (pulled a little to the warm side by the sampling
+    # effort in the lowlands and the south) ...
+    assert abs(np.median(vals) - demo.NICHE["bio10_optimum_degC"]) < 3.0
+    assert np.std(vals) < np.std(land_bio10)
     # ... and the known presence probability tells presence cells from land cells
     # (AUC reference: sklearn.metrics.roc_auc_score; sampling bias keeps it well below 1)
     from sklearn.metrics import roc_auc_score
@@ -481,6 +482,21 @@ def test_truth_json(demo_dir):
 def test_bad_resolution_is_a_config_error(tmp_path, res):
     with pytest.raises(ConfigError, match="resolution"):
         demo.generate(tmp_path, resolution=res)
+
+
+def test_unwritable_output_folder(tmp_path):
+    import os
+
+    if os.geteuid() == 0:
+        pytest.skip("permissions are not enforced for root")
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    ro.chmod(0o500)
+    try:
+        with pytest.raises(ConfigError, match="not writable"):
+            demo.generate(ro, resolution=0.5)
+    finally:
+        ro.chmod(0o700)
 
 
 def test_bad_seed_and_output_path(tmp_path):

@@ -45,6 +45,7 @@ __all__ = [
     "SLICES",
     "SPECIES",
     "generate",
+    "sha256_of",
     "main",
     "write_default",
 ]
@@ -252,6 +253,9 @@ def _elevation(lon2: np.ndarray, lat2: np.ndarray, p: dict) -> np.ndarray:
         z_land = z_land + q["peak_m"] * np.exp(-((xq / q["sx_km"]) ** 2) - (yq / q["sy_km"]) ** 2)
     relief = _noise(x, y, p["relief_noise"])
     z_land = z_land * land_factor + 120.0 * relief * land_factor * (0.4 + z_land / 2500.0)
+    # soft ceiling: summits stay below 3000 m whatever the seed
+    z_land = np.where(z_land > 2400.0, 2400.0 + 600.0 * np.tanh((z_land - 2400.0) / 600.0),
+                      z_land)
     z_land = np.maximum(z_land, 2.0)
 
     z_shelf = -150.0 * (0.5 - s) / 0.3
@@ -648,7 +652,15 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
         raise ConfigError(f"demo output folder {str(out)!r} is a file; give a folder path")
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise ConfigError(
+            f"cannot create the demo output folder {str(out)!r} ({err.strerror}); "
+            "choose a writable folder"
+        ) from None
+    if not os.access(out, os.W_OK):
+        raise ConfigError(f"demo output folder {str(out)!r} is not writable; choose another")
     rng = np.random.default_rng(seed)
     p = _landscape_params(rng)
     w = _build_world(p, res, k)
