@@ -6,6 +6,7 @@ Convention throughout: a cell or point is *suitable* when its score is >= the th
 from __future__ import annotations
 
 import difflib
+import inspect
 from typing import Literal
 
 import numpy as np
@@ -345,6 +346,12 @@ def cross_validate(
     sample_weight : array-like, optional
         Passed to ``fit``.
 
+    Notes
+    -----
+    Estimators whose ``fit`` takes ``groups`` (those that tune themselves by inner
+    cross-validation) get the fold labels of the training rows, so their tuning is itself
+    spatially blocked and never sees the held-out fold.
+
     Returns
     -------
     pandas.DataFrame
@@ -377,6 +384,8 @@ def cross_validate(
             continue
         est = clone(model)
         kw = {} if sw is None else {"sample_weight": sw[tr]}
+        if "groups" in inspect.signature(est.fit).parameters:
+            kw["groups"] = folds[tr]  # nested: inner tuning on the remaining spatial folds
         est.fit(take(tr), y[tr], **kw)
         s_tr = est.predict_proba(take(tr))[:, 1]
         t = threshold(s_tr[y[tr] == 1], s_tr[y[tr] == 0], rule=threshold_rule, value=threshold_value)

@@ -185,8 +185,7 @@ class EnvelopeNiche(_NicheBase):
     ----------
     Nix, H. A. (1986). A biogeographic analysis of Australian elapid snakes. In R. Longmore
     (ed.), Atlas of Elapid Snakes of Australia, Australian Flora and Fauna Series 7, pp. 4-15.
-    Busby, J. R. (1991). BIOCLIM - a bioclimate analysis and prediction system. Plant Protection
-    Quarterly 6:8-9.
+    Busby, J. R. (1991). Plant Protection Quarterly 6:8-9 (the percentile climatic envelope).
     """
 
     def __init__(self, *, percentile: float = 5.0, random_state=None):
@@ -261,7 +260,7 @@ def _registry() -> dict[str, type]:
 
 
 #: Algorithm names accepted by :func:`make_model`.
-MODEL_NAMES: tuple[str, ...] = ("ellipsoid", "envelope")
+MODEL_NAMES: tuple[str, ...] = ("ellipsoid", "ensemble", "envelope", "forest", "point_process", "spline")
 
 
 def make_model(name: str, **params: Any):

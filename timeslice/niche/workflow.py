@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import inspect
 import os
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -326,14 +327,13 @@ def fit_niche(
     lat = np.concatenate([pres["lat"].to_numpy(), back["lat"].to_numpy()])
     try:
         folds = nev.spatial_folds(lon, lat, block_km=cv_block_km, n_folds=cv_folds, seed=seed, scheme=cv_scheme)
-        if hasattr(model, "set_cv_folds"):
-            model.set_cv_folds(folds)
         evaluation = nev.cross_validate(model, X, y, folds, threshold_rule=threshold_rule, threshold_value=threshold_value)
     except DataError as err:
         raise DataError(f"cross-validation: {err}") from err
     evaluation = _summary_rows(evaluation)
 
-    model.fit(X, y)
+    fit_kw = {"groups": folds} if "groups" in inspect.signature(model.fit).parameters else {}
+    model.fit(X, y, **fit_kw)
     s = model.predict_proba(X)[:, 1]
     thr = nev.threshold(s[y == 1], s[y == 0], rule=threshold_rule, value=threshold_value)
 
