@@ -31,13 +31,14 @@ def test_slice_maps_one_per_slice(series_ds, tmp_path):
         _png_ok(p)
 
 
-@pytest.mark.parametrize("kind", ["series", "change", "nt2", "stability"])
+@pytest.mark.parametrize("kind", ["series", "change", "nt2", "exdet", "stability"])
 def test_panels(series_ds, tmp_path, kind):
     small = series_ds.isel(slice=[0, 1, 2])
     make = {
         "series": lambda: maps.series_panel(small, tmp_path / "panel.png", dpi=50),
         "change": lambda: maps.change_map(small, tmp_path / "change.png", dpi=50),
         "nt2": lambda: maps.novelty_map(small, tmp_path / "nt2.png", variable="nt2", dpi=50),
+        "exdet": lambda: maps.novelty_map(small, tmp_path / "ex.png", variable="exdet", dpi=50),
         "stability": lambda: maps.stability_map(small, tmp_path / "stab.png", dpi=50),
     }[kind]
     _png_ok(make())
@@ -66,6 +67,21 @@ def test_map_errors_name_the_layer(series_ds, tmp_path):
         maps.slice_maps(series_ds, tmp_path, slices=["zzz"])
     with pytest.raises(DataError, match="variable"):
         maps.novelty_map(series_ds, tmp_path / "x.png", variable="suitability")
+
+
+def test_exdet_classes_follow_the_definitions(series_ds):
+    # Mesgaran, Cousens & Webber (2014): NT1 < 0 outside a univariate range; with NT1 = 0,
+    # NT2 > 1 is a novel combination, NT2 <= 1 analog.
+    ds = series_ds.isel(slice=[0]).copy()
+    nt1 = np.zeros(ds["nt1"].shape, dtype="float32")
+    nt2 = np.full(ds["nt2"].shape, 0.5, dtype="float32")
+    nt1[0, 0, 0], nt2[0, 0, 1], nt2[0, 0, 2] = -0.2, 1.5, 1.0
+    nt1[0, 0, 3] = np.nan
+    ds["nt1"], ds["nt2"] = (ds["nt1"].dims, nt1), (ds["nt2"].dims, nt2)
+    code = maps._layer(ds, "exdet", 0)
+    assert code[0, 0] == 2 and code[0, 1] == 1 and code[0, 2] == 0 and np.isnan(code[0, 3])
+    with pytest.raises(DataError, match="nt1"):
+        maps.novelty_map(ds.drop_vars("nt1"), "x.png", variable="exdet")
 
 
 def test_change_palette_is_distinct():

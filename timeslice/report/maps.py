@@ -28,6 +28,7 @@ from timeslice.report._layers import LAYERS, slice_title
 
 __all__ = [
     "CHANGE_COLOURS",
+    "EXDET_COLOURS",
     "change_map",
     "novelty_map",
     "series_panel",
@@ -45,6 +46,15 @@ CHANGE_COLOURS: dict[int, tuple[str, str]] = {
     3: ("stable", "#009E73"),
 }
 
+#: ExDet classes (Mesgaran, Cousens & Webber 2014): code -> (label, colour), the colours
+#: again from the Okabe & Ito (2008) set (from memory).
+EXDET_COLOURS: dict[int, tuple[str, str]] = {
+    0: ("analog (NT1 = 0, NT2 <= 1)", "#E4E4E4"),
+    1: ("novel combination (NT2 > 1)", "#56B4E9"),
+    2: ("outside a univariate range (NT1 < 0)", "#D55E00"),
+}
+_CATEGORICAL = {"change": CHANGE_COLOURS, "exdet": EXDET_COLOURS}
+
 _CONTINUOUS = {
     "suitability": ("viridis", "climatic suitability (0-1)"),
     "stability": ("viridis", "fraction of slices suitable"),
@@ -59,7 +69,12 @@ _ICE_COLOUR = "#D6EAF8"
 def _check(ds: xr.Dataset, variable: str) -> None:
     if not isinstance(ds, xr.Dataset):
         raise DataError(f"maps: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
-    if variable not in ds.data_vars:
+    if variable == "exdet":
+        missing = [v for v in ("nt1", "nt2") if v not in ds.data_vars]
+        if missing:
+            raise DataError(f"maps: the ExDet classes need layers {missing}; run the novelty "
+                            "step (timeslice.transfer.novelty.exdet) first")
+    elif variable not in ds.data_vars:
         raise DataError(
             f"maps: layer {variable!r} is not in the dataset; choose from "
             f"{sorted(map(str, ds.data_vars))}"
@@ -70,6 +85,13 @@ def _check(ds: xr.Dataset, variable: str) -> None:
 
 def _layer(ds: xr.Dataset, name: str, i: int | None) -> np.ndarray | None:
     """2-D values of layer `name` for slice `i` (layers without a slice dim are shared)."""
+    if name == "exdet":
+        nt1, nt2 = _layer(ds, "nt1", i), _layer(ds, "nt2", i)
+        if nt1 is None or nt2 is None:
+            return None
+        with np.errstate(invalid="ignore"):
+            code = np.where(nt1 < 0, 2.0, np.where(nt2 > 1, 1.0, 0.0))
+        return np.where(np.isfinite(nt1) & np.isfinite(nt2), code, np.nan)
     if name not in ds.data_vars:
         return None
     da = ds[name]
@@ -220,11 +242,12 @@ def _norm(name: str, values: np.ndarray):
     return Normalize(float(lo), float(hi) if hi > lo else float(lo) + 1.0)
 
 
-def _change_style():
-    codes = sorted(CHANGE_COLOURS)
-    cmap = ListedColormap([CHANGE_COLOURS[c][1] for c in codes])
+def _categorical_style(name: str = "change"):
+    colours = _CATEGORICAL[name]
+    codes = sorted(colours)
+    cmap = ListedColormap([colours[c][1] for c in codes])
     norm = BoundaryNorm([c - 0.5 for c in codes] + [codes[-1] + 0.5], cmap.N)
-    handles = [Patch(facecolor=CHANGE_COLOURS[c][1], edgecolor="0.3", label=CHANGE_COLOURS[c][0])
+    handles = [Patch(facecolor=colours[c][1], edgecolor="0.3", label=colours[c][0])
                for c in codes]
     return cmap, norm, handles
 
@@ -233,8 +256,8 @@ def _draw(ax, crs, ds, name: str, i: int | None, norm=None):
     """Draw layer `name` for slice `i`; return the mappable (None for none)."""
     values = _layer(ds, name, i)
     lon, lat = ds["lon"].values, ds["lat"].values
-    if name == "change":
-        cmap, cnorm, _ = _change_style()
+    if name in _CATEGORICAL:
+        cmap, cnorm, _ = _categorical_style(name)
         v = np.where(values >= 0, values, np.nan).astype(float)
         return ax.pcolormesh(lon, lat, v, cmap=cmap, norm=cnorm, transform=crs,
                              shading="nearest", zorder=2)
@@ -300,8 +323,8 @@ def _single(ds: xr.Dataset, name: str, i: int | None, path: Path, *, title: str,
     ax, crs = _axes(fig, 111, ds, i)
     mappable = _draw(ax, crs, ds, name, i)
     handles = _decorate(ax, crs, ds, i, name)
-    if name == "change":
-        handles = _change_style()[2] + handles
+    if name in _CATEGORICAL:
+        handles = _categorical_style(name)[2] + handles
     else:
         fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03,
                      label=_CONTINUOUS.get(name, ("", LAYERS.get(name, {}).get("long_name",
@@ -380,7 +403,7 @@ def _panel(ds: xr.Dataset, name: str, idx: list[int], path: str | os.PathLike, *
     w, h = _map_size(ds, width=3.4)
     fig = Figure(figsize=(w * ncols + 0.8, (h - 0.6) * nrows + 0.8), layout="constrained")
     gs = fig.add_gridspec(nrows, ncols)
-    if name == "change":
+    if name in _CATEGORICAL:
         norm = None
     else:
         # One colour scale for all panels, from the values of every panel drawn.
@@ -396,8 +419,8 @@ def _panel(ds: xr.Dataset, name: str, idx: list[int], path: str | os.PathLike, *
         if len(h_) > len(handles):
             handles = h_
         ax.set_title(slice_title(ds, i), fontsize=8)
-    if name == "change":
-        handles = _change_style()[2] + handles
+    if name in _CATEGORICAL:
+        handles = _categorical_style(name)[2] + handles
     else:
         fig.colorbar(mappable, ax=fig.axes, shrink=0.6,
                      label=_CONTINUOUS.get(name, ("", name))[1])
@@ -458,12 +481,20 @@ def novelty_map(
     ncols: int | None = None,
     dpi: int = 110,
 ) -> Path:
-    """Novel climate across the slices: MESS (default), NT1 or NT2, with MESS < 0 hatched."""
-    if variable not in ("mess", "nt1", "nt2"):
-        raise DataError(f"novelty_map: `variable` must be 'mess', 'nt1' or 'nt2', got {variable!r}")
+    """Novel climate across the slices, one panel per slice.
+
+    `variable` is "mess" (default; MESS < 0 hatched), "nt1", "nt2", or "exdet": the ExDet
+    classes analog / novel combination (NT2 > 1) / outside a univariate range (NT1 < 0), in
+    the colours of :data:`EXDET_COLOURS`.
+    """
+    if variable not in ("mess", "nt1", "nt2", "exdet"):
+        raise DataError("novelty_map: `variable` must be 'mess', 'nt1', 'nt2' or 'exdet', got "
+                        f"{variable!r}")
     _check(ds, variable)
+    title = ("ExDet classes (Mesgaran et al. 2014)" if variable == "exdet"
+             else _CONTINUOUS[variable][1])
     return _panel(ds, variable, _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
-                  suptitle=f"Climate novelty: {_CONTINUOUS[variable][1]}")
+                  suptitle=f"Climate novelty: {title}")
 
 
 def stability_map(ds: xr.Dataset, path: str | os.PathLike, *, dpi: int = 110) -> Path:
