@@ -199,3 +199,22 @@ def test_reachable_errors():
         reachable(chain, start, distance_km=[0, 1, 2])
     ds = movement(chain, start)
     assert set(ds.data_vars) == {"reachable_none", "reachable_unlimited"}
+
+
+@pytest.mark.parametrize("neighbours", [8, 16])
+def test_tiny_global_grid_has_single_edges(neighbours):
+    # 4 columns of 90 degrees: offsets +-2 wrap onto the same cell pair; edges must be unique
+    # and keep their own length (the sparse format would otherwise add duplicates)
+    g = make_grid(lon_min=-180, lon_max=180, lat_min=-45, lat_max=45, resolution=90.0)
+    rows, cols, km = grid_graph(g.lat.values, g.lon.values, neighbours=neighbours)
+    pairs = set(zip(rows.tolist(), cols.tolist()))
+    assert len(pairs) == rows.size and all(a < b for a, b in pairs)
+    src = np.zeros((g.sizes["lat"], g.sizes["lon"]), bool)
+    src[0, 0] = True
+    d = distance_from(_map(g, src), neighbours=neighbours).values
+    # one column over: the haversine distance between the two centres
+    from timeslice.grid import haversine_km
+
+    expect = haversine_km(g.lon.values[0], g.lat.values[0], g.lon.values[1], g.lat.values[0])
+    assert d[0, 1] == pytest.approx(float(expect), rel=1e-12)
+    assert d[0, 3] == pytest.approx(float(expect), rel=1e-12)  # across the dateline

@@ -14,6 +14,7 @@ centres with great-circle edge lengths on the authalic sphere, never distances i
 
 from __future__ import annotations
 
+import functools
 import re
 from collections.abc import Sequence
 from typing import Literal
@@ -154,7 +155,7 @@ def grid_graph(
         offsets += [(1, 2), (2, 1), (1, -2), (2, -1)]
     wrap = _is_global(lon)
     ii, jj = np.meshgrid(np.arange(ny), np.arange(nx), indexing="ij")
-    rows, cols, dist = [], [], []
+    rows, cols = [], []
     for di, dj in offsets:
         i2 = ii + di
         j2 = jj + dj
@@ -163,15 +164,30 @@ def grid_graph(
             j2 = j2 % nx
         else:
             ok &= (j2 >= 0) & (j2 < nx)
-        a_i, a_j, b_i, b_j = ii[ok], jj[ok], i2[ok], j2[ok]
-        if wrap and nx <= 2 * abs(dj):  # tiny global grids would double-count edges
-            continue
-        rows.append(a_i * nx + a_j)
-        cols.append(b_i * nx + b_j)
-        dist.append(haversine_km(lon[a_j], lat[a_i], lon[b_j], lat[b_i]))
-    if not rows:
+        ok &= ~((i2 == ii) & (j2 == jj))  # a tiny global grid can wrap onto itself
+        rows.append((ii[ok] * nx + jj[ok]).ravel())
+        cols.append((i2[ok] * nx + j2[ok]).ravel())
+    if not rows or sum(r.size for r in rows) == 0:
         return np.zeros(0, int), np.zeros(0, int), np.zeros(0)
-    return np.concatenate(rows), np.concatenate(cols), np.concatenate(dist)
+    a = np.concatenate(rows)
+    b = np.concatenate(cols)
+    # one undirected edge per pair: on small global grids different offsets can wrap onto the
+    # same pair, and the sparse format would add their lengths
+    lo, hi = np.minimum(a, b), np.maximum(a, b)
+    key = np.unique(lo.astype(np.int64) * (ny * nx) + hi)
+    lo, hi = key // (ny * nx), key % (ny * nx)
+    km = haversine_km(lon[lo % nx], lat[lo // nx], lon[hi % nx], lat[hi // nx])
+    return lo, hi, km
+
+
+@functools.lru_cache(maxsize=8)
+def _cached_graph(lat: tuple, lon: tuple, neighbours: int):
+    return grid_graph(np.asarray(lat), np.asarray(lon), neighbours=neighbours)
+
+
+def _graph_for(lat, lon, neighbours):
+    return _cached_graph(tuple(np.asarray(lat, float).tolist()),
+                         tuple(np.asarray(lon, float).tolist()), int(neighbours))
 
 
 def _distance_kernel(
@@ -241,7 +257,7 @@ def distance_from(
         if pas.shape != src.shape:
             raise DataError(f"`passable` has shape {pas.shape}, `sources` {src.shape}; "
                             "put them on one grid")
-    edges = grid_graph(sources["lat"].values, sources["lon"].values, neighbours=neighbours)
+    edges = _graph_for(sources["lat"].values, sources["lon"].values, neighbours)
     d = _distance_kernel(edges, ny * nx, src.ravel(), pas.ravel(), float(limit_km))
     out = xr.DataArray(d.reshape(ny, nx), dims=("lat", "lon"),
                        coords={"lat": sources["lat"], "lon": sources["lon"]}, name="distance")
@@ -390,7 +406,7 @@ def reachable(
     if passable is not None:
         rule = np.asarray(passable.transpose(*[d for d in (dim, "lat", "lon")
                                                if d in passable.dims]).values).astype(bool)
-    edges = grid_graph(suitable["lat"].values, suitable["lon"].values, neighbours=neighbours)
+    edges = _graph_for(suitable["lat"].values, suitable["lon"].values, neighbours)
     code = _reach_kernel(np.asarray(suitable.values), st_np, dist, edges, assumption, rule)
     out = xr.DataArray(code, dims=suitable.dims, coords=suitable.coords, name="reachable")
     out.attrs = {
