@@ -24,7 +24,8 @@ PERIODS = ("2041-2060", "2081-2100")
 
 
 def _ensemble_stack(make_stack, *, models=MODELS, scenarios=SCEN, periods=PERIODS):
-    labels, years, mods, scens, pers = ["baseline"], [1990.0], ["observed"], ["baseline"], ["1971-2000"]
+    labels, years, mods = ["baseline"], [1990.0], ["observed"]
+    scens, pers = ["baseline"], ["1971-2000"]
     for m, s, p in itertools.product(models, scenarios, periods):
         labels.append(f"{m}_{s}_{p}")
         years.append(2050.0 if p.startswith("2041") else 2090.0)

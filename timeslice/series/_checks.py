@@ -28,7 +28,9 @@ def check_dataarray(obj, *, name: str, dims: Sequence[str] = ("lat", "lon")) -> 
     return obj
 
 
-def check_stack(stack, *, required: Sequence[str] = ("suitable",), name: str = "stack") -> xr.Dataset:
+def check_stack(
+    stack, *, required: Sequence[str] = ("suitable",), name: str = "stack"
+) -> xr.Dataset:
     """`stack` must be a stacked-series Dataset holding `required` with a `slice` dim."""
     if not isinstance(stack, xr.Dataset):
         raise DataError(
@@ -45,7 +47,9 @@ def check_stack(stack, *, required: Sequence[str] = ("suitable",), name: str = "
     labels = [str(v) for v in stack["slice"].values]
     dupes = sorted({lab for lab in labels if labels.count(lab) > 1})
     if dupes:
-        raise DataError(f"`{name}`: slice labels are not unique: {dupes}; give each slice its own label")
+        raise DataError(
+            f"`{name}`: slice labels are not unique: {dupes}; give each slice its own label"
+        )
     return stack
 
 

@@ -128,7 +128,9 @@ def suitable_area(
     out.attrs = {
         "units": "km2",
         "long_name": "suitable area",
-        "description": "sum of spherical cell areas (R = 6371.0072 km) over cells with suitable == 1",
+        "description": (
+            "sum of spherical cell areas (R = 6371.0072 km) over cells with suitable == 1"
+        ),
     }
     return out
 
@@ -327,7 +329,8 @@ def bearing_deg(lon1, lat1, lon2, lat2) -> np.ndarray:
     Notes
     -----
     .. math:: \\theta = \\operatorname{atan2}\\big(\\sin\\Delta\\lambda\\cos\\varphi_2,\\;
-              \\cos\\varphi_1\\sin\\varphi_2 - \\sin\\varphi_1\\cos\\varphi_2\\cos\\Delta\\lambda\\big)
+              \\cos\\varphi_1\\sin\\varphi_2
+              - \\sin\\varphi_1\\cos\\varphi_2\\cos\\Delta\\lambda\\big)
 
     in [0, 360); NaN where the points coincide or either is NaN.
 

@@ -18,7 +18,8 @@ from timeslice.series._checks import check_stack, slice_labels, suitable_mask, v
 
 __all__ = ["assign", "check", "poisson_binomial_sf", "slice_windows"]
 
-PRESENT_YEAR_CE = 1950.0  # "present" of radiocarbon ages BP (Stuiver & Polach 1977, Radiocarbon 19:355)
+#: "Present" of ages in years BP (Stuiver & Polach 1977, Radiocarbon 19:355).
+PRESENT_YEAR_CE = 1950.0
 
 
 def slice_windows(years, *, max_offset_years: float | None = None) -> np.ndarray:
