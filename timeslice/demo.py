@@ -33,7 +33,7 @@ import numpy as np
 import xarray as xr
 from scipy import ndimage
 
-from timeslice.errors import ConfigError
+from timeslice.errors import ConfigError, DataError
 from timeslice.grid import cell_area, make_grid
 from timeslice.io import atomic_path
 
@@ -47,6 +47,7 @@ __all__ = [
     "generate",
     "sha256_of",
     "main",
+    "presence_probability",
     "write_default",
 ]
 
@@ -348,6 +349,75 @@ def _presence_probability(bio10: np.ndarray, bio12: np.ndarray) -> np.ndarray:
     return g * lgt
 
 
+def presence_probability(climate: xr.Dataset) -> xr.DataArray:
+    r"""Known presence probability of the invented plant for any climate.
+
+    Parameters
+    ----------
+    climate : xarray.Dataset
+        Either ``bio10`` (degC) and ``bio12`` (mm), e.g. a prepared slice, or monthly
+        ``tasmin``, ``tasmax`` (degC) and ``pr`` (mm per month) along a ``month`` or ``time``
+        dimension of length 12, e.g. ``demo_data/baseline.nc`` or the canonical output of
+        :func:`timeslice.readers.open_climate`.
+
+    Returns
+    -------
+    xarray.DataArray, [1]
+        ``true_presence_probability`` in 0..1 (NaN where the climate is missing).
+
+    Raises
+    ------
+    timeslice.errors.DataError
+        Variables missing, no 12-step month axis, or temperatures in kelvin.
+
+    Notes
+    -----
+    .. math:: p = \exp\left(-\tfrac12\left(\tfrac{B_{10} - \mu}{\sigma}\right)^2\right)
+              \left(1 + \exp\left(-\tfrac{B_{12} - m}{s}\right)\right)^{-1}
+
+    with :math:`B_{10}` the mean temperature of the warmest rolling quarter (wrapping
+    December-January) and :math:`B_{12}` the annual precipitation (O'Donnell, M. S. &
+    Ignizio, D. A. 2012. Bioclimatic predictors for supporting ecological applications in the
+    conterminous United States. USGS Data Series 691), and the parameters of :data:`NICHE`.
+    The true niche is :math:`p \ge` ``NICHE["presence_threshold"]``.
+    """
+    if not isinstance(climate, xr.Dataset):
+        raise DataError(f"`climate` must be an xarray.Dataset, got {type(climate).__name__}")
+    attrs = {"units": "1", "long_name": "known presence probability of the invented plant",
+             "description": "exp(-0.5*((bio10-opt)/sd)^2) / (1 + exp(-(bio12-mid)/scale)), "
+                            "parameters in timeslice.demo.NICHE"}
+    if "bio10" in climate and "bio12" in climate:
+        p = xr.apply_ufunc(_presence_probability, climate["bio10"], climate["bio12"],
+                           dask="parallelized", output_dtypes=[np.float64])
+        return p.rename("true_presence_probability").assign_attrs(attrs)
+    missing = [v for v in ("tasmin", "tasmax", "pr") if v not in climate]
+    if missing:
+        raise DataError(
+            f"`climate` lacks {', '.join(missing)} (found {', '.join(map(str, climate.data_vars))}); "
+            "give bio10 and bio12, or monthly tasmin, tasmax and pr"
+        )
+    dim = next((d for d in ("month", "time") if climate.sizes.get(d) == 12), None)
+    if dim is None:
+        raise DataError(
+            f"`climate` needs a `month` or `time` dimension of length 12, got dims "
+            f"{dict(climate.sizes)}; reduce it to a 12-month climatology first"
+        )
+    for v in ("tasmin", "tasmax"):
+        if str(climate[v].attrs.get("units", "degC")).strip() in {"K", "kelvin", "degK", "degrees_K"}:
+            raise DataError(f"`climate.{v}` is in kelvin; convert to degC first "
+                            "(timeslice.readers.open_climate does)")
+
+    def kernel(tn, tx, pr):
+        b10, b12 = _bio10_bio12(np.moveaxis(tn, -1, 0), np.moveaxis(tx, -1, 0),
+                                np.moveaxis(pr, -1, 0))
+        return _presence_probability(b10, b12)
+
+    p = xr.apply_ufunc(kernel, climate["tasmin"], climate["tasmax"], climate["pr"],
+                       input_core_dims=[[dim]] * 3, dask="parallelized",
+                       output_dtypes=[np.float64])
+    return p.rename("true_presence_probability").assign_attrs(attrs)
+
+
 def _block_mean(a: np.ndarray, k: int, weights_lat: np.ndarray) -> np.ndarray:
     """Area-weighted mean over k x k blocks of the last two axes."""
     *lead, ny, nx = a.shape
@@ -423,6 +493,14 @@ def _float_enc(lsd: int | None = None) -> dict:
     if lsd is not None:
         enc["least_significant_digit"] = lsd
     return enc
+
+
+def _quantise(a: np.ndarray, lsd: int) -> np.ndarray:
+    """Round to a power-of-two step no coarser than 10**-lsd (as netCDF4's
+    ``least_significant_digit``), as float32: trailing mantissa bits become zero, so zlib
+    compresses well and the stored values are known exactly before writing."""
+    scale = 2.0 ** np.ceil(np.log2(10.0**lsd))
+    return (np.around(a * scale) / scale).astype(np.float32)
 
 
 def _write_text(text: str, path: Path) -> None:
@@ -753,7 +831,8 @@ class _World:
         self.z = self.bz[np.ix_(fy, fx)]
         self.ice = self.bice[np.ix_(fy, fx)]
         self.land = self.z > 0
-        self.fine = {v: a[:, fy][:, :, fx] for v, a in self.truth.items()}
+        # quantised as stored, so that truth.json and presence_probability(baseline.nc) agree
+        self.fine = {v: _quantise(a[:, fy][:, :, fx], 2) for v, a in self.truth.items()}
         self.dist = _coast_distance_km(self.land, self.lat, res)
         cg = make_grid(lon_min=MODEL_EXTENT[0], lon_max=MODEL_EXTENT[1],
                        lat_min=MODEL_EXTENT[2], lat_max=MODEL_EXTENT[3],
@@ -856,7 +935,7 @@ def _write_baseline(w: _World, path: Path, seed: int) -> Path:
                       attrs=_global_attrs(seed, model="observed", scenario="baseline",
                                           period=f"{_BASELINE_YEARS[0]}-{_BASELINE_YEARS[1]}",
                                           note="values over sea are missing on purpose"))
-    _write_nc(base, path, {v: _float_enc(lsd=2) for v in ("tasmin", "tasmax", "pr")})
+    _write_nc(base, path, {v: _float_enc() for v in ("tasmin", "tasmax", "pr")})  # quantised
     return path
 
 
