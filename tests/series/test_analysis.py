@@ -34,7 +34,14 @@ def test_analyse_series_everything(stack_factory):
         warnings.simplefilter("ignore", TimesliceWarning)
         res = analyse_series(ds, window=(-19050, 2000), rate="1 km/yr", records=rec,
                              records_source="dated.csv")
-    assert set(res.tables) == {"summary", "movement", "agreement", "partition", "hindcast"}
+    assert set(res.tables) == {"summary", "detail", "movement", "agreement", "partition",
+                               "hindcast"}
+    from timeslice.series import DETAIL_COLUMNS, SUMMARY_COLUMNS
+
+    assert list(res.tables["summary"].columns) == SUMMARY_COLUMNS
+    assert list(res.tables["detail"].columns)[: len(SUMMARY_COLUMNS + DETAIL_COLUMNS)] == (
+        SUMMARY_COLUMNS + DETAIL_COLUMNS)
+    assert "limited_loss_km2" in res.tables["detail"]
     assert "refugium_window_analog" in res.series
     assert res.series["dynamic_stability_chain"].sizes["chain"] == 6
     assert set(res.ensemble["source"].values) == {"model", "scenario", "model:scenario"}
@@ -46,9 +53,10 @@ def test_analyse_series_everything(stack_factory):
 def test_analyse_series_notes_without_rate_and_one_model(stack_factory):
     ds = stack_factory()  # one model only
     ds["suitable"][:, 0, 0] = 1  # the record's cell is land and suitable in every slice
-    with pytest.warns(TimesliceWarning, match="records skipped"):
+    with pytest.warns(TimesliceWarning, match="records skipped") as rec:
         res = analyse_series(ds, records=pd.DataFrame({"lon": [-9.5, -9.5], "lat": [40.5, 40.5],
                                                        "age_bp": [21000, 900000]}))
+    assert len(rec) == 1  # said once, not once per chain
     assert res.ensemble is None
     assert any("no rate" in n for n in res.notes)
     assert any("fewer than two climate models" in n for n in res.notes)
@@ -87,3 +95,13 @@ def test_every_added_layer_is_described(stack_factory):
                 assert len(out[v].attrs["flag_meanings"].split()) == fv.size, v
                 if out[v].dtype != bool:
                     assert fv.dtype == out[v].dtype, v
+
+
+def test_hindcast_skip_warning_said_once(stack_factory):
+    ds = _full_stack(stack_factory)  # two paleo chains
+    ds["suitable"][:, 0, 0] = 1
+    rec = pd.DataFrame({"lon": [-9.5, -9.5], "lat": [40.5, 40.5], "age_bp": [21000, 900000]})
+    with pytest.warns(TimesliceWarning, match="1 of 2 records skipped") as caught:
+        res = analyse_series(ds, records=rec)
+    assert len([w for w in caught if issubclass(w.category, TimesliceWarning)]) == 1
+    assert len(res.tables["hindcast"]) == 2 * 2  # per chain: one slice row + the "all" row

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import warnings
 from collections.abc import Sequence
 from typing import Literal
 
@@ -11,7 +12,9 @@ import pandas as pd
 import xarray as xr
 
 from timeslice.errors import DataError
+from timeslice.errors import TimesliceWarning
 from timeslice.series._checks import check_stack
+from timeslice.series.change import SUMMARY_COLUMNS
 from timeslice.series.ensemble import agreement, agreement_table, factorial, partition
 from timeslice.series.ensemble import partition_table
 from timeslice.series.hindcast import check as hindcast_check
@@ -33,8 +36,9 @@ class SeriesResult:
         Agreement and variance partitioning across climate models (for ``ensemble.nc``);
         None with fewer than two models.
     tables : dict of str to pandas.DataFrame
-        ``"summary"`` (one row per slice) and, where computed, ``"movement"``,
-        ``"agreement"``, ``"partition"``, ``"hindcast"``.
+        ``"summary"`` (one row per slice, exactly the summary.csv columns), ``"detail"``
+        (the same rows with every detail and movement column) and, where computed,
+        ``"movement"``, ``"agreement"``, ``"partition"``, ``"hindcast"``.
     notes : list of str
         What was skipped and why (for the report and the log).
     """
@@ -136,7 +140,7 @@ def analyse_series(
     series, summary = summarise(stack, reference=reference, chains="auto", detail=True,
                                 window=window, rate=rate, through=through,
                                 neighbours=neighbours)
-    tables: dict[str, pd.DataFrame] = {"summary": summary}
+    tables: dict[str, pd.DataFrame] = {"summary": summary[SUMMARY_COLUMNS], "detail": summary}
     chain_map = find_chains(stack, reference=reference)
     if chain_map:
         tables["movement"] = movement_table(stack, reference=reference, chains=chain_map,
@@ -170,10 +174,20 @@ def analyse_series(
             raise DataError(f"{records_source}: the series has no past slices to check dated "
                             "records against; add paleo slices or leave the records out")
         rows = []
-        for name, labels in paleo.items():
-            t = hindcast_check(records, stack.sel(slice=labels), source=records_source,
-                               max_offset_years=max_offset_years)
-            t.insert(0, "chain", name)
-            rows.append(t)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", TimesliceWarning)
+            for name, labels in paleo.items():
+                t = hindcast_check(records, stack.sel(slice=labels), source=records_source,
+                                   max_offset_years=max_offset_years)
+                t.insert(0, "chain", name)
+                rows.append(t)
+        # the same records are skipped in every chain: say so once
+        for msg in dict.fromkeys(str(w.message) for w in caught
+                                 if issubclass(w.category, TimesliceWarning)):
+            warnings.warn(msg, TimesliceWarning, stacklevel=2)
+            notes.append(f"hindcast: {msg}")
+        for w in caught:
+            if not issubclass(w.category, TimesliceWarning):
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
         tables["hindcast"] = pd.concat(rows, ignore_index=True)
     return SeriesResult(series=series, ensemble=ensemble, tables=tables, notes=notes)
