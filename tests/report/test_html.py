@@ -109,3 +109,18 @@ def test_headline_figures_and_table_titles(summary_df, tmp_path):
     ctx.key_numbers = [("only label",)]
     with pytest.raises(DataError, match="key_numbers"):
         render_report(ctx)
+
+
+def test_refugia_card_area_from_cell_areas(series_ds, summary_df):
+    from timeslice.grid import cell_area
+    from timeslice.report.html import key_numbers
+
+    cards = key_numbers(summary_df, series=series_ds)
+    label, value, detail = cards[1]
+    assert label.startswith("Refugia (suitable in all 4 slices)")
+    # sum of spherical cell areas (timeslice.grid.cell_area, checked against pyproj there)
+    expected = float(cell_area(series_ds).where(series_ds.refugium).sum())
+    assert expected > 0
+    assert value == f"{expected:,.0f} km²"
+    none = series_ds.assign(refugium=series_ds.refugium & False)
+    assert key_numbers(summary_df, series=none)[1][1] == "0 km²"

@@ -4,10 +4,17 @@ run manifest."""
 from __future__ import annotations
 
 from timeslice.report.geotiff import export
-from timeslice.report.html import DEFAULT_CAUTIONS, ReportContext, render_report, write_report
+from timeslice.report.html import (
+    DEFAULT_CAUTIONS,
+    ReportContext,
+    key_numbers,
+    render_report,
+    write_report,
+)
 from timeslice.report.manifest import hash_file, package_versions, read_manifest, write_manifest
 from timeslice.report.maps import (
     CHANGE_COLOURS,
+    EXDET_COLOURS,
     change_map,
     novelty_map,
     series_panel,
@@ -27,6 +34,7 @@ from timeslice.report.tables import write_csv
 __all__ = [
     "CHANGE_COLOURS",
     "DEFAULT_CAUTIONS",
+    "EXDET_COLOURS",
     "ReportContext",
     "area_through_time",
     "centroid_track",
@@ -34,6 +42,7 @@ __all__ = [
     "export",
     "gain_loss_bars",
     "hash_file",
+    "key_numbers",
     "novelty_map",
     "open_series",
     "package_versions",

@@ -20,7 +20,7 @@ import pandas as pd
 from timeslice.errors import DataError, InputFileError
 from timeslice.io import atomic_path
 
-__all__ = ["DEFAULT_CAUTIONS", "ReportContext", "render_report", "write_report"]
+__all__ = ["DEFAULT_CAUTIONS", "ReportContext", "key_numbers", "render_report", "write_report"]
 
 #: The cautions every report carries in full.
 DEFAULT_CAUTIONS: tuple[str, ...] = (
@@ -211,7 +211,26 @@ TABLE_TITLES = {
 }
 
 
-def _key_numbers(summary: pd.DataFrame | None) -> list[tuple[str, ...]]:
+def key_numbers(summary: pd.DataFrame | None, *, series=None) -> list[tuple[str, ...]]:
+    """Headline cards for the top of the report.
+
+    Parameters
+    ----------
+    summary : pandas.DataFrame
+        The per-slice summary (``scenario``, ``suitable_area_km2``, optionally ``period``,
+        ``novel_area_km2``).
+    series : xarray.Dataset, optional
+        The summarised series; with a ``refugium(lat, lon)`` layer a card gives the refugia
+        area (sum of spherical cell areas) and the latitude-longitude box they span.
+
+    Returns
+    -------
+    list of (label, value, detail)
+        Reference suitable area; refugia (when `series` is given); per scenario and period
+        the median over models of the change in suitable area in % of the reference area,
+        :math:`100 (A_t - A_{ref}) / A_{ref}`, its range, and the share of the suitable area in
+        novel climate, :math:`\\sum A_{novel} / \\sum A_t` over the models.
+    """
     need = {"scenario", "suitable_area_km2"}
     if summary is None or summary.empty or not need <= set(summary.columns):
         return []
@@ -223,6 +242,8 @@ def _key_numbers(summary: pd.DataFrame | None) -> list[tuple[str, ...]]:
         return out
     a0 = float(base["suitable_area_km2"].iloc[0])
     out.append(("Suitable area, reference slice", f"{a0:,.0f} km²"))
+    if series is not None and "refugium" in getattr(series, "data_vars", {}):
+        out.append(_refugia_card(series))
     when = "period" if "period" in s.columns else "year"
     rest = s[s["scenario"] != "baseline"]
     for (scen, per), g in rest.groupby(["scenario", when], sort=False):
@@ -239,6 +260,21 @@ def _key_numbers(summary: pd.DataFrame | None) -> list[tuple[str, ...]]:
                 detail += f"; {100 * float(g['novel_area_km2'].sum()) / tot:.0f} % in novel climate"
         out.append((f"{scen}, {per}: change in suitable area", value, detail))
     return out
+
+
+def _refugia_card(series) -> tuple[str, str, str]:
+    from timeslice.grid import cell_area
+
+    ref = np.asarray(series["refugium"].transpose("lat", "lon").values).astype(bool)
+    area = float((cell_area(series).values * ref).sum())
+    n = series.sizes.get("slice", 0)
+    label = f"Refugia (suitable in all {n} slices)" if n else "Refugia"
+    if not ref.any():
+        return (label, "0 km²", "no cell is suitable in every slice")
+    lat = series["lat"].values[ref.any(axis=1)]
+    lon = series["lon"].values[ref.any(axis=0)]
+    return (label, f"{area:,.0f} km²",
+            f"within {lat.min():.1f}–{lat.max():.1f}° N, {lon.min():.1f}–{lon.max():.1f}° E")
 
 
 def render_report(context: ReportContext) -> str:
@@ -262,7 +298,7 @@ def render_report(context: ReportContext) -> str:
     parts.append(f"<header><h1>{title}</h1>{sub}<p>Generated {now}</p></header><main>")
 
     body: list[str] = []
-    cards = list(context.key_numbers) or _key_numbers(context.summary)
+    cards = list(context.key_numbers) or key_numbers(context.summary)
     if cards:
         items = []
         for card in cards:
