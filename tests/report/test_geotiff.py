@@ -71,3 +71,24 @@ def test_unknown_variable_named(series_ds, tmp_path):
         export(series_ds, tmp_path, variables=["nope"])
     with pytest.raises(DataError, match="xarray.Dataset"):
         export(series_ds["suitability"], tmp_path)
+
+
+def test_export_from_written_series(series_ds, tmp_path):
+    from timeslice.report.geotiff import export_file
+    from timeslice.report.netcdf import write_series
+
+    run = tmp_path / "run"
+    write_series(series_ds, run / "series.nc")
+    files = export_file(run, variables=["change", "refugium"])
+    assert files[0].parent == run / "geotiff"
+    with rasterio.open(run / "geotiff" / "change_alder_21ka.tif") as r:
+        np.testing.assert_array_equal(r.read(1)[::-1], series_ds["change"].values[1])
+        assert r.tags()["flag_meanings"] == "not_land absent gain loss stable"
+    with rasterio.open(run / "geotiff" / "refugium.tif") as r:
+        np.testing.assert_array_equal(r.read(1)[::-1].astype(bool), series_ds.refugium.values)
+
+
+def test_lazy_layers_are_exported(series_ds, tmp_path):
+    files = export(series_ds.chunk({"slice": 1}), tmp_path, variables=["mess"])
+    with rasterio.open(files[2]) as r:
+        np.testing.assert_array_equal(r.read(1)[::-1], series_ds["mess"].values[2])

@@ -3,7 +3,7 @@ run manifest."""
 
 from __future__ import annotations
 
-from timeslice.report.geotiff import export
+from timeslice.report.geotiff import export, export_file
 from timeslice.report.html import (
     DEFAULT_CAUTIONS,
     ReportContext,
@@ -40,6 +40,7 @@ __all__ = [
     "centroid_track",
     "change_map",
     "export",
+    "export_file",
     "gain_loss_bars",
     "hash_file",
     "key_numbers",

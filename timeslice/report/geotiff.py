@@ -15,7 +15,7 @@ from timeslice.grid import cell_bounds
 from timeslice.io import atomic_path
 from timeslice.report._layers import LAYERS, flag_pairs
 
-__all__ = ["export"]
+__all__ = ["export", "export_file"]
 
 _DEFAULT_VARIABLES = (
     "suitability", "suitable", "mess", "mod", "nt1", "nt2", "change",
@@ -124,13 +124,13 @@ def export(
                 "with at most one more dimension such as slice"
             )
         da = da.transpose(*extra, "lat", "lon")
-        values = np.asarray(da.values)
-        if values.dtype == bool:
-            values, nodata = values.astype("uint8"), 255
-        elif values.dtype.kind in "iu":
-            nodata = -1 if values.dtype.kind == "i" else None
+        kind = da.dtype
+        if kind == bool:
+            out_dtype, nodata = "uint8", 255
+        elif kind.kind in "iu":
+            out_dtype, nodata = kind.name, (-1 if kind.kind == "i" else None)
         else:
-            values, nodata = values.astype("float32"), float("nan")
+            out_dtype, nodata = "float32", float("nan")
         spec = LAYERS.get(str(name), {})
         desc = str(da.attrs.get("long_name", spec.get("long_name", name)))
         tags = {"units": str(da.attrs.get("units", spec.get("units", "1")))}
@@ -147,12 +147,50 @@ def export(
                 for key in ("year", "period", "model", "scenario"):
                     if key in ds.coords and ds[key].dims == (dim,):
                         t[key] = str(ds[key].values[i])
-                _write_one(values[i][::-1].copy(), path, transform=transform, nodata=nodata,
+                # one slice in memory at a time (lazy layers are computed slice by slice)
+                band = np.asarray(da.isel({dim: i}).values).astype(out_dtype)
+                _write_one(band[::-1].copy(), path, transform=transform, nodata=nodata,
                            description=f"{desc} ({label})", tags=t, driver=driver)
                 written.append(path)
         else:
             path = out / f"{_safe(name)}.tif"
-            _write_one(values[::-1].copy(), path, transform=transform, nodata=nodata,
+            band = np.asarray(da.values).astype(out_dtype)
+            _write_one(band[::-1].copy(), path, transform=transform, nodata=nodata,
                        description=desc, tags=tags, driver=driver)
             written.append(path)
     return written
+
+
+def export_file(
+    series_path: str | os.PathLike,
+    out_dir: str | os.PathLike | None = None,
+    *,
+    variables: Sequence[str] | None = None,
+) -> list[Path]:
+    """Export the layers of a written ``series.nc`` (or ``ensemble.nc``) as GeoTIFFs.
+
+    Parameters
+    ----------
+    series_path : path-like
+        A NetCDF file from :func:`timeslice.report.netcdf.write_series`, or a run folder
+        holding ``series.nc``.
+    out_dir : path-like, optional
+        Target folder; default ``geotiff/`` beside the NetCDF file.
+    variables : sequence of str, optional
+        Layers to export (default: every known layer present).
+
+    Returns
+    -------
+    list of pathlib.Path
+    """
+    from timeslice.report.netcdf import open_series
+
+    src = Path(series_path)
+    if src.is_dir():
+        src = src / "series.nc"
+    target = Path(out_dir) if out_dir is not None else src.parent / "geotiff"
+    ds = open_series(src, chunks={})
+    try:
+        return export(ds, target, variables=variables)
+    finally:
+        ds.close()
