@@ -139,3 +139,51 @@ def test_partition_shares_sum_to_one(na, nb, nc, seed):
     share = parts["share"].values
     assert np.all(share >= -1e-6)
     np.testing.assert_allclose(share.sum(axis=0), 1.0, rtol=1e-5)
+
+
+@_SETTINGS
+@given(stacks(), st.data(), st.sampled_from([8, 16]))
+def test_path_distance_symmetric_and_triangle(ds, data, neighbours):
+    # shortest paths on an undirected graph: d(a, b) = d(b, a), d(a, c) <= d(a, b) + d(b, c),
+    # and never shorter than the great-circle distance between the centres
+    from timeslice.grid import haversine_km
+    from timeslice.series.dispersal import distance_from
+
+    s = ds["suitable"].isel(slice=0)
+    pas = s >= 0
+    land = [tuple(map(int, ij)) for ij in np.argwhere(pas.values)]
+    if not land:
+        return
+    # sources are always passable, so symmetry holds between passable cells
+    cells = [data.draw(st.sampled_from(land)) for _ in range(3)]
+
+    def dist_from(c):
+        src = xr.zeros_like(s, dtype=bool)
+        src[c] = True
+        return distance_from(src, passable=pas, neighbours=neighbours).values
+
+    d = [dist_from(c) for c in cells]
+    a, b, c = cells
+    assert d[0][b] == d[1][a] or (np.isinf(d[0][b]) and np.isinf(d[1][a]))
+    if np.isfinite(d[0][b]) and np.isfinite(d[1][c]):
+        assert d[0][c] <= d[0][b] + d[1][c] + 1e-6
+    if np.isfinite(d[0][b]):
+        gc = haversine_km(s["lon"].values[a[1]], s["lat"].values[a[0]],
+                          s["lon"].values[b[1]], s["lat"].values[b[0]])
+        assert d[0][b] >= float(gc) * (1 - 1e-9) - 1e-9
+
+
+@_SETTINGS
+@given(stacks())
+def test_limited_without_bounds_is_unlimited(ds):
+    # through any cell with a distance larger than the grid, limited movement reaches every
+    # suitable cell once something is occupied
+    from timeslice.series.dispersal import reachable
+
+    s = ds["suitable"]
+    start = s.isel(slice=0) == 1
+    lim = reachable(s, start, distance_km=1e5, through="any").values
+    unl = reachable(s, start, assumption="unlimited").values
+    for t in range(1, s.sizes["slice"]):
+        if (lim[t - 1] == 1).any():
+            np.testing.assert_array_equal(lim[t], unl[t])

@@ -334,6 +334,11 @@ def bearing_deg(lon1, lat1, lon2, lat2) -> np.ndarray:
 
     in [0, 360); NaN where the points coincide or either is NaN.
 
+    Examples
+    --------
+    >>> float(bearing_deg(0.0, 0.0, 1.0, 0.0))  # due east along the equator
+    90.0
+
     References
     ----------
     Snyder, J. P. (1987). Map Projections: A Working Manual. USGS Professional Paper 1395,

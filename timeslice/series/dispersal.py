@@ -77,6 +77,13 @@ def parse_rate(rate: str | float | int, *, name: str = "rate") -> float:
     Returns
     -------
     float, [km yr-1]
+
+    Examples
+    --------
+    >>> parse_rate("500 km/kyr")
+    0.5
+    >>> parse_rate("10 km per decade")
+    1.0
     """
     accepted = "e.g. '2 km/yr', '500 km/kyr', '10 km/decade', '300 m/yr'"
     if isinstance(rate, bool) or not isinstance(rate, (str, int, float)):

@@ -154,6 +154,11 @@ def poisson_binomial_sf(k: int, p: np.ndarray) -> float:
     """P(K >= k) for a sum K of independent Bernoulli(p_i) trials (exact, by convolution).
 
     With all p_i equal this is the binomial upper tail (``scipy.stats.binom.sf(k - 1, n, p)``).
+
+    Examples
+    --------
+    >>> round(poisson_binomial_sf(1, [0.3, 0.6]), 6)  # 1 - 0.7 * 0.4
+    0.72
     """
     pmf = np.array([1.0])
     for pi in np.asarray(p, dtype=float):
