@@ -105,3 +105,10 @@ def test_hindcast_skip_warning_said_once(stack_factory):
         res = analyse_series(ds, records=rec)
     assert len([w for w in caught if issubclass(w.category, TimesliceWarning)]) == 1
     assert len(res.tables["hindcast"]) == 2 * 2  # per chain: one slice row + the "all" row
+
+
+def test_analyse_series_rate_error_names_the_setting(stack_factory):
+    from timeslice.errors import ConfigError
+
+    with pytest.raises(ConfigError, match=r"`series.dispersal_rate` = '5' has no unit"):
+        analyse_series(stack_factory(), rate="5", rate_key="series.dispersal_rate")

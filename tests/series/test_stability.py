@@ -210,8 +210,10 @@ def test_select_window_labels_and_years(stack_factory):
     assert list(past["slice"].values) == ["baseline", "21ka", "6ka"]
     with pytest.raises(DataError, match="contain no slice"):
         select_window(ds, (5000.0, 6000.0))
-    with pytest.raises(DataError, match=r"unknown slice label\(s\) \['3ka'\]"):
+    with pytest.raises(DataError, match=r"unknown slice label\(s\) or period\(s\) \['3ka'\]"):
         select_window(ds, ["3ka"])
+    # periods select every slice that has them (the fixture's periods are the years as text)
+    assert list(select_window(ds, ["-19050", "6ka"])["slice"].values) == ["21ka", "6ka"]
 
 
 def test_analog_refugium_is_inside_refugium(stack_factory):

@@ -15,6 +15,7 @@ from timeslice.errors import DataError
 from timeslice.errors import TimesliceWarning
 from timeslice.series._checks import check_stack
 from timeslice.series.change import SUMMARY_COLUMNS
+from timeslice.series.dispersal import parse_rate
 from timeslice.series.ensemble import agreement, agreement_table, factorial, partition
 from timeslice.series.ensemble import partition_table
 from timeslice.series.hindcast import check as hindcast_check
@@ -104,6 +105,7 @@ def analyse_series(
     records: pd.DataFrame | None = None,
     records_source: str = "dated records",
     max_offset_years: float | None = None,
+    rate_key: str = "rate",
 ) -> SeriesResult:
     """Summarise a stacked series fully: change, stability, refugia, movement, ensembles,
     hindcast.
@@ -130,12 +132,16 @@ def analyse_series(
         File name for messages.
     max_offset_years : float, optional
         Cap on |record year − slice year| in the hindcast.
+    rate_key : str, default "rate"
+        Name of the rate setting in error messages (e.g. ``"series.dispersal_rate"``).
 
     Returns
     -------
     SeriesResult
     """
     check_stack(stack)
+    if rate is not None:
+        parse_rate(rate, name=rate_key)  # fail early, naming the setting
     notes: list[str] = []
     series, summary = summarise(stack, reference=reference, chains="auto", detail=True,
                                 window=window, rate=rate, through=through,

@@ -87,7 +87,8 @@ def select_window(obj, window=None, *, dim: str = "slice"):
     obj : xarray.Dataset or xarray.DataArray
         Anything with dim `dim` (and a ``year`` coordinate for a year range).
     window : None, sequence of str, or (float, float)
-        Slice labels, or ``(year_min, year_max)`` in years CE, inclusive (a slice *a* years
+        Slice labels or periods (a period selects every slice with it, e.g. all models'
+        ``"21 ka BP"``), or ``(year_min, year_max)`` in years CE, inclusive (a slice *a* years
         BP has year 1950 − a, so 21 ka BP → present is ``(-19050, 2000)``).
 
     Returns
@@ -115,10 +116,18 @@ def select_window(obj, window=None, *, dim: str = "slice"):
                 f"{sorted(years.tolist())}); widen the window"
             )
         return obj.isel({dim: np.flatnonzero(keep)})
-    from timeslice.series._checks import check_labels
-
-    labels = set(check_labels(obj, window, what="window", dim=dim))
-    keep = [i for i, v in enumerate(obj[dim].values) if str(v) in labels]
+    labels = [str(v) for v in obj[dim].values] if dim in obj.coords else []
+    periods = ([str(v) for v in obj["period"].values]
+               if "period" in obj.coords and obj["period"].dims == (dim,) else [])
+    wanted = [str(w) for w in window]
+    unknown = [w for w in wanted if w not in labels and w not in periods]
+    if unknown or not wanted:
+        raise DataError(
+            f"`window`: unknown slice label(s) or period(s) {unknown}; choose slice labels "
+            f"from {labels}" + (f" or periods from {sorted(set(periods))}" if periods else "")
+        )
+    keep = [i for i, lab in enumerate(labels)
+            if lab in wanted or (periods and periods[i] in wanted)]
     return obj.isel({dim: keep})
 
 
