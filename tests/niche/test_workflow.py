@@ -94,3 +94,67 @@ def test_load_bad_files(tmp_path):
     junk.write_bytes(b"not a pickle")
     with pytest.raises(InputFileError, match="not a .*timeslice model file"):
         load_model(junk)
+
+
+def test_fit_niche_predictor_all_missing(world):
+    ds, rec, _ = world
+    ds2 = ds.assign(bio15=ds["bio15"] * np.nan)
+    with pytest.raises(DataError, match="predictor 'bio15' is missing everywhere in the calibration area"):
+        fit_niche(rec, ds2, n_background=300)
+
+
+def test_fit_niche_buffer_without_land(world):
+    ds, rec, _ = world
+    # records sit up to 0.45 cells from their cell centre; a 0.5 km buffer reaches no centre
+    with pytest.raises(DataError, match="contains no land cell; increase buffer_km"):
+        fit_niche(rec, ds, buffer_km=0.5)
+
+
+def test_fit_niche_background_warns_when_area_is_small(world):
+    from timeslice.errors import TimesliceWarning
+
+    ds, rec, _ = world
+    with pytest.warns(TimesliceWarning, match="using every cell once") as record:
+        fit = fit_niche(rec, ds, n_background=10**6, importance_repeats=0)
+    assert record[0].filename == __file__  # points at the caller, not at the library
+    assert fit.params["n_background"] == int(fit.calibration_area.sum())
+
+
+def test_fit_niche_options_hull_thin_mask_target_group(world, tmp_path):
+    ds, rec, _ = world
+    f1 = fit_niche(rec, ds, calibration="hull_buffer", thin=30.0, n_background=500, importance_repeats=0)
+    assert f1.params["calibration"] == "hull_buffer" and f1.params["thin"] == 30.0
+    # a mask file on the model grid
+    mask = f1.calibration_area.astype("int8").to_dataset(name="mask")
+    mask["lat"].attrs.update(standard_name="latitude", units="degrees_north")
+    mask["lon"].attrs.update(standard_name="longitude", units="degrees_east")
+    mask.to_netcdf(tmp_path / "mask.nc")
+    f2 = fit_niche(rec, ds, calibration="mask", calibration_mask=tmp_path / "mask.nc", n_background=500,
+                   importance_repeats=0)
+    assert bool((f2.calibration_area == f1.calibration_area).all())
+    # target-group background from a file of related species' records
+    tg = tmp_path / "group.csv"
+    rec.assign(lon=rec["lon"] + 0.3).rename(columns={"lon": "decimalLongitude", "lat": "decimalLatitude"})[
+        ["decimalLongitude", "decimalLatitude"]
+    ].to_csv(tg, index=False)
+    f3 = fit_niche(rec, ds, background_file=tg, n_background=500, importance_repeats=0, cv_folds=3)
+    assert f3.params["background"] == "target-group file"
+    assert len(f3.background) <= 500
+
+
+def test_calibration_mask_errors(world, tmp_path):
+    from timeslice.niche.data import calibration_area_from_mask
+
+    ds, _, _ = world
+    with pytest.raises(InputFileError, match="calibration mask file not found"):
+        calibration_area_from_mask(tmp_path / "none.nc", ds)
+    small = ds["land"].isel(lat=slice(0, 10)).astype("int8")
+    with pytest.raises(DataError, match=r"differs from the model grid \(50 x 100\); regrid it"):
+        calibration_area_from_mask(small, ds)
+
+
+def test_tables_and_params_are_plain(fitted):
+    import json
+
+    assert set(fitted.tables()) == {"cleaning", "screening", "evaluation", "response", "importance"}
+    json.dumps(fitted.params)  # the manifest can store every choice

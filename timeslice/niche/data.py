@@ -721,11 +721,13 @@ def extract(ds: xr.Dataset, points: pd.DataFrame, *, variables: Sequence[str]) -
     lat = points["lat"].to_numpy(dtype=float)
     rows, cols, _ = _cell_index(ds, lon, lat)
     out = pd.DataFrame({"lon": lon, "lat": lat})
+    ir = xr.DataArray(rows, dims="point")
+    ic = xr.DataArray(cols, dims="point")
     for v in variables:
         da = ds[v]
         extra = [d for d in da.dims if d not in ("lat", "lon")]
         if extra:
             raise DataError(f"predictor {v!r} has extra dimension(s) {extra}; select one slice first")
-        values = np.asarray(da.transpose("lat", "lon").values, dtype=float)
-        out[v] = values[rows, cols]
+        # pointwise selection reads only the chunks holding points when `ds` is dask-backed
+        out[v] = np.asarray(da.isel(lat=ir, lon=ic).values, dtype=float)
     return out

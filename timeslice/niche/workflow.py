@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import inspect
+import warnings
 import os
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -13,7 +14,7 @@ import pandas as pd
 import xarray as xr
 from sklearn.inspection import permutation_importance
 
-from timeslice.errors import ConfigError, DataError
+from timeslice.errors import ConfigError, DataError, TimesliceWarning
 from timeslice.niche import data as ndata
 from timeslice.niche import evaluate as nev
 from timeslice.niche.models import make_model
@@ -60,6 +61,16 @@ class NicheFit:
     response: pd.DataFrame
     importance: pd.DataFrame
     params: dict = dataclasses.field(default_factory=dict)
+
+    def tables(self) -> dict[str, pd.DataFrame]:
+        """The report tables by name: cleaning, screening, evaluation, response, importance."""
+        return {
+            "cleaning": self.cleaning,
+            "screening": self.screening,
+            "evaluation": self.evaluation,
+            "response": self.response,
+            "importance": self.importance,
+        }
 
     def suitability(self, X) -> np.ndarray:
         """Suitability of rows of `X` (DataFrame with the model's variables, or array)."""
@@ -142,7 +153,11 @@ def _summary_rows(evaluation: pd.DataFrame) -> pd.DataFrame:
     for m in metrics:
         mean[m] = float(per[m].mean(skipna=True)) if per[m].notna().any() else np.nan
         sd[m] = float(per[m].std(ddof=1, skipna=True)) if per[m].notna().sum() > 1 else np.nan
-    return pd.concat([per, pd.DataFrame([mean, sd])], ignore_index=True)
+    out = pd.concat([per, pd.DataFrame([mean, sd])], ignore_index=True)
+    for c in counts:  # whole numbers per fold; the mean row keeps its fraction
+        if (out[c].dropna() % 1 == 0).all():
+            out[c] = out[c].astype("Int64")
+    return out
 
 
 def fit_niche(
@@ -290,7 +305,11 @@ def fit_niche(
     if background_file is not None:
         bg_pts = ndata.read_background_file(background_file, area, n=n_background, seed=seed)
     else:
-        bg_pts = ndata.sample_background(area, n=n_background, seed=seed)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", TimesliceWarning)
+            bg_pts = ndata.sample_background(area, n=n_background, seed=seed)
+        for w in caught:  # re-issue at the caller of fit_niche
+            warnings.warn(str(w.message), w.category, stacklevel=2)
 
     pres = ndata.extract(baseline, kept, variables=variables)
     back = ndata.extract(baseline, bg_pts, variables=variables)
