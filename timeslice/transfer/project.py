@@ -133,13 +133,18 @@ def _slice_block(
     exdet_params: dict[str, Any],
     lo: np.ndarray | None,
     hi: np.ndarray | None,
+    threshold: float,
+    with_land: bool,
 ) -> tuple[np.ndarray, ...]:
     """Every per-slice layer of one chunk from one pass over its predictors.
 
-    Returns suitability, MESS, mod, NT1, NT2 and, when `lo` is given, the clamping effect.
-    The predictors are stacked once (variables in the reference order); the estimator gets
-    them in its fitted order.
+    `blocks` are the predictors (reference order), then the land mask if `with_land`.
+    Returns suitability, suitable, MESS, mod, NT1, NT2 and, when `lo` is given, the clamping
+    effect. The predictors are stacked once; the estimator gets them in its fitted order.
     """
+    land = None
+    if with_land:
+        *blocks, land = blocks
     shape = np.shape(blocks[0])
     good, valid = _valid_columns(blocks)
     order = list(order)
@@ -159,8 +164,12 @@ def _slice_block(
         extra = (_scatter(delta, valid, nan32).reshape(shape),)
     mess_v, mod_v = _mess_columns(table, good)
     nt1, nt2 = _exdet_columns(exdet_params, good)
+    suitable = _scatter((suit >= threshold).astype(np.int8), valid, SUITABLE_FILL).reshape(shape)
+    if land is not None:
+        np.copyto(suitable, SUITABLE_FILL, where=~np.asarray(land, dtype=bool))
     return (
         _scatter(suit, valid, nan32).reshape(shape),
+        suitable,
         _scatter(mess_v.astype(np.float32), valid, nan32).reshape(shape),
         _scatter(mod_v, valid, MOD_FILL).reshape(shape),
         _scatter(nt1.astype(np.float32), valid, nan32).reshape(shape),
@@ -411,9 +420,26 @@ def project_slice(
     lo = hi = None
     if clamp:
         lo, hi = _clamp_bounds(ref, columns)
+    inputs = _predictor_arrays(ds, variables, "ds")
+    with_land = "land" in ds.data_vars
+    if with_land:
+        land = ds["land"]
+        label = ds.attrs.get("slice_label", "ds")
+        if land.dtype != bool:
+            raise DataError(
+                f"slice {label!r} variable `land` must be bool, got {land.dtype}; build it "
+                "with timeslice.harmonise.landmask.land_mask"
+            )
+        if set(land.dims) != set(inputs[0].dims):
+            raise DataError(
+                f"slice {label!r} variable `land` has dims {land.dims}, the predictors "
+                f"{inputs[0].dims}; put the land mask on the predictors' grid"
+            )
+        inputs.append(land)
+    n_out = 7 if clamp else 6
     results = xr.apply_ufunc(
         _slice_block,
-        *_predictor_arrays(ds, variables, "ds"),
+        *inputs,
         kwargs={
             "order": [variables.index(c) for c in columns],
             "predict": {
@@ -423,21 +449,23 @@ def project_slice(
             "exdet_params": _exdet_params(ref),
             "lo": lo,
             "hi": hi,
+            "threshold": threshold,
+            "with_land": with_land,
         },
-        output_core_dims=[[]] * (6 if clamp else 5),
+        output_core_dims=[[]] * n_out,
         dask="parallelized",
-        output_dtypes=[np.float32, np.float32, np.int16, np.float32, np.float32]
+        output_dtypes=[np.float32, np.int8, np.float32, np.int16, np.float32, np.float32]
         + ([np.float32] if clamp else []),
         keep_attrs=False,
     )
-    suit, mess_da, mod_da, nt1, nt2 = (r.rename(k) for r, k in zip(
-        results, ("suitability", "mess", "mod", "nt1", "nt2")))
+    suit, suitable, mess_da, mod_da, nt1, nt2 = (r.rename(k) for r, k in zip(
+        results, ("suitability", "suitable", "mess", "mod", "nt1", "nt2")))
     suit.attrs = _suitability_attrs(model, columns, clamp)
     _set_mess_attrs(mess_da, mod_da, ref)
     _set_exdet_attrs(nt1, nt2, ref)
     delta = None
     if clamp:
-        delta = results[5].rename("clamp_effect")
+        delta = results[6].rename("clamp_effect")
         delta.attrs = {
             "units": "1",
             "long_name": "effect of clamping on suitability",
@@ -446,17 +474,6 @@ def project_slice(
                 "without clamping; non-zero only where a predictor leaves that range"
             ),
         }
-    has_pred = suit.notnull()
-    if "land" in ds.data_vars:
-        land = ds["land"]
-        if land.dtype != bool:
-            raise DataError(
-                f"slice {ds.attrs.get('slice_label', 'ds')!r} variable `land` must be bool, "
-                f"got {land.dtype}; build it with timeslice.harmonise.landmask.land_mask"
-            )
-        has_pred = has_pred & land
-    suitable = xr.where(has_pred, (suit >= threshold).astype(np.int8), SUITABLE_FILL)
-    suitable = suitable.astype(np.int8).rename("suitable")
     suitable.attrs = {
         "units": "1",
         "long_name": "suitable climate",
