@@ -154,3 +154,51 @@ def test_auto_chunks_budget():
     assert small["lon"] < 4320 and small["lat"] * small["lon"] * per_cell <= 1e6
     with pytest.raises(ConfigError, match="budget"):
         auto_chunks(sizes, n_variables=8, budget_mb=0)
+
+
+class _BrokenModel:
+    """Has predict_proba but returns something unusable."""
+
+    def __init__(self, mode):
+        self.mode = mode
+
+    def predict_proba(self, x):
+        if self.mode == "raise":
+            raise ValueError("X has 3 features, but the model expects 4")
+        if self.mode == "shape":
+            return np.ones(len(x))
+        return np.column_stack([np.zeros(len(x)), np.full(len(x), 3.0)])
+
+
+@pytest.mark.parametrize(("mode", "match"), [
+    ("raise", "predict_proba failed on the reference sample"),
+    ("shape", "returned shape"),
+    ("range", r"outside \[0, 1\]"),
+])
+def test_broken_estimator_fails_before_compute(mode, match, reference_df, slice_factory):
+    ds = slice_factory().chunk({"lat": 4})
+    with pytest.raises(DataError, match=match):
+        project_slice(_BrokenModel(mode), ds, variables=VARS, reference=reference_df,
+                      threshold=0.5)
+
+
+def test_netcdf_round_trip(fitted_logistic, reference_df, slice_factory, tmp_path):
+    # The layers and their CF encodings survive a write/read through netCDF4.
+    from timeslice.io import atomic_path
+
+    ds = slice_factory()
+    out = project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
+                        threshold=0.5, clamp=True, chunks={"lat": 5})
+    path = tmp_path / "slice.nc"
+    with atomic_path(path) as tmp:
+        out.to_netcdf(tmp, engine="netcdf4")
+    with xr.open_dataset(path, mask_and_scale=False) as back:
+        assert back["suitable"].dtype == np.int8 and back["mod"].dtype == np.int16
+        np.testing.assert_array_equal(back["suitable"].values, out["suitable"].values)
+        np.testing.assert_array_equal(back["mod"].values, out["mod"].values)
+        np.testing.assert_array_equal(back["mod"].attrs["flag_values"], [0, 1, 2])
+        assert back["mod"].attrs["flag_meanings"] == "bio1 bio5 bio12"
+        assert back["suitable"].attrs["_FillValue"] == -1
+        for v in ("suitability", "mess", "nt1", "nt2", "clamp_effect"):
+            np.testing.assert_array_equal(back[v].values, out[v].values)
+        assert back.attrs["reference_set"] == "background sample within the calibration area"

@@ -91,6 +91,35 @@ def _check_model(model: Any, variables: Sequence[str]) -> tuple[list[str], int, 
     return order, pos, as_frame
 
 
+def _probe(
+    model: Any, ref: ReferenceSet, columns: Sequence[str], positive: int, as_frame: bool
+) -> None:
+    """Predict a few reference rows now, so a mismatched estimator fails with one clear line
+    before any chunk is computed."""
+    x = ref.values[:8][:, [ref.variables.index(c) for c in columns]]
+    if as_frame:
+        x = pd.DataFrame(x, columns=list(columns))
+    try:
+        prob = np.asarray(model.predict_proba(x))
+    except Exception as err:  # any estimator failure becomes one line naming the model
+        raise DataError(
+            f"`model` ({type(model).__name__}).predict_proba failed on the reference sample "
+            f"with predictors {list(columns)}: {type(err).__name__}: {err}; refit the model on "
+            "these predictors"
+        ) from err
+    if prob.ndim != 2 or prob.shape[0] != len(x) or prob.shape[1] <= positive:
+        raise DataError(
+            f"`model` ({type(model).__name__}).predict_proba returned shape {prob.shape} for "
+            f"{len(x)} rows; expected ({len(x)}, 2) columns [background, presence]"
+        )
+    p = prob[:, positive]
+    if not np.all((p >= -1e-9) & (p <= 1 + 1e-9)):
+        raise DataError(
+            f"`model` ({type(model).__name__}).predict_proba returned values outside [0, 1] "
+            f"(e.g. {p[(p < 0) | (p > 1)][:1]}); pass an estimator whose suitability is in 0..1"
+        )
+
+
 def _predict_rows(
     x: np.ndarray,
     *,
@@ -273,6 +302,9 @@ def project(
         "model": model, "columns": columns, "positive": positive, "as_frame": as_frame,
         "order": [variables.index(c) for c in columns],
     }
+    if reference is not None:
+        ref = reference_table(reference, variables=columns)
+        _probe(model, ref, columns, positive, as_frame)
     if clamp:
         kw["lo"], kw["hi"] = _clamp_bounds(reference, columns)
     out = xr.apply_ufunc(
@@ -417,6 +449,7 @@ def project_slice(
     ref = reference_table(reference, variables=variables)
 
     columns, positive, as_frame = _check_model(model, variables)
+    _probe(model, ref, columns, positive, as_frame)
     lo = hi = None
     if clamp:
         lo, hi = _clamp_bounds(ref, columns)
