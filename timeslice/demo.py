@@ -89,6 +89,11 @@ NICHE = {
     "presence_threshold": 0.5,
 }
 
+#: Relative sampling effort of the occurrence records: base + coast * exp(-d/coast_km)
+#: + lowland * exp(-z/lowland_m), times 1 + (55 - lat)/south_deg (more records in the south).
+EFFORT = {"base": 0.3, "coast": 1.0, "coast_km": 25.0, "lowland": 0.6, "lowland_m": 400.0,
+          "south_deg": 15.0}
+
 #: Invented sea-level climate of the truth.
 CLIMATE = {
     "t_sea_40N_degC": 15.0,
@@ -307,8 +312,11 @@ def _truth_climate(lon: np.ndarray, lat: np.ndarray, z: np.ndarray, res: float,
     amplitude = 3.5 + 4.0 * (1.0 - np.exp(-dist / 120.0))  # continentality
     dtr = 5.0 + 5.0 * (1.0 - np.exp(-dist / 80.0))
     month = np.arange(1, 13)[:, None, None]
-    # peak in late July (7.3) so that no two quarters tie
-    season = np.cos(2 * np.pi * (month - 7.3) / 12.0)
+    # warmest in July inland, a little later at the coast (ocean lag); the peak stays within
+    # (7.1, 7.4] so that no two rolling quarters tie
+    continental = 1.0 - np.exp(-dist / 120.0)
+    t_peak = 7.4 - 0.3 * continental
+    season = np.cos(2 * np.pi * (month - t_peak[None]) / 12.0)
     tas = t_annual[None] + amplitude[None] * season
     dtr_m = dtr[None] * (1.0 + 0.15 * season)
     tasmax = tas + 0.5 * dtr_m
@@ -322,7 +330,13 @@ def _truth_climate(lon: np.ndarray, lat: np.ndarray, z: np.ndarray, res: float,
     shadow = np.exp(-0.8 * np.maximum(barrier - zc, 0.0) / 1000.0)
     inland = np.exp(-dist / 900.0)
     p_annual = p_annual * (1.0 + 0.35 * zc / 1000.0 + 0.025 * windward) * shadow * inland
-    p_season = 1.0 + 0.35 * np.cos(2 * np.pi * (month - 1.0) / 12.0)  # wet winters
+    # seasonality: wet winters at the coast (westerly storms), a summer maximum inland and on
+    # the mountains (convection); peak month in [0.8, 6.7], never half-way between two months
+    convective = np.clip(0.5 * (1.0 - np.exp(-dist / 100.0)) + 0.5 * np.minimum(zc / 1500.0, 1.0),
+                         0.0, 1.0)
+    p_peak = 0.8 + 5.9 * convective
+    p_amp = 0.40 - 0.25 * convective
+    p_season = 1.0 + p_amp[None] * np.cos(2 * np.pi * (month - p_peak[None]) / 12.0)
     pr = p_annual[None] / 12.0 * p_season
     return {"tasmin": tasmin, "tasmax": tasmax, "pr": pr}
 
@@ -541,8 +555,10 @@ def _occurrences(rng, *, lon, lat, res, z, prob, dist, n_clean: int) -> tuple[li
     lon2, lat2 = np.meshgrid(lon, lat)
     land = z > 0
     # sampling effort: coasts, lowland "roads" (valleys below 400 m) and the south
-    effort = (0.15 + np.exp(-dist / 25.0) + 0.8 * np.exp(-np.maximum(z, 0) / 400.0)) \
-        * (1.0 + (55.0 - lat2) / 10.0)
+    e = EFFORT
+    effort = (e["base"] + e["coast"] * np.exp(-dist / e["coast_km"])
+              + e["lowland"] * np.exp(-np.maximum(z, 0) / e["lowland_m"])) \
+        * (1.0 + (55.0 - lat2) / e["south_deg"])
     weights = np.where(land, prob * effort, 0.0)
     plon, plat = _sample_points(rng, weights, lon, lat, res, n_clean)
     unc_choices = np.array([10, 25, 50, 100, 250, 1000, 2000, 5000])
