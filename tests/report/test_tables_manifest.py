@@ -81,3 +81,37 @@ def test_manifest_relative_inputs_resolve(tmp_path, monkeypatch):
     data = read_manifest(path)  # verifies from another working directory
     assert str(tmp_path / "data" / "dem.nc") in data["inputs"]
     assert data["working_directory"] == str(tmp_path)
+
+
+def test_unwritable_output_is_one_clear_error(summary_df, tmp_path):
+    import os
+
+    from timeslice.report.html import ReportContext, write_report
+
+    with pytest.raises(InputFileError, match="is a folder"):
+        write_report(ReportContext(), tmp_path)
+    if os.geteuid() == 0:
+        pytest.skip("running as root: permissions do not stop writing")
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    locked.chmod(0o500)
+    try:
+        with pytest.raises(InputFileError, match="could not write"):
+            write_csv(summary_df, locked / "summary.csv")
+    finally:
+        locked.chmod(0o700)
+
+
+def test_disk_full_is_one_clear_error(summary_df, tmp_path, monkeypatch):
+    import errno
+
+    def full(*a, **k):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(pd.DataFrame, "to_csv", full)
+    target = tmp_path / "summary.csv"
+    target.write_text("old\n")
+    with pytest.raises(InputFileError, match="summary.csv: could not write.*free some disk"):
+        write_csv(summary_df, target)
+    assert target.read_text() == "old\n"
+    assert not list(tmp_path.glob("*.part"))

@@ -12,7 +12,7 @@ import xarray as xr
 
 from timeslice.errors import DataError
 from timeslice.grid import cell_bounds
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 from timeslice.report._layers import LAYERS, flag_pairs
 
 __all__ = ["export", "export_file"]
@@ -49,7 +49,7 @@ def _write_one(array: np.ndarray, path: Path, *, transform, nodata, description:
         profile.update(compress="DEFLATE", blocksize=256, overview_resampling="nearest")
     else:
         profile.update(compress="deflate", tiled=width >= 256 and height >= 256)
-    with atomic_path(path) as tmp:
+    with output_path(path) as tmp:
         # GDAL picks the format from the driver, not the temporary file's suffix.
         with rasterio.open(tmp, "w", **profile) as dst:
             dst.write(array, 1)

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from timeslice.errors import DataError, InputFileError
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 
 __all__ = ["DEFAULT_CAUTIONS", "ReportContext", "key_numbers", "render_report", "write_report"]
 
@@ -394,7 +394,7 @@ def write_report(context: ReportContext, path: str | os.PathLike) -> Path:
     """
     text = render_report(context)
     target = Path(path)
-    with atomic_path(target) as tmp:
+    with output_path(target) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return target
 

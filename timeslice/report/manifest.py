@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any
 
 from timeslice.errors import InputFileError
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 
 __all__ = ["DEPENDENCIES", "hash_file", "package_versions", "read_manifest", "write_manifest"]
 
@@ -132,7 +132,7 @@ def write_manifest(info: Mapping[str, Any], path: str | os.PathLike) -> Path:
     data["python"] = sys.version.split()[0]
     data["platform"] = platform.platform()
     target = Path(path)
-    with atomic_path(target) as tmp:
+    with output_path(target) as tmp:
         tmp.write_text(json.dumps(data, indent=2, sort_keys=False) + "\n", encoding="utf-8")
     return target
 

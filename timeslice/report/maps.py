@@ -23,7 +23,7 @@ from matplotlib.patches import Patch
 
 from timeslice.errors import DataError
 from timeslice.grid import cell_bounds
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 from timeslice.report._layers import LAYERS, slice_title
 
 __all__ = [
@@ -301,7 +301,7 @@ def _decorate(ax, crs, ds, i, name: str, *, scale_bar: bool = True) -> list:
 
 
 def _save(fig: Figure, path: Path, *, dpi: int) -> Path:
-    with atomic_path(path) as tmp:
+    with output_path(path) as tmp:
         fig.savefig(tmp, format="png", dpi=dpi, bbox_inches="tight")
     return path
 

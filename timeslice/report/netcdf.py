@@ -21,7 +21,7 @@ import xarray as xr
 
 from timeslice.errors import DataError, InputFileError
 from timeslice.grid import cell_area, cell_bounds
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 from timeslice.report._layers import INHERITED_NOISE, LAYERS, NOT_LAND_FLAG, layer_spec
 
 __all__ = ["open_series", "prepare_cf", "write_series"]
@@ -303,7 +303,7 @@ def write_series(
         raise InputFileError(f"{target}: is a folder; give a file name ending in .nc")
     out = prepare_cf(ds, history=history, source=source, title=title)
     enc = _encoding(out, complevel=int(complevel))
-    with atomic_path(target) as tmp:
+    with output_path(target) as tmp:
         out.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=enc)
     return target
 

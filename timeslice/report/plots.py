@@ -10,7 +10,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from timeslice.errors import DataError
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 
 __all__ = [
     "PAST_BEFORE_YEAR",
@@ -46,7 +46,7 @@ def _need(df: pd.DataFrame, columns, what: str) -> None:
 
 def _save(fig: Figure, path: str | os.PathLike, dpi: int) -> Path:
     target = Path(path)
-    with atomic_path(target) as tmp:
+    with output_path(target) as tmp:
         fig.savefig(tmp, format="png", dpi=dpi, bbox_inches="tight")
     return target
 

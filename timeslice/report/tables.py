@@ -8,7 +8,7 @@ from pathlib import Path
 import pandas as pd
 
 from timeslice.errors import DataError, InputFileError
-from timeslice.io import atomic_path
+from timeslice.report._output import output_path
 
 __all__ = ["write_csv"]
 
@@ -35,6 +35,6 @@ def write_csv(df: pd.DataFrame, path: str | os.PathLike, *, float_format: str | 
     target = Path(path)
     if target.is_dir():
         raise InputFileError(f"{target}: is a folder; give a file name ending in .csv")
-    with atomic_path(target) as tmp:
+    with output_path(target) as tmp:
         df.to_csv(tmp, index=False, float_format=float_format, encoding="utf-8", lineterminator="\n")
     return target
