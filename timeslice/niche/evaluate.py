@@ -25,6 +25,7 @@ __all__ = [
     "omission",
     "spatial_folds",
     "threshold",
+    "training_scores",
     "tss",
 ]
 
@@ -320,6 +321,19 @@ def spatial_folds(
     return fold_of_block[inverse]
 
 
+def training_scores(model, X) -> np.ndarray:
+    """Suitability of the training rows for threshold rules.
+
+    Out-of-bag scores where the estimator provides them (``oob_suitability_``, e.g. the forest,
+    whose in-sample scores are optimistic), else ``predict_proba(X)[:, 1]``.
+    """
+    s = model.predict_proba(X)[:, 1]
+    oob = getattr(model, "oob_suitability_", None)
+    if oob is not None and np.shape(oob) == s.shape:
+        s = np.where(np.isfinite(oob), oob, s)
+    return s
+
+
 def cross_validate(
     model,
     X,
@@ -342,7 +356,7 @@ def cross_validate(
     folds : array-like of int
         Fold of each row (:func:`spatial_folds`).
     threshold_rule, threshold_value
-        Threshold from the training fold (:func:`threshold`).
+        Threshold from the training fold (:func:`threshold`) on :func:`training_scores`.
     sample_weight : array-like, optional
         Passed to ``fit``.
 
@@ -387,7 +401,7 @@ def cross_validate(
         if "groups" in inspect.signature(est.fit).parameters:
             kw["groups"] = folds[tr]  # nested: inner tuning on the remaining spatial folds
         est.fit(take(tr), y[tr], **kw)
-        s_tr = est.predict_proba(take(tr))[:, 1]
+        s_tr = training_scores(est, take(tr))
         t = threshold(s_tr[y[tr] == 1], s_tr[y[tr] == 0], rule=threshold_rule, value=threshold_value)
         if rec["n_test_presence"] == 0 or rec["n_test_background"] == 0:
             rows.append({**rec, **nan, "threshold": t})

@@ -361,6 +361,10 @@ class ForestNiche(_NicheBase):
     from memory). Suitability is the mean over trees of the leaf presence fraction, a balanced
     probability in [0, 1]. Sample weights scale the bootstrap draw probabilities.
 
+    Trees fit their own training presences almost perfectly, so training-data thresholds would
+    be too high; ``oob_suitability_`` holds each training row's mean over the trees whose
+    bootstrap left it out (out-of-bag; Breiman 2001), and thresholds are taken from it.
+
     References
     ----------
     Breiman, L. (2001). Random forests. Machine Learning 45:5-32.
@@ -387,6 +391,8 @@ class ForestNiche(_NicheBase):
         yy = presence.astype(np.float64)
         X32 = np.ascontiguousarray(X, dtype=np.float32)  # the tree builder's dtype
         self.estimators_ = []
+        oob_sum = np.zeros(X.shape[0])
+        oob_n = np.zeros(X.shape[0])
         for _ in range(int(self.n_estimators)):
             idx = np.concatenate([rng.choice(ip, n1, replace=True, p=pp), rng.choice(ib, n1, replace=True, p=pb)])
             # bootstrap counts as sample weights, as scikit-learn's own forests do
@@ -398,6 +404,14 @@ class ForestNiche(_NicheBase):
             )
             tree.fit(X32[rows], yy[rows], sample_weight=counts.astype(np.float64), check_input=False)
             self.estimators_.append(tree)
+            out = np.ones(X.shape[0], dtype=bool)
+            out[rows] = False
+            if out.any():
+                oob_sum[out] += tree.predict_proba(X32[out], check_input=False)[:, 1]
+                oob_n[out] += 1
+        # out-of-bag suitability of each training row (NaN if it was in every bootstrap)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            self.oob_suitability_ = np.where(oob_n > 0, oob_sum / np.maximum(oob_n, 1), np.nan)
         return self
 
     def predict_proba(self, X) -> np.ndarray:
@@ -433,6 +447,9 @@ class EnsembleNiche(_NicheBase):
         Normalised weights, :math:`w_m \\propto \\max(\\mathrm{AUC}_m - 0.5, 0)`.
     cv_auc_ : ndarray
         Mean held-out AUC of each member.
+    oob_suitability_ : ndarray
+        Weighted mean of the members' training scores (out-of-bag for the forest), used for
+        thresholds.
 
     Notes
     -----
@@ -509,6 +526,12 @@ class EnsembleNiche(_NicheBase):
         weights = skill / skill.sum() if skill.sum() > 0 else np.full(len(proto), 1.0 / len(proto))
         self.cv_auc_ = aucs
         self.weights_ = weights
+        # training scores for thresholds: out-of-bag where a member has them
+        from timeslice.niche.evaluate import training_scores
+
+        self.oob_suitability_ = sum(
+            w * training_scores(e, X) for (_, e), w in zip(self.members_, weights)
+        )
         return self
 
     def predict_proba(self, X) -> np.ndarray:

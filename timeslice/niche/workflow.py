@@ -353,7 +353,7 @@ def fit_niche(
 
     fit_kw = {"groups": folds} if "groups" in inspect.signature(model.fit).parameters else {}
     model.fit(X, y, **fit_kw)
-    s = model.predict_proba(X)[:, 1]
+    s = nev.training_scores(model, X)
     thr = nev.threshold(s[y == 1], s[y == 0], rule=threshold_rule, value=threshold_value)
 
     response = response_curves(model, back, chosen)
