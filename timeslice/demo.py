@@ -38,16 +38,19 @@ from timeslice.grid import cell_area, make_grid
 from timeslice.io import atomic_path
 
 __all__ = [
+    "CLIMATE",
     "DEFAULT_SEED",
+    "EFFORT",
     "FINE_EXTENT",
-    "MODEL_EXTENT",
     "MODELS",
+    "MODEL_EXTENT",
+    "NICHE",
     "SLICES",
     "SPECIES",
     "generate",
-    "sha256_of",
     "main",
     "presence_probability",
+    "sha256_of",
     "write_default",
 ]
 
@@ -816,6 +819,7 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
         "lapse_rate_K_per_km": LAPSE_RATE_K_PER_M * 1000.0,
         "max_elevation_m": round(float(w.z.max()), 1),
         "climate": CLIMATE,
+        "sampling_effort": EFFORT,
         "records": {"clean": n_clean, "bad": {**bad_counts}, "total": n_clean + n_bad,
                     "bad_fraction": round(n_bad / (n_clean + n_bad), 4)},
         "dated_records": {"n": len(dated),
