@@ -128,3 +128,14 @@ def test_no_overlap_is_an_error(inputs):
     far = elev.assign_coords(lon=elev["lon"] + 100)
     with pytest.raises(DataError, match="does not overlap the target area"):
         regrid(far, fb, source="elevation.nc")
+
+
+def test_blocked_equals_whole_grid(inputs):
+    fb, elev, mb, ms = inputs
+    kw = dict(fine_baseline=fb, elevation=elev, model_slice=ms, model_baseline=mb,
+              sea_level=-120.0, label="x", year=-19050.0, period="21ka", model="a",
+              scenario="past")
+    whole = prepare_slice(chunks=None, **kw)
+    blocked = prepare_slice(chunks=7, **kw)
+    xr.testing.assert_allclose(whole, blocked)
+    assert blocked.attrs["n_swapped"] == whole.attrs["n_swapped"]

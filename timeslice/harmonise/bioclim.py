@@ -53,16 +53,20 @@ BIO_ATTRS: dict[str, tuple[str, str, str]] = {
               "3-month (wrapping) sum of P of the window with the smallest mean Tavg"),
 }
 
-# window w covers months w, w+1, w+2 (mod 12), w = 0 is January-February-March
-_WINDOWS = (np.arange(12)[:, None] + np.arange(3)[None, :]) % 12
-
 
 def _pick(values: np.ndarray, index: np.ndarray) -> np.ndarray:
-    return np.take_along_axis(values, index[..., None], axis=-1)[..., 0]
+    """values[index[j], j] for a (12, n) array and an (n,) index."""
+    return np.take_along_axis(values, index[None, :], axis=0)[0]
+
+
+def _sd(x: np.ndarray) -> np.ndarray:
+    """Standard deviation over axis 0 with the n - 1 divisor."""
+    dev = x - x.mean(axis=0)
+    return np.sqrt(np.einsum("ij,ij->j", dev, dev) / (x.shape[0] - 1))
 
 
 def bioclim_kernel(tmin: np.ndarray, tmax: np.ndarray, pr: np.ndarray,
-                   tavg: np.ndarray | None = None) -> np.ndarray:
+                   tavg: np.ndarray | None = None, *, dtype=np.float64) -> np.ndarray:
     """Bioclimatic variables on plain arrays with months on the last axis.
 
     Parameters
@@ -71,52 +75,65 @@ def bioclim_kernel(tmin: np.ndarray, tmax: np.ndarray, pr: np.ndarray,
         Monthly mean daily minimum and maximum temperature (degC) and precipitation (mm).
     tavg : numpy.ndarray, optional
         Monthly mean temperature; default (tmax + tmin) / 2.
+    dtype : numpy dtype
+        Output dtype (computation is in float64).
 
     Returns
     -------
     numpy.ndarray, shape (..., 19)
         BIO1 ... BIO19; NaN wherever any input month is NaN.
     """
-    tmin = np.asarray(tmin, dtype=np.float64)
-    tmax = np.asarray(tmax, dtype=np.float64)
-    pr = np.asarray(pr, dtype=np.float64)
+    lead = np.shape(tmin)[:-1]
+    arrays = [tmin, tmax, pr] + ([] if tavg is None else [tavg])
+    # months first and only the complete cells: reductions over 12 contiguous rows are
+    # vectorised across cells, and sea cells (NaN) cost nothing
+    flat = [np.asarray(a, dtype=np.float64).reshape(-1, 12) for a in arrays]
+    ok = np.ones(flat[0].shape[0], dtype=bool)
+    for a in flat:
+        ok &= np.isfinite(a).all(axis=1)
+    out = np.full((flat[0].shape[0], 19), np.nan, dtype=dtype)
+    if ok.any():
+        cols = [np.ascontiguousarray(a[ok].T) for a in flat]
+        out[ok] = _bioclim_columns(*cols).T
+    return out.reshape(lead + (19,))
+
+
+def _bioclim_columns(tmin, tmax, pr, tavg=None) -> np.ndarray:
+    """The 19 variables for (12, n) arrays of complete cells; returns (19, n)."""
     if tavg is None:
         tavg = 0.5 * (tmax + tmin)
-    else:
-        tavg = np.asarray(tavg, dtype=np.float64)
-    bad = ~(np.isfinite(tmin).all(-1) & np.isfinite(tmax).all(-1)
-            & np.isfinite(pr).all(-1) & np.isfinite(tavg).all(-1))
-    # zero-fill invalid cells so argmax/argmin are defined; they are set to NaN at the end
-    tmin, tmax, pr, tavg = (np.where(bad[..., None], 0.0, a) for a in (tmin, tmax, pr, tavg))
-    out = np.empty(tavg.shape[:-1] + (19,), dtype=np.float64)
-    q_t = tavg[..., _WINDOWS].mean(axis=-1)  # (..., 12)
-    q_p = pr[..., _WINDOWS].sum(axis=-1)
-    bio5 = tmax.max(-1)
-    bio6 = tmin.min(-1)
+    n = tmin.shape[1]
+    out = np.empty((19, n), dtype=np.float64)
+    # window w = months w, w+1, w+2 (mod 12), via the year extended by January and February
+    ext_t = np.concatenate([tavg, tavg[:2]], axis=0)
+    ext_p = np.concatenate([pr, pr[:2]], axis=0)
+    q_t = (ext_t[:12] + ext_t[1:13] + ext_t[2:]) / 3.0
+    q_p = ext_p[:12] + ext_p[1:13] + ext_p[2:]
+    bio5 = tmax.max(axis=0)
+    bio6 = tmin.min(axis=0)
     bio7 = bio5 - bio6
-    bio2 = (tmax - tmin).mean(-1)
-    out[..., 0] = tavg.mean(-1)
-    out[..., 1] = bio2
+    bio2 = (tmax - tmin).mean(axis=0)
+    out[0] = tavg.mean(axis=0)
+    out[1] = bio2
     with np.errstate(divide="ignore", invalid="ignore"):
-        out[..., 2] = np.where(bio7 > 0, 100.0 * bio2 / np.where(bio7 > 0, bio7, 1.0), np.nan)
-    out[..., 3] = 100.0 * tavg.std(axis=-1, ddof=1)
-    out[..., 4] = bio5
-    out[..., 5] = bio6
-    out[..., 6] = bio7
-    # np.argmax / argmin return the first occurrence: ties go to the earliest window from January
-    out[..., 7] = _pick(q_t, q_p.argmax(-1))
-    out[..., 8] = _pick(q_t, q_p.argmin(-1))
-    out[..., 9] = q_t.max(-1)
-    out[..., 10] = q_t.min(-1)
-    out[..., 11] = pr.sum(-1)
-    out[..., 12] = pr.max(-1)
-    out[..., 13] = pr.min(-1)
-    out[..., 14] = 100.0 * pr.std(axis=-1, ddof=1) / (1.0 + pr.mean(-1))
-    out[..., 15] = q_p.max(-1)
-    out[..., 16] = q_p.min(-1)
-    out[..., 17] = _pick(q_p, q_t.argmax(-1))
-    out[..., 18] = _pick(q_p, q_t.argmin(-1))
-    out[bad] = np.nan
+        out[2] = np.where(bio7 > 0, 100.0 * bio2 / np.where(bio7 > 0, bio7, 1.0), np.nan)
+    out[3] = 100.0 * _sd(tavg)
+    out[4] = bio5
+    out[5] = bio6
+    out[6] = bio7
+    # argmax / argmin return the first occurrence: ties go to the earliest window from January
+    out[7] = _pick(q_t, q_p.argmax(axis=0))
+    out[8] = _pick(q_t, q_p.argmin(axis=0))
+    out[9] = q_t.max(axis=0)
+    out[10] = q_t.min(axis=0)
+    out[11] = pr.sum(axis=0)
+    out[12] = pr.max(axis=0)
+    out[13] = pr.min(axis=0)
+    out[14] = 100.0 * _sd(pr) / (1.0 + pr.mean(axis=0))
+    out[15] = q_p.max(axis=0)
+    out[16] = q_p.min(axis=0)
+    out[17] = _pick(q_p, q_t.argmax(axis=0))
+    out[18] = _pick(q_p, q_t.argmin(axis=0))
     return out
 
 
@@ -125,6 +142,7 @@ def from_monthly(
     *,
     tavg: Literal["minmax", "tas"] = "minmax",
     dtype=np.float32,
+    block_rows: int | None = None,
 ) -> xr.Dataset:
     """Bioclimatic variables ``bio1`` ... ``bio19`` from a monthly climatology.
 
@@ -138,6 +156,10 @@ def from_monthly(
         ``tas`` variable.
     dtype : numpy dtype
         Output dtype (default float32).
+    block_rows : int, optional
+        For numpy-backed input on (month, lat, lon): compute in blocks of this many latitude
+        rows, on threads, straight into contiguous output arrays (bounded memory on large
+        grids). Dask-backed input always goes through one ``xr.apply_ufunc``.
 
     Returns
     -------
@@ -177,24 +199,32 @@ def from_monthly(
             f"bioclimatic variables need a `month` dimension of length 12, got dims "
             f"{dict(ds.sizes)}; reduce the time axis to a monthly climatology first"
         )
-    if "month" in ds.coords:
-        ds = ds.sortby("month")
+    if "month" in ds.coords and np.any(np.diff(ds["month"].values) < 0):
+        ds = ds.sortby("month")  # copies: only when needed
     args = [ds["tasmin"], ds["tasmax"], ds["pr"]]
     if tavg == "tas":
         args.append(ds["tas"])
+    if block_rows is not None and all(a.chunks is None for a in args) and "lat" in ds.dims:
+        return _blocked(ds, args, int(block_rows), np.dtype(dtype))
     stacked = xr.apply_ufunc(
         bioclim_kernel,
         *args,
         input_core_dims=[["month"]] * len(args),
         output_core_dims=[["bio"]],
         dask="parallelized",
-        output_dtypes=[np.float64],
+        kwargs={"dtype": np.dtype(dtype)},
+        output_dtypes=[np.dtype(dtype)],
         dask_gufunc_kwargs={"output_sizes": {"bio": 19}},
     )
+    layers = {name: stacked.isel(bio=i, drop=True) for i, name in enumerate(BIO_NAMES)}
+    return _finish(ds, layers)
+
+
+def _finish(ds: xr.Dataset, layers: dict[str, xr.DataArray]) -> xr.Dataset:
     out = xr.Dataset(attrs={k: v for k, v in ds.attrs.items()})
-    for i, name in enumerate(BIO_NAMES):
+    for name in BIO_NAMES:
         units, long_name, desc = BIO_ATTRS[name]
-        da = stacked.isel(bio=i, drop=True).astype(dtype)
+        da = layers[name]
         da.attrs = {"units": units, "long_name": long_name, "description": desc}
         out[name] = da
     if "month" in out.coords:
@@ -205,3 +235,32 @@ def from_monthly(
         "n-1 SD, BIO15 with 1 + mean)"
     )
     return out
+
+
+def _blocked(ds: xr.Dataset, args: list[xr.DataArray], rows: int, dtype) -> xr.Dataset:
+    from timeslice.harmonise._blocks import map_rows
+
+    other = [d for d in args[0].dims if d not in ("month", "lat", "lon")]
+    if other:
+        raise DataError(
+            f"blocked bioclimatic computation needs (month, lat, lon) fields, got dims "
+            f"{args[0].dims}; leave `block_rows` unset"
+        )
+    arrays = [np.asarray(a.transpose("month", "lat", "lon").values) for a in args]
+    _, nlat, nlon = arrays[0].shape
+    outs = np.empty((19, nlat, nlon), dtype=dtype)
+
+    def block(r0: int, r1: int) -> None:
+        cols = [np.asarray(a[:, r0:r1, :], dtype=np.float64).reshape(12, -1) for a in arrays]
+        ok = np.ones(cols[0].shape[1], dtype=bool)
+        for c in cols:
+            ok &= np.isfinite(c).all(axis=0)
+        res = np.full((19, cols[0].shape[1]), np.nan, dtype=dtype)
+        if ok.any():
+            res[:, ok] = _bioclim_columns(*[c[:, ok] for c in cols])
+        outs[:, r0:r1, :] = res.reshape(19, r1 - r0, nlon)
+
+    map_rows(block, nlat, rows)
+    template = args[0].isel(month=0, drop=True).transpose("lat", "lon")
+    layers = {name: template.copy(data=outs[i]) for i, name in enumerate(BIO_NAMES)}
+    return _finish(ds, layers)

@@ -113,14 +113,44 @@ def enforce_min_le_max(tasmin: xr.DataArray, tasmax: xr.DataArray):
     """Where tasmin > tasmax set both to their midpoint; return (tasmin, tasmax, n_fixed).
 
     The midpoint keeps the monthly mean temperature (Tmax + Tmin)/2 and sets the diurnal
-    range of that month to zero; `n_fixed` counts the (cell, month) pairs touched.
+    range of that month to zero; `n_fixed` (a 0-d DataArray, lazy for dask input) counts the
+    (cell, month) pairs touched.
     """
     bad = tasmin > tasmax
     mid = 0.5 * (tasmin + tasmax)
-    n = int(bad.sum())
+    n = bad.sum()
     new_min = xr.where(bad, mid, tasmin, keep_attrs=True)
     new_max = xr.where(bad, mid, tasmax, keep_attrs=True)
     return new_min, new_max, n
+
+
+def _blocked_fields(anom: xr.Dataset, fb: xr.Dataset, rows: int):
+    """Interpolate the change factors and apply them block by block of fine rows, writing
+    into preallocated arrays (no full-grid float64 intermediates, no dask copy of `fb`)."""
+    from timeslice.harmonise._blocks import map_rows
+    from timeslice.harmonise.regrid import _apply_kernel, bilinear_weights
+
+    w_lat, w_lon = bilinear_weights(anom["lat"].values, anom["lon"].values,
+                                    fb["lat"].values, fb["lon"].values)
+    if w_lat.nnz == 0 or w_lon.nnz == 0:
+        raise DataError(
+            "the model slice does not overlap the fine baseline grid; give model files that "
+            "cover the target area"
+        )
+    order = ("month", "lat", "lon")
+    base = {n: np.asarray(fb[n].transpose(*order).values) for n in _VARS}
+    fac = {n: np.asarray(anom[n].transpose(*order).values, dtype=np.float64) for n in _VARS}
+    outs = {n: np.empty(base[n].shape, dtype=base[n].dtype) for n in _VARS}
+
+    def block(r0: int, r1: int) -> None:
+        for n in _VARS:
+            a = _apply_kernel(fac[n], w_lat[r0:r1], w_lon, None, 1e-6)
+            b = base[n][:, r0:r1, :]
+            outs[n][:, r0:r1, :] = b * a if n == "pr" else b + a
+
+    map_rows(block, base["tasmin"].shape[1], rows)
+    coords = {"month": fb["month"], "lat": fb["lat"], "lon": fb["lon"]}
+    return outs, {n: order for n in _VARS}, {n: coords for n in _VARS}
 
 
 def delta(
@@ -130,6 +160,7 @@ def delta(
     *,
     pr_floor: float = 0.1,
     ratio_quantile: float = 0.98,
+    chunks: int | None = None,
 ) -> xr.Dataset:
     """Change-factor downscaling of one model slice onto the fine baseline.
 
@@ -144,6 +175,10 @@ def delta(
         Floor applied to both model precipitations before the ratio.
     ratio_quantile : float
         Ratios above this quantile of each month's ratio grid are truncated to it.
+    chunks : int, optional
+        Work in blocks of this many fine-grid latitude rows (bounded memory on large grids;
+        default: the fine baseline's dask chunks, else the whole grid at once). The result
+        is computed (numpy-backed) either way, because ``n_swapped`` must be known.
 
     Returns
     -------
@@ -175,25 +210,38 @@ def delta(
     _check(fine_baseline_ds, "fine_baseline_ds")
     anom = anomalies(slice_ds, model_baseline_ds, pr_floor=pr_floor,
                      ratio_quantile=ratio_quantile)
-    # any valid neighbour is enough for an anomaly; the fine baseline decides where land is
-    fine_anom = regrid(anom, fine_baseline_ds, method="bilinear", min_valid_fraction=1e-6)
-    if bool(fine_anom["tasmin"].isnull().all()):
-        raise DataError(
-            "the model slice does not overlap the fine baseline grid; give model files that "
-            "cover the target area"
-        )
     fb = fine_baseline_ds
-    tmin = fb["tasmin"] + fine_anom["tasmin"].transpose(*fb["tasmin"].dims)
-    tmax = fb["tasmax"] + fine_anom["tasmax"].transpose(*fb["tasmax"].dims)
-    pr = fb["pr"] * fine_anom["pr"].transpose(*fb["pr"].dims)
-    tmin, tmax, n_fixed = enforce_min_le_max(tmin, tmax)
+    rows = chunks
+    if rows is None and fb["tasmin"].chunks is not None:
+        rows = int(fb["tasmin"].chunksizes["lat"][0])
+    if rows is not None:
+        values, dims, coords = _blocked_fields(anom, fb, int(rows))
+    else:
+        # any valid neighbour is enough for an anomaly; the fine baseline decides where land is
+        fine_anom = regrid(anom, fb, method="bilinear", min_valid_fraction=1e-6,
+                           source="model slice")
+        values = {}
+        for name in _VARS:
+            a = fine_anom[name].astype(np.float32).transpose(*fb[name].dims)
+            raw = fb[name] + a if name != "pr" else fb[name] * a
+            values[name] = np.array(raw.astype(fb[name].dtype).values)
+        dims = {n: fb[n].dims for n in _VARS}
+        coords = {n: fb[n].coords for n in _VARS}
+    tmin_v, tmax_v = values["tasmin"], values["tasmax"]
+    bad = tmin_v > tmax_v
+    n_fixed = int(bad.sum())
+    if n_fixed:
+        mid = 0.5 * (tmin_v[bad] + tmax_v[bad])
+        tmin_v[bad] = mid
+        tmax_v[bad] = mid
+    del bad
     out = xr.Dataset()
-    for name, da in (("tasmin", tmin), ("tasmax", tmax), ("pr", pr)):
-        da = da.astype(fb[name].dtype)
-        da.attrs = dict(fb[name].attrs)
+    for name in _VARS:
+        da = xr.DataArray(values[name], dims=dims[name], coords=coords[name],
+                          attrs=dict(fb[name].attrs))
         out[name] = da
-    n_uncovered = int((fb["tasmin"].notnull() & fine_anom["tasmin"].isnull()
-                       .transpose(*fb["tasmin"].dims)).sum())
+    n_uncovered = int((fb["tasmin"].transpose(*dims["tasmin"]).notnull().values
+                       & np.isnan(values["tasmin"])).sum())
     attrs = {k: v for k, v in slice_ds.attrs.items() if k not in ("harmonise_log",)}
     log = []
     try:

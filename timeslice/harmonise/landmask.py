@@ -126,6 +126,7 @@ def fill_exposed(
     elevation: xr.DataArray,
     *,
     lapse_rate: float = STANDARD_LAPSE_RATE,
+    inplace: bool = False,
 ) -> xr.Dataset:
     """Give land cells without baseline climate the climate of the nearest cell that has it.
 
@@ -140,6 +141,9 @@ def fill_exposed(
         Elevation of every cell (also of the cells filled).
     lapse_rate : float, [K m-1]
         Temperature decrease with height.
+    inplace : bool
+        Write the filled values into `climate`'s own (numpy) arrays instead of copies; for
+        callers that own `climate` (saves one copy of the grid).
 
     Returns
     -------
@@ -198,7 +202,9 @@ def fill_exposed(
             dims = climate[v].dims
             lead = [d for d in dims if d not in ("lat", "lon")]
             da = climate[v].transpose(*lead, "lat", "lon")
-            arr = np.array(da.values, copy=True)
+            arr = da.values
+            if not (inplace and arr.flags.writeable and np.shares_memory(arr, climate[v].values)):
+                arr = np.array(arr, copy=True)
             vals = arr[..., si, sj]
             if v in TEMPERATURE_LEVELS:
                 vals = vals - lapse_rate * dz

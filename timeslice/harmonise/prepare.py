@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import os
 from pathlib import Path
+from typing import Literal
 
 import numpy as np
 import xarray as xr
@@ -51,6 +52,32 @@ def _same_grid(a, b) -> bool:
     )
 
 
+def _materialise(ds: xr.Dataset) -> xr.Dataset:
+    """Compute a lazy Dataset into preallocated contiguous arrays in one pass (variables that
+    share a graph, like the 19 slices of one bioclimatic stack, are computed once)."""
+    import dask.array as dsa
+
+    names = [v for v in ds.data_vars if ds[v].chunks is not None]
+    targets = [np.empty(ds[v].shape, dtype=ds[v].dtype) for v in names]
+    if names:
+        dsa.store([ds[v].data for v in names], targets, lock=False)
+    out = ds.copy()
+    for v, arr in zip(names, targets):
+        out[v] = ds[v].copy(data=arr)
+    return out
+
+
+def _rows(chunks, target) -> int | None:
+    if chunks is None:
+        return None
+    nlat, nlon = target.sizes["lat"], target.sizes["lon"]
+    if chunks == "auto":
+        return max(8, 2**18 // nlon) if nlat * nlon > 2**20 else None
+    if not isinstance(chunks, int) or chunks < 1:
+        raise DataError(f"`chunks` must be a positive number of latitude rows, got {chunks!r}")
+    return chunks
+
+
 def prepare_slice(
     *,
     fine_baseline,
@@ -70,6 +97,7 @@ def prepare_slice(
     pr_floor: float = 0.1,
     ratio_quantile: float = 0.98,
     lapse_rate: float = STANDARD_LAPSE_RATE,
+    chunks: int | Literal["auto"] | None = "auto",
 ) -> xr.Dataset:
     """Prepare one slice in the pinned "prepared slice" format.
 
@@ -102,6 +130,9 @@ def prepare_slice(
         Delta-method safeguards (see :func:`timeslice.harmonise.downscale.delta`).
     lapse_rate : float, [K m-1]
         For filling land without baseline climate.
+    chunks : int, "auto" or None
+        Latitude rows per block for downscaling and the bioclimatic variables ("auto": blocks
+        of about 2**18 cells on grids over 2**20 cells, else one block). Bounds peak memory.
 
     Returns
     -------
@@ -145,7 +176,9 @@ def prepare_slice(
         log.append(f"elevation regridded onto the fine grid ({elev.attrs.get('regrid_method')})")
     elev = elev.astype(np.float32)
 
+    rows = _rows(chunks, target)
     n_swapped = 0
+    owned = False
     if bio is not None:
         bds = _load(bio, "bio")
         missing = [b for b in BIO_NAMES if b not in bds.data_vars]
@@ -169,10 +202,12 @@ def prepare_slice(
         if not _same_grid(ms, mb):
             ms = regrid(ms, mb, method=regrid_method, source=f"slice {label!r} model slice")
             log.append("model slice regridded onto its model baseline grid")
-        clim = delta(ms, mb, fb, pr_floor=pr_floor, ratio_quantile=ratio_quantile)
+        clim = delta(ms, mb, fb, pr_floor=pr_floor, ratio_quantile=ratio_quantile,
+                     chunks=rows)
         ms_log = set(_log_of(ms))
         log += [line for line in _log_of(clim) if line not in ms_log]
         n_swapped = int(clim.attrs.get("n_swapped", 0))
+        owned = True  # delta returns fresh numpy arrays: fill them in place
     else:
         clim = fb[["tasmin", "tasmax", "pr"]]
         log.append("observed baseline: no downscaling")
@@ -191,13 +226,15 @@ def prepare_slice(
     land = masks["land"]
     if bio is None:
         clim = clim.transpose("month", "lat", "lon")
+    land_np = np.asarray(land.values)
     for v in clim.data_vars:
-        if bool(clim[v].where(land).isnull().all()) and bool(land.any()):
+        first = clim[v].isel(month=0) if "month" in clim[v].dims else clim[v]
+        if land_np.any() and not np.isfinite(np.asarray(first.values)[land_np]).any():
             raise DataError(
                 f"slice {label!r}: variable {v!r} has no value on any land cell of the target "
                 "grid; check that the input covers the target area"
             )
-    clim = fill_exposed(clim, land, elev, lapse_rate=lapse_rate)
+    clim = fill_exposed(clim, land, elev, lapse_rate=lapse_rate, inplace=owned)
     n_filled = int(clim["filled"].sum())
     if n_filled:
         log.append(
@@ -205,17 +242,34 @@ def prepare_slice(
             f"cell ({lapse_rate * 1000:g} K/km lapse-rate correction)"
         )
     if bio is None:
-        neg = int((clim["pr"] < -1e-6).sum())
+        neg = int((clim["pr"].values < -1e-6).sum())
         if neg:
             log.append(f"{neg} cell-months of negative precipitation set to 0")
-        clim["pr"] = clim["pr"].clip(min=0.0)
-        bio_ds = from_monthly(clim)
+        if owned and neg:
+            np.maximum(clim["pr"].values, 0.0, out=clim["pr"].values)
+        elif neg:
+            clim["pr"] = clim["pr"].clip(min=0.0)
+        if rows is not None:
+            # smaller blocks here: the kernel holds ~15 float64 copies of its block
+            bio_rows = max(1, rows // 4)
+            bio_ds = from_monthly(clim, block_rows=bio_rows)
+        else:
+            bio_ds = from_monthly(clim)
     else:
         bio_ds = clim
     out = xr.Dataset()
+    sea = ~land_np
     for name in BIO_NAMES:
-        da = bio_ds[name].where(land).astype(np.float32)
-        attrs = dict(bio_ds[name].attrs)
+        src = bio_ds[name]
+        if bio is None and src.dtype == np.float32:
+            arr = np.asarray(src.values)  # computed here: ours to mask in place
+            if not arr.flags.writeable or not arr.flags.c_contiguous:
+                arr = np.ascontiguousarray(arr).copy()
+            arr[sea] = np.nan
+            da = src.copy(data=arr)
+        else:
+            da = src.where(land).astype(np.float32)
+        attrs = dict(src.attrs)
         attrs.pop("regrid_method", None)
         if not attrs.get("long_name") and name in BIO_ATTRS:
             u, ln, desc = BIO_ATTRS[name]

@@ -159,20 +159,28 @@ def _apply_kernel(
     out = np.empty((flat.shape[0], w_lat.shape[0], w_lon.shape[0]), dtype=out_dtype)
     w_lon_t = w_lon.T.tocsr()
     if dst_area is None:
-        full = np.asarray(w_lat.sum(axis=1)).ravel()[:, None] * np.asarray(w_lon.sum(axis=1)).ravel()[None, :]
+        full = np.outer(np.asarray(w_lat.sum(axis=1)).ravel(), np.asarray(w_lon.sum(axis=1)).ravel())
     else:
         full = dst_area
+    # weight sum of a fully valid source, used when a field has no NaN (saves one product)
+    all_valid_den = None
     for k in range(flat.shape[0]):
         f = np.asarray(flat[k], dtype=np.float64)
         valid = np.isfinite(f)
-        fz = np.where(valid, f, 0.0)
-        num = np.asarray((w_lat @ fz) @ w_lon_t)
-        den = np.asarray((w_lat @ valid.astype(np.float64)) @ w_lon_t)
+        if valid.all():
+            num = np.asarray((w_lat @ f) @ w_lon_t)
+            if all_valid_den is None:
+                all_valid_den = np.asarray((w_lat @ np.ones_like(f)) @ w_lon_t)
+            den = all_valid_den
+        else:
+            fz = np.where(valid, f, 0.0)
+            num = np.asarray((w_lat @ fz) @ w_lon_t)
+            den = np.asarray((w_lat @ valid.astype(np.float64)) @ w_lon_t)
         with np.errstate(invalid="ignore", divide="ignore"):
-            res = num / den
-            frac = den / full
-        ok = (den > 0) & (frac >= min_valid_fraction - 1e-12)
-        out[k] = np.where(ok, res, np.nan)
+            ok = (den > 0) & (den >= (min_valid_fraction - 1e-12) * full)
+            np.divide(num, den, out=num, where=ok)
+        num[~ok] = np.nan
+        out[k] = num
     return out.reshape(lead + out.shape[-2:])
 
 
@@ -198,6 +206,7 @@ def regrid(
     method: Method | dict[str, Method] = "auto",
     min_valid_fraction: float = 0.5,
     source: str = "input",
+    chunks: int | None = None,
 ) -> T:
     """Regrid onto the lat/lon grid of `target`.
 
@@ -218,6 +227,9 @@ def regrid(
         result is NaN.
     source : str
         Name used in error messages.
+    chunks : int, optional
+        For numpy-backed input: return a lazy dask result in blocks of this many target
+        latitude rows (bounded memory when refining onto a large grid).
 
     Returns
     -------
@@ -277,24 +289,11 @@ def regrid(
         data = da
         if data.dtype == bool or np.issubdtype(data.dtype, np.integer):
             data = data.astype(np.float32)
-        res = xr.apply_ufunc(
-            _apply_kernel,
-            data,
-            input_core_dims=[["lat", "lon"]],
-            output_core_dims=[["lat", "lon"]],
-            exclude_dims={"lat", "lon"},
-            kwargs={
-                "w_lat": w_lat, "w_lon": w_lon, "dst_area": area,
-                "min_valid_fraction": float(min_valid_fraction),
-            },
-            dask="parallelized",
-            output_dtypes=[np.result_type(data.dtype, np.float32)],
-            dask_gufunc_kwargs={
-                "output_sizes": {"lat": tlat.size, "lon": tlon.size},
-                "allow_rechunk": True,
-            },
-            keep_attrs=True,
-        )
+        mvf = float(min_valid_fraction)
+        if chunks is not None and data.chunks is None:
+            res = _blocked(data, w_lat, w_lon, area, mvf, int(chunks))
+        else:
+            res = _unblocked(data, w_lat, w_lon, area, mvf, tlat.size, tlon.size)
         res = res.assign_coords(lat=tlat.values, lon=tlon.values)
         res = res.transpose(*da.dims)
         res["lat"].attrs.update(tlat.attrs)
@@ -313,3 +312,43 @@ def regrid(
         if c not in out.coords and "lat" not in obj[c].dims and "lon" not in obj[c].dims:
             out = out.assign_coords({c: obj[c]})
     return out
+
+
+def _unblocked(data, w_lat, w_lon, area, mvf, nlat, nlon) -> xr.DataArray:
+    """One apply_ufunc over the (lat, lon) core dims; dask input chunked on other dims stays
+    lazy."""
+    return xr.apply_ufunc(
+        _apply_kernel,
+        data,
+        input_core_dims=[["lat", "lon"]],
+        output_core_dims=[["lat", "lon"]],
+        exclude_dims={"lat", "lon"},
+        kwargs={"w_lat": w_lat, "w_lon": w_lon, "dst_area": area, "min_valid_fraction": mvf},
+        dask="parallelized",
+        output_dtypes=[np.result_type(data.dtype, np.float32)],
+        dask_gufunc_kwargs={"output_sizes": {"lat": nlat, "lon": nlon}, "allow_rechunk": True},
+        keep_attrs=True,
+    )
+
+
+def _blocked(data, w_lat, w_lon, area, mvf, rows) -> xr.DataArray:
+    """Lazy output in blocks of `rows` target latitudes (a numpy source is small; the target
+    may not be): peak memory is one block, not the whole target grid."""
+    import dask
+    import dask.array as dsa
+
+    other = [d for d in data.dims if d not in ("lat", "lon")]
+    src = data.transpose(*other, "lat", "lon")
+    vals = dask.delayed(np.asarray(src.values))
+    lead = src.shape[:-2]
+    dtype = np.result_type(src.dtype, np.float32)
+    blocks = []
+    for r0 in range(0, w_lat.shape[0], rows):
+        r1 = min(r0 + rows, w_lat.shape[0])
+        blk = dask.delayed(_apply_kernel)(
+            vals, w_lat[r0:r1], w_lon, None if area is None else area[r0:r1], mvf
+        )
+        blocks.append(dsa.from_delayed(blk, shape=lead + (r1 - r0, w_lon.shape[0]), dtype=dtype))
+    arr = dsa.concatenate(blocks, axis=-2)
+    coords = {d: src[d] for d in other if d in src.coords}
+    return xr.DataArray(arr, dims=(*other, "lat", "lon"), coords=coords)
