@@ -175,3 +175,12 @@ def test_plot_errors_name_columns(summary_df, tmp_path):
     with pytest.raises(DataError, match="inside_calibration"):
         plots.response_curves(pd.DataFrame({"variable": [], "value": [], "suitability": []}),
                               tmp_path / "c.png")
+
+
+def test_stability_map_for_a_named_window(series_ds, tmp_path):
+    ds = series_ds.assign(stability_past=series_ds.stability, refugium_past=series_ds.refugium)
+    ds["stability_past"].attrs["slices"] = "baseline alder_21ka"
+    _png_ok(maps.stability_map(ds, tmp_path / "s.png", variable="stability_past",
+                               refugium="refugium_past", dpi=50))
+    with pytest.raises(DataError, match="'refugium_x'"):
+        maps.stability_map(ds, tmp_path / "s.png", refugium="refugium_x")

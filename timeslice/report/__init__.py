@@ -58,4 +58,5 @@ __all__ = [
     "write_csv",
     "write_manifest",
     "write_report",
+    "write_series",
 ]

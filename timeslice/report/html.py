@@ -9,7 +9,7 @@ import datetime as _dt
 import html as _html
 import math
 import os
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any

@@ -14,6 +14,7 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Literal
 
 import numpy as np
 import xarray as xr
@@ -476,7 +477,7 @@ def novelty_map(
     ds: xr.Dataset,
     path: str | os.PathLike,
     *,
-    variable: str = "mess",
+    variable: Literal["mess", "nt1", "nt2", "exdet"] = "mess",
     slices: Sequence[str] | None = None,
     ncols: int | None = None,
     dpi: int = 110,
@@ -497,25 +498,49 @@ def novelty_map(
                   suptitle=f"Climate novelty: {title}")
 
 
-def stability_map(ds: xr.Dataset, path: str | os.PathLike, *, dpi: int = 110) -> Path:
-    """Stability (fraction of slices suitable) with refugia (suitable in every slice) outlined."""
+def stability_map(
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    variable: str = "stability",
+    refugium: str | None = "refugium",
+    dpi: int = 110,
+) -> Path:
+    """Stability (fraction of slices suitable) with refugia (suitable in every slice) outlined.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Summarised series with `variable` and `refugium` on ``(lat, lon)``.
+    path : path-like
+        PNG file.
+    variable, refugium : str
+        Layer names, e.g. ``"stability_past"`` / ``"refugium_past"`` for a named window;
+        `refugium` None draws no outline.
+    """
     from matplotlib.lines import Line2D
 
-    _check(ds, "stability")
+    _check(ds, variable)
+    if refugium is not None:
+        _check(ds, refugium)
     fig = Figure(figsize=_map_size(ds))
     # The present-day coastline (first slice) frames the map.
     i0 = 0 if "slice" in ds.dims else None
     ax, crs = _axes(fig, 111, ds, i0)
-    mappable = _draw(ax, crs, ds, "stability", None)
+    values = _layer(ds, variable, None)
+    mappable = ax.pcolormesh(ds["lon"].values, ds["lat"].values, values.astype(float),
+                             cmap=_CONTINUOUS["stability"][0], norm=Normalize(0.0, 1.0),
+                             transform=crs, shading="nearest", zorder=2)
     handles = _decorate(ax, crs, ds, i0, "stability")
-    ref = _layer(ds, "refugium", None)
+    ref = _layer(ds, refugium, None) if refugium is not None else None
     if ref is not None:
         _outline(ax, ds, ref.astype(bool), crs, colors="#D55E00", linewidths=1.6)
         handles.append(Line2D([], [], color="#D55E00", linewidth=1.6,
                               label="refugium (suitable in every slice)"))
     fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03, label=_CONTINUOUS["stability"][1])
     _legend(ax, handles, loc="upper right")
-    n = ds.sizes.get("slice", 0)
+    window = str(ds[variable].attrs.get("slices", "")).split()
+    n = len(window) or ds.sizes.get("slice", 0)
     ax.set_title(f"Climatic stability over {n} slices and refugia" if n else
                  "Climatic stability and refugia", fontsize=9)
     return _save(fig, Path(path), dpi=dpi)
