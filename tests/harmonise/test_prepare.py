@@ -139,3 +139,16 @@ def test_blocked_equals_whole_grid(inputs):
     blocked = prepare_slice(chunks=7, **kw)
     xr.testing.assert_allclose(whole, blocked)
     assert blocked.attrs["n_swapped"] == whole.attrs["n_swapped"]
+
+
+def test_input_all_nan_on_land_is_an_error(inputs):
+    from timeslice.harmonise import BIO_NAMES
+
+    fb, elev, _, _ = inputs
+    base = prepare_slice(fine_baseline=fb, elevation=elev, label="b", year=1985.0,
+                         period="p", model="observed", scenario="baseline")
+    bio = base[list(BIO_NAMES)].copy(deep=True)
+    bio["bio7"] = bio["bio7"] * np.nan
+    with pytest.raises(DataError, match="'bio7' has no value on any land cell"):
+        prepare_slice(fine_baseline=None, elevation=elev, bio=bio, label="x", year=1985.0,
+                      period="p", model="m", scenario="s")

@@ -234,3 +234,26 @@ def test_missing_variable_lists_found(tmp_path):
     ds.to_netcdf(tmp_path / "foo.nc")
     with pytest.raises(DataError, match=r"no climate variable recognised \(found \['foo'\]\)"):
         open_climate(tmp_path / "foo.nc")
+
+
+def test_more_precipitation_units():
+    # definitions: 1 m = 1000 mm, 1 cm = 10 mm; per-month units need no calendar
+    assert precipitation_conversion("m/month") == ("per_month", pytest.approx(1000.0))
+    assert precipitation_conversion("cm/month") == ("per_month", pytest.approx(10.0))
+    assert precipitation_conversion("kg m-2 month-1") == ("per_month", pytest.approx(1.0))
+    kind, f = precipitation_conversion("mm/d")
+    assert kind == "per_second" and f * 86400 == pytest.approx(1.0)
+
+
+def test_unsupported_calendar():
+    with pytest.raises(DataError, match="calendar 'martian' is not supported"):
+        days_in_month("martian")
+
+
+def test_variables_disagreeing_on_grid(tmp_path, model_file):
+    a = xr.open_dataset(model_file(name="a.nc"))[["tasmin", "time"]]
+    b = xr.open_dataset(model_file(name="b.nc", lon=np.arange(315.25, 345.0, 0.5)))[["pr", "time"]]
+    a.to_netcdf(tmp_path / "tmin_only.nc")
+    b.to_netcdf(tmp_path / "pr_only.nc")
+    with pytest.raises(DataError, match="disagree on the grid"):
+        open_climate([tmp_path / "tmin_only.nc", tmp_path / "pr_only.nc"])
