@@ -184,3 +184,19 @@ def test_stability_map_for_a_named_window(series_ds, tmp_path):
                                refugium="refugium_past", dpi=50))
     with pytest.raises(DataError, match="'refugium_x'"):
         maps.stability_map(ds, tmp_path / "s.png", refugium="refugium_x")
+
+
+def test_reach_map_classes(series_ds, tmp_path):
+    ds = series_ds.isel(slice=[0, 1]).copy()
+    s = ds["suitable"].values
+    reached = np.where(s < 0, -1, 0).astype("int8")
+    reached[(s == 1)] = 1
+    reached[1, :, : s.shape[2] // 2][s[1, :, : s.shape[2] // 2] == 1] = 0
+    ds["reachable"] = (ds["suitable"].dims, reached, {"movement_assumption": "limited"})
+    code = maps._layer(ds, "reach", 1)
+    assert set(np.unique(code[np.isfinite(code)])) <= {0.0, 1.0, 2.0}
+    assert np.all(code[s[1] == 0] == 0) and np.all(np.isnan(code[s[1] < 0]))
+    assert np.all(code[(s[1] == 1) & (reached[1] == 0)] == 1)
+    _png_ok(maps.reach_map(ds, tmp_path / "reach.png", dpi=50))
+    with pytest.raises(DataError, match="reachable"):
+        maps.reach_map(series_ds, tmp_path / "x.png")

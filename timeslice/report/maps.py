@@ -30,8 +30,10 @@ from timeslice.report._layers import LAYERS, slice_title
 __all__ = [
     "CHANGE_COLOURS",
     "EXDET_COLOURS",
+    "REACH_COLOURS",
     "change_map",
     "novelty_map",
+    "reach_map",
     "series_panel",
     "slice_maps",
     "stability_map",
@@ -54,7 +56,13 @@ EXDET_COLOURS: dict[int, tuple[str, str]] = {
     1: ("novel combination (NT2 > 1)", "#56B4E9"),
     2: ("outside a univariate range (NT1 < 0)", "#D55E00"),
 }
-_CATEGORICAL = {"change": CHANGE_COLOURS, "exdet": EXDET_COLOURS}
+#: Suitable versus reachable (the dispersal layer), code -> (label, colour); Okabe & Ito set.
+REACH_COLOURS: dict[int, tuple[str, str]] = {
+    0: ("unsuitable", "#E4E4E4"),
+    1: ("suitable, not reached", "#F0E442"),
+    2: ("suitable and reached", "#0072B2"),
+}
+_CATEGORICAL = {"change": CHANGE_COLOURS, "exdet": EXDET_COLOURS, "reach": REACH_COLOURS}
 
 _CONTINUOUS = {
     "suitability": ("viridis", "climatic suitability (0-1)"),
@@ -64,13 +72,19 @@ _CONTINUOUS = {
     "nt2": ("cividis", "NT2 (> 1: novel combination)"),
 }
 _NOVEL_HATCH = "////"
+_REACH_LAYER = "reachable"
 _ICE_COLOUR = "#D6EAF8"
 
 
 def _check(ds: xr.Dataset, variable: str) -> None:
     if not isinstance(ds, xr.Dataset):
         raise DataError(f"maps: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
-    if variable == "exdet":
+    if variable == "reach":
+        missing = [v for v in ("suitable", _REACH_LAYER) if v not in ds.data_vars]
+        if missing:
+            raise DataError(f"maps: the reach map needs layers {missing}; add the dispersal "
+                            "layer (timeslice.series.dispersal.reachable) to the series")
+    elif variable == "exdet":
         missing = [v for v in ("nt1", "nt2") if v not in ds.data_vars]
         if missing:
             raise DataError(f"maps: the ExDet classes need layers {missing}; run the novelty "
@@ -93,6 +107,12 @@ def _layer(ds: xr.Dataset, name: str, i: int | None) -> np.ndarray | None:
         with np.errstate(invalid="ignore"):
             code = np.where(nt1 < 0, 2.0, np.where(nt2 > 1, 1.0, 0.0))
         return np.where(np.isfinite(nt1) & np.isfinite(nt2), code, np.nan)
+    if name == "reach":
+        suitable, reached = _layer(ds, "suitable", i), _layer(ds, _REACH_LAYER, i)
+        if suitable is None or reached is None:
+            return None
+        code = np.where(suitable == 1, np.where(reached == 1, 2.0, 1.0), 0.0)
+        return np.where(suitable >= 0, code, np.nan)
     if name not in ds.data_vars:
         return None
     da = ds[name]
@@ -279,7 +299,7 @@ def _decorate(ax, crs, ds, i, name: str, *, scale_bar: bool = True) -> list:
     ice = _layer(ds, "ice", i)
     if ice is not None and np.any(ice.astype(bool)):
         handles.append(Patch(facecolor=_ICE_COLOUR, edgecolor="0.5", label="ice sheet"))
-    if name in ("suitability", "mess", "nt1", "nt2", "change"):
+    if name in ("suitability", "mess", "nt1", "nt2", "change", "reach"):
         if _hatch_novel(ax, ds, i, crs):
             handles.append(Patch(facecolor="none", edgecolor="0.2", hatch=_NOVEL_HATCH,
                                  label="novel climate (MESS < 0)"))
@@ -544,3 +564,25 @@ def stability_map(
     ax.set_title(f"Climatic stability over {n} slices and refugia" if n else
                  "Climatic stability and refugia", fontsize=9)
     return _save(fig, Path(path), dpi=dpi)
+
+
+def reach_map(
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    slices: Sequence[str] | None = None,
+    ncols: int | None = None,
+    dpi: int = 110,
+) -> Path:
+    """Suitable versus reachable per slice, novel climate hatched.
+
+    Needs ``suitable`` and the dispersal layer ``reachable`` (-1 not land, 0 not reached,
+    1 suitable and reached). Classes: unsuitable; suitable but not reached under the movement
+    assumption; suitable and reached (:data:`REACH_COLOURS`). Suitability, reachability and
+    novelty stay separate: the hatching marks novel climate whatever the class.
+    """
+    _check(ds, "reach")
+    movement = ds[_REACH_LAYER].attrs.get("movement_assumption")
+    what = f" ({movement} movement)" if movement else ""
+    return _panel(ds, "reach", _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
+                  suptitle=f"Suitable and reachable{what}")
