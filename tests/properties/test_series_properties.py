@@ -164,7 +164,10 @@ def test_path_distance_symmetric_and_triangle(ds, data, neighbours):
 
     d = [dist_from(c) for c in cells]
     a, b, c = cells
-    assert d[0][b] == d[1][a] or (np.isinf(d[0][b]) and np.isinf(d[1][a]))
+    # equal up to the order in which edge lengths are added
+    assert np.isinf(d[0][b]) == np.isinf(d[1][a])
+    if np.isfinite(d[0][b]):
+        assert abs(d[0][b] - d[1][a]) <= 1e-9 * max(d[0][b], 1.0)
     if np.isfinite(d[0][b]) and np.isfinite(d[1][c]):
         assert d[0][c] <= d[0][b] + d[1][c] + 1e-6
     if np.isfinite(d[0][b]):

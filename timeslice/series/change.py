@@ -374,6 +374,38 @@ def _weighted_quantiles(values: np.ndarray, weights: np.ndarray, qs) -> np.ndarr
     return out
 
 
+def _detail_reductions(stack: xr.Dataset, suitable: xr.DataArray, change: xr.DataArray,
+                       area: xr.DataArray) -> tuple[dict, dict]:
+    """Lazy per-slice reductions for the detail columns, and the few layers they still need.
+
+    Everything is a sum over cells except the elevation quantiles, which need the suitable
+    mask (bool, one byte per cell and slice) against the static elevation.
+    """
+    suit = is_suitable(suitable)
+    w = area * suit
+    red = {"d_lat_rows": w.sum("lon")}  # area per latitude row: exact latitude quantiles
+    novel = {}
+    for var, (rule, _) in NOVELTY_RULES.items():
+        if var in stack.data_vars:
+            novel[var] = rule(stack[var])
+            red[f"d_novel_{var}"] = (w * novel[var]).sum(("lat", "lon"))
+    if novel:
+        any_novel = None
+        for m in novel.values():
+            any_novel = m if any_novel is None else (any_novel | m)
+        red["d_novel_any"] = (w * any_novel).sum(("lat", "lon"))
+        red["d_gain_novel"] = (area * ((change == 1) & any_novel)).sum(("lat", "lon"))
+    layers = {}
+    if "elevation" in stack.data_vars:
+        elev = stack["elevation"]
+        ok = elev.notnull()
+        red["d_elev_w"] = (w * ok).sum(("lat", "lon"))
+        red["d_elev_sum"] = (w * elev.fillna(0.0)).sum(("lat", "lon"))
+        layers["d_suit"] = suit
+        layers["d_elev"] = elev
+    return red, layers
+
+
 def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
                     table: pd.DataFrame) -> pd.DataFrame:
     ref_area = table["suitable_area_km2"].iloc[iref]
@@ -383,45 +415,48 @@ def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
         table["centroid_lon"].iloc[iref], table["centroid_lat"].iloc[iref],
         table["centroid_lon"].to_numpy(), table["centroid_lat"].to_numpy(),
     )
-    suit = suitable_mask(computed["suitable"].values)
-    area = np.broadcast_to(cell_area(stack).values, suit.shape)
-    w = np.where(suit, area, 0.0).reshape(suit.shape[0], -1)
-    total = w.sum(axis=1)
-    lat = np.broadcast_to(stack["lat"].values[:, None], suit.shape[1:])
-    lat = np.broadcast_to(lat, suit.shape).reshape(suit.shape[0], -1)
+    total = table["suitable_area_km2"].to_numpy()
     qs = (0.1, 0.5, 0.9)
+    rows = np.asarray(computed["d_lat_rows"].transpose("slice", "lat").values, dtype=float)
+    lat = np.broadcast_to(np.asarray(stack["lat"].values, dtype=float), rows.shape)
     with np.errstate(invalid="ignore", divide="ignore"):
-        table["lat_mean"] = (w * lat).sum(axis=1) / np.where(total > 0, total, np.nan)
-    table[["lat_q10", "lat_q50", "lat_q90"]] = _weighted_quantiles(lat, w, qs)
-    if "elevation" in computed:
-        elev = np.asarray(computed["elevation"].values, dtype=float)
-        elev = np.broadcast_to(elev, suit.shape).reshape(suit.shape[0], -1)
-        ok = np.isfinite(elev)
-        we = np.where(ok, w, 0.0)
-        tot_e = we.sum(axis=1)
+        table["lat_mean"] = (rows * lat).sum(axis=1) / np.where(total > 0, total, np.nan)
+    table[["lat_q10", "lat_q50", "lat_q90"]] = _weighted_quantiles(lat, rows, qs)
+    if "d_elev_w" in computed:
+        we = computed["d_elev_w"].values.astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
-            table["elevation_mean_m"] = (we * np.where(ok, elev, 0.0)).sum(axis=1) / np.where(
-                tot_e > 0, tot_e, np.nan)
-        table[["elevation_q10_m", "elevation_q50_m", "elevation_q90_m"]] = _weighted_quantiles(
-            elev, we, qs)
+            table["elevation_mean_m"] = computed["d_elev_sum"].values / np.where(we > 0, we,
+                                                                                   np.nan)
+        suit = np.asarray(computed["d_suit"].transpose("slice", "lat", "lon").values)
+        ns = suit.shape[0]
+        area = cell_area(stack).values
+        if set(computed["d_elev"].dims) != {"lat", "lon"}:
+            elev = np.broadcast_to(computed["d_elev"].values, suit.shape).reshape(ns, -1)
+            w = np.where(suit, area, 0.0).reshape(ns, -1)
+            eq = _weighted_quantiles(elev.astype(float), w, qs)
+        else:
+            # static elevation: sort once, then one cumulative sum per slice
+            elev = np.asarray(computed["d_elev"].transpose("lat", "lon").values,
+                              dtype=float).ravel()
+            order = np.argsort(elev, kind="stable")
+            order = order[np.isfinite(elev[order])]
+            ev, av = elev[order], area.ravel()[order]
+            eq = np.full((ns, len(qs)), np.nan)
+            for t in range(ns):
+                w = np.where(suit[t].ravel()[order], av, 0.0)
+                eq[t] = _weighted_quantiles(ev[None, :], w[None, :], qs)[0]
+        table[["elevation_q10_m", "elevation_q50_m", "elevation_q90_m"]] = eq
     else:
         for c in ("elevation_mean_m", "elevation_q10_m", "elevation_q50_m", "elevation_q90_m"):
             table[c] = np.nan
-    novel = {}
-    rules = {k: v[0] for k, v in NOVELTY_RULES.items()}
-    for var, rule in rules.items():
-        if var in computed:
-            with np.errstate(invalid="ignore"):
-                novel[var] = rule(np.asarray(computed[var].values)).reshape(suit.shape[0], -1)
-    for var in rules:
-        table[f"novel_{var}_km2"] = (w * novel[var]).sum(axis=1) if var in novel else np.nan
-    if novel:
-        any_novel = np.logical_or.reduce(list(novel.values()))
-        table["novel_any_km2"] = (w * any_novel).sum(axis=1)
+    for var in NOVELTY_RULES:
+        key = f"d_novel_{var}"
+        table[f"novel_{var}_km2"] = computed[key].values.astype(float) if key in computed \
+            else np.nan
+    if "d_novel_any" in computed:
+        table["novel_any_km2"] = computed["d_novel_any"].values.astype(float)
         table["analog_area_km2"] = total - table["novel_any_km2"].to_numpy()
-        gain = (np.asarray(computed["change"].values) == 1).reshape(suit.shape[0], -1)
-        ref_w = area.reshape(suit.shape[0], -1)
-        table["gain_novel_km2"] = (ref_w * (gain & any_novel)).sum(axis=1)
+        table["gain_novel_km2"] = computed["d_gain_novel"].values.astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             table["gain_novel_share"] = table["gain_novel_km2"] / table["gain_km2"].where(
                 table["gain_km2"] > 0)
@@ -493,11 +528,8 @@ def change_table(
     }
     layers = {}
     if detail:
-        layers["suitable"] = drop_nondim(suitable)
-        layers["change"] = drop_nondim(change)
-        for var in ("mess", "nt1", "nt2", "elevation"):
-            if var in stack.data_vars:
-                layers[var] = drop_nondim(stack[var])
+        red, lay = _detail_reductions(stack, suitable, change, area)
+        layers = {k: drop_nondim(v) for k, v in {**red, **lay}.items()}
     computed = xr.Dataset({**{k: drop_nondim(v) for k, v in sums.items()},
                            **{f"meta_{k}": v for k, v in meta.items()}, **layers})
     computed = computed.compute()  # one pass over the stack
