@@ -524,6 +524,30 @@ def test_presence_probability_reproduces_truth(demo_dir):
     assert float(area) == pytest.approx(truth["true_niche_area_km2"], rel=1e-6, abs=0.1)
 
 
+def test_warmest_quarter_against_xclim(demo_dir):
+    """BIO10 used for the known niche equals xclim 0.62 ``tg_mean_warmcold_quarter``.
+
+    Convention check: xclim's quarters do not wrap December-January, ours do; the warmest
+    quarter of this climate is in summer everywhere (peak month 7.1..7.4), so both agree.
+    """
+    pytest.importorskip("xclim")
+    import warnings
+
+    from xclim.indices import tg_mean_warmcold_quarter
+
+    out, _ = demo_dir
+    with xr.open_dataset(out / "baseline.nc") as b:
+        tas = (0.5 * (b["tasmin"] + b["tasmax"])).assign_attrs(units="degC")
+        tas = tas.assign_coords(time=pd.date_range("2001-01-01", periods=12, freq="MS"))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # xclim's own notes on monthly input
+            ref = tg_mean_warmcold_quarter(tas, op="warmest", freq="YS").isel(time=0).values
+        mine, _ = demo._bio10_bio12(b["tasmin"].values, b["tasmax"].values, b["pr"].values)
+    ok = np.isfinite(mine)
+    assert ok.sum() > 100
+    np.testing.assert_allclose(mine[ok], ref[ok], atol=1e-4)
+
+
 def test_presence_probability_from_project_bioclim(demo_dir):
     """The same niche through the project's own readers and bioclimatic variables."""
     from timeslice.grid import cell_area
