@@ -124,3 +124,15 @@ def test_refugia_card_area_from_cell_areas(series_ds, summary_df):
     assert value == f"{expected:,.0f} km²"
     none = series_ds.assign(refugium=series_ds.refugium & False)
     assert key_numbers(summary_df, series=none)[1][1] == "0 km²"
+
+
+def test_number_formatting():
+    from timeslice.report.html import _fmt
+
+    assert _fmt(1995.5, "year") == ("1995.5", True)
+    assert _fmt(-19050.0, "year") == ("-19050", True)
+    assert _fmt(349662.61, "suitable_area_km2") == ("349,663", True)
+    assert _fmt(47.7330, "centroid_lat") == ("47.73", True)
+    assert _fmt(0.8934, "auc") == ("0.893", True)
+    assert _fmt(float("nan"), "x") == ("", False)
+    assert _fmt(True, "x") == ("yes", False)

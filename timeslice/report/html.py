@@ -123,10 +123,14 @@ def _e(text: Any) -> str:
     return _html.escape(str(text), quote=True)
 
 
-def _fmt(value: Any) -> tuple[str, bool]:
-    """Cell text and whether it is numeric."""
+def _fmt(value: Any, column: str = "") -> tuple[str, bool]:
+    """Cell text and whether it is numeric; years and ages are written without separators."""
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "", False
+    col = str(column).lower()
+    if (("year" in col or col.startswith("age")) and isinstance(
+            value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)):
+        return f"{float(value):.6g}", True
     if isinstance(value, (bool, np.bool_)):
         return ("yes" if value else "no"), False
     if isinstance(value, (int, np.integer)):
@@ -148,10 +152,11 @@ def _table(df: pd.DataFrame, *, max_rows: int = 500) -> str:
         raise DataError(f"report tables must be pandas.DataFrame, got {type(df).__name__}")
     head = "".join(f"<th>{_e(c)}</th>" for c in df.columns)
     rows = []
+    columns = [str(c) for c in df.columns]
     for rec in df.head(max_rows).itertuples(index=False, name=None):
         cells = []
-        for v in rec:
-            text, num = _fmt(v)
+        for col, v in zip(columns, rec):
+            text, num = _fmt(v, col)
             cells.append(f'<td class="num">{_e(text)}</td>' if num else f"<td>{_e(text)}</td>")
         rows.append("<tr>" + "".join(cells) + "</tr>")
     more = ""
