@@ -115,7 +115,8 @@ def test_areas_input_table_and_atomic_write(inputs, tmp_path):
     out = tmp_path / "slices" / "a_21ka.nc"
     write_prepared(lgm, out)
     back = xr.open_dataset(out)
-    assert back["land"].dtype == np.int8 and back["land"].attrs["flag_meanings"] == "not_land land"
+    assert back["land"].dtype == bool and back["land"].attrs["flag_meanings"] == "not_land land"
+    assert np.dtype(back["land"].encoding["dtype"]) == bool  # on disk: int8 0/1
     np.testing.assert_allclose(back["bio1"].values, lgm["bio1"].values, equal_nan=True)
     assert json.loads(back.attrs["harmonise_log"]) == json.loads(lgm.attrs["harmonise_log"])
     assert not [p for p in out.parent.iterdir() if p.suffix == ".part"]

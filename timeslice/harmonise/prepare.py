@@ -305,7 +305,8 @@ def prepare_slice(
 def write_prepared(ds: xr.Dataset, path) -> Path:
     """Write a prepared slice as compressed CF NetCDF, atomically (temporary name, rename).
 
-    Boolean masks are stored as int8 0/1 with CF ``flag_values``/``flag_meanings``.
+    Boolean masks are stored as int8 0/1 with CF ``flag_values``/``flag_meanings`` (xarray
+    reads them back as bool).
     """
     from timeslice.io import atomic_path
 
@@ -313,9 +314,9 @@ def write_prepared(ds: xr.Dataset, path) -> Path:
     encoding = {}
     for v in out.data_vars:
         if out[v].dtype == bool:
+            # stored as int8 0/1 (xarray reads it back as bool) with CF flag attributes
             attrs = dict(out[v].attrs)
             attrs.pop("units", None)
-            out[v] = out[v].astype(np.int8)
             out[v].attrs = {**attrs, "flag_values": np.array([0, 1], dtype=np.int8),
                             "flag_meanings": f"not_{v} {v}"}
             encoding[v] = {"zlib": True, "complevel": 4}

@@ -36,12 +36,24 @@ def _is_global(lon: np.ndarray) -> bool:
 def _overlap_matrix(src_edges: np.ndarray, dst_edges: np.ndarray) -> sp.csr_matrix:
     """Sparse matrix of interval overlaps: ``M[i, j] = |dst_i ∩ src_j|``.
 
-    Edges are ``(n, 2)`` arrays of increasing (lo, hi) in any one-dimensional measure.
+    Edges are ``(n, 2)`` arrays of (lo, hi) with lo < hi, increasing along the array. Each
+    target interval meets a contiguous run of source intervals, found by binary search, so
+    memory is proportional to the number of overlaps, not to n_dst x n_src.
     """
-    lo = np.maximum(dst_edges[:, None, 0], src_edges[None, :, 0])
-    hi = np.minimum(dst_edges[:, None, 1], src_edges[None, :, 1])
-    ov = np.clip(hi - lo, 0.0, None)
-    return sp.csr_matrix(ov)
+    s_lo, s_hi = src_edges[:, 0], src_edges[:, 1]
+    first = np.searchsorted(s_hi, dst_edges[:, 0], side="right")
+    last = np.searchsorted(s_lo, dst_edges[:, 1], side="left")
+    counts = np.clip(last - first, 0, None)
+    rows = np.repeat(np.arange(dst_edges.shape[0]), counts)
+    offsets = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    cols = np.repeat(first, counts) + offsets
+    lo = np.maximum(dst_edges[rows, 0], s_lo[cols])
+    hi = np.minimum(dst_edges[rows, 1], s_hi[cols])
+    ov = hi - lo
+    keep = ov > 0
+    return sp.csr_matrix(
+        (ov[keep], (rows[keep], cols[keep])), shape=(dst_edges.shape[0], src_edges.shape[0])
+    )
 
 
 def conservative_weights(
@@ -258,6 +270,15 @@ def regrid(
         obj = normalise_lonlat(obj, source=source)
         slat = obj["lat"].values.astype(float)
         slon = obj["lon"].values.astype(float)
+    if slon.size > 2:
+        steps = np.diff(slon)
+        if steps.max() > 1.5 * np.median(steps):
+            gap = int(np.argmax(steps))
+            raise DataError(
+                f"{source}: longitudes jump from {slon[gap]:g} to {slon[gap + 1]:g} (a regional "
+                "grid across the 180° meridian, or a gap); only contiguous regular grids are "
+                "supported: cut the input to one side or give a global grid"
+            )
     cache: dict[str, tuple] = {}
 
     def weights(m: str):
