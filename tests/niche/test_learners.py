@@ -21,7 +21,7 @@ CHECKED = [
     PointProcessNiche(penalties=(1e-3, 1e-2), n_knots=3),
     SplineNiche(n_knots=4),
     ForestNiche(n_estimators=10),
-    EnsembleNiche(members=("ellipsoid", "spline")),
+    EnsembleNiche(members=("ellipsoid", "envelope")),
 ]
 _RANDOM_DRAWS = "random bootstrap or inner folds: weights are not the same draws as repeated rows"
 # the point process places hinge knots at weighted quantiles (midpoint rule), which differ

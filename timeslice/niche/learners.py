@@ -19,7 +19,7 @@ from sklearn.preprocessing import SplineTransformer
 from sklearn.tree import DecisionTreeClassifier
 from sklearn.utils.validation import check_is_fitted
 
-from timeslice.niche.models import EllipsoidNiche, EnvelopeNiche, _NicheBase
+from timeslice.niche.models import _NicheBase
 
 __all__ = ["ForestNiche", "EnsembleNiche", "LEARNERS", "PointProcessNiche", "SplineNiche"]
 
@@ -561,6 +561,3 @@ LEARNERS: dict[str, type] = {
     "point_process": PointProcessNiche,
     "spline": SplineNiche,
 }
-
-# keep the simple estimators importable from here too
-_ = (EllipsoidNiche, EnvelopeNiche)

@@ -16,7 +16,7 @@ from sklearn.base import BaseEstimator, ClassifierMixin
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import _check_sample_weight, check_is_fitted, validate_data
 
-from timeslice.errors import ConfigError, DataError
+from timeslice.errors import ConfigError
 
 __all__ = [
     "EllipsoidNiche",
@@ -299,10 +299,3 @@ def make_model(name: str, **params: Any):
         return cls(**params)
     except TypeError as err:  # pragma: no cover - guarded above
         raise ConfigError(f"algorithm {key!r}: {err}") from err
-
-
-def _check_predictors_finite(X: np.ndarray, names: list[str]) -> None:
-    """Raise DataError naming the first predictor with missing values."""
-    bad = ~np.all(np.isfinite(X), axis=0)
-    if bad.any():
-        raise DataError(f"predictor {names[int(np.flatnonzero(bad)[0])]!r} has missing values")

@@ -272,16 +272,15 @@ def fit_niche(
     kept, cleaning = ndata.clean_records(records, land=land, uncertainty_max_m=uncertainty_max_m, years=years)
     n_in = cleaning.attrs["n_input"]
     by_reason = "; ".join(f"{r}: {n}" for r, n in zip(cleaning["reason"], cleaning["n_dropped"]) if n)
-    if len(kept) == 0:
-        inside = cleaning.set_index("reason")["n_dropped"]
-        if n_in > 0 and inside.get("outside grid", 0) > 0 and inside.get("outside grid", 0) == n_in - sum(
-            inside[r] for r in ndata.CLEANING_REASONS[: ndata.CLEANING_REASONS.index("outside grid")]
-        ):
-            raise DataError(
-                f"no record lies inside the model grid (lon {float(land.lon.min()):g}..{float(land.lon.max()):g}, "
-                f"lat {float(land.lat.min()):g}..{float(land.lat.max()):g}); drops per reason: {by_reason}; "
-                "check the coordinate columns (swapped lon/lat?) or the grid extent"
-            )
+    drops = dict(zip(cleaning["reason"], cleaning["n_dropped"]))
+    before_grid = ndata.CLEANING_REASONS[: ndata.CLEANING_REASONS.index("outside grid")]
+    reached_grid = n_in - sum(drops[r] for r in before_grid)
+    if reached_grid > 0 and drops["outside grid"] == reached_grid:
+        raise DataError(
+            f"no record lies inside the model grid (lon {float(land.lon.min()):g}..{float(land.lon.max()):g}, "
+            f"lat {float(land.lat.min()):g}..{float(land.lat.max()):g}); drops per reason: {by_reason}; "
+            "check the coordinate columns (swapped lon/lat?) or the grid extent"
+        )
     n_clean = len(kept)
     if thin == "cell":
         kept = ndata.thin(kept, grid=land, seed=seed)
