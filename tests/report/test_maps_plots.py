@@ -200,3 +200,15 @@ def test_reach_map_classes(series_ds, tmp_path):
     _png_ok(maps.reach_map(ds, tmp_path / "reach.png", dpi=50))
     with pytest.raises(DataError, match="reachable"):
         maps.reach_map(series_ds, tmp_path / "x.png")
+
+
+def test_maps_of_a_file_opened_plainly(series_ds, tmp_path):
+    # xarray.open_dataset (not open_series) leaves the labels in `slice_label`
+    import xarray as xr
+
+    from timeslice.report.netcdf import write_series
+
+    path = write_series(series_ds.isel(slice=[0, 1]), tmp_path / "s.nc")
+    with xr.open_dataset(path) as plain:
+        files = maps.slice_maps(plain, tmp_path / "m", dpi=40)
+    assert [p.name for p in files] == ["suitability_baseline.png", "suitability_alder_21ka.png"]

@@ -145,9 +145,21 @@ def layer_spec(name: str) -> dict[str, Any]:
     return {}
 
 
+def slice_labels(ds: xr.Dataset) -> list[str]:
+    """Text labels of the slices: the ``slice`` coordinate, else ``slice_label`` (a file
+    opened without :func:`timeslice.report.netcdf.open_series`), else ``slice 0``, ``slice 1``."""
+    if "slice" not in ds.dims:
+        return []
+    for name in ("slice", "slice_label"):
+        if name in ds.coords and ds[name].dims == ("slice",):
+            return [str(v) for v in ds[name].values]
+    return [f"slice {i}" for i in range(ds.sizes["slice"])]
+
+
 def slice_title(ds: xr.Dataset, i: int) -> str:
-    """Human title of slice `i`: "label — model, scenario, period"."""
-    label = str(ds["slice"].values[i]) if "slice" in ds.coords else f"slice {i}"
+    """Human title of slice `i`: "label (model, scenario, period)"."""
+    labels = slice_labels(ds)
+    label = labels[i] if labels else ""
     parts = []
     for key in ("model", "scenario", "period"):
         if key in ds.coords and "slice" in ds[key].dims:

@@ -13,7 +13,7 @@ import xarray as xr
 from timeslice.errors import DataError
 from timeslice.grid import cell_bounds
 from timeslice.report._output import output_path
-from timeslice.report._layers import LAYERS, flag_pairs
+from timeslice.report._layers import LAYERS, flag_pairs, slice_labels
 
 __all__ = ["export", "export_file"]
 
@@ -140,7 +140,8 @@ def export(
             tags["flag_meanings"] = " ".join(m for _, m in pairs)
         if extra:
             dim = extra[0]
-            labels = ds[dim].values if dim in ds.coords else np.arange(da.sizes[dim])
+            labels = (slice_labels(ds) if dim == "slice" else
+                      ds[dim].values if dim in ds.coords else np.arange(da.sizes[dim]))
             for i, label in enumerate(labels):
                 path = out / f"{_safe(name)}_{_safe(label)}.tif"
                 t = dict(tags, slice=str(label))

@@ -25,7 +25,7 @@ from matplotlib.patches import Patch
 from timeslice.errors import DataError
 from timeslice.grid import cell_bounds
 from timeslice.report._output import output_path
-from timeslice.report._layers import LAYERS, slice_title
+from timeslice.report._layers import LAYERS, slice_labels, slice_title
 
 __all__ = [
     "CHANGE_COLOURS",
@@ -364,8 +364,7 @@ def _safe(text: str) -> str:
 def _slice_indices(ds: xr.Dataset, slices: Sequence[str] | None) -> list[int]:
     if "slice" not in ds.dims:
         return []
-    labels = [str(s) for s in ds["slice"].values] if "slice" in ds.coords else [
-        str(i) for i in range(ds.sizes["slice"])]
+    labels = slice_labels(ds)
     if slices is None:
         return list(range(len(labels)))
     missing = [s for s in slices if s not in labels]
@@ -406,7 +405,7 @@ def slice_maps(
     out = Path(out_dir)
     paths = []
     for i in _slice_indices(ds, slices):
-        label = str(ds["slice"].values[i])
+        label = slice_labels(ds)[i]
         path = out / f"{_safe(variable)}_{_safe(label)}.png"
         title = f"{_CONTINUOUS.get(variable, (None, variable))[1].split(' (')[0]} — " \
             f"{slice_title(ds, i)}"
