@@ -606,3 +606,23 @@ def test_project_readers_accept_demo_files(demo_dir):
     occ = read_occurrences(out / "occurrences.csv")
     assert len(occ) == json.loads((out / "truth.json").read_text())["records"]["total"]
     assert len(read_dated_records(out / "dated_records.csv")) == 12
+
+
+def test_target_group_records_are_optional(tmp_path, demo_dir):
+    out, paths = demo_dir
+    assert "target_group" not in paths and not (out / "target_group.csv").exists()
+    more = demo.generate(tmp_path, resolution=0.25, target_group=True)
+    # the other files do not change when the option is on (truth.json lists the group)
+    for key, path in paths.items():
+        if key != "truth":
+            assert _sha(path) == _sha(more[key]), key
+    tg = pd.read_csv(more["target_group"])
+    assert list(tg.columns) == DWC
+    assert tg["occurrenceID"].is_unique
+    assert set(tg["scientificName"]) == set(demo.TARGET_GROUP)
+    assert len(tg) == sum(q["n"] for q in demo.TARGET_GROUP.values())
+    assert demo.SPECIES not in set(tg["scientificName"])
+    with xr.open_dataset(out / "dem.nc") as dem:
+        z = _nearest_elevation(dem, tg["decimalLongitude"].values, tg["decimalLatitude"].values)
+    assert (z > 0).all()
+    assert "target_group" in json.loads(more["truth"].read_text())

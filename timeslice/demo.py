@@ -47,6 +47,7 @@ __all__ = [
     "NICHE",
     "SLICES",
     "SPECIES",
+    "TARGET_GROUP",
     "generate",
     "main",
     "presence_probability",
@@ -90,6 +91,20 @@ NICHE = {
     "bio12_midpoint_mm": 700.0,
     "bio12_scale_mm": 60.0,
     "presence_threshold": 0.5,
+}
+
+#: Invented related species (same invented genus) for a target-group background: their own
+#: niches (optimum and SD of bio10 in degC, logistic midpoint of bio12 in mm) and record counts.
+#: Sampled with the same effort as the focal species, so that their records share its bias.
+TARGET_GROUP = {
+    "Nivalia exempli": {"bio10_optimum_degC": 6.0, "bio10_sd_degC": 2.5,
+                        "bio12_midpoint_mm": 600.0, "n": 300},
+    "Nivalia fictiva": {"bio10_optimum_degC": 10.5, "bio10_sd_degC": 3.0,
+                        "bio12_midpoint_mm": 800.0, "n": 300},
+    "Nivalia simulata": {"bio10_optimum_degC": 12.5, "bio10_sd_degC": 2.5,
+                         "bio12_midpoint_mm": 500.0, "n": 300},
+    "Nivalia probata": {"bio10_optimum_degC": 14.5, "bio10_sd_degC": 3.0,
+                        "bio12_midpoint_mm": 900.0, "n": 300},
 }
 
 #: Relative sampling effort of the occurrence records: base + coast * exp(-d/coast_km)
@@ -554,31 +569,61 @@ def _sample_points(rng, weights: np.ndarray, lon: np.ndarray, lat: np.ndarray, r
     return plon, plat
 
 
-def _occurrences(rng, *, lon, lat, res, z, prob, dist, n_clean: int) -> tuple[list, dict]:
-    lon2, lat2 = np.meshgrid(lon, lat)
-    land = z > 0
-    # sampling effort: coasts, lowland "roads" (valleys below 400 m) and the south
+def _effort(z: np.ndarray, dist: np.ndarray, lat: np.ndarray) -> np.ndarray:
+    """Relative sampling effort: coasts, lowland "roads" (valleys) and the south (EFFORT)."""
     e = EFFORT
-    effort = (e["base"] + e["coast"] * np.exp(-dist / e["coast_km"])
-              + e["lowland"] * np.exp(-np.maximum(z, 0) / e["lowland_m"])) \
+    lat2 = np.broadcast_to(lat[:, None], z.shape)
+    return (e["base"] + e["coast"] * np.exp(-dist / e["coast_km"])
+            + e["lowland"] * np.exp(-np.maximum(z, 0) / e["lowland_m"])) \
         * (1.0 + (55.0 - lat2) / e["south_deg"])
-    weights = np.where(land, prob * effort, 0.0)
-    plon, plat = _sample_points(rng, weights, lon, lat, res, n_clean)
-    unc_choices = np.array([10, 25, 50, 100, 250, 1000, 2000, 5000])
-    basis_choices = ["HumanObservation", "HumanObservation", "HumanObservation",
-                     "PreservedSpecimen", "MachineObservation"]
+
+
+_UNCERTAINTY_M = np.array([10, 25, 50, 100, 250, 1000, 2000, 5000])
+_BASIS = ["HumanObservation", "HumanObservation", "HumanObservation", "PreservedSpecimen",
+          "MachineObservation"]
+
+
+def _presence_rows(rng, plon, plat, kind: str = "clean") -> list[dict]:
     rows = []
-    for i in range(n_clean):
+    for i in range(plon.size):
         date, year = _random_date(rng)
         rows.append({
             "decimalLatitude": f"{plat[i]:.5f}", "decimalLongitude": f"{plon[i]:.5f}",
-            "coordinateUncertaintyInMeters": str(int(rng.choice(unc_choices))),
+            "coordinateUncertaintyInMeters": str(int(rng.choice(_UNCERTAINTY_M))),
             "occurrenceStatus": "present",
-            "basisOfRecord": basis_choices[int(rng.integers(len(basis_choices)))],
+            "basisOfRecord": _BASIS[int(rng.integers(len(_BASIS)))],
             "eventDate": date, "year": str(year),
             "individualCount": str(int(rng.integers(1, 25))),
-            "_kind": "clean",
+            "_kind": kind,
         })
+    return rows
+
+
+def _target_group(rng, w) -> list[dict]:
+    """Clean presence records of the invented related species, with the focal effort."""
+    b10, b12 = _bio10_bio12(**w.fine)
+    effort = _effort(w.z, w.dist, w.lat)
+    rows: list[dict] = []
+    for name, q in TARGET_GROUP.items():
+        p = np.exp(-0.5 * ((b10 - q["bio10_optimum_degC"]) / q["bio10_sd_degC"]) ** 2) \
+            / (1.0 + np.exp(-(b12 - q["bio12_midpoint_mm"]) / NICHE["bio12_scale_mm"]))
+        weights = np.where(w.land, p * effort, 0.0)
+        plon, plat = _sample_points(rng, weights, w.lon, w.lat, w.res, q["n"])
+        for r in _presence_rows(rng, plon, plat):
+            r["scientificName"] = name
+            rows.append(r)
+    order = rng.permutation(len(rows))
+    rows = [rows[i] for i in order]
+    for k, r in enumerate(rows, start=1):
+        r["occurrenceID"] = f"urn:timeslice-demo:target-group:{k:05d}"
+    return rows
+
+
+def _occurrences(rng, *, lon, lat, res, z, prob, dist, n_clean: int) -> tuple[list, dict]:
+    lon2, lat2 = np.meshgrid(lon, lat)
+    weights = np.where(z > 0, prob * _effort(z, dist, lat), 0.0)
+    plon, plat = _sample_points(rng, weights, lon, lat, res, n_clean)
+    rows = _presence_rows(rng, plon, plat)
 
     def clone(kind: str) -> dict:
         r = dict(rows[int(rng.integers(n_clean))])
@@ -693,7 +738,7 @@ def _check_resolution(resolution: float) -> int:
 
 
 def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
-             resolution: float = 0.1) -> dict[str, Path]:
+             resolution: float = 0.1, target_group: bool = False) -> dict[str, Path]:
     """Write the invented demo scenario to `out_dir`.
 
     Parameters
@@ -706,12 +751,18 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     resolution : float
         Fine-grid cell size in degrees; must divide 1 degree and be at most 0.5 (0.1 for
         the committed demo; 0.25 or 0.5 for quick tests).
+    target_group : bool
+        Also write ``target_group.csv``: Darwin Core records of four invented related species
+        (:data:`TARGET_GROUP`) sampled with the same effort as the focal species, for a
+        bias-matched (target-group) background. Off by default; the other files do not
+        change when it is switched on.
 
     Returns
     -------
     dict of str to pathlib.Path
         Keys ``baseline``, ``dem``, ``ice_21ka``, ``occurrences``, ``dated_records``,
-        ``truth`` and ``<model>/<slice>`` (e.g. ``alder/baseline``, ``cedar/21ka``).
+        ``truth`` and ``<model>/<slice>`` (e.g. ``alder/baseline``, ``cedar/21ka``), and
+        ``target_group`` when asked for.
 
     Raises
     ------
@@ -780,6 +831,12 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     _write_text(_rows_to_csv(dated, ["record_id", "lon", "lat", "age_bp", "age_sd", "material"]),
                 paths["dated_records"])
 
+    if target_group:
+        # its own stream of random numbers, so the other files stay the same
+        tg_rows = _target_group(np.random.default_rng([int(seed), 2]), w)
+        paths["target_group"] = out / "target_group.csv"
+        _write_text(_rows_to_csv(tg_rows, _DWC_COLUMNS), paths["target_group"])
+
     area = cell_area(xr.Dataset(coords={"lat": ("lat", w.lat), "lon": ("lon", w.lon)})).values
     thr = NICHE["presence_threshold"]
     suitable, suitable21 = w.land & (prob >= thr), land21 & (prob21 >= thr)
@@ -828,6 +885,8 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
         "slices": SLICES,
         "landscape": {k2: v for k2, v in p.items() if not k2.endswith("noise")},
     }
+    if target_group:
+        truth_doc["target_group"] = TARGET_GROUP
     paths["truth"] = out / "truth.json"
     _write_text(json.dumps(_jsonable(truth_doc), indent=2, sort_keys=True) + "\n", paths["truth"])
     return paths
