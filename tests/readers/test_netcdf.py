@@ -213,6 +213,9 @@ def test_files_disagreeing_on_period(tmp_path, model_file):
         open_climate(paths)
     one = open_climate(paths[0])
     assert json.loads(one.attrs["source_info"])["period"] == "1971-2000"
+    assert open_climate(paths[0], period="1971-2000")["tasmin"].sizes["month"] == 12
+    with pytest.raises(DataError, match="climatology of 1971-2000 but the slice's period is 1981-2010"):
+        open_climate(paths[0], period="1981-2010")
 
 
 def test_negative_precipitation(tmp_path, model_file):
@@ -257,3 +260,15 @@ def test_variables_disagreeing_on_grid(tmp_path, model_file):
     b.to_netcdf(tmp_path / "pr_only.nc")
     with pytest.raises(DataError, match="disagree on the grid"):
         open_climate([tmp_path / "tmin_only.nc", tmp_path / "pr_only.nc"])
+
+
+def test_fast_unit_table_agrees_with_pint():
+    # the shortcut table must give exactly what pint (through cf_xarray.units) gives
+    from timeslice.harmonise import units as u
+
+    for text, expected in u._TEMPERATURE_TABLE.items():
+        got = temperature_conversion(text, use_table=False)
+        assert got == pytest.approx(expected, rel=1e-12, abs=1e-12), text
+    for text, (kind, factor) in u._PRECIPITATION_TABLE.items():
+        k, f = precipitation_conversion(text, use_table=False)
+        assert k == kind and f == pytest.approx(factor, rel=1e-12), text

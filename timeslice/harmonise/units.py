@@ -97,13 +97,31 @@ def parse_units(text: str, *, variable: str = "variable", source: str = "input")
         ) from err
 
 
+# The commonest spellings, so a run need not build the pint registry (about a second) for
+# them; tests check every entry against pint (tests/readers/test_netcdf.py).
+_TEMPERATURE_TABLE: dict[str, tuple[float, float]] = {
+    "K": (-273.15, 1.0),
+    "degC": (0.0, 1.0),
+}
+_PRECIPITATION_TABLE: dict[str, tuple[str, float]] = {
+    "kg m-2 s-1": ("per_second", 1.0),
+    "mm s-1": ("per_second", 1.0),
+    "mm day-1": ("per_second", 1.0 / 86400.0),
+    "mm/day": ("per_second", 1.0 / 86400.0),
+    "mm month-1": ("per_month", 1.0),
+    "mm/month": ("per_month", 1.0),
+}
+
+
 def temperature_conversion(
-    text: str, *, variable: str = "temperature", source: str = "input"
+    text: str, *, variable: str = "temperature", source: str = "input", use_table: bool = True
 ) -> tuple[float, float]:
     """``(offset, factor)`` such that ``degC = offset + factor * value``.
 
     Raises :class:`DataError` if the units are not a temperature.
     """
+    if use_table and text is not None and _clean(text) in _TEMPERATURE_TABLE:
+        return _TEMPERATURE_TABLE[_clean(text)]
     ureg = _registry()
     unit = parse_units(text, variable=variable, source=source)
     if unit.dimensionality != ureg.kelvin.dimensionality:
@@ -117,7 +135,7 @@ def temperature_conversion(
 
 
 def precipitation_conversion(
-    text: str, *, variable: str = "pr", source: str = "input"
+    text: str, *, variable: str = "pr", source: str = "input", use_table: bool = True
 ) -> tuple[Literal["per_month", "per_second"], float]:
     """Classify a precipitation unit and give its scale factor.
 
@@ -133,6 +151,8 @@ def precipitation_conversion(
     A mass flux (kg m-2 s-1) is turned into a depth rate by dividing by the density of
     water, 1000 kg m-3, so 1 kg m-2 s-1 = 1 mm s-1 = 86 400 mm day-1.
     """
+    if use_table and text is not None and _clean(text) in _PRECIPITATION_TABLE:
+        return _PRECIPITATION_TABLE[_clean(text)]  # type: ignore[return-value]
     ureg = _registry()
     unit = parse_units(text, variable=variable, source=source)
     q = ureg.Quantity(1.0, unit)

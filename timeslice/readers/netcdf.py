@@ -416,6 +416,17 @@ def open_climate(
                     "give each variable once"
                 )
             out_vars[canon] = da
+    if period is not None and periods:
+        try:
+            want = "{}-{}".format(*_parse_period(period, src))
+        except DataError:
+            want = None  # a label such as "21ka": nothing to compare
+        for f, fp in periods.items():
+            if want is not None and fp != want:
+                raise DataError(
+                    f"{f}: the file is a climatology of {fp} but the slice's period is {want}; "
+                    "give the file of that period or correct `period`"
+                )
     if len(set(periods.values())) > 1:
         raise DataError(
             f"{src}: the files of one slice disagree on the period "
