@@ -212,3 +212,33 @@ def test_maps_of_a_file_opened_plainly(series_ds, tmp_path):
     with xr.open_dataset(path) as plain:
         files = maps.slice_maps(plain, tmp_path / "m", dpi=40)
     assert [p.name for p in files] == ["suitability_baseline.png", "suitability_alder_21ka.png"]
+
+
+def test_cells_land_where_their_coordinates_are(series_ds):
+    # Draw one layer and read the rendered pixels back at the display position of given
+    # (lon, lat) cell centres: a flipped or shifted image would put the colours elsewhere.
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    ds = series_ds.isel(slice=[0]).copy()
+    lat, lon = ds.lat.values, ds.lon.values
+    v = np.zeros((lat.size, lon.size), dtype="float32")
+    v[np.ix_(lat > lat.mean(), lon < lon.mean())] = 1.0  # north-west quadrant bright
+    ds["suitability"] = (("slice", "lat", "lon"), v[None])
+    fig = Figure(figsize=(5, 4), dpi=100)
+    FigureCanvasAgg(fig)
+    ax, crs = maps._axes(fig, 111, ds, 0)
+    maps._draw(ax, crs, ds, "suitability", 0)
+    fig.canvas.draw()
+    img = np.asarray(fig.canvas.buffer_rgba())[:, :, :3].astype(float)
+    height = img.shape[0]
+
+    def pixel(lo, la):
+        x, y = ax.transData.transform((lo, la))
+        return img[int(round(height - y)), int(round(x))]
+
+    bright = pixel(lon[1], lat[-2])      # north-west cell centre
+    dark = pixel(lon[-2], lat[1])        # south-east cell centre
+    # viridis(1.0) is yellow (high red and green), viridis(0.0) dark purple
+    assert bright[0] > 200 and bright[1] > 200
+    assert dark[0] < 100 and dark[1] < 50
