@@ -901,9 +901,10 @@ class _World:
                         lat_min=MODEL_EXTENT[2], lat_max=MODEL_EXTENT[3], resolution=res)
         self.blon, self.blat = big["lon"].values, big["lat"].values
         blon2, blat2 = np.meshgrid(self.blon, self.blat)
-        self.bz = _elevation(blon2, blat2, p)
+        # quantised as stored (1/16 m), so that land masks from dem.nc match the truth
+        self.bz = _quantise(_elevation(blon2, blat2, p), 1).astype(np.float64)
         self.truth = _truth_climate(self.blon, self.blat, self.bz, res, p)
-        self.bice = _ice_shape(blon2, blat2, p) > _ICE_LEVEL
+        self.bice = _ice_on(self.blon, self.blat, p)
         fx = (self.blon > FINE_EXTENT[0]) & (self.blon < FINE_EXTENT[1])
         fy = (self.blat > FINE_EXTENT[2]) & (self.blat < FINE_EXTENT[3])
         self.lon, self.lat = self.blon[fx], self.blat[fy]
@@ -930,6 +931,28 @@ def _build_world(p: dict, res: float, k: int) -> _World:
 _ICE_LEVEL = 0.35
 _MONTH = np.arange(1, 13)[:, None, None]
 _SUMMER = np.cos(2 * np.pi * (_MONTH - 7.0) / 12.0)  # +1 in July, -1 in January
+
+
+def _ice_grid(p: dict):
+    """The 0.5 degree ice mask (lon, lat, bool) as written to ice_21ka.nc."""
+    ig = make_grid(lon_min=FINE_EXTENT[0], lon_max=FINE_EXTENT[1], lat_min=FINE_EXTENT[2],
+                   lat_max=FINE_EXTENT[3], resolution=ICE_RESOLUTION)
+    ilon, ilat = ig["lon"].values, ig["lat"].values
+    ilon2, ilat2 = np.meshgrid(ilon, ilat)
+    return ilon, ilat, _ice_shape(ilon2, ilat2, p) > _ICE_LEVEL
+
+
+def _ice_on(lon: np.ndarray, lat: np.ndarray, p: dict) -> np.ndarray:
+    """Ice on a finer grid: each cell takes the 0.5 degree ice cell it lies in (the grids
+    nest), so the truth sees the same ice as a pipeline reading ice_21ka.nc."""
+    _, _, ice = _ice_grid(p)
+    iy = np.floor((lat - FINE_EXTENT[2]) / ICE_RESOLUTION).astype(int)
+    ix = np.floor((lon - FINE_EXTENT[0]) / ICE_RESOLUTION).astype(int)
+    oky = (iy >= 0) & (iy < ice.shape[0])
+    okx = (ix >= 0) & (ix < ice.shape[1])
+    out = np.zeros((lat.size, lon.size), dtype=bool)
+    out[np.ix_(oky, okx)] = ice[np.ix_(iy[oky], ix[okx])]
+    return out
 
 
 def _ice_shape(lon2, lat2, p: dict) -> np.ndarray:
@@ -988,7 +1011,7 @@ def _write_dem(w: _World, path: Path, seed: int) -> Path:
          **bnds},
         coords=coords, attrs=_global_attrs(seed),
     )
-    _write_nc(dem, path, {"elevation": _float_enc(lsd=1)})
+    _write_nc(dem, path, {"elevation": _float_enc()})  # quantised in _World
     return path
 
 
@@ -1019,11 +1042,8 @@ def _write_baseline(w: _World, path: Path, seed: int) -> Path:
 
 
 def _write_ice(p: dict, path: Path, seed: int) -> Path:
-    ig = make_grid(lon_min=FINE_EXTENT[0], lon_max=FINE_EXTENT[1], lat_min=FINE_EXTENT[2],
-                   lat_max=FINE_EXTENT[3], resolution=ICE_RESOLUTION)
-    ilon, ilat = ig["lon"].values, ig["lat"].values
-    ilon2, ilat2 = np.meshgrid(ilon, ilat)
-    sftgif = np.where(_ice_shape(ilon2, ilat2, p) > _ICE_LEVEL, 100.0, 0.0)
+    ilon, ilat, ice_mask = _ice_grid(p)
+    sftgif = np.where(ice_mask, 100.0, 0.0)
     icoords, ibnds = _coord_vars(ilon, ilat, res=ICE_RESOLUTION)
     ice = xr.Dataset(
         {"sftgif": (("lat", "lon"), sftgif.astype("float32"), {
