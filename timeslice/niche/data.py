@@ -459,10 +459,8 @@ def calibration_area(
         raise DataError("calibration area: no records left to buffer; check the cleaning table")
     lon = records["lon"].to_numpy(dtype=float)
     lat = records["lat"].to_numpy(dtype=float)
-    glon, glat = np.meshgrid(mask_land["lon"].values, mask_land["lat"].values)
-    cells = _xyz(glon.ravel(), glat.ravel())
     sources = _xyz(lon, lat)
-    inside_hull = np.zeros(cells.shape[0], dtype=bool)
+    inside = None
     if method == "hull_buffer" and len(records) >= 2:
         verts, inside = _hull(lon, lat)
         step = max(buffer_km / 20.0, 1e-3)
@@ -470,16 +468,25 @@ def calibration_area(
             # collinear records: buffer the great-circle path through them in order
             order = np.lexsort((lat, lon))
             ring = sources[order]
-            edges = [_slerp_edge(ring[i], ring[i + 1], step) for i in range(len(ring) - 1)]
         else:
             ring = np.vstack([verts, verts[:1]])
-            edges = [_slerp_edge(ring[i], ring[i + 1], step) for i in range(len(ring) - 1)]
-            inside_hull = inside(glon.ravel(), glat.ravel())
+        edges = [_slerp_edge(ring[i], ring[i + 1], step) for i in range(len(ring) - 1)]
         sources = np.vstack([sources] + edges)
+    # only the latitude band the buffer can reach is searched (great-circle hull edges may bulge
+    # poleward of the records, so the band comes from the densified edges); this bounds memory
+    reach = float(np.rad2deg(buffer_km / AUTHALIC_RADIUS_KM))
+    src_lat = np.rad2deg(np.arcsin(np.clip(sources[:, 2], -1.0, 1.0)))
+    glat_all = np.asarray(mask_land["lat"].values, dtype=float)
+    band = (glat_all >= src_lat.min() - reach - 1e-6) & (glat_all <= src_lat.max() + reach + 1e-6)
+    glon, glat = np.meshgrid(mask_land["lon"].values, glat_all[band])
+    cells = _xyz(glon.ravel(), glat.ravel())
+    inside_hull = inside(glon.ravel(), glat.ravel()) if inside is not None else np.zeros(cells.shape[0], dtype=bool)
     tree = cKDTree(sources)
     dist, _ = tree.query(cells, k=1, distance_upper_bound=_chord(buffer_km) * (1 + 1e-12))
     near = np.isfinite(dist) & (_arc_km(np.where(np.isfinite(dist), dist, 0)) <= buffer_km)
-    area = (near | inside_hull).reshape(glat.shape) & np.asarray(mask_land.values, dtype=bool)
+    area = np.zeros(mask_land.shape, dtype=bool)
+    area[band] = (near | inside_hull).reshape(glat.shape)
+    area &= np.asarray(mask_land.values, dtype=bool)
     if not area.any():
         raise DataError(
             f"calibration area ({method}, buffer_km={buffer_km:g}) around {len(records)} record(s) "

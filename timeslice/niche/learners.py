@@ -244,6 +244,9 @@ class PointProcessNiche(_NicheBase):
             best = 0
         self.cv_scores_ = scores
         self.penalty_ = float(penalties[best])
+        # held-out AUC at the chosen penalty (NaN without a search); slightly optimistic, as the
+        # best of the candidates
+        self.heldout_auc_ = float(scores[best])
         self.model_ = self._fit_one(F, yy, w, self.penalty_, float(sw[presence].sum()))
         self.coef_ = self.model_.coef_.ravel()
         self.n_active_ = int(np.count_nonzero(self.coef_))
@@ -412,6 +415,9 @@ class ForestNiche(_NicheBase):
         # out-of-bag suitability of each training row (NaN if it was in every bootstrap)
         with np.errstate(invalid="ignore", divide="ignore"):
             self.oob_suitability_ = np.where(oob_n > 0, oob_sum / np.maximum(oob_n, 1), np.nan)
+        ok = np.isfinite(self.oob_suitability_)
+        has_both = ok.any() and (presence[ok]).any() and (~presence[ok]).any()
+        self.heldout_auc_ = _auc(self.oob_suitability_[ok], yy[ok].astype(int)) if has_both else float("nan")
         return self
 
     def predict_proba(self, X) -> np.ndarray:
@@ -454,8 +460,10 @@ class EnsembleNiche(_NicheBase):
     Notes
     -----
     :math:`S(x) = \\sum_m w_m S_m(x)`, a weighted mean of the members' suitabilities with
-    weights proportional to their skill above random in held-out folds (spatial blocks when
-    `groups` is given): a member no better than random gets weight 0. Members keep their own
+    weights proportional to their skill above random on held-out data: a member no better than
+    random gets weight 0. The held-out AUC is the member's own estimate where it has one (the
+    point process: its inner spatial CV at the chosen penalty; the forest: out-of-bag), else
+    the mean over `n_folds` inner folds (spatial blocks when `groups` is given). Members keep their own
     output scales (relative intensity, balanced probability, chi-square tail), so the ensemble is
     a relative suitability; threshold it with a rule on its own training scores. Weighted
     averaging follows Marmion et al. (2009).
@@ -510,9 +518,15 @@ class EnsembleNiche(_NicheBase):
             kw = {"groups": groups} if groups is not None and _accepts_groups(e) else {}
             e.fit(X, yy, sample_weight=sw, **kw)
             self.members_.append((name, e))
-        splits = _inner_folds(yy, groups, self.n_folds, rng)
+        splits = None
         aucs = np.zeros(len(proto))
         for m, (_, fitted) in enumerate(self.members_):
+            own = getattr(fitted, "heldout_auc_", float("nan"))
+            if np.isfinite(own):  # the member's own held-out estimate (out-of-bag, inner CV)
+                aucs[m] = float(own)
+                continue
+            if splits is None:
+                splits = _inner_folds(yy, groups, self.n_folds, rng)
             est = clone(fitted)
             if hasattr(fitted, "tuned_params"):
                 est.set_params(**fitted.tuned_params())

@@ -117,19 +117,28 @@ def response_curves(
     return pd.concat(rows, ignore_index=True)
 
 
-def permutation_table(model, X: pd.DataFrame, y, *, n_repeats: int = 5, seed=0) -> pd.DataFrame:
+def permutation_table(
+    model, X: pd.DataFrame, y, *, n_repeats: int = 5, seed=0, max_background: int = 5000
+) -> pd.DataFrame:
     """Permutation importance: drop in training AUC when one predictor is shuffled.
 
     Breiman (2001), Random forests, Machine Learning 45:5-32 (the permutation idea), computed
-    with :func:`sklearn.inspection.permutation_importance` and ``scoring="roc_auc"``.
+    with :func:`sklearn.inspection.permutation_importance` and ``scoring="roc_auc"`` on all
+    presences and at most `max_background` background rows (a seeded random subset).
 
     Returns
     -------
     pandas.DataFrame
         ``variable, importance_mean, importance_sd`` sorted by decreasing importance.
     """
+    y = np.asarray(y)
+    bg = np.flatnonzero(y == 0)
+    if bg.size > int(max_background):
+        rng = np.random.default_rng(_int_seed(seed))
+        keep = np.sort(np.concatenate([np.flatnonzero(y != 0), rng.choice(bg, int(max_background), replace=False)]))
+        X, y = X.iloc[keep], y[keep]
     res = permutation_importance(
-        model, X, np.asarray(y), scoring="roc_auc", n_repeats=int(n_repeats), random_state=_int_seed(seed)
+        model, X, y, scoring="roc_auc", n_repeats=int(n_repeats), random_state=_int_seed(seed)
     )
     out = pd.DataFrame(
         {"variable": list(X.columns), "importance_mean": res.importances_mean, "importance_sd": res.importances_std}
