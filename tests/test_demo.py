@@ -473,6 +473,18 @@ def test_truth_json(demo_dir):
     assert t21["niche_area_on_exposed_shelf_km2"] > 0
     assert 0 < t21["stable_with_baseline_km2"] < truth["true_niche_area_km2"]
     assert truth["land_area_21ka_km2"] > truth["land_area_km2"]
+    # the masks a pipeline builds from the files give the areas in truth.json
+    from timeslice.grid import cell_area
+
+    with xr.open_dataset(out / "dem.nc") as d, xr.open_dataset(out / "ice_21ka.nc") as ice:
+        z = d["elevation"]
+        # each fine cell lies in exactly one 0.5 degree ice cell (the grids nest)
+        iced = ice["sftgif"].reindex(lat=z.lat, lon=z.lon, method="nearest") >= 50
+        area = cell_area(z)
+        assert float(area.where(z > 0).sum()) == pytest.approx(truth["land_area_km2"], abs=0.1)
+        land21 = (z > truth["sea_level_21ka_m"]) & ~iced
+        assert float(area.where(land21).sum()) == pytest.approx(truth["land_area_21ka_km2"],
+                                                                abs=0.1)
 
 
 # --- bad inputs --------------------------------------------------------------------------
