@@ -158,3 +158,13 @@ def test_tables_and_params_are_plain(fitted):
 
     assert set(fitted.tables()) == {"cleaning", "screening", "evaluation", "response", "importance"}
     json.dumps(fitted.params)  # the manifest can store every choice
+
+
+def test_fit_niche_bad_hyperparameter_is_config_error(world):
+    ds, rec, _ = world
+    with pytest.raises(ConfigError, match=r"algorithm 'envelope': `percentile` must be in \[0, 50\).*algorithm_params"):
+        fit_niche(rec, ds, algorithm="envelope", algorithm_params={"percentile": 70}, n_background=300)
+    with pytest.raises(ConfigError, match="`thin` must be 'cell'"):
+        fit_niche(rec, ds, thin="sometimes")
+    fit = fit_niche(rec, ds, thin="none", n_background=300, importance_repeats=0)
+    assert fit.params["thin"] is None

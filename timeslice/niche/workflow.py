@@ -251,11 +251,15 @@ def fit_niche(
     """
     if not isinstance(baseline, xr.Dataset):
         raise DataError(f"`baseline` must be a prepared slice Dataset, got {type(baseline).__name__}")
+    if isinstance(thin, str) and thin.strip().lower() in ("none", "off", "no", ""):
+        thin = None
     if thin is not None and thin != "cell":
         try:
             thin = float(thin)
         except (TypeError, ValueError) as err:
-            raise ConfigError(f"`thin` must be 'cell', a distance in km or none, got {thin!r}") from err
+            raise ConfigError(f"`thin` must be 'cell', a distance in km or 'none', got {thin!r}") from err
+        if not thin > 0:
+            raise ConfigError(f"`thin` distance must be > 0 km, got {thin}")
     if calibration not in ("buffer", "hull_buffer", "mask"):
         raise ConfigError(f"`calibration` must be 'buffer', 'hull_buffer' or 'mask', got {calibration!r}")
     if int(min_records) < 2:
@@ -357,10 +361,15 @@ def fit_niche(
         evaluation = nev.cross_validate(model, X, y, folds, threshold_rule=threshold_rule, threshold_value=threshold_value)
     except DataError as err:
         raise DataError(f"cross-validation: {err}") from err
+    except ValueError as err:  # estimators reject bad hyperparameters with ValueError
+        raise ConfigError(f"algorithm {algorithm!r}: {err}; check algorithm_params") from err
     evaluation = _summary_rows(evaluation)
 
     fit_kw = {"groups": folds} if "groups" in inspect.signature(model.fit).parameters else {}
-    model.fit(X, y, **fit_kw)
+    try:
+        model.fit(X, y, **fit_kw)
+    except ValueError as err:
+        raise ConfigError(f"algorithm {algorithm!r}: {err}; check algorithm_params") from err
     s = nev.training_scores(model, X)
     thr = nev.threshold(s[y == 1], s[y == 0], rule=threshold_rule, value=threshold_value)
 
