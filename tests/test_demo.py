@@ -196,7 +196,7 @@ def test_committed_demo_matches_generator(full_demo):
     root = full_demo["truth"].parent
     for key, path in full_demo.items():
         old = committed / path.relative_to(root)
-        assert old.is_file(), f"demo_data/{path.relative_to(root)} missing: run python -m timeslice.demo"
+        assert old.is_file(), f"demo_data/{key} missing: run python -m timeslice.demo"
         if path.suffix == ".nc":
             # compare contents, not bytes: the netCDF/HDF5 library versions are written
             # into each file
@@ -576,6 +576,18 @@ def test_presence_probability_from_project_bioclim(demo_dir):
     truth = json.loads((out / "truth.json").read_text())
     area = float(cell_area(p).where(p >= demo.NICHE["presence_threshold"]).sum())
     assert area == pytest.approx(truth["true_niche_area_km2"], rel=1e-3)
+
+
+def test_presence_probability_stays_lazy(demo_dir):
+    import dask
+
+    out, _ = demo_dir
+    with xr.open_dataset(out / "baseline.nc", chunks={"lat": 20}) as b:
+        with dask.config.set(scheduler="sync"):
+            p = demo.presence_probability(b)
+            assert isinstance(p.data, dask.array.Array)
+            eager = demo.presence_probability(b.load())
+            xr.testing.assert_allclose(p.compute(), eager)
 
 
 def test_presence_probability_bad_input(demo_dir):

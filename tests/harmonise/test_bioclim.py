@@ -163,3 +163,20 @@ def test_against_xclim_with_conventions_converted():
     assert ours[14] == pytest.approx(
         np.sqrt(12 / 11) * cv_p * pr.mean() / (1 + pr.mean()), rel=1e-6
     )
+
+
+def test_tas_as_monthly_mean():
+    # with tavg="tas" the monthly mean comes from tas, not (Tmax + Tmin)/2
+    ds = _ds(TMIN, TMAX, PR)
+    ds["tas"] = ds["tasmin"] + 1.0  # deliberately not the midpoint
+    out = from_monthly(ds, tavg="tas", dtype=np.float64)
+    assert float(out["bio1"].squeeze()) == pytest.approx(TMIN.mean() + 1.0)
+    assert float(out["bio2"].squeeze()) == pytest.approx(EXPECTED["bio2"])  # Tmax - Tmin
+    with pytest.raises(DataError, match="tas"):
+        from_monthly(_ds(TMIN, TMAX, PR), tavg="tas")
+
+
+def test_blocked_path_equals_apply_ufunc(monthly_factory):
+    ds = monthly_factory(resolution=0.5)
+    ds["tasmin"][:, 0, 0] = np.nan
+    xr.testing.assert_allclose(from_monthly(ds, block_rows=3), from_monthly(ds))

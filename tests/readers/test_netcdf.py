@@ -54,9 +54,16 @@ def test_temperature_aliases():
     assert off + fac * 212 == pytest.approx(100.0)
 
 
-def test_model_conventions_to_canonical(model_file):
+def test_model_conventions_to_canonical(tmp_path, model_file):
     path = model_file(calendar="noleap", descending=True, tmin_c=2.0, pr_mm_day=1.0)
+    raw = xr.open_dataset(path)
+    raw["tasmin"].attrs["comment"] = "kept through harmonising"
+    raw.to_netcdf(tmp_path / "with_comment.nc")
+    path = tmp_path / "with_comment.nc"
     ds = open_climate(path)
+    assert ds["tasmin"].attrs["comment"] == "kept through harmonising"
+    assert ds["tasmin"].attrs["source_units"] == "K"
+    assert ds.attrs["title"] == "invented test model"
     assert set(ds.data_vars) == {"tasmin", "tasmax", "pr"}
     assert ds["tasmin"].dims == ("month", "lat", "lon")
     assert list(ds["month"].values) == list(range(1, 13))

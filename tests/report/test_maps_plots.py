@@ -242,3 +242,11 @@ def test_cells_land_where_their_coordinates_are(series_ds):
     # viridis(1.0) is yellow (high red and green), viridis(0.0) dark purple
     assert bright[0] > 200 and bright[1] > 200
     assert dark[0] < 100 and dark[1] < 50
+
+
+def test_novelty_colour_ranges_are_fixed_across_runs():
+    # Side-by-side figures of different runs need the same colour for the same value.
+    a = maps._norm("mess", np.array([-3.0, 5.0]))
+    b = maps._norm("mess", np.array([-300.0, 90.0]))
+    assert (a.vmin, a.vcenter, a.vmax) == (b.vmin, b.vcenter, b.vmax) == (-50.0, 0.0, 50.0)
+    assert maps._norm("nt2", np.array([0.1])).vmax == maps._norm("nt2", np.array([9.0])).vmax
