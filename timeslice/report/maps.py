@@ -30,6 +30,7 @@ from timeslice.report._layers import LAYERS, slice_labels, slice_title
 __all__ = [
     "CHANGE_COLOURS",
     "EXDET_COLOURS",
+    "FIXED_RANGES",
     "REACH_COLOURS",
     "change_map",
     "novelty_map",
@@ -246,21 +247,35 @@ def _hatch_novel(ax, ds, i, crs) -> bool:
     return True
 
 
+#: Fixed colour ranges of the novelty layers, so figures of different runs can be set side by
+#: side; values beyond them take the end colours (arrows on the colour bar). MESS is 100 at the
+#: reference median and 0 at the edge of the reference range (Elith et al. 2010); NT1 <= 0 with
+#: -1 one reference range outside on one variable; NT2 = 1 at the most extreme reference point
+#: (Mesgaran et al. 2014). The ranges themselves are the project's choice.
+FIXED_RANGES: dict[str, tuple[float, float]] = {
+    "suitability": (0.0, 1.0),
+    "stability": (0.0, 1.0),
+    "mess": (-50.0, 50.0),
+    "nt1": (-1.0, 0.0),
+    "nt2": (0.0, 3.0),
+}
+
+
 def _norm(name: str, values: np.ndarray):
+    if name in FIXED_RANGES:
+        lo, hi = FIXED_RANGES[name]
+        if name == "mess":
+            return TwoSlopeNorm(vcenter=0.0, vmin=lo, vmax=hi)
+        return Normalize(lo, hi)
     finite = values[np.isfinite(values)]
-    if name in ("suitability", "stability"):
-        return Normalize(0.0, 1.0)
     if finite.size == 0:
         return Normalize(0.0, 1.0)
     lo, hi = np.percentile(finite, [2, 98])
-    if name == "mess":
-        lo, hi = min(float(lo), -1.0), max(float(hi), 1.0)
-        return TwoSlopeNorm(vcenter=0.0, vmin=lo, vmax=hi)
-    if name == "nt1":
-        return Normalize(min(float(lo), -0.1), 0.0)
-    if name == "nt2":
-        return Normalize(0.0, max(float(hi), 1.5))
     return Normalize(float(lo), float(hi) if hi > lo else float(lo) + 1.0)
+
+
+def _extend(name: str) -> str:
+    return {"mess": "both", "nt1": "min", "nt2": "max"}.get(name, "neither")
 
 
 def _categorical_style(name: str = "change"):
@@ -360,7 +375,7 @@ def _single(ds: xr.Dataset, name: str, i: int | None, path: Path, *, title: str,
     if name in _CATEGORICAL:
         handles = _categorical_style(name)[2] + handles
     else:
-        fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03,
+        fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03, extend=_extend(name),
                      label=_CONTINUOUS.get(name, ("", LAYERS.get(name, {}).get("long_name",
                                                                           name)))[1])
     _legend(ax, handles, loc="upper right")
@@ -455,7 +470,7 @@ def _panel(ds: xr.Dataset, name: str, idx: list[int], path: str | os.PathLike, *
     if name in _CATEGORICAL:
         handles = _categorical_style(name)[2] + handles
     else:
-        fig.colorbar(mappable, ax=fig.axes, shrink=0.6,
+        fig.colorbar(mappable, ax=fig.axes, shrink=0.6, extend=_extend(name),
                      label=_CONTINUOUS.get(name, ("", name))[1])
     _legend(fig, handles, loc="outside lower center", ncols=min(4, len(handles)))
     fig.suptitle(suptitle, fontsize=10)
