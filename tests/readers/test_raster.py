@@ -76,3 +76,14 @@ def test_raster_errors(tmp_path):
         open_raster(path, variable="pr")
     with pytest.raises(DataError, match="one name per band"):
         open_raster(path, variable="pr", band_names=["a", "b"])
+
+
+def test_one_geotiff_per_month(tmp_path):
+    for m in range(1, 13):
+        _raster(np.full((3, 4), 10.0 * m)).rio.to_raster(tmp_path / f"prec_{m:02d}.tif")
+    ds = open_climate(str(tmp_path / "prec_*.tif"), units="mm month-1")
+    assert ds["pr"].dims == ("month", "lat", "lon")
+    np.testing.assert_allclose(ds["pr"].isel(lat=0, lon=0).values, 10.0 * np.arange(1, 13))
+    (tmp_path / "prec_07.tif").unlink()
+    with pytest.raises(DataError, match=r"'pr' has 11 months, missing \[7\]"):
+        open_climate(str(tmp_path / "prec_*.tif"), units="mm month-1")

@@ -410,6 +410,13 @@ def open_climate(
                     da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log
                 )))
         for canon, da in items:
+            if canon in out_vars and _partial_months(out_vars[canon], da):
+                out_vars[canon] = xr.concat(
+                    [out_vars[canon], da.assign_coords(lat=out_vars[canon]["lat"],
+                                                       lon=out_vars[canon]["lon"])],
+                    dim="month",
+                ).sortby("month")
+                continue
             if canon in out_vars:
                 raise DataError(
                     f"{fsrc}: variable {canon!r} is given twice (also in an earlier file); "
@@ -432,6 +439,13 @@ def open_climate(
             f"{src}: the files of one slice disagree on the period "
             f"({', '.join(f'{k}: {v}' for k, v in periods.items())}); give files of one period"
         )
+    for canon, da in out_vars.items():
+        if "month" in da.dims and da.sizes["month"] != 12:
+            missing = sorted(set(range(1, 13)) - set(int(m) for m in da["month"].values))
+            raise DataError(
+                f"{src}: {canon!r} has {da.sizes['month']} months, missing {missing}; give "
+                "all twelve monthly files"
+            )
     if not out_vars:
         raise DataError(
             f"{src}: no climate variable recognised (found {sorted(set(found_names)) or 'none'}); "
@@ -507,6 +521,17 @@ def _res_text(da: xr.DataArray) -> str:
         return f"{resolution(da['lat']):g} x {resolution(da['lon']):g} deg"
     except DataError:
         return "single cell"
+
+
+def _partial_months(a: xr.DataArray, b: xr.DataArray) -> bool:
+    """True when `a` and `b` hold different months of one variable (one file per month)."""
+    if "month" not in a.dims or "month" not in b.dims:
+        return False
+    if a.sizes["month"] + b.sizes["month"] > 12:
+        return False
+    if a.shape[1:] != b.shape[1:]:
+        return False
+    return not set(a["month"].values.tolist()) & set(b["month"].values.tolist())
 
 
 def _scale_for(scale, canon: str) -> float:

@@ -51,6 +51,17 @@ def _canonical_from_stem(stem: str, aliases) -> str | None:
     return None
 
 
+def _month_file(stem: str, variable: str | None, aliases) -> tuple[str, int] | None:
+    """(canonical monthly variable, month) for names like ``tmin_01``, ``prec-7``, ``tx12``."""
+    m = re.fullmatch(r"(.*?)[_\-. ]?(0?[1-9]|1[0-2])", stem.lower())
+    if not m:
+        return None
+    canon = variable or _canonical_from_stem(m.group(1), aliases)
+    if canon not in _MONTHLY:
+        return None
+    return canon, int(m.group(2))
+
+
 def open_raster(
     path: str | os.PathLike,
     *,
@@ -146,6 +157,11 @@ def open_raster(
     elif band_names is not None:
         for i, name in enumerate(band_names):
             layers[str(name)] = da.isel(band=i, drop=True)
+    elif nb == 1 and _month_file(p.stem, variable, aliases) is not None:
+        # one file per month, e.g. tmin_01.tif ... tmin_12.tif: a one-month layer; the
+        # reader stacks the twelve files
+        mcanon, month = _month_file(p.stem, variable, aliases)
+        layers[mcanon] = da.assign_coords(band=[month]).rename(band="month")
     elif nb == 1:
         if canon is None:
             raise DataError(
