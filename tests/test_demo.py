@@ -582,7 +582,8 @@ def test_presence_probability_stays_lazy(demo_dir):
     import dask
 
     out, _ = demo_dir
-    with xr.open_dataset(out / "baseline.nc", chunks={"lat": 20}) as b:
+    with xr.open_dataset(out / "baseline.nc") as b0:
+        b = b0.chunk({"lat": 20})
         with dask.config.set(scheduler="sync"):
             p = demo.presence_probability(b)
             assert isinstance(p.data, dask.array.Array)

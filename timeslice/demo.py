@@ -173,7 +173,6 @@ _BASELINE_YEARS = (1981, 2010)
 _OBS_TIME_UNITS = "days since 1950-01-01 00:00:00"
 _MODEL_TIME_UNITS = "days since 0001-01-01 00:00:00"
 _MONTH_DAYS = {
-    "standard": np.array([31, 28.25, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31]),
     "noleap": np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=float),
     "360_day": np.full(12, 30.0),
 }
@@ -381,6 +380,9 @@ def _presence_probability(bio10: np.ndarray, bio12: np.ndarray) -> np.ndarray:
     return g * lgt
 
 
+_KELVIN = {"K", "kelvin", "degK", "degrees_K", "degree_K"}
+
+
 def presence_probability(climate: xr.Dataset) -> xr.DataArray:
     r"""Known presence probability of the invented plant for any climate.
 
@@ -389,8 +391,9 @@ def presence_probability(climate: xr.Dataset) -> xr.DataArray:
     climate : xarray.Dataset
         Either ``bio10`` (degC) and ``bio12`` (mm), e.g. a prepared slice, or monthly
         ``tasmin``, ``tasmax`` (degC) and ``pr`` (mm per month) along a ``month`` or ``time``
-        dimension of length 12, e.g. ``demo_data/baseline.nc`` or the canonical output of
-        :func:`timeslice.readers.open_climate`.
+        dimension of length 12 (a ``time`` axis is taken in file order, January first),
+        e.g. ``demo_data/baseline.nc`` or the canonical output of
+        :func:`timeslice.readers.open_climate`. Dask-backed inputs stay lazy.
 
     Returns
     -------
@@ -424,8 +427,9 @@ def presence_probability(climate: xr.Dataset) -> xr.DataArray:
         return p.rename("true_presence_probability").assign_attrs(attrs)
     missing = [v for v in ("tasmin", "tasmax", "pr") if v not in climate]
     if missing:
+        found = ", ".join(map(str, climate.data_vars)) or "none"
         raise DataError(
-            f"`climate` lacks {', '.join(missing)} (found {', '.join(map(str, climate.data_vars))}); "
+            f"`climate` lacks {', '.join(missing)} (found {found}); "
             "give bio10 and bio12, or monthly tasmin, tasmax and pr"
         )
     dim = next((d for d in ("month", "time") if climate.sizes.get(d) == 12), None)
@@ -435,9 +439,13 @@ def presence_probability(climate: xr.Dataset) -> xr.DataArray:
             f"{dict(climate.sizes)}; reduce it to a 12-month climatology first"
         )
     for v in ("tasmin", "tasmax"):
-        if str(climate[v].attrs.get("units", "degC")).strip() in {"K", "kelvin", "degK", "degrees_K"}:
+        if str(climate[v].attrs.get("units", "degC")).strip() in _KELVIN:
             raise DataError(f"`climate.{v}` is in kelvin; convert to degC first "
                             "(timeslice.readers.open_climate does)")
+    if dim == "month":
+        climate = climate.sortby("month")
+    if climate.chunks:  # the month axis must be whole in every chunk
+        climate = climate.chunk({dim: -1})
 
     def kernel(tn, tx, pr):
         b10, b12 = _bio10_bio12(np.moveaxis(tn, -1, 0), np.moveaxis(tx, -1, 0),
@@ -811,7 +819,7 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
         raise ConfigError(f"demo output folder {str(out)!r} is not writable; choose another")
     rng = np.random.default_rng(seed)
     p = _landscape_params(rng)
-    w = _build_world(p, res, k)
+    w = _World(p, res, k)
     paths: dict[str, Path] = {}
     paths["dem"] = _write_dem(w, out / "dem.nc", seed)
     paths["baseline"] = _write_baseline(w, out / "baseline.nc", seed)
@@ -922,10 +930,6 @@ class _World:
         self.coarse = {v: _block_mean(a, k, wlat) for v, a in self.truth.items()}
         self.czpos = _block_mean(np.maximum(self.bz, 0.0), k, wlat)
         self.cice = _block_mean(self.bice.astype(float), k, wlat)
-
-
-def _build_world(p: dict, res: float, k: int) -> _World:
-    return _World(p, res, k)
 
 
 _ICE_LEVEL = 0.35
