@@ -9,6 +9,9 @@ import numpy as np
 import pytest
 import xarray as xr
 
+# compliance-checker announces the deprecation of a checker suite we do not use
+pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning:compliance_checker.*")
+
 from timeslice.errors import DataError, InputFileError
 from timeslice.grid import cell_area
 from timeslice.report.netcdf import open_series, write_series

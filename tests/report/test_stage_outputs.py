@@ -14,6 +14,9 @@ import pandas as pd
 import pytest
 import xarray as xr
 
+# compliance-checker announces the deprecation of a checker suite we do not use
+pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning:compliance_checker.*")
+
 from timeslice.grid import make_grid
 
 pytest.importorskip("timeslice.transfer.project")
@@ -71,6 +74,12 @@ def stage_series():
         units="m")
     stack["calibration_area"] = base["land"]
     series, table = summarise(stack, reference="baseline")
+    try:
+        from timeslice.series.dispersal import reachable
+    except ImportError:  # pragma: no cover - the dispersal layer is optional here
+        return series, table
+    start = series["suitable"].isel(slice=0) == 1
+    series["reachable"] = reachable(series["suitable"], start, distance_km=60.0)
     return series, table
 
 
@@ -94,6 +103,8 @@ def test_stage_layers_write_cf_clean_netcdf(stage_series, tmp_path):
         np.testing.assert_array_equal(back[name].values, series[name].values)
         assert back[name].dtype == series[name].dtype
     np.testing.assert_array_equal(back["mod"].values, series["mod"].values)
+    if "reachable" in series:
+        np.testing.assert_array_equal(back["reachable"].values, series["reachable"].values)
 
 
 def test_stage_layers_to_maps_and_geotiff(stage_series, tmp_path):
@@ -103,4 +114,6 @@ def test_stage_layers_to_maps_and_geotiff(stage_series, tmp_path):
     assert export(series, tmp_path / "tif")
     assert maps.slice_maps(series, tmp_path / "maps", dpi=40)
     assert maps.change_map(series, tmp_path / "c.png", dpi=40).exists()
+    if "reachable" in series:
+        assert maps.reach_map(series, tmp_path / "r.png", dpi=40).exists()
     assert plots.area_through_time(pd.DataFrame(table), tmp_path / "a.png", dpi=40).exists()
