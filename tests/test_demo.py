@@ -651,3 +651,18 @@ def test_target_group_records_are_optional(tmp_path, demo_dir):
         z = _nearest_elevation(dem, tg["decimalLongitude"].values, tg["decimalLatitude"].values)
     assert (z > 0).all()
     assert "target_group" in json.loads(more["truth"].read_text())
+
+
+@pytest.mark.parametrize("seed", [1, 7, 4242])
+def test_scenario_invariants_hold_for_other_seeds(tmp_path, seed):
+    """The landscape and record rules do not depend on the default seed."""
+    paths = demo.generate(tmp_path, seed=seed, resolution=0.25)
+    with xr.open_dataset(paths["dem"]) as d:
+        z = d["elevation"].values
+    assert 2500 <= z.max() < 3000
+    assert ndimage.label(z > -120)[1] < ndimage.label(z > 0)[1]  # the land bridge
+    truth = json.loads(paths["truth"].read_text())
+    assert 0.04 <= truth["records"]["bad_fraction"] <= 0.06
+    assert 0 < truth["true_21ka"]["stable_with_baseline_km2"] < truth["true_niche_area_km2"]
+    occ = pd.read_csv(paths["occurrences"])
+    assert len(occ) == truth["records"]["total"]
