@@ -136,3 +136,17 @@ def test_number_formatting():
     assert _fmt(0.8934, "auc") == ("0.893", True)
     assert _fmt(float("nan"), "x") == ("", False)
     assert _fmt(True, "x") == ("yes", False)
+
+
+def test_output_links_are_local(summary_df, tmp_path):
+    ctx = _context(summary_df, tmp_path)
+    ctx.outputs = {"all layers (CF NetCDF)": "series.nc", "per-slice table": "summary.csv"}
+    text = render_report(ctx)
+    assert '<a href="series.nc">series.nc</a>' in text
+    assert not _URL_ATTR.search(text)
+    ctx.outputs = {"x": "https://example.org/a.nc"}
+    with pytest.raises(DataError, match="relative"):
+        render_report(ctx)
+    ctx.outputs = {"x": "/etc/passwd"}
+    with pytest.raises(DataError, match="relative"):
+        render_report(ctx)

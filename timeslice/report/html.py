@@ -104,6 +104,8 @@ class ReportContext:
     headline_figures : list of (caption, path)
         Up to two figures shown side by side right after the cautions (e.g. the stability and
         refugia map and the change panel), so the first screen answers the main questions.
+    outputs : dict of str to path
+        Files of the run (description -> path relative to the report), listed as local links.
     """
 
     title: str = "timeslice report"
@@ -117,6 +119,7 @@ class ReportContext:
     highlights: list[str] = field(default_factory=list)
     key_numbers: list[tuple[str, ...]] = field(default_factory=list)
     headline_figures: list[tuple[str, str | os.PathLike]] = field(default_factory=list)
+    outputs: dict[str, str | os.PathLike] = field(default_factory=dict)
 
 
 def _e(text: Any) -> str:
@@ -359,6 +362,18 @@ def render_report(context: ReportContext) -> str:
         body.append('<section id="methods" class="methods"><h2>Methods</h2>'
                     + "".join(f"<p>{_e(p)}</p>" for p in paras) + "</section>")
         sections.append(("methods", "Methods"))
+
+    if context.outputs:
+        items = []
+        for what, rel in context.outputs.items():
+            rel_s = Path(rel).as_posix()
+            if Path(rel).is_absolute() or "://" in rel_s or rel_s.startswith(".."):
+                raise DataError(f"ReportContext.outputs[{what!r}]: give a path relative to the "
+                                f"report's folder, got {rel_s!r}")
+            items.append(f'<li><a href="{_e(rel_s)}">{_e(rel_s)}</a> — {_e(what)}</li>')
+        body.append('<section id="outputs"><h2>Files of this run</h2><ul>' + "".join(items)
+                    + "</ul></section>")
+        sections.append(("outputs", "Files of this run"))
 
     if context.run_info:
         info = pd.DataFrame({"item": [str(k) for k in context.run_info],
