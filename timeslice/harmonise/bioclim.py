@@ -214,7 +214,7 @@ def from_monthly(
         dask="parallelized",
         kwargs={"dtype": np.dtype(dtype)},
         output_dtypes=[np.dtype(dtype)],
-        dask_gufunc_kwargs={"output_sizes": {"bio": 19}},
+        dask_gufunc_kwargs={"output_sizes": {"bio": 19}, "allow_rechunk": True},
     )
     layers = {name: stacked.isel(bio=i, drop=True) for i, name in enumerate(BIO_NAMES)}
     return _finish(ds, layers)

@@ -98,6 +98,7 @@ def anomalies(
         output_core_dims=[["month", "lat", "lon"]],
         kwargs={"floor": float(pr_floor), "q": float(ratio_quantile)},
         dask="parallelized", output_dtypes=[np.float64],
+        dask_gufunc_kwargs={"allow_rechunk": True},  # the quantile needs the whole month
     )
     r.attrs = {
         "units": "1",
