@@ -366,8 +366,9 @@ def render_report(context: ReportContext) -> str:
     if context.outputs:
         items = []
         for what, rel in context.outputs.items():
+            raw = str(rel)
             rel_s = Path(rel).as_posix()
-            if Path(rel).is_absolute() or "://" in rel_s or rel_s.startswith(".."):
+            if Path(rel).is_absolute() or ":" in raw or rel_s.startswith(".."):
                 raise DataError(f"ReportContext.outputs[{what!r}]: give a path relative to the "
                                 f"report's folder, got {rel_s!r}")
             items.append(f'<li><a href="{_e(rel_s)}">{_e(rel_s)}</a> — {_e(what)}</li>')
