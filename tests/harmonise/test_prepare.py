@@ -153,3 +153,26 @@ def test_input_all_nan_on_land_is_an_error(inputs):
     with pytest.raises(DataError, match="'bio7' has no value on any land cell"):
         prepare_slice(fine_baseline=None, elevation=elev, bio=bio, label="x", year=1985.0,
                       period="p", model="m", scenario="s")
+
+
+@pytest.mark.filterwarnings("ignore::DeprecationWarning")
+def test_written_slice_passes_cf_checker(inputs, tmp_path):
+    """Reference: IOOS compliance-checker, "cf:1.8" suite, run offline on the file."""
+    pytest.importorskip("compliance_checker")
+    from compliance_checker.runner import CheckSuite, ComplianceChecker
+
+    from timeslice.harmonise import write_prepared
+
+    fb, elev, _, _ = inputs
+    base = prepare_slice(fine_baseline=fb, elevation=elev, label="baseline", year=1985.0,
+                         period="1971-2000", model="observed", scenario="baseline")
+    path = write_prepared(base, tmp_path / "baseline.nc")
+    CheckSuite.load_all_available_checkers()
+    report = tmp_path / "cf.json"
+    passed, had_errors = ComplianceChecker.run_checker(
+        str(path), ["cf:1.8"], 0, "normal", output_filename=str(report), output_format="json")
+    res = json.loads(report.read_text())["cf:1.8"]
+    failed = [(p["name"], p["msgs"]) for lvl in ("high_priorities", "medium_priorities")
+              for p in res[lvl] if p["msgs"]]
+    assert not had_errors and passed, failed
+    assert failed == []

@@ -322,7 +322,13 @@ def write_prepared(ds: xr.Dataset, path) -> Path:
             encoding[v] = {"zlib": True, "complevel": 4}
         elif np.issubdtype(out[v].dtype, np.floating):
             encoding[v] = {"zlib": True, "complevel": 4, "_FillValue": np.float32(np.nan)}
+    for c in ("lat", "lon"):
+        if c in out.coords:
+            encoding[c] = {"_FillValue": None}  # CF 2.5.1: coordinates carry no fill value
     out.attrs.setdefault("Conventions", "CF-1.8")
+    out.attrs.setdefault(
+        "title", f"timeslice prepared slice {out.attrs.get('slice_label', '')}".strip()
+    )
     out.attrs["history"] = (str(out.attrs.get("history", "")) + "\n").lstrip() + \
         "prepared by timeslice.harmonise.prepare_slice"
     target = Path(path)
