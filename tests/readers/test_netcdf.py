@@ -279,3 +279,19 @@ def test_fast_unit_table_agrees_with_pint():
     for text, (kind, factor) in u._PRECIPITATION_TABLE.items():
         k, f = precipitation_conversion(text, use_table=False)
         assert k == kind and f == pytest.approx(factor, rel=1e-12), text
+
+
+def test_months_since_time_axis(tmp_path):
+    # "months since" in a standard calendar is not decodable by cftime; step k is month k
+    ds = xr.Dataset(
+        {"pr": (("time", "lat", "lon"), np.full((12, 2, 2), 2.0), {"units": "mm/day"})},
+        coords={"time": ("time", np.arange(12) + 0.5,
+                         {"units": "months since 2001-01-01", "calendar": "standard"}),
+                "lat": ("lat", [40.5, 41.5], {"units": "degrees_north"}),
+                "lon": ("lon", [-30.5, -29.5], {"units": "degrees_east"})},
+    )
+    ds.to_netcdf(tmp_path / "months.nc")
+    out = open_climate(tmp_path / "months.nc")
+    # 2 mm/day x standard non-leap month lengths (definition of the units)
+    np.testing.assert_allclose(out["pr"].isel(lat=0, lon=0).values,
+                               2.0 * days_in_month("standard"))

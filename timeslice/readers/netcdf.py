@@ -92,6 +92,27 @@ def _expand_paths(path) -> list[Path]:
     return out
 
 
+def _decode_months_since(ds: xr.Dataset) -> xr.Dataset:
+    """Decode time axes in "months since ..." (not decodable by cftime outside 360_day):
+    step k is month k after the reference, dated on the 15th."""
+    import cftime
+
+    for name in list(ds.coords):
+        units = str(ds[name].attrs.get("units", ""))
+        m = re.match(r"\s*months?\s+since\s+(-?\d+)-(\d+)", units)
+        if not m or not np.issubdtype(ds[name].dtype, np.number):
+            continue
+        cal = str(ds[name].attrs.get("calendar", "standard")).lower()
+        y0, m0 = int(m.group(1)), int(m.group(2))
+        steps = np.floor(np.asarray(ds[name].values, dtype=float)).astype(int) + (m0 - 1)
+        dates = [cftime.datetime(y0 + int(k) // 12, int(k) % 12 + 1, 15, calendar=cal)
+                 for k in steps]
+        attrs = {k: v for k, v in ds[name].attrs.items() if k not in ("units", "calendar")}
+        ds = ds.assign_coords({name: (ds[name].dims, dates, attrs)})
+        ds[name].encoding.update(units=units, calendar=cal)
+    return ds
+
+
 def _open_one(path: Path, chunks) -> xr.Dataset:
     try:
         return xr.open_dataset(
@@ -99,7 +120,19 @@ def _open_one(path: Path, chunks) -> xr.Dataset:
             decode_times=xr.coders.CFDatetimeCoder(use_cftime=True),
             chunks=chunks,
         )
-    except (OSError, ValueError) as err:
+    except ValueError as err:
+        if "decode time" not in str(err):
+            raise InputFileError(
+                f"{path}: cannot be read as NetCDF ({str(err).splitlines()[0][:120]}); "
+                "give a CF NetCDF file"
+            ) from err
+        # e.g. "months since" in a standard calendar: decode those axes ourselves
+        try:
+            ds = xr.open_dataset(path, decode_times=False, chunks=chunks)
+        except (OSError, ValueError) as err2:
+            raise InputFileError(f"{path}: cannot be read as NetCDF ({err2})") from err2
+        return _decode_months_since(ds)
+    except OSError as err:
         raise InputFileError(
             f"{path}: cannot be read as NetCDF ({type(err).__name__}: {str(err).splitlines()[0][:120]}); "
             "give a CF NetCDF file"
