@@ -88,7 +88,9 @@ def anomalies(
     out = xr.Dataset()
     for v in ("tasmin", "tasmax"):
         d = (slice_ds[v] - base[v]).transpose("month", "lat", "lon")
-        d.attrs = {"units": "K", "long_name": f"{v} change factor (slice - baseline)"}
+        d.attrs = {"units": "K", "long_name": f"{v} change factor (slice - baseline)",
+                   "description": "additive anomaly of the model slice against the same "
+                   "model's baseline run, per month, on the model grid"}
         out[v] = d
     ps = slice_ds["pr"].transpose("month", "lat", "lon")
     pb = base["pr"].transpose("month", "lat", "lon")

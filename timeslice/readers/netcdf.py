@@ -130,7 +130,10 @@ def _open_one(path: Path, chunks) -> xr.Dataset:
         try:
             ds = xr.open_dataset(path, decode_times=False, chunks=chunks)
         except (OSError, ValueError) as err2:
-            raise InputFileError(f"{path}: cannot be read as NetCDF ({err2})") from err2
+            raise InputFileError(
+                f"{path}: cannot be read as NetCDF ({str(err2).splitlines()[0][:120]}); "
+                "give a CF NetCDF file"
+            ) from err2
         return _decode_months_since(ds)
     except OSError as err:
         raise InputFileError(
