@@ -79,3 +79,13 @@ def test_make_model_names_and_errors():
         make_model("elipsoid")
     with pytest.raises(ConfigError, match="no parameter 'percentil'.*did you mean 'percentile'"):
         make_model("envelope", percentil=3)
+
+
+def test_envelope_extremes_score_one_over_n(rng):
+    X, y = _data(rng, n_p=50, k=2)
+    m = EnvelopeNiche().fit(X, y)
+    P = X[y == 1]
+    s = m.predict_proba(P)[:, 1]
+    # plotting positions (j - 0.5)/n: an observed extreme scores 2 * 0.5/n = 1/n, so the
+    # minimum training presence is positive
+    assert s.min() == pytest.approx(1.0 / 50)

@@ -163,8 +163,8 @@ class EnvelopeNiche(_NicheBase):
     ----------
     lower_, upper_ : ndarray of shape (n_features,)
         Box edges at the `percentile` and ``100 - percentile`` presence percentiles.
-    sorted_ : list of ndarray
-        Sorted presence values per predictor (the empirical distribution).
+    sorted_, weights_ : list of ndarray
+        Sorted presence values per predictor and their weights (the empirical distribution).
 
     Notes
     -----
@@ -175,11 +175,11 @@ class EnvelopeNiche(_NicheBase):
     .. math:: s_i(x) = 2 \\min\\{F_i(x_i),\\, 1 - F_i(x_i)\\}, \\qquad S(x) = \\min_i s_i(x),
 
     where :math:`F_i` is the empirical CDF of predictor :math:`i` over the presences, linearly
-    interpolated between the plotting positions :math:`(j - 0.5)/n` of the sorted values and
-    reaching 0 and 1 at the observed minimum and maximum. :math:`S = 1` at the joint median,
-    :math:`S \\ge 2p/100` exactly inside the box, and :math:`S = 0` outside the observed range of
-    any predictor (no extrapolation). Background rows are not used in the fit; sample weights
-    are ignored.
+    interpolated between the plotting positions :math:`(j - 0.5)/n` of the sorted values
+    (averaged over tied values). :math:`S = 1` at the joint median, :math:`S = 1/n` at an
+    observed extreme, :math:`S \\ge 2p/100` exactly inside the box (for :math:`p/100 \\ge 0.5/n`),
+    and :math:`S = 0` outside the observed range of any predictor (no extrapolation). Background
+    rows are not used in the fit; sample weights act as frequency weights.
 
     References
     ----------
@@ -194,52 +194,51 @@ class EnvelopeNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None):
         """Fit the per-predictor presence distributions."""
-        X, presence, _ = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self._validate_fit(X, y, sample_weight)
         if not (0.0 <= float(self.percentile) < 50.0):
             raise ValueError(f"`percentile` must be in [0, 50), got {self.percentile}")
-        P = X[presence]
+        keep = presence & (sw > 0)
+        P, w = X[keep], sw[keep]
         if P.shape[0] < 1:
-            raise ValueError("EnvelopeNiche needs at least one presence row")
-        self.sorted_ = [np.sort(P[:, j]) for j in range(P.shape[1])]
+            raise ValueError("EnvelopeNiche needs at least one presence row with positive weight")
+        order = [np.argsort(P[:, j], kind="stable") for j in range(P.shape[1])]
+        self.sorted_ = [P[o, j] for j, o in enumerate(order)]
+        self.weights_ = [w[o] for o in order]
         q = float(self.percentile) / 100.0
-        self.lower_ = np.array([self._inverse(s, q) for s in self.sorted_])
-        self.upper_ = np.array([self._inverse(s, 1.0 - q) for s in self.sorted_])
+        self.lower_ = np.array([self._inverse(j, q) for j in range(P.shape[1])])
+        self.upper_ = np.array([self._inverse(j, 1.0 - q) for j in range(P.shape[1])])
         return self
 
     @staticmethod
-    def _positions(s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        n = s.size
-        if n == 1:
-            return np.array([s[0], s[0]]), np.array([0.0, 1.0])
-        xs = np.concatenate([[s[0]], s, [s[-1]]])
-        fs = np.concatenate([[0.0], (np.arange(1, n + 1) - 0.5) / n, [1.0]])
-        return xs, fs
+    def _positions(s: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Distinct sorted values and their plotting positions, averaged over ties.
 
-    @classmethod
-    def _inverse(cls, s: np.ndarray, q: float) -> float:
-        xs, fs = cls._positions(s)
-        return float(np.interp(q, fs, xs))
+        With frequency weights the position of a value is (cumulative weight - w/2) / total,
+        which is (j - 0.5)/n for unit weights; after averaging over ties a weight of 2 gives the
+        same positions as a repeated row.
+        """
+        fs = (np.cumsum(w) - 0.5 * w) / w.sum()
+        ux, inv = np.unique(s, return_inverse=True)
+        uf = np.bincount(inv, weights=fs * w) / np.bincount(inv, weights=w)
+        return ux, uf
 
-    @classmethod
-    def _cdf(cls, s: np.ndarray, x: np.ndarray) -> np.ndarray:
-        xs, fs = cls._positions(s)
-        if xs[0] == xs[-1]:
-            return np.where(x == xs[0], 0.5, np.where(x < xs[0], 0.0, 1.0))
-        # np.interp needs increasing x: average F over tied values (right-continuous mid-rank)
-        ux, inv = np.unique(xs, return_inverse=True)
-        uf = np.zeros(ux.size)
-        np.add.at(uf, inv, fs)
-        uf /= np.bincount(inv)
-        uf[0], uf[-1] = 0.0, 1.0
-        return np.interp(x, ux, uf, left=0.0, right=1.0)
+    def _inverse(self, j: int, q: float) -> float:
+        ux, uf = self._positions(self.sorted_[j], self.weights_[j])
+        return float(np.interp(q, uf, ux))
+
+    def _score(self, j: int, x: np.ndarray) -> np.ndarray:
+        """Per-predictor score 2 min(F, 1 - F) inside the observed range, 0 outside."""
+        ux, uf = self._positions(self.sorted_[j], self.weights_[j])
+        F = np.interp(x, ux, uf)
+        inside = (x >= ux[0]) & (x <= ux[-1])
+        return np.where(inside, 2.0 * np.minimum(F, 1.0 - F), 0.0)
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - suitability, suitability]."""
         X = self._validate_predict(X)
         score = np.ones(X.shape[0])
-        for j, s in enumerate(self.sorted_):
-            F = self._cdf(s, X[:, j])
-            score = np.minimum(score, 2.0 * np.minimum(F, 1.0 - F))
+        for j in range(len(self.sorted_)):
+            score = np.minimum(score, self._score(j, X[:, j]))
         return self._two_columns(score)
 
     def in_envelope(self, X) -> np.ndarray:
