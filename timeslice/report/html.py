@@ -59,6 +59,7 @@ min-width:11em;flex:1 1 11em}
 .key small{display:block;font-size:.75em;color:#555}
 table{border-collapse:collapse;margin:.5em 0 1.2em 0;font-size:.85em;background:#fff}
 th,td{border:1px solid #ccd;padding:.25em .55em;text-align:left;vertical-align:top}
+td{white-space:nowrap}
 th{background:#e8edf2}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .scroll{overflow-x:auto}
 figure{margin:1em 0 2em 0;background:#fff;border:1px solid #dde;padding:.6em}
@@ -332,14 +333,9 @@ def render_report(context: ReportContext) -> str:
             + "</div></section>")
 
     highlights = list(context.highlights) or _highlights(context.summary)
-    if context.summary is not None or highlights:
-        s = ['<section id="summary"><h2>Run summary</h2>']
-        if highlights:
-            s.append("<ul>" + "".join(f"<li>{_e(h)}</li>" for h in highlights) + "</ul>")
-        if context.summary is not None:
-            s.append(_table(context.summary))
-        s.append("</section>")
-        body.append("".join(s))
+    if highlights:
+        body.append('<section id="summary"><h2>Run summary</h2><ul>'
+                    + "".join(f"<li>{_e(h)}</li>" for h in highlights) + "</ul></section>")
         sections.append(("summary", "Run summary"))
 
     if context.figures:
@@ -351,6 +347,12 @@ def render_report(context: ReportContext) -> str:
         s.append("</section>")
         body.append("".join(s))
         sections.append(("figures", "Maps and plots"))
+
+    if context.summary is not None:
+        # After the figures: readers look at maps before they read a long table.
+        body.append('<section id="summary-table"><h2>Summary per slice</h2>'
+                    f"{_table(context.summary)}</section>")
+        sections.append(("summary-table", "Summary per slice"))
 
     for k, (name, df) in enumerate(context.tables.items()):
         shown = TABLE_TITLES.get(str(name), str(name))
