@@ -7,7 +7,9 @@ from pathlib import Path
 
 import pytest
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "harmonise"))
+_FACTORIES = str(Path(__file__).resolve().parents[1] / "harmonise")
+if _FACTORIES not in sys.path:
+    sys.path.insert(0, _FACTORIES)
 from harmonise_factories import model_dataset  # noqa: E402
 
 

@@ -47,7 +47,7 @@ DEFAULT_CHUNK_BUDGET_MB = 64.0
 # Working memory per cell of one chunk in the fused slice kernel: about 32 bytes per predictor
 # (float64 stacks, the valid-cell copy, the estimator's input copy, MESS temporaries) plus
 # about 35 bytes of outputs and masks, measured with tracemalloc for 2-16 predictors and the
-# ellipsoid estimator (bench/transfer.py, --measure-kernel). Rounded up: estimators that expand
+# ellipsoid estimator (bench/transfer.py prints it first). Rounded up: estimators that expand
 # features (splines, hinges) need a larger budget.
 _BYTES_PER_CELL_PER_VAR = 40
 _BYTES_PER_CELL_FIXED = 64
