@@ -30,7 +30,8 @@ _KNOTS = "hinge knots at weighted quantiles differ slightly from quantiles of re
 
 
 def _expected_failures(est):
-    if isinstance(est, (ForestNiche, EnsembleNiche)):
+    random_members = isinstance(est, EnsembleNiche) and bool({"forest", "point_process"} & set(est.members))
+    if isinstance(est, ForestNiche) or random_members:
         return {"check_sample_weight_equivalence_on_dense_data": _RANDOM_DRAWS}
     if isinstance(est, PointProcessNiche):
         why = _RANDOM_DRAWS if len(est.penalties) > 1 else _KNOTS

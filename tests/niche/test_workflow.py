@@ -168,3 +168,15 @@ def test_fit_niche_bad_hyperparameter_is_config_error(world):
         fit_niche(rec, ds, thin="sometimes")
     fit = fit_niche(rec, ds, thin="none", n_background=300, importance_repeats=0)
     assert fit.params["thin"] is None
+
+
+def test_fit_niche_is_reproducible_for_a_seed(world):
+    ds, rec, _ = world
+    kw = dict(algorithm="forest", algorithm_params={"n_estimators": 15}, n_background=400,
+              importance_repeats=2, thin=20.0)
+    a, b = fit_niche(rec, ds, seed=5, **kw), fit_niche(rec, ds, seed=5, **kw)
+    X = a.background[a.variables]
+    np.testing.assert_array_equal(a.suitability(X), b.suitability(X))
+    pd.testing.assert_frame_equal(a.evaluation, b.evaluation)
+    pd.testing.assert_frame_equal(a.importance, b.importance)
+    assert a.threshold == b.threshold

@@ -190,7 +190,7 @@ class PointProcessNiche(_NicheBase):
     def __init__(
         self,
         *,
-        features: Sequence[str] = ("linear", "quadratic", "hinge"),
+        features: Sequence[str] = ("linear", "quadratic", "hinge", "interaction"),
         n_knots: int = 8,
         penalties: Sequence[float] = (3e-3, 1e-2, 3e-2, 1e-1),
         background_weight: float = 100.0,
