@@ -199,3 +199,15 @@ def test_ensemble_with_text_dimensions(series_ds, tmp_path):
     back = open_series(path)
     assert list(back["scenario"].values) == ["low-forcing", "high-forcing"]
     np.testing.assert_array_equal(back["agreement"].values, ens["agreement"].values)
+
+
+def test_reading_one_slice_at_a_time_is_warning_free(series_ds, tmp_path):
+    import warnings
+
+    ds = series_ds.assign(area=("slice", np.arange(series_ds.sizes["slice"], dtype=float),
+                                {"units": "km2"}))
+    path = write_series(ds, tmp_path / "series.nc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        back = open_series(path, chunks={"slice": 1})
+    assert back["suitability"].chunks[0] == (1,) * series_ds.sizes["slice"]

@@ -242,12 +242,15 @@ def _encoding(ds: xr.Dataset, *, complevel: int) -> dict[str, dict[str, Any]]:
         e: dict[str, Any] = {}
         if da.dtype.kind == "O":
             e["dtype"] = str
-        elif da.ndim >= 1:
+        elif set(da.dims) >= {"lat", "lon"}:
             e.update(zlib=True, complevel=complevel, shuffle=True)
             # One slice (or one ensemble member) per chunk, the whole grid in it.
             e["chunksizes"] = tuple(
                 1 if d not in ("lat", "lon", "bnds") else ds.sizes[d] for d in da.dims
-            ) if da.ndim >= 2 else (da.shape[0],)
+            )
+        else:
+            # Small 1-D variables stay contiguous: no chunk boundaries for readers to respect.
+            e["contiguous"] = True
         is_coord = name in ds.coords or name in ("lat_bnds", "lon_bnds")
         if da.dtype.kind == "f" and not is_coord:
             e["_FillValue"] = np.array(np.nan, dtype=da.dtype)
