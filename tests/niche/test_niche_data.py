@@ -127,6 +127,13 @@ def test_calibration_buffer_matches_great_circle():
     expect = haversine_km(0.0, 45.0, lon2, lat2) <= 150
     np.testing.assert_array_equal(area.values, expect)
     assert area.dtype == bool and area.attrs["buffer_km"] == 150
+    # Reference: pyproj Geod(ellps="WGS84").inv geodesic distances; sphere and ellipsoid differ
+    # by < 0.5 % here, so cells clearly inside (< 99.5 % of the buffer) must be in the area and
+    # cells clearly outside (> 100.5 %) must not
+    _, _, d_m = Geod(ellps="WGS84").inv(np.zeros(lon2.size), np.full(lon2.size, 45.0), lon2.ravel(), lat2.ravel())
+    d_km = d_m.reshape(lon2.shape) / 1000.0
+    assert area.values[d_km < 150 * 0.995].all()
+    assert not area.values[d_km > 150 * 1.005].any()
 
 
 def test_calibration_hull_contains_buffer_and_interior():
