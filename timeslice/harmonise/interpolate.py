@@ -60,6 +60,18 @@ def between(
     variable and for sea level. Against a common model baseline this is exactly a linear
     interpolation of the additive temperature anomalies and of the precipitation change
     ratios (before the floor and truncation of the delta method).
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> def one(v, year):
+    ...     da = xr.DataArray(np.full((12, 1, 1), v), dims=("month", "lat", "lon"),
+    ...                       coords={"month": np.arange(1, 13), "lat": [0.5], "lon": [0.5]})
+    ...     return xr.Dataset({"tasmin": da, "tasmax": da + 8, "pr": da + 50},
+    ...                       attrs={"year": year})
+    >>> mid = between(one(-10.0, -19050.0), one(0.0, -4050.0), -10050.0)
+    >>> float(mid["tasmin"][0, 0, 0])  # w = 0.6
+    -4.0
     """
     for what, ds in (("slice_a", slice_a), ("slice_b", slice_b)):
         if not isinstance(ds, xr.Dataset):

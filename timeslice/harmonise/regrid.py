@@ -197,8 +197,13 @@ def _apply_kernel(
 
 
 def _choose(src_lat, src_lon, dst_lat, dst_lon) -> Literal["conservative", "bilinear"]:
-    rs = max(resolution(src_lat), resolution(src_lon))
-    rd = max(resolution(dst_lat), resolution(dst_lon))
+    def res(*coords) -> float:
+        # a one-point axis has no spacing of its own: use the other axis
+        steps = [resolution(c) for c in coords if np.size(c) > 1]
+        return max(steps) if steps else 0.0
+
+    rs = res(src_lat, src_lon)
+    rd = res(dst_lat, dst_lon)
     return "conservative" if rd >= rs * (1 - 1e-9) else "bilinear"
 
 
@@ -256,6 +261,20 @@ def regrid(
     References
     ----------
     Jones, P. W. (1999). Monthly Weather Review 127:2204-2210.
+
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> from timeslice.grid import make_grid
+    >>> src = make_grid(lon_min=0, lon_max=4, lat_min=0, lat_max=4, resolution=1.0)
+    >>> f = xr.DataArray(np.arange(16.0).reshape(4, 4), dims=("lat", "lon"),
+    ...                  coords={"lat": src.lat, "lon": src.lon})
+    >>> dst = make_grid(lon_min=0, lon_max=4, lat_min=0, lat_max=4, resolution=2.0)
+    >>> out = regrid(f, dst)  # coarsening: conservative
+    >>> out.attrs["regrid_method"], out.shape
+    ('conservative', (2, 2))
+    >>> bool(abs(float(out[0, 0]) - 2.5) < 0.01)  # area-weighted mean of 0, 1, 4, 5
+    True
     """
     if not 0.0 <= float(min_valid_fraction) <= 1.0:
         raise DataError(

@@ -119,6 +119,14 @@ def temperature_conversion(
     """``(offset, factor)`` such that ``degC = offset + factor * value``.
 
     Raises :class:`DataError` if the units are not a temperature.
+
+    Examples
+    --------
+    >>> temperature_conversion("K")
+    (-273.15, 1.0)
+    >>> off, fac = temperature_conversion("degrees_F", use_table=False)
+    >>> round(off + fac * 212.0, 9)
+    100.0
     """
     if use_table and text is not None and _clean(text) in _TEMPERATURE_TABLE:
         return _TEMPERATURE_TABLE[_clean(text)]
@@ -150,6 +158,14 @@ def precipitation_conversion(
     -----
     A mass flux (kg m-2 s-1) is turned into a depth rate by dividing by the density of
     water, 1000 kg m-3, so 1 kg m-2 s-1 = 1 mm s-1 = 86 400 mm day-1.
+
+    Examples
+    --------
+    >>> kind, factor = precipitation_conversion("kg m-2 s-1")
+    >>> kind, factor * 86400
+    ('per_second', 86400.0)
+    >>> precipitation_conversion("cm/month", use_table=False)
+    ('per_month', 10.0)
     """
     if use_table and text is not None and _clean(text) in _PRECIPITATION_TABLE:
         return _PRECIPITATION_TABLE[_clean(text)]  # type: ignore[return-value]
@@ -187,6 +203,13 @@ def days_in_month(calendar: str, year: int | None = None, *, source: str = "inpu
     Returns
     -------
     numpy.ndarray of int, shape (12,)
+
+    Examples
+    --------
+    >>> int(days_in_month("360_day").sum()), int(days_in_month("noleap").sum())
+    (360, 365)
+    >>> int(days_in_month("standard", 2000)[1])  # February of a leap year
+    29
     """
     cal = str(calendar).lower()
     if cal not in _CALENDARS:
