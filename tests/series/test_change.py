@@ -216,3 +216,12 @@ def test_change_table_dask_equals_numpy(stack_factory, raise_if_dask_computes):
     import pandas as pd
 
     pd.testing.assert_frame_equal(eager, lazy, check_exact=False, rtol=1e-12)
+
+
+def test_detail_without_optional_layers(stack_factory):
+    ds = stack_factory().drop_vars(["elevation", "mess", "nt1", "nt2"])
+    tab = change_table(ds, detail=True)
+    for col in ("elevation_mean_m", "elevation_q50_m", "novel_any_km2", "gain_novel_share",
+                "novel_mess_km2"):
+        assert tab[col].isna().all(), col
+    assert tab["lat_q50"].notna().any()

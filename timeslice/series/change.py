@@ -83,6 +83,22 @@ DETAIL_COLUMNS = [
 ]
 
 
+def _area_like(da: xr.DataArray) -> xr.DataArray:
+    """Cell areas, chunked like `da` when `da` is a dask array (one small graph key per chunk
+    instead of the whole numpy array embedded in every operation)."""
+    area = cell_area(da)
+    if da.chunks is not None:
+        sizes = da.chunksizes
+        area = area.chunk({d: sizes[d] for d in ("lat", "lon") if d in sizes})
+    return area
+
+
+def _wsum(mask: xr.DataArray, weights: xr.DataArray, dims=("lat", "lon")) -> xr.DataArray:
+    """Σ mask·weights over `dims` as one fused contraction per chunk (no full-size
+    float temporaries held by dask between several reductions of the same mask)."""
+    return xr.dot(mask.astype(np.float32) if mask.dtype == bool else mask, weights, dim=dims)
+
+
 def suitable_area(
     suitable: xr.DataArray,
     *,
@@ -118,12 +134,12 @@ def suitable_area(
     Snyder, J. P. (1987). Map Projections: A Working Manual. USGS Professional Paper 1395.
     """
     check_dataarray(suitable, name="suitable")
-    area = cell_area(suitable)
+    area = _area_like(suitable)
     mask = is_suitable(suitable)
     if land is not None:
         check_dataarray(land, name="land")
         mask = mask & land.astype(bool)
-    out = (area * mask).sum(("lat", "lon"))
+    out = _wsum(mask, area)
     out.name = "suitable_area"
     out.attrs = {
         "units": "km2",
@@ -252,13 +268,14 @@ def centroid(suitable: xr.DataArray) -> tuple[xr.DataArray, xr.DataArray]:
     mean latitude of the range.
     """
     check_dataarray(suitable, name="suitable")
-    w = cell_area(suitable) * is_suitable(suitable)
-    total = w.sum(("lat", "lon"))
-    total = total.where(total > 0)
-    lat_c = (w * suitable["lat"]).sum(("lat", "lon")) / total
+    area = _area_like(suitable)
+    mask = is_suitable(suitable)
     lam = np.deg2rad(suitable["lon"])
-    sin_m = (w * np.sin(lam)).sum(("lat", "lon"))
-    cos_m = (w * np.cos(lam)).sum(("lat", "lon"))
+    total = _wsum(mask, area)
+    total = total.where(total > 0)
+    lat_c = _wsum(mask, area * suitable["lat"]) / total
+    sin_m = _wsum(mask, area * np.sin(lam))
+    cos_m = _wsum(mask, area * np.cos(lam))
     lon_c = np.rad2deg(np.arctan2(sin_m, cos_m)).where(total.notnull())
     lon_c = ((lon_c + 180.0) % 360.0) - 180.0
     lat_c.name, lon_c.name = "centroid_lat", "centroid_lon"
@@ -382,25 +399,24 @@ def _detail_reductions(stack: xr.Dataset, suitable: xr.DataArray, change: xr.Dat
     mask (bool, one byte per cell and slice) against the static elevation.
     """
     suit = is_suitable(suitable)
-    w = area * suit
-    red = {"d_lat_rows": w.sum("lon")}  # area per latitude row: exact latitude quantiles
+    red = {"d_lat_rows": _wsum(suit, area, dims=("lon",))}  # area per row: latitude quantiles
     novel = {}
     for var, (rule, _) in NOVELTY_RULES.items():
         if var in stack.data_vars:
             novel[var] = rule(stack[var])
-            red[f"d_novel_{var}"] = (w * novel[var]).sum(("lat", "lon"))
+            red[f"d_novel_{var}"] = _wsum(suit & novel[var], area)
     if novel:
         any_novel = None
         for m in novel.values():
             any_novel = m if any_novel is None else (any_novel | m)
-        red["d_novel_any"] = (w * any_novel).sum(("lat", "lon"))
-        red["d_gain_novel"] = (area * ((change == 1) & any_novel)).sum(("lat", "lon"))
+        red["d_novel_any"] = _wsum(suit & any_novel, area)
+        red["d_gain_novel"] = _wsum((change == 1) & any_novel, area)
     layers = {}
     if "elevation" in stack.data_vars:
         elev = stack["elevation"]
         ok = elev.notnull()
-        red["d_elev_w"] = (w * ok).sum(("lat", "lon"))
-        red["d_elev_sum"] = (w * elev.fillna(0.0)).sum(("lat", "lon"))
+        red["d_elev_w"] = _wsum(suit & ok, area)
+        red["d_elev_sum"] = _wsum(suit, area * elev.fillna(0.0))
         layers["d_suit"] = suit
         layers["d_elev"] = elev
     return red, layers
@@ -422,7 +438,7 @@ def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
     with np.errstate(invalid="ignore", divide="ignore"):
         table["lat_mean"] = (rows * lat).sum(axis=1) / np.where(total > 0, total, np.nan)
     table[["lat_q10", "lat_q50", "lat_q90"]] = _weighted_quantiles(lat, rows, qs)
-    if "d_elev_w" in computed:
+    if "d_suit" in computed:
         we = computed["d_elev_w"].values.astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             table["elevation_mean_m"] = computed["d_elev_sum"].values / np.where(we > 0, we,
@@ -443,8 +459,10 @@ def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
             ev, av = elev[order], area.ravel()[order]
             eq = np.full((ns, len(qs)), np.nan)
             for t in range(ns):
-                w = np.where(suit[t].ravel()[order], av, 0.0)
-                eq[t] = _weighted_quantiles(ev[None, :], w[None, :], qs)[0]
+                cum = np.cumsum(np.where(suit[t].ravel()[order], av, 0.0))
+                if cum.size and cum[-1] > 0:
+                    idx = np.searchsorted(cum / cum[-1], np.asarray(qs) - 1e-12, side="left")
+                    eq[t] = ev[np.minimum(idx, ev.size - 1)]
         table[["elevation_q10_m", "elevation_q50_m", "elevation_q90_m"]] = eq
     else:
         for c in ("elevation_mean_m", "elevation_q10_m", "elevation_q50_m", "elevation_q90_m"):
@@ -464,6 +482,116 @@ def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
         for c in ("novel_any_km2", "analog_area_km2", "gain_novel_km2", "gain_novel_share"):
             table[c] = np.nan
     return table
+
+
+_SUM_NAMES = (
+    "suitable_area_km2", "gain_km2", "loss_km2", "stable_km2", "lat_sum", "sin_sum", "cos_sum",
+    "d_novel_mess", "d_novel_nt1", "d_novel_nt2", "d_novel_any", "d_gain_novel", "d_elev_w",
+    "d_elev_sum",
+)
+
+
+def _sums_kernel(cur, ref, band, latc, dlon, sinl, cosl, *opt, novelty, elev):
+    """Per-slice area sums of one block: shape (slices, 1, 1, len(_SUM_NAMES)).
+
+    Cell areas come from 1-D factors (``band`` = R²(sin φ₂ − sin φ₁) per row, ``dlon`` in
+    radians per column), so no full-grid weight array is ever held. `opt` holds the novelty
+    blocks named in `novelty`, then the elevation block if `elev`.
+    """
+    code = _change_kernel(cur, ref, False)
+    suit = suitable_mask(cur)
+    a = band[0] * dlon[0]  # (rows, 1) * (1, cols)
+    out = np.full((cur.shape[0], len(_SUM_NAMES)), np.nan)
+
+    def asum(mask, w=a):
+        return np.einsum("syx,yx->s", mask, np.broadcast_to(w, mask.shape[1:]),
+                         dtype=np.float64)
+
+    out[:, 0] = asum(suit)
+    out[:, 1] = asum(code == 1)
+    out[:, 2] = asum(code == 2)
+    out[:, 3] = asum(code == 3)
+    out[:, 4] = asum(suit, a * latc[0])
+    out[:, 5] = asum(suit, a * sinl[0])
+    out[:, 6] = asum(suit, a * cosl[0])
+    blocks = dict(zip(novelty, opt[: len(novelty)]))
+    any_novel = None
+    with np.errstate(invalid="ignore"):
+        for k, name in enumerate(("mess", "nt1", "nt2")):
+            if name in blocks:
+                m = NOVELTY_RULES[name][0](blocks[name])
+                out[:, 7 + k] = asum(suit & m)
+                any_novel = m if any_novel is None else (any_novel | m)
+    if any_novel is not None:
+        out[:, 10] = asum(suit & any_novel)
+        out[:, 11] = asum((code == 1) & any_novel)
+    if elev:
+        e = opt[len(novelty)][0]
+        ok = np.isfinite(e)
+        out[:, 12] = asum(suit, np.where(ok, a, 0.0))
+        out[:, 13] = asum(suit, np.where(ok, a * e, 0.0))
+    return out[:, None, None, :]
+
+
+def _rows_kernel(cur, band, dlon):
+    """Suitable area per latitude row of one block: shape (slices, rows, 1)."""
+    a = band[0] * dlon[0]
+    return np.einsum("syx,yx->sy", suitable_mask(cur), np.broadcast_to(a, cur.shape[1:]),
+                     dtype=np.float64)[:, :, None]
+
+
+def _area_sums(stack: xr.Dataset, suitable: xr.DataArray, iref: int):
+    """All per-slice area sums of the table in one fused pass (numpy, or one dask task per
+    block: memory stays at a few blocks plus one reference slice, whatever the stack size)."""
+    import dask.array as dsa
+
+    from timeslice.grid import AUTHALIC_RADIUS_KM, cell_bounds
+
+    suitable = suitable.transpose("slice", "lat", "lon")
+    lat = np.asarray(suitable["lat"].values, dtype=np.float64)
+    lon = np.asarray(suitable["lon"].values, dtype=np.float64)
+    lat_b = np.deg2rad(cell_bounds(lat, kind="lat"))
+    lon_b = np.deg2rad(cell_bounds(lon, kind="lon"))
+    band = AUTHALIC_RADIUS_KM**2 * np.abs(np.sin(lat_b[:, 1]) - np.sin(lat_b[:, 0]))
+    dlon = np.abs(lon_b[:, 1] - lon_b[:, 0])
+    lam = np.deg2rad(lon)
+    rows = [band, lat]  # shape (1, ny, 1)
+    cols = [dlon, np.sin(lam), np.cos(lam)]  # shape (1, 1, nx)
+    novelty = tuple(v for v in ("mess", "nt1", "nt2") if v in stack.data_vars)
+    layers = [stack[v].transpose("slice", "lat", "lon").data for v in novelty]
+    elev = "elevation" in stack.data_vars
+    if elev:
+        e = stack["elevation"]
+        if set(e.dims) != {"lat", "lon"}:
+            raise DataError(f"`elevation` must be one (lat, lon) map, got dims {list(e.dims)}")
+        layers.append(e.transpose("lat", "lon").data[None])
+    kw = {"novelty": novelty, "elev": elev}
+    cur = suitable.data
+    if not isinstance(cur, dsa.Array):
+        c = np.asarray(cur)
+        res = _sums_kernel(c, c[iref:iref + 1],
+                           *[r[None, :, None] for r in rows], *[c_[None, None, :] for c_ in cols],
+                           *[np.asarray(x) for x in layers], **kw)[:, 0, 0, :]
+        lat_rows = _rows_kernel(c, band[None, :, None], dlon[None, None, :])[:, :, 0]
+        return res, lat_rows, novelty
+    chunks = cur.chunks
+    ych, xch = chunks[1], chunks[2]
+    r_arr = [dsa.from_array(r[None, :, None], chunks=((1,), ych, (1,))) for r in rows]
+    c_arr = [dsa.from_array(c[None, None, :], chunks=((1,), (1,), xch)) for c in cols]
+    lay = [dsa.asarray(x).rechunk(chunks) for x in layers[: len(novelty)]]
+    if elev:
+        lay.append(dsa.asarray(layers[-1]).rechunk(((1,), ych, xch)))
+    out = dsa.map_blocks(
+        _sums_kernel, cur, cur[iref:iref + 1].rechunk(((1,), ych, xch)), *r_arr, *c_arr, *lay,
+        chunks=(chunks[0], (1,) * len(ych), (1,) * len(xch), (len(_SUM_NAMES),)),
+        new_axis=3, dtype=np.float64, meta=np.array((), dtype=np.float64), **kw,
+    )
+    rows_out = dsa.map_blocks(
+        _rows_kernel, cur, r_arr[0], c_arr[0],
+        chunks=(chunks[0], ych, (1,) * len(xch)), dtype=np.float64,
+        meta=np.array((), dtype=np.float64),
+    )
+    return out.sum(axis=(1, 2)), rows_out.sum(axis=2), novelty
 
 
 def change_table(
@@ -507,33 +635,39 @@ def change_table(
     iref = check_label(stack, reference)
     labels = slice_labels(stack)
     n = len(labels)
-    ref = suitable.isel(slice=iref)
-    change = change_map(suitable, ref)
-    area = cell_area(suitable)
-    sums = {
-        "suitable_area_km2": (area * is_suitable(suitable)).sum(("lat", "lon")),
-        "gain_km2": (area * (change == 1)).sum(("lat", "lon")),
-        "loss_km2": (area * (change == 2)).sum(("lat", "lon")),
-        "stable_km2": (area * (change == 3)).sum(("lat", "lon")),
-    }
-    if "mess" in stack.data_vars:
-        novel = is_suitable(suitable) & (stack["mess"] < 0)
-        sums["novel_area_km2"] = (area * novel).sum(("lat", "lon"))
-    lat_c, lon_c = centroid(suitable)
-    sums["centroid_lat"], sums["centroid_lon"] = lat_c, lon_c
+    res, lat_rows, novelty = _area_sums(stack, suitable, iref)
     meta = {
         k: stack[k].variable
         for k in ("year", "model", "scenario")
         if k in stack.coords or k in stack.data_vars
     }
     layers = {}
+    if detail and "elevation" in stack.data_vars:
+        # exact weighted elevation quantiles need the suitable cells (one byte per cell)
+        layers["d_suit"] = drop_nondim(is_suitable(suitable))
+        layers["d_elev"] = drop_nondim(stack["elevation"])
+    import dask
+
+    # one pass over the stack; no graph optimisation: the two collections share keys, and
+    # optimising them separately can fuse away a key the other one needs
+    computed, res, lat_rows = dask.compute(
+        xr.Dataset({**{f"meta_{k}": v for k, v in meta.items()}, **layers}), res,
+        lat_rows if detail else None, optimize_graph=False,
+    )
+    res = np.asarray(res, dtype=np.float64)
     if detail:
-        red, lay = _detail_reductions(stack, suitable, change, area)
-        layers = {k: drop_nondim(v) for k, v in {**red, **lay}.items()}
-    computed = xr.Dataset({**{k: drop_nondim(v) for k, v in sums.items()},
-                           **{f"meta_{k}": v for k, v in meta.items()}, **layers})
-    computed = computed.compute()  # one pass over the stack
+        computed["d_lat_rows"] = (("slice", "lat"), np.asarray(lat_rows, dtype=np.float64))
+    for k, name in enumerate(_SUM_NAMES):
+        computed[name] = ("slice", res[:, k])
     meta = xr.Dataset({k: computed[f"meta_{k}"] for k in meta})
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tot = np.where(res[:, 0] > 0, res[:, 0], np.nan)
+        computed["centroid_lat"] = ("slice", res[:, 4] / tot)
+        lon_c = np.rad2deg(np.arctan2(res[:, 5], res[:, 6]))
+        computed["centroid_lon"] = ("slice", np.where(np.isfinite(tot),
+                                                      ((lon_c + 180.0) % 360.0) - 180.0, np.nan))
+    if "mess" in novelty:
+        computed["novel_area_km2"] = computed["d_novel_mess"]
     table = pd.DataFrame(
         {
             "slice": labels,
