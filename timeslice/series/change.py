@@ -391,37 +391,6 @@ def _weighted_quantiles(values: np.ndarray, weights: np.ndarray, qs) -> np.ndarr
     return out
 
 
-def _detail_reductions(stack: xr.Dataset, suitable: xr.DataArray, change: xr.DataArray,
-                       area: xr.DataArray) -> tuple[dict, dict]:
-    """Lazy per-slice reductions for the detail columns, and the few layers they still need.
-
-    Everything is a sum over cells except the elevation quantiles, which need the suitable
-    mask (bool, one byte per cell and slice) against the static elevation.
-    """
-    suit = is_suitable(suitable)
-    red = {"d_lat_rows": _wsum(suit, area, dims=("lon",))}  # area per row: latitude quantiles
-    novel = {}
-    for var, (rule, _) in NOVELTY_RULES.items():
-        if var in stack.data_vars:
-            novel[var] = rule(stack[var])
-            red[f"d_novel_{var}"] = _wsum(suit & novel[var], area)
-    if novel:
-        any_novel = None
-        for m in novel.values():
-            any_novel = m if any_novel is None else (any_novel | m)
-        red["d_novel_any"] = _wsum(suit & any_novel, area)
-        red["d_gain_novel"] = _wsum((change == 1) & any_novel, area)
-    layers = {}
-    if "elevation" in stack.data_vars:
-        elev = stack["elevation"]
-        ok = elev.notnull()
-        red["d_elev_w"] = _wsum(suit & ok, area)
-        red["d_elev_sum"] = _wsum(suit, area * elev.fillna(0.0))
-        layers["d_suit"] = suit
-        layers["d_elev"] = elev
-    return red, layers
-
-
 def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
                     table: pd.DataFrame) -> pd.DataFrame:
     ref_area = table["suitable_area_km2"].iloc[iref]
