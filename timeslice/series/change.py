@@ -571,7 +571,8 @@ def change_table(
     Parameters
     ----------
     stack : xarray.Dataset
-        Stacked series with ``suitable(slice, lat, lon)``; ``mess(slice, lat, lon)`` is used
+        Stacked series with ``suitable(slice, lat, lon)`` (a bare ``suitable`` DataArray is
+        accepted too); ``mess(slice, lat, lon)`` is used
         for the novel area when present (NaN column otherwise); slice coords ``year``,
         ``model``, ``scenario``.
     reference : str, default "baseline"
@@ -598,6 +599,8 @@ def change_table(
     ``centroid_shift_km`` is the great-circle distance on the authalic sphere from the reference
     centroid (Sinnott 1984, Sky and Telescope 68:159).
     """
+    if isinstance(stack, xr.DataArray):
+        stack = stack.to_dataset(name="suitable")
     check_stack(stack)
     suitable = stack["suitable"]
     check_dataarray(suitable, name="suitable", dims=("slice", "lat", "lon"))

@@ -108,7 +108,7 @@ def agreement(
     coords = {
         "group": ("group", labels),
         **{b: ("group", [k[j] for k in keys]) for j, b in enumerate(by)},
-        "n_models": ("group", [len(v) for v in groups.values()]),
+        "n_models": ("group", np.array([len(v) for v in groups.values()], dtype=np.int32)),
         "models": ("group", [" ".join(model[v]) for v in groups.values()]),
         "lat": stack["lat"],
         "lon": stack["lon"],

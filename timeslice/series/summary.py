@@ -257,6 +257,7 @@ def _add_chain_layers(out, stack, chain_map, analog, *, rate, distance_km) -> No
     for var, items in layers.items():
         attrs = dict(items[0].attrs)
         attrs.pop("slices", None)
+        attrs.pop("step_distance_km", None)  # differs between chains
         da = xr.concat(items, dim=chain_coord)
         da.attrs = attrs
         da.attrs["description"] = (attrs.get("description", "") +
