@@ -346,7 +346,9 @@ def _neighbour_max(field: np.ndarray, widths: np.ndarray, *, wrap: bool) -> np.n
     width = base.shape[1]
     levels = [base]
     k = 1
-    while 2 * k <= width:
+    # only the levels the widest window needs: a short distance keeps the table small
+    need = int(min(2 * max(int(widths.max()), 0) + 1, width))
+    while 2 * k <= need:
         prev = levels[-1]
         nxt = np.full_like(prev, -np.inf)
         nxt[:, : width - k] = np.maximum(prev[:, : width - k], prev[:, k:])
