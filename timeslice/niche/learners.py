@@ -46,6 +46,9 @@ def _inner_folds(y: np.ndarray, groups, n_folds: int, rng) -> list[tuple[np.ndar
     """Train/test index pairs: by the given groups (spatial folds) or stratified random folds."""
     if groups is not None:
         groups = np.asarray(groups).ravel()
+        labels = np.unique(groups)
+        if labels.size > int(n_folds):  # merge spatial groups into n_folds folds, whole groups only
+            groups = np.searchsorted(labels, groups) % int(n_folds)
         out = []
         for g in np.unique(groups):
             te = np.flatnonzero(groups == g)
@@ -143,7 +146,11 @@ class PointProcessNiche(_NicheBase):
     background_weight : float
         Weight :math:`W` of each background point relative to a presence.
     n_folds : int
-        Inner folds for the penalty search when no spatial `groups` are given to ``fit``.
+        Inner folds of the penalty search: random stratified folds when ``fit`` gets no
+        `groups`, else the spatial groups merged into at most `n_folds` folds.
+    search_background : int or None
+        The penalty search uses all presences and at most this many background rows (a seeded
+        subset, weights scaled so the total background weight is kept); None uses all.
     random_state : int, Generator or None
         Seed of the inner random folds.
 
@@ -195,6 +202,7 @@ class PointProcessNiche(_NicheBase):
         penalties: Sequence[float] = (3e-3, 1e-2, 3e-2, 1e-1),
         background_weight: float = 100.0,
         n_folds: int = 3,
+        search_background: int | None = 5000,
         random_state=None,
     ):
         self.features = features
@@ -202,6 +210,7 @@ class PointProcessNiche(_NicheBase):
         self.penalties = penalties
         self.background_weight = background_weight
         self.n_folds = n_folds
+        self.search_background = search_background
         self.random_state = random_state
 
     def _fit_one(self, F, y, w, lam, n1):
@@ -230,14 +239,26 @@ class PointProcessNiche(_NicheBase):
         F = self.features_.transform(X)
         scores = np.full(penalties.size, np.nan)
         if penalties.size > 1:
-            splits = _inner_folds(yy, groups, self.n_folds, rng)
+            # the search runs on all presences and at most `search_background` background rows,
+            # their weights scaled up so the total background weight is unchanged
+            Xs, ys, ws, sws, gs = X, yy, w, sw, None if groups is None else np.asarray(groups).ravel()
+            bg = np.flatnonzero(yy == 0)
+            if self.search_background is not None and bg.size > int(self.search_background):
+                pick = np.sort(np.concatenate([
+                    np.flatnonzero(yy == 1), rng.choice(bg, int(self.search_background), replace=False)
+                ]))
+                scale = np.where(yy[pick] == 0, w[bg].sum() / w[np.intersect1d(pick, bg)].sum(), 1.0)
+                Xs, ys, ws, sws = X[pick], yy[pick], w[pick] * scale, sw[pick]
+                gs = None if gs is None else gs[pick]
+            splits = _inner_folds(ys, gs, self.n_folds, rng)
             for i, lam in enumerate(penalties):
                 fold_auc = []
                 for tr, te in splits:
-                    fmap = _FeatureMap(kinds, self.n_knots).fit(X[tr], sw[tr])
-                    m = self._fit_one(fmap.transform(X[tr]), yy[tr], w[tr], lam, float(sw[tr][yy[tr] == 1].sum()))
-                    eta = fmap.transform(X[te]) @ m.coef_.ravel()
-                    fold_auc.append(_auc(eta, yy[te]))
+                    fmap = _FeatureMap(kinds, self.n_knots).fit(Xs[tr], sws[tr])
+                    n1 = float(sws[tr][ys[tr] == 1].sum())
+                    m = self._fit_one(fmap.transform(Xs[tr]), ys[tr], ws[tr], lam, n1)
+                    eta = fmap.transform(Xs[te]) @ m.coef_.ravel()
+                    fold_auc.append(_auc(eta, ys[te]))
                 scores[i] = float(np.mean(fold_auc))
             best = int(np.nanargmax(scores))
         else:
