@@ -130,3 +130,35 @@ def test_slice_missing_variable(demo_run, tmp_path):
     result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(tmp_path / "o")])
     assert result.exit_code == 2, result.output
     assert "6ka.nc" in result.stderr and "pr" in result.stderr
+
+
+def test_intermediate_slice_by_interpolation(demo_run, tmp_path):
+    _, data, _ = demo_run
+    text = _one_model_config(render_demo_config(str(data)))
+    text += '\n[[slices]]\nname = "14ka"\nbetween = ["21ka", "6ka"]\nscenario = "past"\nage_bp = 14000\nsea_level = -80.0\n'
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(text)
+    out = tmp_path / "h"
+    result = CliRunner().invoke(app, ["harmonise", str(cfg), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    inputs = pd.read_csv(out / "tables" / "inputs.csv")
+    shelf = dict(zip(inputs["slice"], inputs["exposed_shelf_km2"]))
+    # sea level -80 m lies between -120 m and -2 m, so the exposed shelf lies between theirs
+    # (land itself is not monotonic: the 21 ka ice sheet removes land the 14 ka slice keeps)
+    assert shelf["alder_6ka"] < shelf["alder_14ka"] < shelf["alder_21ka"]
+    with xr.open_dataset(out / "harmonised" / "alder_14ka.nc") as mid, \
+            xr.open_dataset(out / "harmonised" / "alder_6ka.nc") as b:
+        t_mid = float(mid["bio1"].where(b["bio1"].notnull()).mean())
+        t_b = float(b["bio1"].mean())
+        assert t_mid < t_b  # closer to the glacial state, so colder
+
+
+def test_between_unknown_name(demo_run, tmp_path):
+    _, data, _ = demo_run
+    text = _one_model_config(render_demo_config(str(data)))
+    text += '\n[[slices]]\nname = "14ka"\nbetween = ["21k", "6ka"]\nage_bp = 14000\n'
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(text)
+    result = CliRunner().invoke(app, ["harmonise", str(cfg), "--out", str(tmp_path / "h")])
+    assert result.exit_code == 2
+    assert "'21k'" in result.stderr and "did you mean '21ka'" in result.stderr

@@ -60,6 +60,11 @@ class ClimateConfig(_Section):
     baseline_year: float = 2000.0
     models: dict[str, Path] = Field(default_factory=dict)
     aliases: dict[str, list[str]] = Field(default_factory=dict)
+    units: dict[str, str] = Field(default_factory=dict)
+    scale: dict[str, float] = Field(default_factory=dict)
+    regrid: Literal["auto", "conservative", "bilinear"] | dict[str, Literal["auto", "conservative", "bilinear"]] = "auto"
+    pr_floor: float = Field(0.1, ge=0.0)
+    ratio_quantile: float = Field(0.98, gt=0.5, le=1.0)
     present_sea_level: float = 0.0
     ice_threshold: float = Field(0.5, ge=0.0, le=1.0)
     lapse_rate: float = Field(0.0065, ge=0.0)
@@ -69,7 +74,9 @@ class SliceConfig(_Section):
     """One entry of ``[[slices]]``; expands to one slice per model in `models`."""
 
     name: str
-    file: str
+    file: str | None = None
+    kind: Literal["monthly", "bioclim"] = "monthly"
+    between: list[str] | None = None
     scenario: str = "past"
     period: str | None = None
     year: float | None = None
@@ -82,6 +89,15 @@ class SliceConfig(_Section):
     def _one_time(self) -> SliceConfig:
         if (self.year is None) == (self.age_bp is None):
             raise ValueError("give exactly one of `year` (CE) or `age_bp` (years before 1950)")
+        if (self.file is None) == (self.between is None):
+            raise ValueError(
+                "give exactly one of `file` (model output) or `between` (names of two other "
+                "slices to interpolate between)"
+            )
+        if self.between is not None and len(self.between) != 2:
+            raise ValueError("`between` names exactly two other slices, e.g. [\"21ka\", \"6ka\"]")
+        if self.between is not None and self.kind != "monthly":
+            raise ValueError("`between` works on monthly model fields; drop `kind = \"bioclim\"`")
         return self
 
 
@@ -167,12 +183,53 @@ class Config(_Section):
                     f"{self.source}: {key} = {str(path)!r}: file not found; fix the path "
                     "(relative paths are read from the config file's folder)"
                 )
-        for i, spec in enumerate(self.slice_specs()):
-            if not _exists(spec.file):
-                raise InputFileError(
-                    f"{self.source}: slice {spec.label!r} (slices file pattern): "
-                    f"{str(spec.file)!r} not found; fix the path or the model list"
+        for spec in self.slice_specs():
+            for f in spec.files():
+                if not _exists(f):
+                    raise InputFileError(
+                        f"{self.source}: slice {spec.label!r} (slices file pattern): "
+                        f"{str(f)!r} not found; fix the path or the model list"
+                    )
+
+    def _spec(self, i: int, s: SliceConfig, m: str) -> SliceSpec:
+        year = s.year if s.year is not None else 1950.0 - float(s.age_bp)
+        period = s.period or (f"{s.age_bp / 1000:g} ka BP" if s.age_bp is not None else f"{year:g}")
+        ends: list[SliceSpec] = []
+        if s.between is not None:
+            for name in s.between:
+                match = [
+                    (j, o) for j, o in enumerate(self.slices)
+                    if o.name == name and o.between is None
+                    and (o.models is None or m in o.models) and o.scenario in (s.scenario, "past")
+                ]
+                if not match:
+                    names = sorted({o.name for o in self.slices if o.between is None})
+                    close = difflib.get_close_matches(name, names, n=1)
+                    hint = f"; did you mean {close[0]!r}?" if close else f" (have {names})"
+                    raise ConfigError(
+                        f"{self.source}: slices[{i}].between names {name!r}, which is not a slice "
+                        f"with a `file` for model {m!r}{hint}"
+                    )
+                ends.append(self._spec(match[0][0], match[0][1], m))
+            lo, hi = sorted(e.year for e in ends)
+            if not lo < year < hi:
+                raise ConfigError(
+                    f"{self.source}: slices[{i}] ({s.name!r}) year {year:g} is not between the "
+                    f"years of {s.between} ({lo:g}, {hi:g}); interpolation does not extrapolate"
                 )
+        return SliceSpec(
+            label=f"{m}_{s.scenario}_{s.name}" if s.scenario != "past" else f"{m}_{s.name}",
+            model=m,
+            scenario=s.scenario,
+            period=period,
+            year=year,
+            file=_resolve(self.source, s.file.format(model=m)) if s.file else None,
+            kind=s.kind,
+            between=ends or None,
+            model_baseline=self.climate.models[m],
+            sea_level=s.sea_level,
+            ice=s.ice,
+        )
 
     def slice_specs(self) -> list[SliceSpec]:
         """Expand ``[[slices]]`` over models into one spec per (model, slice)."""
@@ -192,24 +249,7 @@ class Config(_Section):
                         f"{self.source}: slices[{i}].models names {m!r}, which has no baseline "
                         f"under [climate.models] (have {sorted(self.climate.models)}){hint}"
                     )
-                year = s.year if s.year is not None else 1950.0 - float(s.age_bp)
-                period = s.period or (
-                    f"{s.age_bp / 1000:g} ka BP" if s.age_bp is not None else f"{year:g}"
-                )
-                path = _resolve(self.source, s.file.format(model=m))
-                specs.append(
-                    SliceSpec(
-                        label=f"{m}_{s.scenario}_{s.name}" if s.scenario != "past" else f"{m}_{s.name}",
-                        model=m,
-                        scenario=s.scenario,
-                        period=period,
-                        year=year,
-                        file=path,
-                        model_baseline=self.climate.models[m],
-                        sea_level=s.sea_level,
-                        ice=s.ice,
-                    )
-                )
+                specs.append(self._spec(i, s, m))
         labels = [sp.label for sp in specs]
         dup = {x for x in labels if labels.count(x) > 1}
         if dup or self.climate.baseline_label in labels:
@@ -228,10 +268,18 @@ class SliceSpec(BaseModel):
     scenario: str
     period: str
     year: float
-    file: Path
+    file: Path | None
+    kind: Literal["monthly", "bioclim"] = "monthly"
+    between: list[SliceSpec] | None = None
     model_baseline: Path
     sea_level: float = 0.0
     ice: Path | None = None
+
+    def files(self) -> list[Path]:
+        """Every model file this slice is built from."""
+        if self.between:
+            return [f for e in self.between for f in e.files()]
+        return [self.file] if self.file is not None else []
 
 
 def _exists(path: Path) -> bool:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import contextlib
 import json
 import os
+import re
 import sys
 import time
 import warnings
@@ -72,10 +73,23 @@ def _about(path: Path | str | None) -> Iterator[None]:
         raise type(err)(f"{name}: {err}") from err
 
 
-def _open(path: Path, aliases: dict | None = None):
+_YEARS = re.compile(r"\s*-?\d{1,5}\s*-\s*-?\d{1,5}\s*")
+
+
+def _open(path: Path, c=None, *, period: str | None = None, require=None):
+    """Open a climate file with the config's aliases, units and scale factors.
+
+    A period of the form 'YYYY-YYYY' is passed on, so multi-year monthly series are reduced to
+    the climatology of those years (12-step climatologies ignore it).
+    """
     from timeslice.readers import open_climate
 
-    return open_climate(path, aliases=aliases or None)
+    kw: dict[str, Any] = {}
+    if c is not None:
+        kw = {"aliases": c.aliases or None, "units": c.units or None, "scale": c.scale or None}
+    if period is not None and _YEARS.fullmatch(period):
+        kw["period"] = period
+    return open_climate(path, require=require, **kw)
 
 
 def _ice_field(ds: xr.Dataset) -> xr.DataArray:
@@ -96,13 +110,16 @@ def harmonise_stage(
     Returns the prepared baseline, the prepared slices (config order) and a table of inputs.
     """
     from timeslice.grid import make_grid
+    from timeslice.harmonise.interpolate import between
     from timeslice.harmonise.prepare import prepare_slice
     from timeslice.harmonise.regrid import regrid
 
     c = cfg.climate
     specs = cfg.slice_specs()
-    fine = _open(c.baseline, c.aliases)
-    elev_ds = _open(c.elevation, c.aliases)
+    monthly = c.baseline_kind == "monthly"
+    fine = _open(c.baseline, c, period=c.baseline_period,
+                 require=["tasmin", "tasmax", "pr"] if monthly else None)
+    elev_ds = _open(c.elevation, c)
     elev = elev_ds["elevation"] if "elevation" in elev_ds else elev_ds[list(elev_ds.data_vars)[0]]
     if cfg.grid is not None:
         g = cfg.grid
@@ -117,8 +134,11 @@ def harmonise_stage(
 
     base_key = content_key(
         "baseline", file_digest(c.baseline), file_digest(c.elevation),
-        cfg.grid.model_dump() if cfg.grid else None, c.present_sea_level, c.lapse_rate,
-        c.baseline_kind, c.aliases,
+        cfg.grid.model_dump() if cfg.grid else None, c.model_dump(mode="json", exclude={"models"}),
+    )
+    common = dict(
+        elevation=elev, ice_threshold=c.ice_threshold, regrid_method=c.regrid,
+        pr_floor=c.pr_floor, ratio_quantile=c.ratio_quantile, lapse_rate=c.lapse_rate,
     )
     total = len(specs) + 1
     progress("harmonise", 0, total)
@@ -126,9 +146,9 @@ def harmonise_stage(
         "harmonise",
         base_key,
         lambda: prepare_slice(
-            fine_baseline=fine, elevation=elev, sea_level=c.present_sea_level,
-            label=c.baseline_label, year=c.baseline_year, period=c.baseline_period,
-            model="observed", scenario="baseline",
+            fine_baseline=fine if monthly else None, bio=None if monthly else fine,
+            sea_level=c.present_sea_level, label=c.baseline_label, year=c.baseline_year,
+            period=c.baseline_period, model="observed", scenario="baseline", **common,
         ),
     )
     progress("harmonise", 1, total)
@@ -137,26 +157,40 @@ def harmonise_stage(
     slices: list[xr.Dataset] = []
     for i, spec in enumerate(specs):
         key = content_key(
-            base_key, spec.model_dump(mode="json"), file_digest(spec.file),
+            base_key, spec.model_dump(mode="json"), [file_digest(f) for f in spec.files()],
             file_digest(spec.model_baseline), file_digest(spec.ice) if spec.ice else None,
-            c.ice_threshold,
         )
 
         def compute(spec: SliceSpec = spec) -> xr.Dataset:
+            ice = _ice_field(_open(spec.ice, c)) if spec.ice else None
+            meta = dict(label=spec.label, year=spec.year, period=spec.period, model=spec.model,
+                        scenario=spec.scenario, sea_level=spec.sea_level, ice=ice)
+            if spec.kind == "bioclim":
+                with _about(spec.file):
+                    return prepare_slice(fine_baseline=fine if monthly else None,
+                                         bio=_open(spec.file, c, period=spec.period), **meta, **common)
             if spec.model not in model_baselines:
-                model_baselines[spec.model] = _open(spec.model_baseline, c.aliases)
-            ice = _ice_field(_open(spec.ice, c.aliases)) if spec.ice else None
-            with _about(spec.file):
-                return prepare_slice(
-                    fine_baseline=fine, elevation=elev, model_slice=_open(spec.file, c.aliases),
-                    model_baseline=model_baselines[spec.model], sea_level=spec.sea_level,
-                    ice=ice, ice_threshold=c.ice_threshold, label=spec.label, year=spec.year,
-                    period=spec.period, model=spec.model, scenario=spec.scenario,
-                )
+                model_baselines[spec.model] = _open(
+                    spec.model_baseline, c, period=c.baseline_period, require=["tasmin", "tasmax", "pr"])
+            if spec.between:
+                a, b = spec.between
+                with _about(a.file):
+                    raw = between(_open(a.file, c, period=a.period), _open(b.file, c, period=b.period),
+                                  spec.year, year_a=a.year, year_b=b.year,
+                                  sea_level_a=a.sea_level, sea_level_b=b.sea_level)
+                src = f"{a.file.name} + {b.file.name}"
+            else:
+                with _about(spec.file):
+                    raw = _open(spec.file, c, period=spec.period, require=["tasmin", "tasmax", "pr"])
+                src = spec.file
+            with _about(src):
+                return prepare_slice(fine_baseline=fine, model_slice=raw,
+                                     model_baseline=model_baselines[spec.model], **meta, **common)
 
         ds = cache.dataset("harmonise", key, compute)
         slices.append(ds)
-        rows.append(_input_row(spec.label, spec.model, spec.scenario, spec.file, ds))
+        src = spec.file if spec.file is not None else " + ".join(str(f.name) for f in spec.files())
+        rows.append(_input_row(spec.label, spec.model, spec.scenario, src, ds))
         progress("harmonise", i + 2, total)
     return baseline, slices, pd.DataFrame(rows)
 
