@@ -112,3 +112,22 @@ def test_analyse_series_rate_error_names_the_setting(stack_factory):
 
     with pytest.raises(ConfigError, match=r"`series.dispersal_rate` = '5' has no unit"):
         analyse_series(stack_factory(), rate="5", rate_key="series.dispersal_rate")
+
+
+def test_key_results(stack_factory):
+    from timeslice.series import key_results
+
+    ds = _full_stack(stack_factory)
+    ds["suitable"][:, 0, 0] = 1
+    rec = pd.DataFrame({"lon": [-9.5, -9.5], "lat": [40.5, 40.5], "age_bp": [21000, 6000]})
+    res = analyse_series(ds, window=(-19050, 2000), rate="1 km/yr", records=rec)
+    k = key_results(res)
+    assert list(k.columns) == ["topic", "scope", "quantity", "value", "unit"]
+    assert set(k["topic"]) >= {"refugia", "change", "movement", "novelty", "agreement",
+                               "uncertainty", "hindcast"}
+    assert set(k.loc[k["topic"] == "refugia", "scope"]) >= {"alder past", "birch past"}
+    # the mean loss over models at the horizon matches the detail table
+    d = res.tables["detail"]
+    low = d[(d["scenario"] == "low") & (d["year"] == 2090.0)]
+    got = k[(k["scope"] == "low 2081-2100") & (k["quantity"] == "suitable area lost")]
+    assert got["value"].item() == pytest.approx(low["loss_km2"].mean())

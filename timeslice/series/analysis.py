@@ -22,7 +22,7 @@ from timeslice.series.hindcast import check as hindcast_check
 from timeslice.series.stacking import chains as find_chains
 from timeslice.series.summary import movement_table, summarise
 
-__all__ = ["SeriesResult", "analyse_series"]
+__all__ = ["SeriesResult", "analyse_series", "key_results"]
 
 
 @dataclasses.dataclass
@@ -197,3 +197,90 @@ def analyse_series(
                 warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
         tables["hindcast"] = pd.concat(rows, ignore_index=True)
     return SeriesResult(series=series, ensemble=ensemble, tables=tables, notes=notes)
+
+
+def key_results(result: SeriesResult, *, horizon: str | None = None) -> pd.DataFrame:
+    """The headline numbers of a series, one row each, for reports and logs.
+
+    Parameters
+    ----------
+    result : SeriesResult
+        From :func:`analyse_series`.
+    horizon : str, optional
+        Future period to report (default: the latest future period in the series).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``topic, scope, quantity, value, unit``: refugium area per paleo chain and
+        over the window; per scenario at the horizon, the mean over models of the area lost and
+        gained under each movement assumption and of the share of the gain in novel climate;
+        the area where every model / a majority agrees; the mean variance share of each
+        source; the pooled hindcast hit rate, expected share and p-value per paleo chain.
+        Means over models are plain means (each model one vote).
+    """
+    from timeslice.grid import cell_area
+
+    rows: list[dict] = []
+
+    def add(topic, scope, quantity, value, unit):
+        rows.append({"topic": topic, "scope": scope, "quantity": quantity,
+                     "value": float(value), "unit": unit})
+
+    series = result.series
+    area = cell_area(series)
+    if "refugium_chain" in series:
+        scen = dict(zip(map(str, series["slice"].values),
+                        map(str, series["scenario"].values))) if "scenario" in series.coords \
+            else {}
+        for chain, slices in zip(series["chain"].values, series["chain_slices"].values):
+            if scen.get(str(slices).split()[0]) == "past":
+                ref = series["refugium_chain"].sel(chain=chain)
+                add("refugia", str(chain), "refugium area", float((area * ref).sum()), "km2")
+    if "refugium_window" in series:
+        add("refugia", "window, all models", "refugium area",
+            float((area * series["refugium_window"]).sum()), "km2")
+    if "refugium_window_analog" in series:
+        add("refugia", "window, all models", "refugium area in analog climate",
+            float((area * series["refugium_window_analog"]).sum()), "km2")
+    detail = result.tables.get("detail")
+    if detail is not None and "period" in series.coords:
+        period = dict(zip(map(str, series["slice"].values), map(str, series["period"].values)))
+        d = detail.assign(period=[period.get(str(s), "") for s in detail["slice"]])
+        future = d[~d["scenario"].isin(["baseline", "past"])]
+        if horizon is None and not future.empty:
+            horizon = str(future.sort_values("year")["period"].iloc[-1])
+        for scen, g in future[future["period"] == horizon].groupby("scenario", sort=False):
+            scope = f"{scen} {horizon}"
+            add("change", scope, "suitable area lost", g["loss_km2"].mean(), "km2")
+            add("change", scope, "suitable area gained", g["gain_km2"].mean(), "km2")
+            for a, words in (("none", "no movement"), ("limited", "limited movement"),
+                             ("unlimited", "unlimited movement")):
+                if f"{a}_loss_km2" in g:
+                    add("movement", scope, f"range lost, {words}",
+                        g[f"{a}_loss_km2"].mean(), "km2")
+                    add("movement", scope, f"range gained, {words}",
+                        g[f"{a}_gain_km2"].mean(), "km2")
+            if "gain_novel_share" in g:
+                add("novelty", scope, "share of the gain in novel climate",
+                    g["gain_novel_share"].mean(), "1")
+    agree = result.tables.get("agreement")
+    if agree is not None:
+        for _, r in agree.iterrows():
+            scope = f"{r.get('scenario', '')} {r.get('period', '')}".strip()
+            add("agreement", scope, "area suitable in every model", r["all_models_km2"], "km2")
+            add("agreement", scope, "area suitable in a majority of models",
+                r["majority_km2"], "km2")
+    part = result.tables.get("partition")
+    if part is not None:
+        for _, r in part.iterrows():
+            add("uncertainty", str(r["period"]), f"variance share: {r['source']}",
+                r["mean_share"], "1")
+    hind = result.tables.get("hindcast")
+    if hind is not None:
+        for _, r in hind[hind["slice"] == "all"].iterrows():
+            add("hindcast", str(r["chain"]), "hit rate of dated records", r["hit_rate"], "1")
+            add("hindcast", str(r["chain"]), "suitable share of land (expected)",
+                r["expected_share"], "1")
+            add("hindcast", str(r["chain"]), "one-sided p-value", r["p_value"], "1")
+    return pd.DataFrame(rows, columns=["topic", "scope", "quantity", "value", "unit"])
