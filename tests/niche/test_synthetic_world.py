@@ -57,14 +57,9 @@ def _cv_auc(fit) -> float:
     return float(fit.evaluation.query("summary == 'mean'")["auc"].iloc[0])
 
 
-@pytest.mark.parametrize("algorithm", ["ellipsoid", "envelope", "spline", "forest"])
-def test_fast_algorithms_recover_the_niche(sharp_world, algorithm):
+@pytest.mark.parametrize("algorithm", ["ellipsoid", "envelope", "spline", "forest", "point_process"])
+def test_algorithms_recover_the_niche(sharp_world, algorithm):
     assert _cv_auc(_fit(sharp_world, algorithm)) >= 0.8
-
-
-@pytest.mark.slow
-def test_point_process_recovers_the_niche(sharp_world):
-    assert _cv_auc(_fit(sharp_world, "point_process")) >= 0.8
 
 
 @pytest.mark.slow
