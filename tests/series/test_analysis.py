@@ -131,3 +131,13 @@ def test_key_results(stack_factory):
     low = d[(d["scenario"] == "low") & (d["year"] == 2090.0)]
     got = k[(k["scope"] == "low 2081-2100") & (k["quantity"] == "suitable area lost")]
     assert got["value"].item() == pytest.approx(low["loss_km2"].mean())
+
+
+def test_unbalanced_ensemble_is_skipped_with_a_note(stack_factory):
+    ds = _full_stack(stack_factory)
+    ds = ds.sel(slice=[s for s in ds["slice"].values if s != "birch_high_2081-2100"])
+    res = analyse_series(ds)
+    assert any("partition 2081-2100: skipped (unbalanced design" in n for n in res.notes)
+    assert list(res.tables["partition"]["period"].unique()) == ["2041-2060"]
+    with pytest.raises(DataError, match="unbalanced design"):
+        analyse_series(ds, factors=("model", "scenario"))

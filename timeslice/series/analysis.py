@@ -77,8 +77,14 @@ def _partition_by_period(stack: xr.Dataset, factors: Sequence[str] | None, notes
                 continue
         else:
             cand = list(factors)
-        design = factorial(sub, factors=cand)
-        parts = partition(design, factors=cand)
+        try:
+            design = factorial(sub, factors=cand)
+            parts = partition(design, factors=cand)
+        except DataError as err:
+            if factors is not None:  # asked for explicitly: the user must fix it
+                raise
+            notes.append(f"partition {p}: skipped ({err})")
+            continue
         results.append(parts)
         periods.append(p)
     if not results:
