@@ -50,7 +50,7 @@ def test_common_names_ignore_case(tmp_path):
 def test_no_coordinate_columns_names_file_and_columns(tmp_path):
     path = tmp_path / "bad.csv"
     path.write_text("where,when\nhere,now\n")
-    with pytest.raises(InputFileError, match=r"bad\.csv.*no coordinate column.*lon, lat.*where, when"):
+    with pytest.raises(InputFileError, match=r"bad\.csv.*no coordinate column.*lon, lat.*file columns are: where, when; "):
         read_occurrences(path)
 
 
@@ -101,3 +101,16 @@ def test_dated_records_without_age(tmp_path):
     path.write_text("lon,lat\n1,2\n")
     with pytest.raises(InputFileError, match="no column for age_bp"):
         read_dated_records(path)
+
+
+def test_row_is_the_file_line_across_blank_lines(tmp_path):
+    path = tmp_path / "gaps.csv"
+    path.write_text("lon,lat\n1,2\n\n3,4\n")
+    df = read_occurrences(path)
+    assert list(df["row"]) == [2, 4] and list(df["lon"]) == [1.0, 3.0]
+
+
+def test_header_only_file_gives_no_records(tmp_path):
+    path = tmp_path / "header.csv"
+    path.write_text("decimalLongitude,decimalLatitude\n")
+    assert len(read_occurrences(path)) == 0

@@ -90,13 +90,17 @@ def _read_table(path: Path) -> pd.DataFrame:
             keep_default_na=False,
             encoding=encoding,
             quoting=csv.QUOTE_MINIMAL,
-            skip_blank_lines=True,
+            skip_blank_lines=False,
         )
     except (pd.errors.ParserError, ValueError, UnicodeDecodeError) as err:
         msg = str(err).splitlines()[0] if str(err) else type(err).__name__
         raise InputFileError(f"{path}: not a readable CSV table ({msg}); check the delimiter and quoting") from err
     df.columns = [str(c).strip() for c in df.columns]
-    return df
+    # file line of each row (header = line 1), kept through the removal of blank lines;
+    # a quoted field spanning several lines shifts the count
+    df["__line__"] = np.arange(2, len(df) + 2, dtype=np.int64)
+    blank = (df.drop(columns="__line__") == "").all(axis=1)
+    return df.loc[~blank].reset_index(drop=True)
 
 
 def _resolve_columns(
@@ -106,7 +110,8 @@ def _resolve_columns(
     columns: Mapping[str, str] | None,
 ) -> dict[str, str]:
     """Map canonical names to file columns: the user's mapping first, then the aliases."""
-    lower = {c.lower(): c for c in df.columns}
+    names = [c for c in df.columns if c != "__line__"]
+    lower = {c.lower(): c for c in names}
     found: dict[str, str] = {}
     if columns:
         for canon, file_col in columns.items():
@@ -119,14 +124,14 @@ def _resolve_columns(
                     f"{path}: column mapping key {canon!r} is not a canonical column "
                     f"(choose from {', '.join(aliases)}){hint}"
                 )
-            if file_col not in df.columns:
-                by_lower = {c.lower(): c for c in df.columns}
+            if file_col not in names:
+                by_lower = {c.lower(): c for c in names}
                 close = difflib.get_close_matches(str(file_col).lower(), list(by_lower), n=1)
                 close = [by_lower[c] for c in close]
                 hint = f"did you mean {close[0]!r}? " if close else ""
                 raise InputFileError(
                     f"{path}: column mapping {canon!r} -> {file_col!r} names a column that is not "
-                    f"in the file; {hint}file columns are: {', '.join(df.columns)}"
+                    f"in the file; {hint}file columns are: {', '.join(names)}"
                 )
             found[canon] = file_col
     for canon, names in aliases.items():
@@ -137,6 +142,11 @@ def _resolve_columns(
                 found[canon] = lower[name.lower()]
                 break
     return found
+
+
+def _columns(df: pd.DataFrame) -> list[str]:
+    """The file's own column names (without the line-number helper)."""
+    return [c for c in df.columns if c != "__line__"]
 
 
 def _numeric(series: pd.Series) -> np.ndarray:
@@ -182,7 +192,7 @@ def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | No
         wanted = " / ".join(_OCC_ALIASES["lon"][:2] + _OCC_ALIASES["lat"][:2])
         raise InputFileError(
             f"{path}: no coordinate column(s) for {', '.join(missing)} (looked for {wanted}); "
-            f"file columns are: {', '.join(df.columns)}; rename them or map them with the "
+            f"file columns are: {', '.join(_columns(df))}; rename them or map them with the "
             "`columns` option (canonical name -> file column)"
         )
     n = len(df)
@@ -205,7 +215,7 @@ def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | No
     out["year"] = year
     out["count"] = _numeric(df[found["count"]]) if "count" in found else np.nan
     out["species"] = df[found["species"]].str.strip().to_numpy() if "species" in found else ""
-    out["row"] = np.arange(2, n + 2, dtype=np.int64)
+    out["row"] = df["__line__"].to_numpy()
     if "id" in found:
         out["id"] = df[found["id"]].str.strip().to_numpy()
     out.attrs["source_file"] = str(path)
@@ -246,21 +256,22 @@ def read_dated_records(
     if missing:
         raise InputFileError(
             f"{path}: no column for {', '.join(missing)} in the dated records; file columns are: "
-            f"{', '.join(df.columns)}; rename them or map them with `columns`"
+            f"{', '.join(_columns(df))}; rename them or map them with `columns`"
         )
     out = pd.DataFrame(index=pd.RangeIndex(len(df)))
     for canon in ("lon", "lat", "age_bp"):
         values = _numeric(df[found[canon]])
         bad = np.flatnonzero(np.isnan(values))
         if bad.size:
-            line = int(bad[0]) + 2
+            line = int(df["__line__"].iloc[bad[0]])
             raise InputFileError(
                 f"{path}: line {line}: column {found[canon]!r} is not a number "
                 f"({df[found[canon]].iloc[bad[0]]!r}); {bad.size} such line(s); fix or remove them"
             )
         out[canon] = values
     if ((out["lat"] < -90) | (out["lat"] > 90) | (out["lon"] < -180) | (out["lon"] > 360)).any():
-        line = int(np.flatnonzero(((out["lat"] < -90) | (out["lat"] > 90) | (out["lon"] < -180) | (out["lon"] > 360)).to_numpy())[0]) + 2
+        bad_range = (out["lat"] < -90) | (out["lat"] > 90) | (out["lon"] < -180) | (out["lon"] > 360)
+        line = int(df["__line__"].iloc[int(np.flatnonzero(bad_range.to_numpy())[0])])
         raise InputFileError(
             f"{path}: line {line}: coordinates out of range (lat in [-90, 90], lon in [-180, 360]); "
             "check for swapped columns"
@@ -271,6 +282,6 @@ def read_dated_records(
         out["id"] = df[found["id"]].str.strip().to_numpy()
     if "material" in found:
         out["material"] = df[found["material"]].str.strip().to_numpy()
-    out["row"] = np.arange(2, len(df) + 2, dtype=np.int64)
+    out["row"] = df["__line__"].to_numpy()
     out.attrs["source_file"] = str(path)
     return out
