@@ -127,6 +127,9 @@ def test_ensemble_is_weighted_mean(rng):
     manual = sum(w * e.predict_proba(X)[:, 1] for (_, e), w in zip(m.members_, m.weights_))
     np.testing.assert_allclose(m.predict_proba(X)[:, 1], manual)
     assert list(m.member_table()["member"]) == ["ellipsoid", "envelope", "spline"]
+    summary = m.fitted_summary()["members"]
+    assert [d["member"] for d in summary] == ["ellipsoid", "envelope", "spline"]
+    assert sum(d["weight"] for d in summary) == pytest.approx(1.0)
 
 
 def test_ensemble_rejects_nesting_and_unknown_member(rng):

@@ -180,3 +180,4 @@ def test_fit_niche_is_reproducible_for_a_seed(world):
     pd.testing.assert_frame_equal(a.evaluation, b.evaluation)
     pd.testing.assert_frame_equal(a.importance, b.importance)
     assert a.threshold == b.threshold
+    assert a.params["fitted"]["n_trees"] == 15 and 0.5 < a.params["fitted"]["oob_auc"] <= 1.0

@@ -274,6 +274,16 @@ class PointProcessNiche(_NicheBase):
         self.eta_max_ = float(np.max((F @ self.coef_)[sw > 0]))
         return self
 
+    def fitted_summary(self) -> dict:
+        """Plain summary of the fit for reports: chosen penalty, active features, search AUCs."""
+        check_is_fitted(self)
+        return {
+            "penalty": self.penalty_,
+            "n_features": int(self.coef_.size),
+            "n_active_features": self.n_active_,
+            "search_auc": [None if not np.isfinite(v) else float(v) for v in self.cv_scores_],
+        }
+
     def tuned_params(self) -> dict:
         """Hyperparameters that reproduce this fit without the penalty search."""
         check_is_fitted(self)
@@ -441,6 +451,12 @@ class ForestNiche(_NicheBase):
         self.heldout_auc_ = _auc(self.oob_suitability_[ok], yy[ok].astype(int)) if has_both else float("nan")
         return self
 
+    def fitted_summary(self) -> dict:
+        """Plain summary of the fit for reports: trees and out-of-bag AUC."""
+        check_is_fitted(self)
+        oob = self.heldout_auc_
+        return {"n_trees": len(self.estimators_), "oob_auc": None if not np.isfinite(oob) else float(oob)}
+
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - S, S]."""
         X = self._validate_predict(X)
@@ -577,6 +593,16 @@ class EnsembleNiche(_NicheBase):
             if w > 0:
                 s += w * e.predict_proba(X)[:, 1]
         return self._two_columns(s)
+
+    def fitted_summary(self) -> dict:
+        """Plain summary of the fit for reports: members, their held-out AUC and weights."""
+        check_is_fitted(self)
+        return {
+            "members": [
+                {"member": n, "heldout_auc": float(a), "weight": float(w)}
+                for (n, _), a, w in zip(self.members_, self.cv_auc_, self.weights_)
+            ]
+        }
 
     def member_table(self):
         """DataFrame ``member, cv_auc, weight``."""

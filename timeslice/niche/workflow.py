@@ -409,6 +409,7 @@ def fit_niche(
         "n_records_used": int(len(pres)),
         "seed": int(seed),
         "training_auc": float(nev.auc(s[y == 1], s[y == 0])),
+        "fitted": model.fitted_summary() if hasattr(model, "fitted_summary") else {},
     }
     return NicheFit(
         model=model,
