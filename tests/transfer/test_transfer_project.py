@@ -202,3 +202,18 @@ def test_netcdf_round_trip(fitted_logistic, reference_df, slice_factory, tmp_pat
         for v in ("suitability", "mess", "nt1", "nt2", "clamp_effect"):
             np.testing.assert_array_equal(back[v].values, out[v].values)
         assert back.attrs["reference_set"] == "background sample within the calibration area"
+
+
+def test_all_sea_chunk(fitted_logistic, reference_df, slice_factory):
+    # A chunk with no land at all (polar rows, open ocean) gives fill values, not an error.
+    ds = slice_factory(ny=10, nx=8)
+    for v in VARS:
+        ds[v][:5] = np.nan
+    ds["land"][:5] = False
+    out = project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
+                        threshold=0.5, clamp=True, chunks={"lat": 5}).compute()
+    assert np.isnan(out["suitability"].values[:5]).all()
+    assert (out["suitable"].values[:5] == -1).all() and (out["mod"].values[:5] == -1).all()
+    for v in ("mess", "nt1", "nt2", "clamp_effect"):
+        assert np.isnan(out[v].values[:5]).all()
+    assert np.isfinite(out["suitability"].values[5:][ds["land"].values[5:]]).all()

@@ -164,23 +164,6 @@ def _target_arrays(target: xr.Dataset, variables: Sequence[str], name: str) -> l
     return arrays
 
 
-def _columns(blocks: Sequence[np.ndarray]) -> np.ndarray:
-    """Stack same-shape blocks as the rows of a C-contiguous float64 ``(k, n)`` matrix."""
-    blocks = [np.asarray(b) for b in blocks]
-    out = np.empty((len(blocks), blocks[0].size), dtype=np.float64)
-    for i, b in enumerate(blocks):
-        out[i] = b.reshape(-1)
-    return out
-
-
-def _split_valid(cols: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
-    """Finite columns of ``(k, n)`` and the mask of them (None when all are finite)."""
-    valid = np.isfinite(cols).all(axis=0)
-    if valid.all():
-        return cols, None
-    return np.ascontiguousarray(cols[:, valid]), valid
-
-
 def _valid_columns(blocks: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray | None]:
     """Finite cells of same-shape blocks as a float64 ``(k, n_valid)`` matrix, and their mask
     (None when every cell is finite). Cells with any missing predictor are never copied."""
@@ -344,23 +327,14 @@ def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray
     k = ref_sorted.shape[1]
     if values.shape[-1] != k:
         raise ValueError(f"values have {values.shape[-1]} variables, reference has {k}")
+    flat = values.reshape(-1, k)
+    good, valid = _valid_columns([flat[:, i] for i in range(k)])
+    mess_v, mod_v = _mess_columns(_CountTable(ref_sorted), good)
     out_shape = values.shape[:-1]
-    cols = np.ascontiguousarray(values.reshape(-1, k).T)
-    mess_v, mod_v = _mess_from_columns(_CountTable(ref_sorted), cols)
-    return mess_v.reshape(out_shape), mod_v.reshape(out_shape)
-
-
-def _mess_from_columns(table: _CountTable, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """MESS (float64, NaN) and mod (int16, -1) for columns (k, n) that may hold NaN."""
-    n = cols.shape[1]
-    good, valid = _split_valid(cols)
-    if valid is None:
-        return _mess_columns(table, good)
-    mess_v = np.full(n, np.nan)
-    mod_v = np.full(n, MOD_FILL, dtype=np.int16)
-    if good.shape[1]:
-        mess_v[valid], mod_v[valid] = _mess_columns(table, good)
-    return mess_v, mod_v
+    return (
+        _scatter(mess_v, valid, np.nan).reshape(out_shape),
+        _scatter(mod_v, valid, MOD_FILL).reshape(out_shape),
+    )
 
 
 def _mess_block(*blocks: np.ndarray, table: _CountTable) -> tuple[np.ndarray, np.ndarray]:
@@ -556,21 +530,13 @@ def _exdet_kernel(
     if whiten is None:
         whiten = scipy.linalg.solve_triangular(chol, np.eye(k), lower=True)
     params = {"lo": lo, "hi": hi, "mean": mean, "whiten": whiten, "d2_max": d2_max}
-    cols = np.ascontiguousarray(values.reshape(-1, k).T)
-    nt1, nt2 = _exdet_from_columns(params, cols)
-    return nt1.reshape(out_shape), nt2.reshape(out_shape)
-
-
-def _exdet_from_columns(params: dict, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    n = cols.shape[1]
-    good, valid = _split_valid(cols)
-    if valid is None:
-        return _exdet_columns(params, good)
-    nt1 = np.full(n, np.nan)
-    nt2 = np.full(n, np.nan)
-    if good.shape[1]:
-        nt1[valid], nt2[valid] = _exdet_columns(params, good)
-    return nt1, nt2
+    flat = values.reshape(-1, k)
+    good, valid = _valid_columns([flat[:, i] for i in range(k)])
+    nt1, nt2 = _exdet_columns(params, good)
+    return (
+        _scatter(nt1, valid, np.nan).reshape(out_shape),
+        _scatter(nt2, valid, np.nan).reshape(out_shape),
+    )
 
 
 def _exdet_block(*blocks: np.ndarray, params: dict) -> tuple[np.ndarray, np.ndarray]:
