@@ -17,6 +17,7 @@ __all__ = [
     "cell_area",
     "cell_bounds",
     "find_lonlat",
+    "grid_edges",
     "haversine_km",
     "make_grid",
     "normalise_lonlat",
@@ -68,6 +69,9 @@ def make_grid(
     ds = xr.Dataset(coords={"lat": ("lat", lat), "lon": ("lon", lon)})
     ds = ds.sortby("lon")
     _set_coord_attrs(ds)
+    # kept so that a one-row or one-column grid still knows its cell size
+    ds["lat"].attrs["resolution"] = float(resolution)
+    ds["lon"].attrs["resolution"] = float(resolution)
     return ds
 
 
@@ -89,15 +93,25 @@ def resolution(coord: xr.DataArray | np.ndarray) -> float:
     return float(np.abs(np.median(steps)))
 
 
-def cell_bounds(coord: xr.DataArray | np.ndarray, *, kind: str = "lat") -> np.ndarray:
+def cell_bounds(
+    coord: xr.DataArray | np.ndarray, *, kind: str = "lat", step: float | None = None
+) -> np.ndarray:
     """Cell edges of a cell-centred 1-D coordinate, shape ``(n, 2)``.
 
     Edges are midpoints between centres; the outer edges extend half a step.
-    Latitude edges are clipped to [-90, 90].
+    Latitude edges are clipped to [-90, 90]. A coordinate with a single value needs its cell
+    size: `step`, or a ``resolution`` attribute (set by :func:`make_grid`).
     """
     c = np.asarray(coord, dtype=float)
     if c.size == 1:
-        half = 0.5
+        if step is None:
+            step = getattr(coord, "attrs", {}).get("resolution")
+        if step is None:
+            raise DataError(
+                f"cannot tell the cell size of a single-value {kind!r} coordinate; give `step` "
+                "or a `resolution` attribute in degrees"
+            )
+        half = 0.5 * float(step)
         edges = np.array([c[0] - half, c[0] + half])
     else:
         mid = 0.5 * (c[1:] + c[:-1])
@@ -107,6 +121,21 @@ def cell_bounds(coord: xr.DataArray | np.ndarray, *, kind: str = "lat") -> np.nd
     if kind == "lat":
         edges = np.clip(edges, -90.0, 90.0)
     return np.stack([edges[:-1], edges[1:]], axis=1)
+
+
+def grid_edges(obj: xr.Dataset | xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
+    """Cell edges ``(lat_bounds, lon_bounds)`` in degrees, each of shape ``(n, 2)``.
+
+    A one-row (or one-column) grid takes its cell size from the coordinate's ``resolution``
+    attribute, else from the spacing of the other axis (square cells).
+    """
+    lat, lon = obj["lat"], obj["lon"]
+    lat_step = lat.attrs.get("resolution", resolution(lon) if lon.size > 1 else None)
+    lon_step = lon.attrs.get("resolution", resolution(lat) if lat.size > 1 else None)
+    return (
+        cell_bounds(lat, kind="lat", step=lat_step),
+        cell_bounds(lon, kind="lon", step=lon_step),
+    )
 
 
 def cell_area(obj: xr.Dataset | xr.DataArray) -> xr.DataArray:
@@ -133,8 +162,7 @@ def cell_area(obj: xr.Dataset | xr.DataArray) -> xr.DataArray:
     Snyder, J. P. (1987). Map Projections: A Working Manual. USGS Prof. Paper 1395 (p. 16,
     authalic radius).
     """
-    lat_b = np.deg2rad(cell_bounds(obj["lat"].values, kind="lat"))
-    lon_b = np.deg2rad(cell_bounds(obj["lon"].values, kind="lon"))
+    lat_b, lon_b = (np.deg2rad(b) for b in grid_edges(obj))
     band = np.sin(lat_b[:, 1]) - np.sin(lat_b[:, 0])
     dlon = np.abs(lon_b[:, 1] - lon_b[:, 0])
     area = AUTHALIC_RADIUS_KM**2 * np.outer(np.abs(band), dlon)

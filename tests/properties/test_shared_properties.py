@@ -72,8 +72,6 @@ def test_reference_points_are_never_novel(seed, n):
     assert (e["nt2"].values <= 1 + 1e-9).all()
 
 
-@pytest.mark.xfail(reason="grid.cell_bounds gives a lone coordinate a 1-degree cell whatever "
-                          "the grid's resolution", strict=False)
 def test_single_cell_grid_area():
     # a 0.25 x 0.25 degree cell at the equator: R^2 * dlambda * sin(0.25 deg) = 772.77 km^2
     # [computed from the zone formula, Snyder 1987]

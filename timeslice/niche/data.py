@@ -18,7 +18,7 @@ import xarray as xr
 from scipy.spatial import cKDTree
 
 from timeslice.errors import ConfigError, DataError, InputFileError, TimesliceWarning
-from timeslice.grid import AUTHALIC_RADIUS_KM, cell_area, cell_bounds
+from timeslice.grid import AUTHALIC_RADIUS_KM, cell_area, grid_edges
 
 __all__ = [
     "CLEANING_REASONS",
@@ -110,8 +110,7 @@ def _cell_index(grid: xr.Dataset | xr.DataArray, lon, lat) -> tuple[np.ndarray, 
     """Row/column of the grid cell holding each point, and whether it is inside the grid."""
     glat = np.asarray(grid["lat"].values, dtype=float)
     glon = np.asarray(grid["lon"].values, dtype=float)
-    lat_b = cell_bounds(glat, kind="lat")
-    lon_b = cell_bounds(glon, kind="lon")
+    lat_b, lon_b = grid_edges(grid)
     lon = np.asarray(lon, dtype=float)
     lat = np.asarray(lat, dtype=float)
     inside = (

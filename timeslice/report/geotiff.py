@@ -11,7 +11,7 @@ import numpy as np
 import xarray as xr
 
 from timeslice.errors import DataError
-from timeslice.grid import cell_bounds
+from timeslice.grid import grid_edges
 from timeslice.report._output import output_path
 from timeslice.report._layers import LAYERS, flag_pairs, slice_labels
 
@@ -105,8 +105,7 @@ def export(
             )
     lat = ds["lat"].values
     lon = ds["lon"].values
-    lat_b = cell_bounds(lat, kind="lat")
-    lon_b = cell_bounds(lon, kind="lon")
+    lat_b, lon_b = grid_edges(ds)
     dx = float(np.median(np.diff(lon_b, axis=1)))
     dy = float(np.median(np.diff(lat_b, axis=1)))
     # North-up: origin at the north-west corner, rows stepping south.

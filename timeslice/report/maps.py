@@ -23,7 +23,7 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Patch
 
 from timeslice.errors import DataError
-from timeslice.grid import cell_bounds
+from timeslice.grid import grid_edges
 from timeslice.report._output import output_path
 from timeslice.report._layers import LAYERS, slice_labels, slice_title
 
@@ -191,8 +191,7 @@ def _axes(fig: Figure, spec, ds: xr.Dataset, i: int | None, *, labels: bool = Tr
 
     crs = ccrs.PlateCarree()
     ax = fig.add_subplot(spec, projection=crs)
-    lon_b = cell_bounds(ds["lon"].values, kind="lon")
-    lat_b = cell_bounds(ds["lat"].values, kind="lat")
+    lat_b, lon_b = grid_edges(ds)
     ax.set_extent([lon_b[0, 0], lon_b[-1, 1], lat_b[0, 0], lat_b[-1, 1]], crs=crs)
     ax.set_facecolor("white")
     _graticule(ax, crs, lon_b[0, 0], lon_b[-1, 1], lat_b[0, 0], lat_b[-1, 1], labels=labels)

@@ -20,7 +20,7 @@ import numpy as np
 import xarray as xr
 
 from timeslice.errors import DataError, InputFileError
-from timeslice.grid import cell_area, cell_bounds
+from timeslice.grid import cell_area, grid_edges
 from timeslice.report._output import output_path
 from timeslice.report._layers import INHERITED_NOISE, LAYERS, NOT_LAND_FLAG, layer_spec
 
@@ -175,8 +175,9 @@ def prepare_cf(
             "long_name": "WGS 84 (EPSG:4326)",
         },
     )
-    for name, kind in (("lat", "lat"), ("lon", "lon")):
-        bnds = cell_bounds(out[name].values, kind=kind)
+    edges = dict(zip(("lat", "lon"), grid_edges(out)))
+    for name in ("lat", "lon"):
+        bnds = edges[name]
         # Bounds are data variables: CF bounds are not coordinates of anything.
         out[f"{name}_bnds"] = xr.DataArray(bnds, dims=(name, "bnds"),
                                            coords={name: out[name]})

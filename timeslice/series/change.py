@@ -514,13 +514,12 @@ def _area_sums(stack: xr.Dataset, suitable: xr.DataArray, iref: int):
     block: memory stays at a few blocks plus one reference slice, whatever the stack size)."""
     import dask.array as dsa
 
-    from timeslice.grid import AUTHALIC_RADIUS_KM, cell_bounds
+    from timeslice.grid import AUTHALIC_RADIUS_KM, grid_edges
 
     suitable = suitable.transpose("slice", "lat", "lon")
     lat = np.asarray(suitable["lat"].values, dtype=np.float64)
     lon = np.asarray(suitable["lon"].values, dtype=np.float64)
-    lat_b = np.deg2rad(cell_bounds(lat, kind="lat"))
-    lon_b = np.deg2rad(cell_bounds(lon, kind="lon"))
+    lat_b, lon_b = (np.deg2rad(b) for b in grid_edges(suitable))
     band = AUTHALIC_RADIUS_KM**2 * np.abs(np.sin(lat_b[:, 1]) - np.sin(lat_b[:, 0]))
     dlon = np.abs(lon_b[:, 1] - lon_b[:, 0])
     lam = np.deg2rad(lon)
