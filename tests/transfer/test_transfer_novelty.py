@@ -96,7 +96,12 @@ def test_mess_kernel_matches_direct_formula_with_ties(rng):
     got_mess, got_mod = _mess_kernel(np.sort(ref, axis=0), p)
     exp = [_mess_direct(ref, row) for row in p]
     np.testing.assert_allclose(got_mess, [e[0] for e in exp], rtol=1e-12, atol=1e-12)
-    np.testing.assert_array_equal(got_mod, [e[1] for e in exp])
+    # Ties: decided in exact arithmetic (a float evaluation of 2f and 2(100 - f) can split
+    # a tie by one ulp); the first tied variable must win.
+    for row, g_mod in zip(p, got_mod):
+        s = _mess_exact(ref, row)
+        best = min(v for v, _ in s)
+        assert g_mod == [i for i, (v, _) in enumerate(s) if v == best][0]
 
 
 def test_mess_kernel_nan_and_shape():
@@ -230,3 +235,71 @@ def test_exdet_singular_covariance_is_data_error(rng):
     ref = pd.DataFrame({"bio1": a, "bio6": 2.0 * a + 1.0})
     with pytest.raises(DataError, match="singular.*collinear"):
         exdet(ref, _target(np.zeros((2, 2)), ["bio1", "bio6"]))
+
+
+# ------------------------------------------------------------------------------ properties
+from fractions import Fraction  # noqa: E402
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+from hypothesis.extra.numpy import arrays  # noqa: E402
+
+_small_floats = st.floats(-50, 50, allow_nan=False, width=32).map(lambda v: round(v, 1))
+
+
+def _mess_exact(ref: np.ndarray, p: np.ndarray) -> list[tuple[Fraction, bool]]:
+    """Per-variable S in exact rational arithmetic (Elith et al. 2010 cases), and whether it
+    came from one of the two middle cases."""
+    m = ref.shape[0]
+    out = []
+    for i in range(ref.shape[1]):
+        r = [Fraction(v) for v in ref[:, i]]
+        lo, hi, x = min(r), max(r), Fraction(p[i])
+        f = Fraction(100 * sum(v < x for v in r), m)
+        if f == 0:
+            out.append((100 * (x - lo) / (hi - lo), False))
+        elif f == 100:
+            out.append((100 * (hi - x) / (hi - lo), False))
+        else:
+            out.append((2 * f if f <= 50 else 2 * (100 - f), True))
+    return out
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    ref=arrays(np.float64, st.tuples(st.integers(2, 25), st.just(3)), elements=_small_floats),
+    p=arrays(np.float64, st.tuples(st.integers(1, 25), st.just(3)), elements=_small_floats),
+)
+def test_mess_kernel_equals_formula_property(ref, p):
+    # Rounded values make ties between reference values, targets and variables common. The
+    # published formula is evaluated in exact rational arithmetic; the most dissimilar variable
+    # must be the first of the exact ties (always when the tie is between middle-case values,
+    # which are exact in floating point too; otherwise one of the tied variables).
+    ref = ref.copy()
+    ref[0] = ref.min(axis=0)
+    ref[1] = ref.max(axis=0) + 1.0  # non-zero range in every column
+    got_mess, got_mod = _mess_kernel(np.sort(ref, axis=0), p)
+    for row, g_mess, g_mod in zip(p, got_mess, got_mod):
+        s = _mess_exact(ref, row)
+        best = min(v for v, _ in s)
+        tied = [i for i, (v, _) in enumerate(s) if v == best]
+        assert g_mess == pytest.approx(float(best), rel=1e-12, abs=1e-9)
+        if all(s[i][1] for i in tied) or len(tied) == 1:
+            assert g_mod == tied[0]
+        else:
+            assert g_mod in tied
+
+
+@settings(max_examples=30, deadline=None)
+@given(p=arrays(np.float64, st.tuples(st.integers(1, 30), st.just(3)),
+                elements=st.floats(-20, 20, allow_nan=False)))
+def test_exdet_signs_property(p):
+    # NT1 <= 0 with equality exactly inside every range; NT2 >= 0 (definitions, Mesgaran 2014).
+    rng = np.random.default_rng(3)
+    ref = pd.DataFrame(rng.normal(0, 2, size=(40, 3)), columns=["a", "b", "c"])
+    out = exdet(ref, _target(p, ["a", "b", "c"]))
+    lo, hi = ref.min().to_numpy(), ref.max().to_numpy()
+    inside = ((p >= lo) & (p <= hi)).all(axis=1)
+    nt1 = out["nt1"].values
+    assert (nt1 <= 0).all() and (nt1[inside] == 0).all() and (nt1[~inside] < 0).all()
+    assert (out["nt2"].values >= 0).all()

@@ -226,9 +226,10 @@ class _CountTable:
             code[first[1:] != first[:-1]] = -1
             self.code.append(code)
         # S for 0 < f < 100 as a function of the count c: 2f for f <= 50, 2 (100 - f) above,
-        # i.e. 100 - |100 - 2f| with f = 100 c / m
+        # i.e. 200 min(c, m - c) / m with f = 100 c / m. From the integer min, so that counts
+        # the formula makes equal (c and m - c) give bit-equal S and ties stay ties.
         c = np.arange(self.m + 1)
-        self.sim_of_count = 100.0 - np.abs(100.0 - c * (200.0 / self.m))
+        self.sim_of_count = 200.0 * np.minimum(c, self.m - c) / self.m
 
     def __reduce__(self):
         return (_count_table_cached, (self.sorted.T.copy(),))
