@@ -303,3 +303,17 @@ def test_exdet_signs_property(p):
     nt1 = out["nt1"].values
     assert (nt1 <= 0).all() and (nt1[inside] == 0).all() and (nt1[~inside] < 0).all()
     assert (out["nt2"].values >= 0).all()
+
+
+def test_nt2_predictors_in_very_different_units(rng):
+    # Scales 1e-4 and 1e5 make the covariance ill-conditioned but not collinear: no error, and
+    # NT2 still equals the scipy.spatial.distance.mahalanobis ratio.
+    x = np.column_stack([rng.normal(0, 1e-4, 300), rng.normal(5e5, 1e5, 300), rng.normal(0, 1, 300)])
+    ref = pd.DataFrame(x, columns=["a", "b", "c"])
+    vi = np.linalg.inv(np.cov(x, rowvar=False))
+    mu = x.mean(axis=0)
+    d2 = lambda q: scipy.spatial.distance.mahalanobis(q, mu, vi) ** 2  # noqa: E731
+    d2_max = max(d2(r) for r in x)
+    p = x[:20] * 1.5
+    out = exdet(ref, _target(p, ["a", "b", "c"]))
+    np.testing.assert_allclose(out["nt2"].values, [d2(q) / d2_max for q in p], rtol=1e-5)

@@ -563,7 +563,10 @@ def _exdet_params(ref: ReferenceSet) -> dict:
             f"`reference` covariance of {list(ref.variables)} is singular (a predictor is a "
             "linear combination of others); drop one of the collinear variables"
         ) from err
-    cond = np.linalg.cond(cov)
+    # collinearity judged on the correlation matrix: predictors in very different units
+    # (mm and °C x 100) make the covariance ill-conditioned without being collinear
+    sd = np.sqrt(np.diag(cov))
+    cond = np.linalg.cond(cov / np.outer(sd, sd))
     if not np.isfinite(cond) or cond > 1e12:
         raise DataError(
             f"`reference` covariance of {list(ref.variables)} is numerically singular "
