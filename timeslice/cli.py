@@ -198,11 +198,21 @@ def fit(
 def summarise(
     run_dir: Annotated[Path, typer.Argument(help="Output folder of a finished run.")],
     reference: Annotated[str, typer.Option("--reference", help="Slice label to compare against.")] = "baseline",
+    rate: Annotated[Optional[str], typer.Option("--rate", help="Movement rate, e.g. '500 km/kyr'.")] = None,
+    window: Annotated[
+        Optional[list[str]],
+        typer.Option("--window", help="Slice label or period a refugium must be suitable in (repeat)."),
+    ] = None,
+    dated_records: Annotated[
+        Optional[Path], typer.Option("--dated-records", help="CSV of dated records for the hindcast check.")
+    ] = None,
 ) -> None:
-    """Recompute change, stability and refugia from a finished run's series.nc."""
+    """Recompute change, stability, refugia, movement and ensembles from a finished run."""
     from timeslice.pipeline import run_summarise
 
-    for name, path in run_summarise(run_dir, reference=reference).items():
+    paths = run_summarise(run_dir, reference=reference, rate=rate, window=window or None,
+                          dated_records=dated_records)
+    for name, path in paths.items():
         typer.echo(f"  {name:<12} {path}")
 
 

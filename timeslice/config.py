@@ -122,6 +122,12 @@ class NicheConfig(_Section):
     priority: list[str] | None = None
     cv_block_km: float = Field(100.0, gt=0)
     cv_folds: int = Field(5, ge=2)
+    cv_scheme: Literal["random", "checkerboard"] = "random"
+    calibration: Literal["buffer", "hull_buffer", "mask"] = "buffer"
+    calibration_mask: Path | None = None
+    background_file: Path | None = None
+    min_records: int = Field(10, ge=1)
+    importance_repeats: int = Field(5, ge=0)
     threshold: str = "p10"
     threshold_value: float | None = None
 
@@ -144,7 +150,11 @@ class TransferConfig(_Section):
 class SeriesConfig(_Section):
     reference: str = "baseline"
     dispersal_rate: str | None = None
-    refugium_window: list[str] | None = None
+    refugium_window: list[str] | tuple[float, float] | None = None
+    movement_through: Literal["land", "suitable", "any"] = "land"
+    graph_neighbours: Literal[8, 16] = 8
+    partition_factors: list[str] | None = None
+    hindcast_max_offset_years: float | None = Field(None, gt=0)
 
 
 class OutputConfig(_Section):
@@ -174,6 +184,8 @@ class Config(_Section):
             ("climate.elevation", self.climate.elevation),
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
+            ("niche.calibration_mask", self.niche.calibration_mask),
+            ("niche.background_file", self.niche.background_file),
         ]
         keys += [(f"climate.models.{k}", v) for k, v in self.climate.models.items()]
         keys += [(f"slices[{i}].ice", s.ice) for i, s in enumerate(self.slices)]
@@ -351,6 +363,13 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
     cfg.species.occurrences = _resolve(base, cfg.species.occurrences)
     if cfg.species.dated_records is not None:
         cfg.species.dated_records = _resolve(base, cfg.species.dated_records)
+    for key in ("calibration_mask", "background_file"):
+        value = getattr(cfg.niche, key)
+        if value is not None:
+            setattr(cfg.niche, key, _resolve(base, value))
+    if cfg.niche.calibration == "mask" and cfg.niche.calibration_mask is None:
+        raise ConfigError(f"{source}: niche.calibration = \"mask\" needs niche.calibration_mask "
+                          "(a raster or NetCDF of 0/1)")
     return cfg
 
 

@@ -83,10 +83,10 @@ occurrences = "{data}/occurrences.csv"
 dated_records = "{data}/dated_records.csv"
 
 [niche]
-algorithm = "ellipsoid"
+algorithm = "spline"
 priority = ["bio10", "bio6", "bio12", "bio15", "bio4", "bio17"]
 buffer_km = 250.0
-n_background = 10000
+n_background = 5000
 thin = "cell"
 uncertainty_max_m = 10000.0
 cv_block_km = 100.0
@@ -99,6 +99,9 @@ chunks = 512
 
 [series]
 reference = "baseline"
+# refugia: suitable at 21 ka, 6 ka and today in every model
+refugium_window = ["21 ka BP", "6 ka BP", "1981-2010"]
+dispersal_rate = "500 km/kyr"
 
 [output]
 maps = true

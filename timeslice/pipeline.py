@@ -232,6 +232,7 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
     key = content_key(
         "fit", base_key, file_digest(cfg.species.occurrences), cfg.species.model_dump(mode="json"),
         n.model_dump(mode="json"), cfg.run.seed,
+        [file_digest(f) for f in (n.calibration_mask, n.background_file) if f is not None],
     )
 
     def compute():
@@ -246,6 +247,9 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
             n_background=n.n_background, thin=n.thin, uncertainty_max_m=n.uncertainty_max_m,
             years=n.years, screen_max_r=n.screen_max_r, screen_max_vif=n.screen_max_vif,
             priority=n.priority, cv_block_km=n.cv_block_km, cv_folds=n.cv_folds,
+            cv_scheme=n.cv_scheme, calibration=n.calibration, calibration_mask=n.calibration_mask,
+            background_file=n.background_file, min_records=n.min_records,
+            importance_repeats=n.importance_repeats,
             threshold_rule=n.threshold, threshold_value=n.threshold_value, seed=cfg.run.seed,
         )
 
@@ -321,14 +325,37 @@ def _dataset_key(ds: xr.Dataset) -> str:
 # ----------------------------------------------------------------------------- summarise
 
 
-def summarise_stage(cfg: Config, stack: xr.Dataset) -> tuple[xr.Dataset, pd.DataFrame]:
-    """Change, stability and refugia across the stacked series."""
-    from timeslice.series.summary import summarise
+def summarise_stage(cfg: Config, stack: xr.Dataset):
+    """Change, stability, refugia, movement, ensembles and the hindcast across the series.
 
+    Returns a :class:`timeslice.series.analysis.SeriesResult`.
+    """
+    from timeslice.readers import read_dated_records
+    from timeslice.series.analysis import analyse_series
+
+    ser = cfg.series
+    records = None
+    if cfg.species.dated_records is not None:
+        records = read_dated_records(cfg.species.dated_records)
+    window = ser.refugium_window
+    if window is None:
+        # default refugium window: the past slices and the reference (the glacial-to-present
+        # question); with no past slices, every slice
+        past = [str(p) for p, sc in zip(stack["period"].values, stack["scenario"].values)
+                if str(sc) == "past"]
+        window = list(dict.fromkeys(past)) + [_reference(cfg)] if past else None
+    with _about(cfg.species.dated_records if records is not None else None):
+        return analyse_series(
+            stack, reference=_reference(cfg), window=window, rate=ser.dispersal_rate,
+            rate_key="series.dispersal_rate", through=ser.movement_through,
+            neighbours=ser.graph_neighbours, factors=ser.partition_factors, records=records,
+            records_source=str(cfg.species.dated_records), max_offset_years=ser.hindcast_max_offset_years,
+        )
+
+
+def _reference(cfg: Config) -> str:
     ref = cfg.series.reference
-    if ref == "baseline":
-        ref = cfg.climate.baseline_label
-    return summarise(stack, reference=ref)
+    return cfg.climate.baseline_label if ref == "baseline" else ref
 
 
 # ----------------------------------------------------------------------------- report
@@ -343,6 +370,7 @@ def report_stage(
     inputs: pd.DataFrame,
     out: Path,
     warnings_seen: list[str],
+    analysis=None,
 ) -> dict[str, Path]:
     """Write the NetCDF, tables, maps, plots and HTML report of a finished run."""
     from timeslice import report as R
@@ -353,6 +381,9 @@ def report_stage(
     history = f"timeslice {__version__} run of {cfg.source.name if cfg.source else 'config'}"
     paths["series"] = R.write_series(series, out / "series.nc", history=history, title=title)
     paths["summary"] = R.write_csv(summary, out / "summary.csv")
+    if analysis is not None and analysis.ensemble is not None:
+        paths["ensemble"] = R.write_series(analysis.ensemble, out / "ensemble.nc",
+                                           history=history, title=f"{title}: model ensemble")
     tables = {
         "inputs": inputs,
         "cleaning": fit.cleaning,
@@ -361,6 +392,13 @@ def report_stage(
         "response": fit.response,
         "importance": fit.importance,
     }
+    if analysis is not None:
+        from timeslice.series.analysis import key_results
+
+        tables["key_results"] = key_results(analysis)
+        for name, df in analysis.tables.items():
+            if name != "summary":
+                tables[f"series_{name}"] = df
     for name, df in tables.items():
         if df is not None:
             R.write_csv(df, out / "tables" / f"{name}.csv")
@@ -460,14 +498,15 @@ def run(
             stack = transfer_stage(cfg, fit, [baseline, *slices], cache, fit_key=fit_key,
                                    progress=progress)
         with _timed(t, "summarise"):
-            series, summary = summarise_stage(cfg, stack)
+            analysis = summarise_stage(cfg, stack)
+        series, summary = analysis.series, analysis.tables["summary"].copy()
         if "period" not in summary and "period" in series.coords:
             periods = dict(zip(series["slice"].values, series["period"].values))
             summary.insert(4, "period", [str(periods.get(x, "")) for x in summary["slice"]])
         with _timed(t, "report"):
             result.paths = report_stage(
                 cfg, series=series, summary=summary, fit=fit, inputs=inputs, out=out,
-                warnings_seen=[str(w.message) for w in caught],
+                warnings_seen=[str(w.message) for w in caught], analysis=analysis,
             )
     inputs_used = [cfg.climate.baseline, cfg.climate.elevation, cfg.species.occurrences,
                    *cfg.climate.models.values(), *[s.file for s in cfg.slice_specs()],
@@ -536,22 +575,44 @@ def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict
     return paths
 
 
-def run_summarise(out: str | os.PathLike, *, reference: str = "baseline") -> dict[str, Path]:
-    """Recompute the series summaries from a finished run's ``series.nc``."""
+def run_summarise(
+    out: str | os.PathLike,
+    *,
+    reference: str = "baseline",
+    rate: str | None = None,
+    window: list[str] | None = None,
+    dated_records: str | os.PathLike | None = None,
+) -> dict[str, Path]:
+    """Recompute the series summaries from a finished run's ``series.nc`` (no refitting).
+
+    Rewrites ``series.nc``, ``summary.csv``, ``ensemble.nc`` and the series tables.
+    """
+    from timeslice.readers import read_dated_records
     from timeslice.report import open_series, write_csv, write_series
-    from timeslice.series.summary import summarise
+    from timeslice.series.analysis import analyse_series, key_results
 
     out = Path(out)
     path = out / "series.nc"
     if not path.is_file():
         raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
-    stack = open_series(path).load()
-    derived = [v for v in ("change", "stability", "refugium") if v in stack]
-    series, summary = summarise(stack.drop_vars(derived), reference=reference)
-    return {
-        "series": write_series(series, path, history=f"timeslice {__version__} summarise"),
-        "summary": write_csv(summary, out / "summary.csv"),
+    with open_series(path) as ds:
+        stack = ds.load()
+    records = read_dated_records(dated_records) if dated_records is not None else None
+    res = analyse_series(stack, reference=reference, window=window, rate=rate,
+                         rate_key="--rate", records=records,
+                         records_source=str(dated_records))
+    history = f"timeslice {__version__} summarise"
+    paths = {
+        "series": write_series(res.series, path, history=history),
+        "summary": write_csv(res.tables["summary"], out / "summary.csv"),
+        "key_results": write_csv(key_results(res), out / "tables" / "key_results.csv"),
     }
+    if res.ensemble is not None:
+        paths["ensemble"] = write_series(res.ensemble, out / "ensemble.nc", history=history)
+    for name, df in res.tables.items():
+        if name != "summary":
+            paths[name] = write_csv(df, out / "tables" / f"series_{name}.csv")
+    return paths
 
 
 def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
