@@ -292,7 +292,7 @@ def transfer_stage(
         progress("transfer", len(slices) - len(todo) + start + len(idx), len(slices))
     outs = []
     for ds, res in zip(slices, results):
-        res = res.assign(land=ds["land"].astype(bool))
+        res = res.assign(land=ds["land"].astype(bool), ice=ds["ice"].astype(bool))
         res = res.expand_dims(slice=[ds.attrs["slice_label"]])
         res = res.assign_coords(
             year=("slice", [float(ds.attrs["year"])]),
@@ -304,6 +304,7 @@ def transfer_stage(
         outs.append(res)
     stack = xr.concat(outs, dim="slice", combine_attrs="drop_conflicts")
     stack["land"] = stack["land"].fillna(False).astype(bool)
+    stack["ice"] = stack["ice"].fillna(False).astype(bool)
     stack["elevation"] = slices[0]["elevation"].astype("float32")
     stack["calibration_area"] = fit.calibration_area.astype(bool).reindex_like(
         stack["elevation"], method="nearest"
@@ -360,6 +361,21 @@ def _reference(cfg: Config) -> str:
 
 # ----------------------------------------------------------------------------- report
 
+_TABLE_TITLES = {
+    "key_results": "Key results: refugia, loss and gain by movement assumption, agreement, "
+                   "uncertainty, hindcast",
+    "inputs": "Climate inputs and harmonisation",
+    "cleaning": "Occurrence record cleaning",
+    "screening": "Predictor screening",
+    "evaluation": "Model evaluation (spatial block cross-validation)",
+    "importance": "Predictor importance (permutation)",
+    "series_detail": "Change per slice, in detail",
+    "series_movement": "Movement assumptions per chain",
+    "series_agreement": "Agreement across climate models",
+    "series_partition": "Sources of uncertainty (variance shares)",
+    "series_hindcast": "Hindcast: dated records against past slices",
+}
+
 
 def report_stage(
     cfg: Config,
@@ -404,23 +420,47 @@ def report_stage(
             R.write_csv(df, out / "tables" / f"{name}.csv")
     paths["tables"] = out / "tables"
     figures: list[tuple[str, Path]] = []
+    headline: list[tuple[str, Path]] = []
+    series = series.load()  # every map reads every layer: compute once
+    refuge = "refugium_window" if "refugium_window" in series else "refugium"
     if cfg.output.maps:
         maps = out / "maps"
         R.slice_maps(series, maps)
-        figures.append(("Suitability in every slice (shared colour scale; hatched: novel climate, "
-                        "MESS < 0)", R.series_panel(series, maps / "panel_suitability.png")))
-        figures.append(("Gain, loss and stable range against the reference slice",
-                        R.change_map(series, maps / "panel_change.png")))
+        stab = R.stability_map(
+            series, maps / "stability.png", refugium=refuge,
+            variable="stability_window" if "stability_window" in series else "stability")
+        change = R.change_map(series, maps / "panel_change.png")
+        headline = [("Stability (fraction of slices suitable) with refugia outlined", stab),
+                    ("Gain, loss and stable range against the reference slice", change)]
+        figures.append(("Suitability in every slice (shared colour scale; hatched: novel "
+                        "climate, MESS < 0)", R.series_panel(series, maps / "panel_suitability.png")))
         figures.append(("Novel climate: MESS per slice (negative = outside the calibration "
                         "range)", R.novelty_map(series, maps / "panel_mess.png")))
-        figures.append(("Stability (fraction of slices suitable) with refugia outlined",
-                        R.stability_map(series, maps / "stability.png")))
+        figures.append(("Novel climate by ExDet: outside the univariate range (NT1 < 0) or a "
+                        "novel combination (NT2 > 1)",
+                        R.novelty_map(series, maps / "panel_exdet.png", variable="exdet")))
+        if "reachable_limited" in series:
+            future = [str(x) for x, sc in zip(series["slice"].values, series["scenario"].values)
+                      if str(sc) not in ("past", "baseline")]
+            if future:
+                last = max(float(series["year"].sel(slice=x)) for x in future)
+                pick = [x for x in future if float(series["year"].sel(slice=x)) == last]
+                figures.append((
+                    f"Suitable and reachable under limited movement "
+                    f"({cfg.series.dispersal_rate or 'no rate: as occupied'}) at the last period",
+                    R.reach_map(series.assign(reachable=series["reachable_limited"]),
+                                maps / "panel_reach.png", slices=pick),
+                ))
         paths["maps"] = maps
     plots = out / "plots"
     figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
     figures.append(("Gain and loss per slice", R.gain_loss_bars(summary, plots / "gain_loss.png")))
     figures.append(("Range-centroid track", R.centroid_track(
         summary, plots / "centroid_track.png", land=series["land"].isel(slice=0))))
+    detail = analysis.tables.get("detail") if analysis is not None else None
+    if detail is not None and "lat_q50" in detail:
+        figures.append(("Latitude and elevation of the suitable range (median, 10-90 % band)",
+                        R.shift_plot(detail, plots / "shifts.png")))
     if fit.response is not None:
         figures.append(("Response curves (shaded: calibration range; outside it the model "
                         "extrapolates)", R.response_curves(fit.response, plots / "response.png")))
@@ -435,12 +475,22 @@ def report_stage(
         if "refugium" in series:
             from timeslice.grid import cell_area
 
-            refugium_km2 = float(cell_area(series).where(series["refugium"].astype(bool)).sum())
+            refugium_km2 = float(cell_area(series).where(series[refuge].astype(bool)).sum())
         ctx = R.ReportContext(
             title=title,
+            headline_figures=headline,
+            key_numbers=R.key_numbers(summary, series=series, refugium=refuge),
+            outputs={
+                "all layers, CF NetCDF": "series.nc",
+                "one row per slice": "summary.csv",
+                **({"model agreement and variance shares": "ensemble.nc"}
+                   if "ensemble" in paths else {}),
+                "run manifest": "manifest.json",
+            },
             species=cfg.species.name,
             summary=summary,
-            tables={k: v for k, v in tables.items() if v is not None and k != "response"},
+            tables={_TABLE_TITLES.get(k, k): v for k, v in tables.items()
+                    if v is not None and k not in ("response", "series_summary")},
             figures=figures,
             methods=methods_paragraph(
                 species=cfg.species.name, fit_params=fit.params, n_slices=series.sizes["slice"],

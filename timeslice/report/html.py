@@ -220,7 +220,8 @@ TABLE_TITLES = {
 }
 
 
-def key_numbers(summary: pd.DataFrame | None, *, series=None) -> list[tuple[str, ...]]:
+def key_numbers(summary: pd.DataFrame | None, *, series=None,
+                refugium: str = "refugium") -> list[tuple[str, ...]]:
     """Headline cards for the top of the report.
 
     Parameters
@@ -251,8 +252,8 @@ def key_numbers(summary: pd.DataFrame | None, *, series=None) -> list[tuple[str,
         return out
     a0 = float(base["suitable_area_km2"].iloc[0])
     out.append(("Suitable area, reference slice", f"{a0:,.0f} km²"))
-    if series is not None and "refugium" in getattr(series, "data_vars", {}):
-        out.append(_refugia_card(series))
+    if series is not None and refugium in getattr(series, "data_vars", {}):
+        out.append(_refugia_card(series, refugium))
     when = "period" if "period" in s.columns else "year"
     rest = s[s["scenario"] != "baseline"]
     for (scen, per), g in rest.groupby(["scenario", when], sort=False):
@@ -271,19 +272,25 @@ def key_numbers(summary: pd.DataFrame | None, *, series=None) -> list[tuple[str,
     return out
 
 
-def _refugia_card(series) -> tuple[str, str, str]:
+def _refugia_card(series, layer: str = "refugium") -> tuple[str, str, str]:
     from timeslice.grid import cell_area
 
-    ref = np.asarray(series["refugium"].transpose("lat", "lon").values).astype(bool)
+    ref = np.asarray(series[layer].transpose("lat", "lon").values).astype(bool)
     area = float((cell_area(series).values * ref).sum())
-    n = series.sizes.get("slice", 0)
+    window = str(series[layer].attrs.get("slices", "")).split()
+    n = len(window) or series.sizes.get("slice", 0)
     label = f"Refugia (suitable in all {n} slices)" if n else "Refugia"
     if not ref.any():
         return (label, "0 km²", "no cell is suitable in every slice")
     lat = series["lat"].values[ref.any(axis=1)]
     lon = series["lon"].values[ref.any(axis=0)]
     return (label, f"{area:,.0f} km²",
-            f"within {lat.min():.1f}–{lat.max():.1f}° N, {lon.min():.1f}–{lon.max():.1f}° E")
+            f"within {_deg(lat.min(), 'N', 'S')} to {_deg(lat.max(), 'N', 'S')}, "
+            f"{_deg(lon.min(), 'E', 'W')} to {_deg(lon.max(), 'E', 'W')}")
+
+
+def _deg(value: float, pos: str, neg: str) -> str:
+    return f"{abs(value):.1f}° {pos if value >= 0 else neg}"
 
 
 def render_report(context: ReportContext) -> str:

@@ -580,8 +580,10 @@ def stability_map(
     ref = _layer(ds, refugium, None) if refugium is not None else None
     if ref is not None:
         _outline(ax, ds, ref.astype(bool), crs, colors="#D55E00", linewidths=1.6)
+        nref = len(str(ds[refugium].attrs.get("slices", "")).split())
         handles.append(Line2D([], [], color="#D55E00", linewidth=1.6,
-                              label="refugium (suitable in every slice)"))
+                              label=f"refugium (suitable in all {nref} slices)" if nref
+                              else "refugium (suitable in every slice)"))
     fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03, label=_CONTINUOUS["stability"][1])
     _legend(ax, handles, loc="upper right")
     window = str(ds[variable].attrs.get("slices", "")).split()

@@ -28,6 +28,7 @@ from timeslice.series.stability import (
     geometric_mean,
     minimum_suitability,
     refugium,
+    select_window,
     stability,
     static_stability,
 )
@@ -40,7 +41,7 @@ __all__ = ["DERIVED_VARIABLES", "movement_table", "summarise"]
 DERIVED_VARIABLES = (
     "change", "stability", "refugium", "refugium_analog", "static_stability",
     "geometric_mean_suitability", "minimum_suitability", "refugium_window",
-    "refugium_window_analog", "stability_chain", "refugium_chain", "refugium_analog_chain",
+    "refugium_window_analog", "stability_window", "stability_chain", "refugium_chain", "refugium_analog_chain",
     "static_stability_chain", "dynamic_stability_chain", "reachable_none",
     "reachable_limited", "reachable_unlimited", "chain_slices", "chain",
 )
@@ -214,6 +215,10 @@ def summarise(
     if window is not None:
         out["refugium_window"] = drop_nondim(refugium(suitable, window=window))
         out["refugium_window"].attrs["long_name"] = "climatic refugium over the chosen window"
+        out["stability_window"] = drop_nondim(stability(select_window(suitable, window)))
+        out["stability_window"].attrs["long_name"] = (
+            "fraction of the chosen window's slices suitable")
+        out["stability_window"].attrs["slices"] = out["refugium_window"].attrs.get("slices", "")
         if analog is not None:
             out["refugium_window_analog"] = drop_nondim(
                 refugium(suitable, window=window, analog=analog))
