@@ -162,3 +162,46 @@ def test_between_unknown_name(demo_run, tmp_path):
     result = CliRunner().invoke(app, ["harmonise", str(cfg), "--out", str(tmp_path / "h")])
     assert result.exit_code == 2
     assert "'21k'" in result.stderr and "did you mean '21ka'" in result.stderr
+
+
+def test_warning_is_one_line(demo_run, tmp_path):
+    # more background points than land cells: the tool warns (one line) and uses all cells
+    _, data, _ = demo_run
+    text = _one_model_config(render_demo_config(str(data))).replace("n_background = 5000", "n_background = 100000")
+    cfg = tmp_path / "run.toml"
+    cfg.write_text(text.replace("maps = true", "maps = false"))
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(tmp_path / "o")])
+    assert result.exit_code == 0, result.output
+    lines = [l for l in result.stderr.splitlines() if "background" in l]
+    assert lines and all(l.startswith("timeslice: warning: ") for l in lines)
+
+
+def test_export_and_rerun(demo_run, tmp_path):
+    out, _, _ = demo_run
+    result = CliRunner().invoke(app, ["export", str(out), "--format", "geotiff"])
+    assert result.exit_code == 0, result.output
+    rasterio = pytest.importorskip("rasterio")
+    tif = sorted((out / "geotiff").glob("suitability_*.tif"))
+    assert tif
+    with rasterio.open(tif[0]) as src, open_series(out / "series.nc") as ds:
+        # bounds of the raster = outer cell edges of the grid
+        assert src.bounds.left == pytest.approx(float(ds["lon"].min()) - 0.25)
+        assert src.bounds.top == pytest.approx(float(ds["lat"].max()) + 0.25)
+        assert src.crs.to_epsg() == 4326
+    result = CliRunner().invoke(app, ["rerun", str(out / "manifest.json"), "--out", str(tmp_path / "again")])
+    assert result.exit_code == 0, result.output
+    a = pd.read_csv(out / "summary.csv")
+    b = pd.read_csv(tmp_path / "again" / "summary.csv")
+    pd.testing.assert_frame_equal(a, b)
+
+
+def test_summarise_from_finished_run(demo_run, tmp_path):
+    out, _, _ = demo_run
+    result = CliRunner().invoke(app, ["summarise", str(out), "--reference", "alder_21ka"])
+    assert result.exit_code == 0, result.output
+    df = pd.read_csv(out / "summary.csv")
+    assert df.loc[df["slice"] == "alder_21ka", "gain_km2"].iloc[0] == 0
+    bad = CliRunner().invoke(app, ["summarise", str(out), "--reference", "nope"])
+    assert bad.exit_code == 2 and "nope" in bad.stderr
+    # restore the baseline reference for other tests of the module
+    assert CliRunner().invoke(app, ["summarise", str(out)]).exit_code == 0

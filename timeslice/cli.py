@@ -5,6 +5,7 @@ from __future__ import annotations
 import contextlib
 import functools
 import sys
+import warnings
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Annotated, Optional
@@ -12,7 +13,9 @@ from typing import Annotated, Optional
 import typer
 
 from timeslice import __version__
-from timeslice.errors import TimesliceError
+from timeslice.errors import TimesliceError, TimesliceWarning
+
+_default_showwarning = warnings.showwarning
 
 app = typer.Typer(
     name="timeslice",
@@ -45,15 +48,27 @@ def _fail(err: TimesliceError) -> None:
     raise typer.Exit(code=2)
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """Warnings of the tool are one line on stderr; others keep Python's format."""
+    if issubclass(category, TimesliceWarning):
+        typer.echo(f"timeslice: warning: {message}", err=True)
+    else:
+        _default_showwarning(message, category, filename, lineno, file, line)
+
+
 def _guard(func):
     """Turn any TimesliceError into one line on stderr and exit code 2."""
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
+        saved = warnings.showwarning
+        warnings.showwarning = _show_warning
         try:
             return func(*args, **kwargs)
         except TimesliceError as err:
             _fail(err)
+        finally:
+            warnings.showwarning = saved
 
     return wrapper
 

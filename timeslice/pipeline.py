@@ -268,6 +268,9 @@ def transfer_stage(
 
     import dask
 
+    from timeslice.series.stacking import check_same_grid
+
+    check_same_grid(slices)
     variables = list(fit.variables)
     reference = fit.background[variables]
     chunks = {"lat": cfg.transfer.chunks, "lon": cfg.transfer.chunks}
@@ -558,6 +561,9 @@ def run(
                 cfg, series=series, summary=summary, fit=fit, inputs=inputs, out=out,
                 warnings_seen=[str(w.message) for w in caught], analysis=analysis,
             )
+    # the warnings were collected for the report; show them to the user too, once each
+    for w in {str(w.message): w for w in caught}.values():
+        warnings.showwarning(w.message, w.category, w.filename, w.lineno)
     inputs_used = [cfg.climate.baseline, cfg.climate.elevation, cfg.species.occurrences,
                    *cfg.climate.models.values(), *[s.file for s in cfg.slice_specs()],
                    *[s.ice for s in cfg.slices if s.ice is not None]]
@@ -573,6 +579,8 @@ def run(
             "command": command or sys.argv,
             "outputs": [str(p) for p in result.paths.values()],
             "cache": {"reused": len(cache.hits), "computed": len(cache.misses)},
+            "warnings": sorted({str(w.message) for w in caught}),
+            "series_notes": list(analysis.notes),
         },
         out / "manifest.json",
     )
@@ -668,7 +676,7 @@ def run_summarise(
 def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
                variables: list[str] | None = None) -> list[Path]:
     """Export the layers of a finished run's ``series.nc`` (GeoTIFF)."""
-    from timeslice.report import export, open_series
+    from timeslice.report.geotiff import export_file
 
     out = Path(out)
     if fmt != "geotiff":
@@ -676,7 +684,7 @@ def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
     path = out / "series.nc"
     if not path.is_file():
         raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
-    return export(open_series(path).load(), out / "geotiff", variables=variables)
+    return export_file(path, out / "geotiff", variables=variables)
 
 
 def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
