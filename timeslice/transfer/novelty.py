@@ -218,12 +218,12 @@ class _CountTable:
         self.n_bins = int(min(max(_BINS_PER_POINT * self.m, 1024), _MAX_BINS))
         with np.errstate(divide="ignore", invalid="ignore"):
             self.scale = np.where(self.span > 0, self.n_bins / self.span, 0.0)
-        edges = np.arange(self.n_bins + 1)
         self.code = []
         for i in range(self.sorted.shape[0]):
-            first = np.searchsorted(self._bins(i, self.sorted[i]), edges, side="left")
-            code = first[:-1].astype(np.int32)
-            code[first[1:] != first[:-1]] = -1
+            counts = np.bincount(self._bins(i, self.sorted[i]), minlength=self.n_bins)
+            first = np.cumsum(counts) - counts  # reference values in lower bins
+            code = first.astype(np.int32)
+            code[counts > 0] = -1
             self.code.append(code)
         # S for 0 < f < 100 as a function of the count c: 2f for f <= 50, 2 (100 - f) above,
         # i.e. 200 min(c, m - c) / m with f = 100 c / m. From the integer min, so that counts
@@ -274,13 +274,14 @@ _TABLE_CACHE: dict[bytes, _CountTable] = {}
 
 
 def _count_table_cached(ref_sorted: np.ndarray) -> _CountTable:
-    """Rebuild a pickled :class:`_CountTable` once per process (small LRU-free cache)."""
+    """The :class:`_CountTable` of a sorted reference, built once per process and content
+    (every slice of a run shares one reference; unpickling on workers lands here too)."""
     import hashlib
 
     key = hashlib.sha1(np.ascontiguousarray(ref_sorted).tobytes()).digest()
     table = _TABLE_CACHE.get(key)
     if table is None:
-        if len(_TABLE_CACHE) > 16:
+        if len(_TABLE_CACHE) >= 4:  # a few MB each; a run uses one reference
             _TABLE_CACHE.clear()
         table = _TABLE_CACHE[key] = _CountTable(ref_sorted)
     return table
@@ -409,7 +410,7 @@ def mess(
     """
     ref = reference_table(reference, variables=variables)
     arrays = _target_arrays(target, ref.variables, "target")
-    table = _CountTable(np.sort(ref.values, axis=0))
+    table = _count_table_cached(np.sort(ref.values, axis=0))
     mess_da, mod_da = xr.apply_ufunc(
         _mess_block,
         *arrays,

@@ -26,6 +26,7 @@ from timeslice.transfer.novelty import (
     REFERENCE_DESCRIPTION,
     ReferenceSet,
     _CountTable,
+    _count_table_cached,
     _exdet_columns,
     _exdet_params,
     _mess_columns,
@@ -478,7 +479,7 @@ def project_slice(
             "predict": {
                 "model": model, "columns": columns, "positive": positive, "as_frame": as_frame,
             },
-            "table": _CountTable(np.sort(ref.values, axis=0)),
+            "table": _count_table_cached(np.sort(ref.values, axis=0)),
             "exdet_params": _exdet_params(ref),
             "lo": lo,
             "hi": hi,
