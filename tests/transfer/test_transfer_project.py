@@ -136,6 +136,12 @@ def test_project_errors(fitted_logistic, reference_df, slice_factory):
     with pytest.raises(ConfigError, match="`chunks`"):
         project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
                       threshold=0.5, chunks="big")
+    with pytest.raises(ConfigError, match=r"`chunks\['lat'\]` must be a positive integer"):
+        project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
+                      threshold=0.5, chunks={"lat": 0})
+    whole = project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
+                          threshold=0.5, chunks={"lat": -1, "lon": 5})
+    assert whole["mess"].chunks[0] == (ds.sizes["lat"],)
     with pytest.raises(ConfigError, match="dim 'time'"):
         project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
                       threshold=0.5, chunks={"time": 3})

@@ -392,8 +392,10 @@ def _resolve_chunks(
             raise ConfigError(
                 f"`chunks` names dim {d!r}, which the slice does not have (dims {list(ds.dims)})"
             )
-        if not isinstance(n, (int, np.integer)) or isinstance(n, bool) or n < 1:
-            raise ConfigError(f"`chunks[{d!r}]` must be a positive integer, got {n!r}")
+        if not isinstance(n, (int, np.integer)) or isinstance(n, bool) or (n < 1 and n != -1):
+            raise ConfigError(
+                f"`chunks[{d!r}]` must be a positive integer (or -1 for the whole dim), got {n!r}"
+            )
     return ds.chunk(dict(chunks))
 
 
