@@ -56,6 +56,14 @@ def _overlap_matrix(src_edges: np.ndarray, dst_edges: np.ndarray) -> sp.csr_matr
     )
 
 
+def _bounds(coord, other, kind: str) -> np.ndarray:
+    """Cell edges; a one-point axis takes its cell size from its attrs or the other axis."""
+    step = getattr(coord, "attrs", {}).get("resolution")
+    if step is None and np.size(coord) == 1 and np.size(other) > 1:
+        step = resolution(other)
+    return cell_bounds(coord, kind=kind, step=step)
+
+
 def conservative_weights(
     src_lat, src_lon, dst_lat, dst_lon
 ) -> tuple[sp.csr_matrix, sp.csr_matrix, np.ndarray]:
@@ -82,11 +90,11 @@ def conservative_weights(
     Jones, P. W. (1999). First- and second-order conservative remapping schemes for grids
     in spherical coordinates. Monthly Weather Review 127:2204-2210.
     """
-    slat = np.sin(np.deg2rad(cell_bounds(src_lat, kind="lat")))
-    dlat = np.sin(np.deg2rad(cell_bounds(dst_lat, kind="lat")))
+    slat = np.sin(np.deg2rad(_bounds(src_lat, src_lon, "lat")))
+    dlat = np.sin(np.deg2rad(_bounds(dst_lat, dst_lon, "lat")))
     w_lat = _overlap_matrix(slat, dlat)
-    slon = cell_bounds(src_lon, kind="lon")
-    dlon = cell_bounds(dst_lon, kind="lon")
+    slon = _bounds(src_lon, src_lat, "lon")
+    dlon = _bounds(dst_lon, dst_lat, "lon")
     if _is_global(np.asarray(src_lon, dtype=float)):
         w_lon = sum(
             (_overlap_matrix(slon + shift, dlon) for shift in (-360.0, 0.0, 360.0)),
