@@ -144,7 +144,15 @@ class NicheConfig(_Section):
 
 class TransferConfig(_Section):
     clamp: bool = False
-    chunks: int = Field(512, gt=0)
+    chunks: int | Literal["auto"] = "auto"
+    chunk_budget_mb: float = Field(64.0, gt=0)
+
+    @field_validator("chunks")
+    @classmethod
+    def _chunks(cls, v):
+        if isinstance(v, int) and v <= 0:
+            raise ValueError("`chunks` is \"auto\" or a positive number of cells")
+        return v
 
 
 class SeriesConfig(_Section):

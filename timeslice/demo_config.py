@@ -95,7 +95,8 @@ threshold = "p10"
 
 [transfer]
 clamp = false
-chunks = 512
+chunks = "auto"
+chunk_budget_mb = 64.0
 
 [series]
 reference = "baseline"

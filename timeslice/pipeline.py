@@ -273,9 +273,9 @@ def transfer_stage(
     check_same_grid(slices)
     variables = list(fit.variables)
     reference = fit.background[variables]
-    chunks = {"lat": cfg.transfer.chunks, "lon": cfg.transfer.chunks}
-    keys = [content_key("transfer", fit_key, _dataset_key(ds), cfg.transfer.model_dump())
-            for ds in slices]
+    tc = cfg.transfer
+    chunks = "auto" if tc.chunks == "auto" else {"lat": tc.chunks, "lon": tc.chunks}
+    keys = [content_key("transfer", fit_key, _dataset_key(ds), tc.model_dump()) for ds in slices]
     results: list[xr.Dataset | None] = [cache.load("transfer", k) for k in keys]
     todo = [i for i, r in enumerate(results) if r is None]
     progress("transfer", len(slices) - len(todo), len(slices))
@@ -285,8 +285,9 @@ def transfer_stage(
     for start in range(0, len(todo), batch):
         idx = todo[start:start + batch]
         lazy = [
-            project_slice(fit.model, slices[i].chunk(chunks), variables=variables,
-                          reference=reference, threshold=fit.threshold, clamp=cfg.transfer.clamp)
+            project_slice(fit.model, slices[i], variables=variables, reference=reference,
+                          threshold=fit.threshold, clamp=tc.clamp, chunks=chunks,
+                          chunk_budget_mb=tc.chunk_budget_mb)
             for i in idx
         ]
         for i, res in zip(idx, dask.compute(*lazy, optimize_graph=False)):
