@@ -53,6 +53,12 @@ def _ice_fraction(ice: xr.DataArray) -> xr.DataArray:
     raise DataError(f"`ice` has units {units!r}; expected '%' or '1' (area fraction)")
 
 
+def _fresh_attrs(da: xr.DataArray, **attrs) -> xr.DataArray:
+    out = da.copy()
+    out.attrs = dict(attrs)
+    return out
+
+
 def land_mask(
     elevation: xr.DataArray | xr.Dataset,
     *,
@@ -95,17 +101,18 @@ def land_mask(
         ice_b = xr.zeros_like(above, dtype=bool)
     land = above & ~ice_b
     shelf = land & (elev <= 0.0)
+    # masks are derived from elevation but are not heights: start their attributes afresh
     out = xr.Dataset(
         {
-            "land": land.assign_attrs(
+            "land": _fresh_attrs(land,
                 units="1", long_name="land",
                 description=f"elevation above slice sea level {sea_level:g} m and not ice-covered",
             ),
-            "ice": ice_b.assign_attrs(
+            "ice": _fresh_attrs(ice_b,
                 units="1", long_name="ice-covered land",
                 description=f"land-ice area fraction >= {ice_threshold:g}",
             ),
-            "exposed_shelf": shelf.assign_attrs(
+            "exposed_shelf": _fresh_attrs(shelf,
                 units="1", long_name="exposed shelf",
                 description="land in this slice that lies below present sea level",
             ),

@@ -154,7 +154,8 @@ class EllipsoidNiche(_NicheBase):
 def chi2_sf(x: np.ndarray, k: int) -> np.ndarray:
     """Survival function of the chi-squared distribution with integer `k` degrees of freedom.
 
-    Closed forms (Abramowitz & Stegun 1964, eq. 26.4.4-26.4.5; all terms positive, so no
+    Closed forms (Abramowitz & Stegun 1964, eq. 26.4.4-26.4.5, equation numbers from memory;
+    all terms positive, so no
     cancellation): for even k = 2m, :math:`Q = e^{-x/2} \\sum_{i=0}^{m-1} (x/2)^i / i!`; for odd
     k = 2m + 1, :math:`Q = \\operatorname{erfc}(\\sqrt{x/2}) + e^{-x/2} \\sum_{i=1}^{m}
     (x/2)^{i - 1/2} / \\Gamma(i + 1/2)`. About 8x faster than ``scipy.stats.chi2.sf`` on
