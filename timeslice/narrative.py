@@ -22,11 +22,16 @@ _ALGORITHMS = {
     ),
     "point_process": (
         "a lasso-penalised Poisson point-process model fitted as heavily weighted logistic "
-        "regression (Warton & Shepherd 2010; Fithian & Hastie 2013; Renner & Warton 2013)"
+        "regression (Warton & Shepherd 2010; Fithian & Hastie 2013; Renner & Warton 2013); its "
+        "output is a relative suitability exp(η − η_max) capped at 1, not a probability of "
+        "presence"
     ),
-    "spline": "a penalised regression-spline GLM",
+    "spline": "a penalised regression-spline GLM of presence against background",
     "forest": "a random forest with down-sampled background (Valavi et al. 2021)",
-    "ensemble": "a weighted ensemble of algorithms, weights from cross-validated scores",
+    "ensemble": (
+        "a weighted mean of several algorithms, weights from their cross-validated scores (a "
+        "relative suitability, not a probability)"
+    ),
 }
 
 _THRESHOLDS = {
