@@ -142,6 +142,7 @@ def test_intermediate_slice_by_interpolation(demo_run, tmp_path):
     result = CliRunner().invoke(app, ["harmonise", str(cfg), "--out", str(out)])
     assert result.exit_code == 0, result.output
     inputs = pd.read_csv(out / "tables" / "inputs.csv")
+    inputs = pd.read_csv(out / "tables" / "slice_land.csv")
     shelf = dict(zip(inputs["slice"], inputs["exposed_shelf_km2"]))
     # sea level -80 m lies between -120 m and -2 m, so the exposed shelf lies between theirs
     # (land itself is not monotonic: the 21 ka ice sheet removes land the 14 ka slice keeps)
@@ -205,3 +206,15 @@ def test_summarise_from_finished_run(demo_run, tmp_path):
     assert bad.exit_code == 2 and "nope" in bad.stderr
     # restore the baseline reference for other tests of the module
     assert CliRunner().invoke(app, ["summarise", str(out)]).exit_code == 0
+
+
+def test_input_table_names_every_file(demo_run):
+    out, _, _ = demo_run
+    t = pd.read_csv(out / "tables" / "inputs.csv")
+    # the raw model files of the demo are in K and kg m-2 s-1 on 0-360 longitudes
+    row = t[(t["slice"] == "alder_21ka") & (t["role"] == "model_slice")].iloc[0]
+    assert "K" in row["units"] and "kg m-2 s-1" in row["units"]
+    assert row["calendar"] == "noleap"
+    assert "degC" in row["converted"]
+    roles = set(t["role"])
+    assert {"fine_baseline", "elevation", "model_slice", "model_baseline", "ice"} <= roles

@@ -189,7 +189,7 @@ def harmonise(
 
     with _progress(True) as progress:
         paths = run_harmonise(load_config(config), out, force=force, progress=progress)
-    typer.echo(f"{len(paths) - 1} harmonised slices in {Path(out).resolve() / 'harmonised'}")
+    typer.echo(f"{len(paths) - 2} harmonised slices in {Path(out).resolve() / 'harmonised'}")
 
 
 @app.command()

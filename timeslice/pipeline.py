@@ -8,6 +8,7 @@ takes explicit arguments. Each stage's output is cached under a content key
 from __future__ import annotations
 
 import contextlib
+import io
 import json
 import os
 import re
@@ -104,10 +105,12 @@ def _ice_field(ds: xr.Dataset) -> xr.DataArray:
 
 def harmonise_stage(
     cfg: Config, cache: StageCache, *, progress: Progress = _quiet
-) -> tuple[xr.Dataset, list[xr.Dataset], pd.DataFrame]:
+) -> tuple[xr.Dataset, list[xr.Dataset], dict[str, pd.DataFrame]]:
     """Prepare the observed baseline and every configured slice on the common grid.
 
-    Returns the prepared baseline, the prepared slices (config order) and a table of inputs.
+    Returns the prepared baseline, the prepared slices (config order) and two tables: `inputs`
+    (one row per input file: grid, units, calendar, what was done) and `slice_land` (land,
+    exposed shelf and ice areas per slice).
     """
     from timeslice.grid import make_grid
     from timeslice.harmonise.interpolate import between
@@ -145,11 +148,11 @@ def harmonise_stage(
     baseline = cache.dataset(
         "harmonise",
         base_key,
-        lambda: prepare_slice(
+        lambda: _with_inputs(prepare_slice(
             fine_baseline=fine if monthly else None, bio=None if monthly else fine,
             sea_level=c.present_sea_level, label=c.baseline_label, year=c.baseline_year,
             period=c.baseline_period, model="observed", scenario="baseline", **common,
-        ),
+        ), [("fine_baseline", fine), ("elevation", elev_ds)]),
     )
     progress("harmonise", 1, total)
     rows = [_input_row(c.baseline_label, "observed", "baseline", c.baseline, baseline)]
@@ -162,13 +165,17 @@ def harmonise_stage(
         )
 
         def compute(spec: SliceSpec = spec) -> xr.Dataset:
-            ice = _ice_field(_open(spec.ice, c)) if spec.ice else None
+            ice_ds = _open(spec.ice, c) if spec.ice else None
+            ice = _ice_field(ice_ds) if ice_ds is not None else None
+            used = [("ice", ice_ds)] if ice_ds is not None else []
             meta = dict(label=spec.label, year=spec.year, period=spec.period, model=spec.model,
                         scenario=spec.scenario, sea_level=spec.sea_level, ice=ice)
             if spec.kind == "bioclim":
                 with _about(spec.file):
-                    return prepare_slice(fine_baseline=fine if monthly else None,
-                                         bio=_open(spec.file, c, period=spec.period), **meta, **common)
+                    bio = _open(spec.file, c, period=spec.period)
+                    return _with_inputs(prepare_slice(fine_baseline=fine if monthly else None,
+                                                      bio=bio, **meta, **common),
+                                        [("bioclim_slice", bio), *used])
             if spec.model not in model_baselines:
                 model_baselines[spec.model] = _open(
                     spec.model_baseline, c, period=c.baseline_period, require=["tasmin", "tasmax", "pr"])
@@ -184,15 +191,30 @@ def harmonise_stage(
                     raw = _open(spec.file, c, period=spec.period, require=["tasmin", "tasmax", "pr"])
                 src = spec.file
             with _about(src):
-                return prepare_slice(fine_baseline=fine, model_slice=raw,
-                                     model_baseline=model_baselines[spec.model], **meta, **common)
+                return _with_inputs(
+                    prepare_slice(fine_baseline=fine, model_slice=raw,
+                                  model_baseline=model_baselines[spec.model], **meta, **common),
+                    [("model_slice", raw), ("model_baseline", model_baselines[spec.model]), *used])
 
         ds = cache.dataset("harmonise", key, compute)
         slices.append(ds)
         src = spec.file if spec.file is not None else " + ".join(str(f.name) for f in spec.files())
         rows.append(_input_row(spec.label, spec.model, spec.scenario, src, ds))
         progress("harmonise", i + 2, total)
-    return baseline, slices, pd.DataFrame(rows)
+    inputs = pd.concat([pd.read_json(io.StringIO(ds.attrs.get("input_rows", "[]")), orient="records")
+                        for ds in [baseline, *slices]], ignore_index=True)
+    return baseline, slices, {"inputs": inputs, "slice_land": pd.DataFrame(rows)}
+
+
+def _with_inputs(ds: xr.Dataset, used: list[tuple[str, xr.Dataset]]) -> xr.Dataset:
+    """Record the table of the inputs a prepared slice was built from (kept in the cache)."""
+    from timeslice.harmonise.report import input_table
+
+    label = str(ds.attrs["slice_label"])
+    table = input_table([{"slice": label, "role": role, "data": data} for role, data in used],
+                        prepared={label: ds})
+    ds.attrs["input_rows"] = table.to_json(orient="records")
+    return ds
 
 
 def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
@@ -368,7 +390,8 @@ def _reference(cfg: Config) -> str:
 _TABLE_TITLES = {
     "key_results": "Key results: refugia, loss and gain by movement assumption, agreement, "
                    "uncertainty, hindcast",
-    "inputs": "Climate inputs and harmonisation",
+    "inputs": "Climate inputs and harmonisation (every file: grid, units, calendar, what was done)",
+    "slice_land": "Land, exposed shelf and ice per slice",
     "cleaning": "Occurrence record cleaning",
     "screening": "Predictor screening",
     "evaluation": "Model evaluation (spatial block cross-validation)",
@@ -387,7 +410,7 @@ def report_stage(
     series: xr.Dataset,
     summary: pd.DataFrame,
     fit,
-    inputs: pd.DataFrame,
+    inputs: dict[str, pd.DataFrame],
     out: Path,
     warnings_seen: list[str],
     analysis=None,
@@ -405,7 +428,8 @@ def report_stage(
         paths["ensemble"] = R.write_series(analysis.ensemble, out / "ensemble.nc",
                                            history=history, title=f"{title}: model ensemble")
     tables = {
-        "inputs": inputs,
+        "inputs": inputs["inputs"],
+        "slice_land": inputs["slice_land"],
         "cleaning": fit.cleaning,
         "screening": fit.screening,
         "evaluation": fit.evaluation,
@@ -601,7 +625,7 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
     out = Path(out)
     cfg.check_files()
     cache = StageCache(out / ".cache", force=force)
-    baseline, slices, inputs = harmonise_stage(cfg, cache, progress=progress)
+    baseline, slices, tables = harmonise_stage(cfg, cache, progress=progress)
     paths: dict[str, Path] = {}
     for ds in [baseline, *slices]:
         label = str(ds.attrs["slice_label"])
@@ -609,7 +633,8 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
             ds, out / "harmonised" / f"{label}.nc",
             history=f"timeslice {__version__} harmonise", title=f"harmonised slice {label}",
         )
-    paths["inputs"] = write_csv(inputs, out / "tables" / "inputs.csv")
+    paths["inputs"] = write_csv(tables["inputs"], out / "tables" / "inputs.csv")
+    paths["slice_land"] = write_csv(tables["slice_land"], out / "tables" / "slice_land.csv")
     return paths
 
 
