@@ -218,3 +218,18 @@ def test_input_table_names_every_file(demo_run):
     assert "degC" in row["converted"]
     roles = set(t["role"])
     assert {"fine_baseline", "elevation", "model_slice", "model_baseline", "ice"} <= roles
+
+
+def test_series_passes_cf_checker(demo_run, tmp_path):
+    # Reference: compliance-checker's offline "cf:1.8" suite; no errors at any priority
+    cc = pytest.importorskip("compliance_checker.runner")
+    out, _, _ = demo_run
+    cc.CheckSuite.load_all_available_checkers()
+    report = tmp_path / "cf.json"
+    passed, had_errors = cc.ComplianceChecker.run_checker(
+        str(out / "series.nc"), ["cf:1.8"], 0, "normal", output_filename=str(report),
+        output_format="json")
+    result = json.loads(report.read_text())["cf:1.8"]
+    assert not had_errors
+    assert [i["name"] for i in result["high_priorities"] if i["msgs"]] == []
+    assert passed
