@@ -72,7 +72,8 @@ class StageCache:
         if path is None or self.force or not path.exists():
             return None
         self.hits.append(f"{stage}/{key}")
-        with xr.open_dataset(path) as ds:
+        # raw values: a fill value such as -1 of an int8 flag layer must stay -1, not NaN
+        with xr.open_dataset(path, mask_and_scale=False) as ds:
             return _restore_bools(ds.load())
 
     def store(self, stage: str, key: str, ds: xr.Dataset) -> None:
@@ -88,7 +89,8 @@ class StageCache:
         path = self._path(stage, key, "nc")
         if path is not None and path.exists() and not self.force:
             self.hits.append(f"{stage}/{key}")
-            with xr.open_dataset(path) as ds:
+            # raw values: a fill value such as -1 of an int8 flag layer must stay -1, not NaN
+            with xr.open_dataset(path, mask_and_scale=False) as ds:
                 out = ds.load()
             return _restore_bools(out)
         self.misses.append(f"{stage}/{key}")
