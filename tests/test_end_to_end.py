@@ -236,3 +236,15 @@ def test_series_passes_cf_checker(demo_run, tmp_path):
     assert not had_errors
     assert [(i["name"], i["msgs"]) for i in result["high_priorities"] if i["msgs"]] == []
     assert passed
+
+
+@pytest.mark.slow
+def test_local_cluster_matches_threads(demo_run, tmp_path):
+    # the same graph on a 2-worker dask.distributed LocalCluster gives identical layers
+    out, data, _ = demo_run
+    result = CliRunner().invoke(app, ["run", str(data / "demo.toml"), "--out", str(tmp_path / "w"),
+                                      "--workers", "2"])
+    assert result.exit_code == 0, result.output
+    with open_series(out / "series.nc") as a, open_series(tmp_path / "w" / "series.nc") as b:
+        for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2", "stability"):
+            assert a[name].values.tobytes() == b[name].values.tobytes(), name
