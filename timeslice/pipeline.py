@@ -220,26 +220,25 @@ def _with_inputs(ds: xr.Dataset, used: list[tuple[str, xr.Dataset]]) -> xr.Datas
 def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
     from timeslice.grid import cell_area
 
-    area = cell_area(ds)
     log = ds.attrs.get("harmonise_log", "[]")
     try:
         steps = "; ".join(json.loads(log)) if isinstance(log, str) else str(log)
     except json.JSONDecodeError:
         steps = str(log)
-    land = ds["land"].astype(bool)
-    row = {
+    # prepare_slice already measured land, ice and shelf (land_mask attrs); only the filled
+    # cells are counted here
+    return {
         "slice": label,
         "model": model,
         "scenario": scenario,
         "file": Path(path).name,
         "sea_level_m": float(ds.attrs.get("sea_level", 0.0)),
-        "land_km2": float(area.where(land).sum()),
+        "land_km2": float(ds.attrs["land_km2"]),
         "steps": steps,
+        "exposed_shelf_km2": float(ds.attrs["exposed_shelf_km2"]),
+        "ice_km2": float(ds.attrs["ice_km2"]),
+        "filled_km2": float(cell_area(ds).where(ds["filled"].astype(bool)).sum()),
     }
-    for name, col in (("exposed_shelf", "exposed_shelf_km2"), ("ice", "ice_km2"), ("filled", "filled_km2")):
-        if name in ds:
-            row[col] = float(area.where(ds[name].astype(bool)).sum())
-    return row
 
 
 # ----------------------------------------------------------------------------- fit
@@ -260,20 +259,17 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
     def compute():
         records = read_occurrences(cfg.species.occurrences, columns=cfg.species.columns)
         with _about(cfg.species.occurrences):
-            return _fit(records)
-
-    def _fit(records):
-        return fit_niche(
-            records, baseline, variables=n.variables, algorithm=n.algorithm,
-            algorithm_params=n.params or None, buffer_km=n.buffer_km,
-            n_background=n.n_background, thin=n.thin, uncertainty_max_m=n.uncertainty_max_m,
-            years=n.years, screen_max_r=n.screen_max_r, screen_max_vif=n.screen_max_vif,
-            priority=n.priority, cv_block_km=n.cv_block_km, cv_folds=n.cv_folds,
-            cv_scheme=n.cv_scheme, calibration=n.calibration, calibration_mask=n.calibration_mask,
-            background_file=n.background_file, min_records=n.min_records,
-            importance_repeats=n.importance_repeats,
-            threshold_rule=n.threshold, threshold_value=n.threshold_value, seed=cfg.run.seed,
-        )
+            return fit_niche(
+                records, baseline, variables=n.variables, algorithm=n.algorithm,
+                algorithm_params=n.params or None, buffer_km=n.buffer_km,
+                n_background=n.n_background, thin=n.thin, uncertainty_max_m=n.uncertainty_max_m,
+                years=n.years, screen_max_r=n.screen_max_r, screen_max_vif=n.screen_max_vif,
+                priority=n.priority, cv_block_km=n.cv_block_km, cv_folds=n.cv_folds,
+                cv_scheme=n.cv_scheme, calibration=n.calibration,
+                calibration_mask=n.calibration_mask, background_file=n.background_file,
+                min_records=n.min_records, importance_repeats=n.importance_repeats,
+                threshold_rule=n.threshold, threshold_value=n.threshold_value, seed=cfg.run.seed,
+            )
 
     return cache.obj("fit", key, compute), key
 
@@ -290,7 +286,7 @@ def transfer_stage(
 
     import dask
 
-    from timeslice.series.stacking import check_same_grid
+    from timeslice.series.stacking import check_same_grid, stack_slices
 
     check_same_grid(slices)
     variables = list(fit.variables)
@@ -316,21 +312,15 @@ def transfer_stage(
             cache.store("transfer", keys[i], res)
             results[i] = res
         progress("transfer", len(slices) - len(todo) + start + len(idx), len(slices))
-    outs = []
-    for ds, res in zip(slices, results):
-        res = res.assign(land=ds["land"].astype(bool), ice=ds["ice"].astype(bool))
-        res = res.expand_dims(slice=[ds.attrs["slice_label"]])
-        res = res.assign_coords(
-            year=("slice", [float(ds.attrs["year"])]),
-            period=("slice", [str(ds.attrs["period"])]),
-            model=("slice", [str(ds.attrs["model"])]),
-            scenario=("slice", [str(ds.attrs["scenario"])]),
-            sea_level=("slice", [float(ds.attrs.get("sea_level", 0.0))]),
-        )
-        outs.append(res)
-    stack = xr.concat(outs, dim="slice", combine_attrs="drop_conflicts")
-    stack["land"] = stack["land"].fillna(False).astype(bool)
-    stack["ice"] = stack["ice"].fillna(False).astype(bool)
+    meta = ("slice_label", "year", "period", "model", "scenario")
+    parts = [
+        res.assign(land=ds["land"].astype(bool), ice=ds["ice"].astype(bool))
+        .assign_attrs({k: ds.attrs[k] for k in meta})
+        for ds, res in zip(slices, results)
+    ]
+    stack = stack_slices(parts)
+    stack = stack.assign_coords(
+        sea_level=("slice", [float(ds.attrs.get("sea_level", 0.0)) for ds in slices]))
     stack["elevation"] = slices[0]["elevation"].astype("float32")
     stack["calibration_area"] = fit.calibration_area.astype(bool).reindex_like(
         stack["elevation"], method="nearest"
