@@ -377,22 +377,6 @@ def _reference(cfg: Config) -> str:
 
 # ----------------------------------------------------------------------------- report
 
-_TABLE_TITLES = {
-    "key_results": "Key results: refugia, loss and gain by movement assumption, agreement, "
-                   "uncertainty, hindcast",
-    "inputs": "Climate inputs and harmonisation (every file: grid, units, calendar, what was done)",
-    "slice_land": "Land, exposed shelf and ice per slice",
-    "cleaning": "Occurrence record cleaning",
-    "screening": "Predictor screening",
-    "evaluation": "Model evaluation (spatial block cross-validation)",
-    "importance": "Predictor importance (permutation)",
-    "series_detail": "Change per slice, in detail",
-    "series_movement": "Movement assumptions per chain",
-    "series_agreement": "Agreement across climate models",
-    "series_partition": "Sources of uncertainty (variance shares)",
-    "series_hindcast": "Hindcast: dated records against past slices",
-}
-
 
 def report_stage(
     cfg: Config,
@@ -507,7 +491,7 @@ def report_stage(
             },
             species=cfg.species.name,
             summary=summary,
-            tables={_TABLE_TITLES.get(k, k): v for k, v in tables.items()
+            tables={k: v for k, v in tables.items()
                     if v is not None and k not in ("response", "series_summary")},
             figures=figures,
             methods=methods_paragraph(

@@ -207,11 +207,19 @@ def _highlights(summary: pd.DataFrame) -> list[str]:
 
 #: Display names of the tables the pipeline passes under short keys.
 TABLE_TITLES = {
-    "inputs": "Climate inputs and harmonisation",
+    "key_results": "Key results: refugia, loss and gain by movement assumption, agreement, "
+                   "uncertainty, hindcast",
+    "inputs": "Climate inputs and harmonisation (every file: grid, units, calendar, what was done)",
+    "slice_land": "Land, exposed shelf and ice per slice",
     "cleaning": "Occurrence record cleaning",
     "screening": "Predictor screening",
-    "evaluation": "Model evaluation (spatial cross-validation)",
-    "importance": "Predictor importance",
+    "evaluation": "Model evaluation (spatial block cross-validation)",
+    "importance": "Predictor importance (permutation)",
+    "series_detail": "Change per slice, in detail",
+    "series_movement": "Movement assumptions per chain",
+    "series_agreement": "Agreement across climate models",
+    "series_partition": "Sources of uncertainty (variance shares)",
+    "series_hindcast": "Hindcast: dated records against past slices",
     "response": "Response curves",
     "thresholds": "Thresholds",
     "hindcast": "Hindcast against dated records",
