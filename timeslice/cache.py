@@ -86,19 +86,12 @@ class StageCache:
 
     def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
         """Return the cached Dataset for (stage, key), or compute, store and return it."""
-        path = self._path(stage, key, "nc")
-        if path is not None and path.exists() and not self.force:
-            self.hits.append(f"{stage}/{key}")
-            # raw values: a fill value such as -1 of an int8 flag layer must stay -1, not NaN
-            with xr.open_dataset(path, mask_and_scale=False) as ds:
-                out = ds.load()
-            return _restore_bools(out)
-        self.misses.append(f"{stage}/{key}")
+        cached = self.load(stage, key)
+        if cached is not None:
+            return cached
         ds = compute()
-        if path is not None:
-            ds = ds.compute() if hasattr(ds, "compute") else ds
-            with atomic_path(path) as tmp:
-                _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+        ds = ds.compute() if hasattr(ds, "compute") else ds
+        self.store(stage, key, ds)
         return ds
 
     def obj(self, stage: str, key: str, compute):
