@@ -1,8 +1,11 @@
 """Regular latitude-longitude grids: construction, cell bounds, spherical cell areas,
 coordinate normalisation and great-circle distances.
 
-Conventions (docs/methods.md): ``lat`` ascending in degrees_north, ``lon`` ascending in
-[-180, 180) degrees_east, coordinates at cell centres. Areas are on the authalic sphere.
+Conventions (docs/methods.md): ``lat`` ascending in degrees_north, ``lon`` ascending and
+continuous in degrees_east, coordinates at cell centres. A regional grid lies within
+[-180, 180) unless it crosses the 180° meridian: then its longitudes run on past 180 (e.g.
+160 ... 200) so that neighbouring cells stay neighbours on the axis. A global grid spans 360°
+and wraps east-west. Areas are on the authalic sphere.
 """
 
 from __future__ import annotations
@@ -16,12 +19,16 @@ __all__ = [
     "AUTHALIC_RADIUS_KM",
     "cell_area",
     "cell_bounds",
+    "continuous_lon",
     "find_lonlat",
     "grid_edges",
     "haversine_km",
+    "is_global_lon",
+    "lon_order",
     "make_grid",
     "normalise_lonlat",
     "resolution",
+    "wrap_lon",
 ]
 
 #: Authalic (equal-area) radius of the GRS80/WGS84 ellipsoid, 6 371 007.181 m
@@ -44,35 +51,143 @@ def make_grid(
 
     Parameters
     ----------
-    lon_min, lon_max, lat_min, lat_max : float
-        Outer edges of the grid in degrees.
+    lon_min, lon_max : float
+        Western and eastern outer edges in degrees east. The grid runs eastwards from
+        `lon_min` to `lon_max`; a region across the 180° meridian is written either with
+        ``lon_max`` past 180 (``160, 200``) or with ``lon_max < lon_min`` (``160, -160``), both
+        giving the same continuous axis 160 ... 200. `lon_min` is brought into [-180, 180)
+        (``190, 230`` is ``-170, -130``). ``lon_max - lon_min = 360`` is a global grid.
+    lat_min, lat_max : float
+        Southern and northern outer edges, within [-90, 90].
     resolution : float
         Cell size in degrees (same in both directions).
 
     Returns
     -------
     xarray.Dataset
-        Coordinates ``lat`` (ascending) and ``lon`` (ascending, in [-180, 180)).
+        Coordinates ``lat`` (ascending) and ``lon`` (ascending and continuous, starting in
+        [-180, 180); past 180 for a region that crosses the 180° meridian).
+
+    Examples
+    --------
+    >>> g = make_grid(lon_min=170, lon_max=-170, lat_min=60, lat_max=62, resolution=5.0)
+    >>> g["lon"].values.tolist()
+    [172.5, 177.5, 182.5, 187.5]
     """
     if resolution <= 0:
         raise DataError(f"grid `resolution` must be > 0 degrees, got {resolution}")
-    if not (lon_max > lon_min and lat_max > lat_min):
+    if not (-90.0 <= lat_min < lat_max <= 90.0):
         raise DataError(
-            f"grid extent is empty: lon {lon_min}..{lon_max}, lat {lat_min}..{lat_max}; "
-            "give min < max"
+            f"grid latitudes {lat_min}..{lat_max} are not an extent within [-90, 90]; give "
+            "-90 <= lat_min < lat_max <= 90"
         )
-    nlon = int(round((lon_max - lon_min) / resolution))
+    if lon_min == lon_max:
+        raise DataError(
+            f"grid extent is empty: lon {lon_min}..{lon_max}; give lon_max east of lon_min "
+            "(lon_max = lon_min + 360 for a global grid)"
+        )
+    shift = 360.0 * np.floor((float(lon_min) + 180.0) / 360.0)
+    west = float(lon_min) - shift
+    east = float(lon_max) - shift
+    while east <= west:  # written with lon_max < lon_min: the region crosses 180°
+        east += 360.0
+    if east - west > 360.0 + 1e-9:
+        raise DataError(
+            f"grid longitudes {lon_min}..{lon_max} span {east - west:g}° (more than 360°); "
+            "give at most one turn round the globe"
+        )
+    nlon = int(round((east - west) / resolution))
     nlat = int(round((lat_max - lat_min) / resolution))
-    lon = lon_min + resolution * (np.arange(nlon) + 0.5)
+    if nlon < 1 or nlat < 1:
+        raise DataError(
+            f"grid `resolution` {resolution}° is larger than the extent (lon {lon_min}.."
+            f"{lon_max}, lat {lat_min}..{lat_max}); give a smaller resolution"
+        )
+    lon = west + resolution * (np.arange(nlon) + 0.5)
     lat = lat_min + resolution * (np.arange(nlat) + 0.5)
-    lon = ((lon + 180.0) % 360.0) - 180.0
     ds = xr.Dataset(coords={"lat": ("lat", lat), "lon": ("lon", lon)})
-    ds = ds.sortby("lon")
     _set_coord_attrs(ds)
     # kept so that a one-row or one-column grid still knows its cell size
     ds["lat"].attrs["resolution"] = float(resolution)
     ds["lon"].attrs["resolution"] = float(resolution)
     return ds
+
+
+def wrap_lon(lon, *, west: float = -180.0) -> np.ndarray:
+    """Longitudes brought into ``[west, west + 360)`` (degrees, broadcasting).
+
+    Use it to put points (records, centroids) onto the axis of a grid that runs past 180:
+    ``wrap_lon(-170.0, west=160.0)`` is 190.
+    """
+    a = np.asarray(lon, dtype=float)
+    return ((a - west) % 360.0) + west
+
+
+def is_global_lon(lon) -> bool:
+    """True when a regular longitude axis covers the full 360° (it wraps east-west)."""
+    values = np.asarray(lon, dtype=float)
+    if values.size < 2:
+        return False
+    return abs(values.size * resolution(values) - 360.0) < 1e-6 * 360.0
+
+
+def lon_order(lon, *, source: str = "input") -> tuple[np.ndarray, np.ndarray]:
+    """Order that makes an ascending longitude axis continuous, and the continuous values.
+
+    A regional grid across the 180° meridian, once wrapped to [-180, 180) and sorted, has one
+    jump (e.g. ... -171, -170, 160, 161 ...). Starting the axis after the jump and adding 360°
+    to what follows 180 gives the continuous axis (160 ... 190). An axis that is already
+    continuous is returned unchanged.
+
+    Returns
+    -------
+    (order, values)
+        ``values = lon[order]`` adjusted by multiples of 360°, ascending with regular steps.
+
+    Raises
+    ------
+    DataError
+        More than one jump, or a jump that wrapping does not close (a gap in the grid).
+    """
+    v = np.asarray(lon, dtype=float)
+    n = v.size
+    order = np.arange(n)
+    if n < 3:
+        return order, v.copy()
+    steps = np.diff(v)
+    step = float(np.median(steps))
+    big = np.flatnonzero(steps > 1.5 * step)
+    if big.size == 0:
+        return order, v.copy()
+    wrap_step = v[0] + 360.0 - v[-1]
+    if big.size > 1 or step <= 0 or abs(wrap_step - step) > 0.01 * step:
+        gap = int(big[0])
+        raise DataError(
+            f"{source}: longitudes jump from {v[gap]:g} to {v[gap + 1]:g}, a gap in the grid "
+            "that crossing the 180° meridian does not explain; give a grid with regular "
+            "longitude steps (one region, or a global grid)"
+        )
+    k = int(big[0]) + 1
+    order = np.concatenate([np.arange(k, n), np.arange(k)])
+    values = np.concatenate([v[k:], v[:k] + 360.0])
+    return order, values
+
+
+def continuous_lon(obj, *, source: str = "input"):
+    """Put a grid that crosses the 180° meridian on a continuous longitude axis.
+
+    Readers return longitudes in [-180, 180); for a region across 180° that splits the
+    region in two. This rolls the ``lon`` dimension so that the axis starts at the region's
+    western edge and continues past 180 (coordinate attributes kept). Anything already
+    continuous is returned unchanged.
+    """
+    order, values = lon_order(obj["lon"].values, source=source)
+    if np.array_equal(order, np.arange(order.size)):
+        return obj
+    attrs = dict(obj["lon"].attrs)
+    out = obj.isel(lon=order).assign_coords(lon=("lon", values))
+    out["lon"].attrs.update(attrs)
+    return out
 
 
 def _set_coord_attrs(ds: xr.Dataset | xr.DataArray) -> None:
@@ -99,8 +214,12 @@ def cell_bounds(
     """Cell edges of a cell-centred 1-D coordinate, shape ``(n, 2)``.
 
     Edges are midpoints between centres; the outer edges extend half a step.
-    Latitude edges are clipped to [-90, 90]. A coordinate with a single value needs its cell
-    size: `step`, or a ``resolution`` attribute (set by :func:`make_grid`).
+    Latitude edges are clipped to [-90, 90], and an outer latitude edge that stops short of
+    the pole by less than half a step is moved onto the pole: the outermost row of a global
+    grid whose rows are not centred on a regular pole-to-pole lattice (Gaussian grids of
+    climate models, first row at e.g. 87.86°) is the polar cap, so the grid covers the
+    sphere. A coordinate with a single value needs its cell size: `step`, or a
+    ``resolution`` attribute (set by :func:`make_grid`).
     """
     c = np.asarray(coord, dtype=float)
     if c.size == 1:
@@ -120,6 +239,11 @@ def cell_bounds(
         )
     if kind == "lat":
         edges = np.clip(edges, -90.0, 90.0)
+        if c.size > 1:
+            if edges[0] + 90.0 < 0.5 * abs(c[1] - c[0]):
+                edges[0] = -90.0
+            if 90.0 - edges[-1] < 0.5 * abs(c[-1] - c[-2]):
+                edges[-1] = 90.0
     return np.stack([edges[:-1], edges[1:]], axis=1)
 
 

@@ -112,7 +112,7 @@ def harmonise_stage(
     (one row per input file: grid, units, calendar, what was done) and `slice_land` (land,
     exposed shelf and ice areas per slice).
     """
-    from timeslice.grid import make_grid
+    from timeslice.grid import continuous_lon, make_grid
     from timeslice.harmonise.interpolate import between
     from timeslice.harmonise.prepare import prepare_slice
     from timeslice.harmonise.regrid import regrid
@@ -133,6 +133,7 @@ def harmonise_stage(
         fine = regrid(fine, target)
         elev = regrid(elev, target)
     else:
+        fine = continuous_lon(fine, source=str(c.baseline))  # a region across 180° as one axis
         elev = regrid(elev, fine) if elev.sizes != {k: fine.sizes[k] for k in ("lat", "lon")} else elev
 
     base_key = content_key(

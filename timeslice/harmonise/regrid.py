@@ -3,10 +3,17 @@ separable bilinear interpolation, both NaN-aware.
 
 Both methods are products of two sparse 1-D weight matrices, ``out = W_lat · f · W_lonᵀ``,
 applied to every 2-D field (one ``xr.apply_ufunc`` over the ``(lat, lon)`` core dimensions).
+
+Longitudes: the source may be global (it wraps), regional within [-180, 180), or regional
+across the 180° meridian as readers return it (wrapped and split in two: its columns are
+put back in continuous order inside the weights). The target axis is ascending and
+continuous and may run past 180 (``timeslice.grid.make_grid``); target longitudes are
+matched to the source modulo 360°.
 """
 
 from __future__ import annotations
 
+import warnings
 from typing import Literal, TypeVar
 
 import numpy as np
@@ -14,7 +21,7 @@ import scipy.sparse as sp
 import xarray as xr
 
 from timeslice.errors import DataError
-from timeslice.grid import cell_bounds, normalise_lonlat, resolution
+from timeslice.grid import cell_bounds, is_global_lon, lon_order, normalise_lonlat, resolution
 
 __all__ = [
     "bilinear_weights",
@@ -28,9 +35,14 @@ Method = Literal["auto", "conservative", "bilinear"]
 
 
 def _is_global(lon: np.ndarray) -> bool:
-    if lon.size < 2:
-        return False
-    return abs(lon.size * resolution(lon) - 360.0) < 1e-6 * 360.0
+    return is_global_lon(lon)
+
+
+def _unpermute(w: sp.csr_matrix, order: np.ndarray) -> sp.csr_matrix:
+    """Columns of `w` (in continuous source order ``order``) back in the source's own order."""
+    if np.array_equal(order, np.arange(order.size)):
+        return w
+    return w[:, np.argsort(order)].tocsr()
 
 
 def _overlap_matrix(src_edges: np.ndarray, dst_edges: np.ndarray) -> sp.csr_matrix:
@@ -74,7 +86,8 @@ def conservative_weights(
     w_lat : sparse (n_dst_lat, n_src_lat)
         Overlap of latitude bands in sin(latitude) (proportional to area on the sphere).
     w_lon : sparse (n_dst_lon, n_src_lon)
-        Overlap of longitude intervals in degrees (with a 360° wrap when the source is global).
+        Overlap of longitude intervals in degrees, target longitudes matched modulo 360°
+        (a global source wraps; a source across 180° is handled in continuous order).
     dst_area : ndarray (n_dst_lat, n_dst_lon)
         Area of each target cell in the same measure, for the valid-area fraction.
 
@@ -83,7 +96,9 @@ def conservative_weights(
     The area of a lat-lon cell on a sphere is :math:`R^2 \\Delta\\lambda (\\sin\\varphi_2 -
     \\sin\\varphi_1)`, which is a product of a latitude factor and a longitude factor; the
     overlap of two such cells is again a cell, so the area-overlap matrix factorises exactly
-    into a latitude and a longitude part (Jones 1999).
+    into a latitude and a longitude part (Jones 1999). The outermost row of a pole-to-pole
+    source reaches the pole (:func:`timeslice.grid.cell_bounds`), so refining onto a global
+    grid fills the polar rows.
 
     References
     ----------
@@ -93,15 +108,16 @@ def conservative_weights(
     slat = np.sin(np.deg2rad(_bounds(src_lat, src_lon, "lat")))
     dlat = np.sin(np.deg2rad(_bounds(dst_lat, dst_lon, "lat")))
     w_lat = _overlap_matrix(slat, dlat)
-    slon = _bounds(src_lon, src_lat, "lon")
+    order, slon_c = lon_order(np.asarray(src_lon, dtype=float), source="regrid source")
+    slon = _bounds(slon_c, src_lat, "lon")
     dlon = _bounds(dst_lon, dst_lat, "lon")
-    if _is_global(np.asarray(src_lon, dtype=float)):
-        w_lon = sum(
-            (_overlap_matrix(slon + shift, dlon) for shift in (-360.0, 0.0, 360.0)),
-            start=sp.csr_matrix((dlon.shape[0], slon.shape[0])),
-        ).tocsr()
-    else:
-        w_lon = _overlap_matrix(slon, dlon)
+    # the source spans at most 360°, so its copies one turn east and west never overlap
+    # each other: summing them matches target longitudes to the source modulo 360°
+    w_lon = sum(
+        (_overlap_matrix(slon + shift, dlon) for shift in (-360.0, 0.0, 360.0)),
+        start=sp.csr_matrix((dlon.shape[0], slon.shape[0])),
+    ).tocsr()
+    w_lon = _unpermute(w_lon, order)
     dst_area = np.outer(dlat[:, 1] - dlat[:, 0], dlon[:, 1] - dlon[:, 0])
     return w_lat, w_lon, dst_area
 
@@ -111,7 +127,9 @@ def _linear_1d(src: np.ndarray, dst: np.ndarray, *, periodic: bool) -> sp.csr_ma
 
     Points between the outermost source centre and the outer cell edge take the edge value
     (edge padding); points beyond the source cell edges get no weight (NaN after
-    normalisation). With ``periodic`` the source wraps around 360°.
+    normalisation). With ``periodic`` the source wraps around 360°; otherwise target
+    longitudes are matched to the source modulo 360° (``periodic`` is only ever set for
+    longitudes, and a non-periodic latitude never reaches ±360).
     """
     n = src.size
     rows, cols, vals = [], [], []
@@ -148,19 +166,68 @@ def _linear_1d(src: np.ndarray, dst: np.ndarray, *, periodic: bool) -> sp.csr_ma
     return m
 
 
+def _linear_lon(src: np.ndarray, dst: np.ndarray) -> sp.csr_matrix:
+    """Longitude interpolation matrix: periodic for a global source; otherwise in the
+    source's continuous order, with target longitudes brought to the source's turn."""
+    if _is_global(src):
+        return _linear_1d(src, dst, periodic=True)
+    order, src_c = lon_order(src, source="regrid source")
+    if src_c.size > 1:
+        west = src_c[0] - resolution(src_c) / 2
+        dst = ((dst - west) % 360.0) + west
+    return _unpermute(_linear_1d(src_c, dst, periodic=False), order)
+
+
+def _linear_lat(src: np.ndarray, dst: np.ndarray, *, polar: bool) -> sp.csr_matrix:
+    """Latitude interpolation matrix; with `polar`, shape (n_dst, n_src + 2).
+
+    Column 0 is a virtual row at the south pole, column n_src + 1 one at the north pole; a
+    pole takes part only where the source's outermost cell reaches it
+    (:func:`timeslice.grid.cell_bounds`). Between the outermost row's centre and the pole a
+    target row is interpolated linearly in latitude between that row and the pole, whose value
+    is the mean of the outermost row over all longitudes (a field on the sphere has one value
+    at the pole). Without `polar` (regional sources) the outermost row is repeated.
+    """
+    m = _linear_1d(src, dst, periodic=False)
+    if not polar or src.size < 2:
+        return m
+    edges = cell_bounds(src, kind="lat")
+    n = src.size
+    rows, cols, vals = [], [], []
+    coo = m.tocoo()
+    keep = np.ones(coo.nnz, dtype=bool)
+    for pole, centre, col, virtual, reached in (
+        (-90.0, src[0], 0, 0, edges[0, 0] <= -90.0),
+        (90.0, src[-1], n - 1, n + 1, edges[-1, 1] >= 90.0),
+    ):
+        if not reached or centre == pole:
+            continue
+        beyond = (dst - centre) * np.sign(pole) > 0
+        for i in np.flatnonzero(beyond & (np.abs(dst) <= 90.0)):
+            t = (dst[i] - centre) / (pole - centre)  # 0 at the row centre, 1 at the pole
+            keep &= coo.row != i
+            rows += [i, i]
+            cols += [col + 1, virtual]
+            vals += [1.0 - t, t]
+    out_rows = np.concatenate([coo.row[keep], np.asarray(rows, dtype=int)])
+    out_cols = np.concatenate([coo.col[keep] + 1, np.asarray(cols, dtype=int)])
+    out_vals = np.concatenate([coo.data[keep], np.asarray(vals, dtype=float)])
+    return sp.csr_matrix((out_vals, (out_rows, out_cols)), shape=(dst.size, n + 2))
+
+
 def bilinear_weights(src_lat, src_lon, dst_lat, dst_lon) -> tuple[sp.csr_matrix, sp.csr_matrix]:
     """Separable bilinear interpolation matrices ``(w_lat, w_lon)``.
 
-    Longitudes wrap when the source grid is global; latitudes (and longitudes of regional
-    grids) are edge-padded up to the source's outer cell edges, so polar rows and borders
-    are never NaN.
+    Longitudes wrap when the source grid is global. On a global source the polar rows are
+    interpolated towards the pole (``w_lat`` then has two more columns, virtual pole rows
+    that :func:`_apply_kernel` fills with the mean of the outermost row); latitudes of
+    regional sources (and longitudes of regional grids) are edge-padded up to the source's
+    outer cell edges, so polar rows and borders are never NaN.
     """
     src_lat = np.asarray(src_lat, dtype=float)
     src_lon = np.asarray(src_lon, dtype=float)
-    w_lat = _linear_1d(src_lat, np.asarray(dst_lat, dtype=float), periodic=False)
-    w_lon = _linear_1d(
-        src_lon, np.asarray(dst_lon, dtype=float), periodic=_is_global(src_lon)
-    )
+    w_lat = _linear_lat(src_lat, np.asarray(dst_lat, dtype=float), polar=_is_global(src_lon))
+    w_lon = _linear_lon(src_lon, np.asarray(dst_lon, dtype=float))
     return w_lat, w_lon
 
 
@@ -184,8 +251,11 @@ def _apply_kernel(
         full = dst_area
     # weight sum of a fully valid source, used when a field has no NaN (saves one product)
     all_valid_den = None
+    polar = w_lat.shape[1] == nlat + 2
     for k in range(flat.shape[0]):
         f = np.asarray(flat[k], dtype=np.float64)
+        if polar:
+            f = _with_poles(f)
         valid = np.isfinite(f)
         if valid.all():
             num = np.asarray((w_lat @ f) @ w_lon_t)
@@ -202,6 +272,16 @@ def _apply_kernel(
         num[~ok] = np.nan
         out[k] = num
     return out.reshape(lead + out.shape[-2:])
+
+
+def _with_poles(f: np.ndarray) -> np.ndarray:
+    """`f` with a virtual south-pole row first and a north-pole row last: the NaN-aware
+    mean of the outermost row (regular longitudes: every cell of a row has the same area)."""
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN row gives a NaN pole
+        south = np.nanmean(f[0])
+        north = np.nanmean(f[-1])
+    return np.concatenate([np.full((1, f.shape[1]), south), f, np.full((1, f.shape[1]), north)])
 
 
 def _choose(src_lat, src_lon, dst_lat, dst_lon) -> Literal["conservative", "bilinear"]:
@@ -297,15 +377,13 @@ def regrid(
         obj = normalise_lonlat(obj, source=source)
         slat = obj["lat"].values.astype(float)
         slon = obj["lon"].values.astype(float)
-    if slon.size > 2:
-        steps = np.diff(slon)
-        if steps.max() > 1.5 * np.median(steps):
-            gap = int(np.argmax(steps))
-            raise DataError(
-                f"{source}: longitudes jump from {slon[gap]:g} to {slon[gap + 1]:g} (a regional "
-                "grid across the 180° meridian, or a gap); only contiguous regular grids are "
-                "supported: cut the input to one side or give a global grid"
-            )
+    lon_order(slon, source=source)  # a gap in the source (not a crossing of 180°) is refused
+    t_order, _ = lon_order(tlon.values, source="regrid target")
+    if not np.array_equal(t_order, np.arange(t_order.size)):
+        raise DataError(
+            f"{source}: the target grid's longitudes jump (a region across 180° wrapped to "
+            "[-180, 180)); put it on a continuous axis first (timeslice.grid.continuous_lon)"
+        )
     cache: dict[str, tuple] = {}
 
     def weights(m: str):
