@@ -8,6 +8,7 @@ the config file. See docs/config.md for every key.
 from __future__ import annotations
 
 import difflib
+import re
 import tomllib
 from pathlib import Path
 from typing import Any, Literal
@@ -18,6 +19,7 @@ from timeslice.errors import ConfigError, InputFileError
 
 __all__ = [
     "ClimateConfig",
+    "ClimateInput",
     "Config",
     "NicheConfig",
     "OutputConfig",
@@ -44,22 +46,176 @@ class RunConfig(_Section):
 
 
 class GridConfig(_Section):
-    lon_min: float
-    lon_max: float
-    lat_min: float
-    lat_max: float
+    """The common target grid. Longitudes run east from `lon_min` to `lon_max`: a region across
+    the 180° meridian is ``lon_min = 160, lon_max = 200`` or, the same, ``lon_max = -160``
+    (see :func:`timeslice.grid.make_grid`); ``lon_max = lon_min + 360`` is global."""
+
+    lon_min: float = Field(ge=-360.0, le=360.0)
+    lon_max: float = Field(ge=-360.0, le=720.0)
+    lat_min: float = Field(ge=-90.0, le=90.0)
+    lat_max: float = Field(ge=-90.0, le=90.0)
     resolution: float = Field(gt=0)
+
+    @model_validator(mode="after")
+    def _extent(self) -> GridConfig:
+        if self.lat_min >= self.lat_max:
+            raise ValueError(f"`lat_min` ({self.lat_min:g}) must be south of `lat_max` "
+                             f"({self.lat_max:g})")
+        if self.lon_min == self.lon_max:
+            raise ValueError("`lon_min` equals `lon_max`; give the eastern edge (lon_max = "
+                             "lon_min + 360 for a global grid)")
+        width = self.lon_max - self.lon_min
+        while width <= 0:  # lon_max < lon_min: the region crosses the 180° meridian
+            width += 360.0
+        if width > 360.0 + 1e-9:
+            raise ValueError(f"`lon_min`..`lon_max` span {width:g}°, more than 360°; give at "
+                             "most one turn round the globe")
+        if self.resolution > min(width, self.lat_max - self.lat_min):
+            raise ValueError(f"`resolution` {self.resolution:g}° is larger than the grid "
+                             "extent; give a smaller cell size")
+        return self
+
+
+#: Canonical variables a units/scale/aliases/variables mapping may name.
+_CANONICAL = ("tasmin", "tasmax", "tas", "pr", "elevation", "ice",
+              *(f"bio{i}" for i in range(1, 20)))
+
+
+class ClimateInput(_Section):
+    """One climate input: its files and the options that describe those files only.
+
+    Written in the config as a path, a glob or a list (``baseline = "obs/*.nc"``), or as a
+    table (``[climate.baseline] files = "obs/{variable}_{month:02d}.tif"``, ``scale = {tasmin =
+    0.1}``). `units` and `scale` apply to this input alone, never to another file.
+    """
+
+    files: str | list[str]
+    #: units of the stored values per canonical variable, used instead of (or where the file
+    #: lacks) its own units attribute
+    units: dict[str, str] = Field(default_factory=dict)
+    #: multiplier per canonical variable applied to the stored values before unit conversion
+    scale: dict[str, float] = Field(default_factory=dict)
+    #: canonical name -> variable name(s) in the file, tried before the built-in names
+    aliases: dict[str, str | list[str]] = Field(default_factory=dict)
+    #: canonical name -> the text standing for it in a ``{variable}`` file pattern
+    variables: dict[str, str] | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _from_path(cls, value):
+        if isinstance(value, (str, Path)):
+            return {"files": str(value)}
+        if isinstance(value, list):
+            return {"files": [str(v) for v in value]}
+        return value
+
+    @field_validator("files")
+    @classmethod
+    def _files(cls, v):
+        if isinstance(v, list) and not v:
+            raise ValueError("the list of files is empty; give at least one path")
+        return v
+
+    @field_validator("units", "scale", "aliases", "variables")
+    @classmethod
+    def _canonical_keys(cls, v):
+        for k in v or {}:
+            if k not in _CANONICAL:
+                close = difflib.get_close_matches(k, _CANONICAL, n=1)
+                hint = f"; did you mean {close[0]!r}?" if close else ""
+                raise ValueError(f"{k!r} is not a canonical variable (tasmin, tasmax, tas, pr, "
+                                 f"elevation, ice, bio1..bio19){hint}")
+        return v
+
+    @field_validator("scale")
+    @classmethod
+    def _positive(cls, v):
+        for k, x in v.items():
+            if not (x > 0 and x < float("inf")):
+                raise ValueError(f"scale of {k!r} must be a positive number, got {x!r}")
+        return v
+
+    def patterns(self) -> list[str]:
+        """The file paths or patterns, as a list."""
+        return [self.files] if isinstance(self.files, str) else list(self.files)
+
+    def expand(self, *, key: str, role: str = "monthly", model: str | None = None):
+        """The sorted :class:`~timeslice.readers.filesets.InputFile` list of this input."""
+        from timeslice.readers.filesets import expand_files, substitute_model
+
+        pats = self.patterns()
+        if model is not None:
+            pats = [substitute_model(p, model) for p in pats]
+        return expand_files(pats, key=key, variables=self.variables or _ROLE_VARIABLES[role])
+
+    def reader_options(self, global_aliases: dict[str, list[str]] | None = None) -> dict:
+        """Keyword arguments of :func:`timeslice.readers.open_climate` for this input."""
+        aliases: dict[str, list[str]] = {k: list(v) for k, v in (global_aliases or {}).items()}
+        for k, v in self.aliases.items():
+            aliases[k] = [v] if isinstance(v, str) else list(v)
+        return {"aliases": aliases or None, "units": dict(self.units) or None,
+                "scale": dict(self.scale) or None}
+
+    def merged(self, other: ClimateInput | None) -> ClimateInput:
+        """These files with `other`'s options laid over this input's (per variable)."""
+        if other is None:
+            return self
+        return self.model_copy(update={
+            "units": {**self.units, **other.units}, "scale": {**self.scale, **other.scale},
+            "aliases": {**self.aliases, **other.aliases},
+            "variables": other.variables if other.variables is not None else self.variables,
+        })
+
+
+#: Variables a ``{variable}`` pattern stands for, per kind of input, when `variables` is not
+#: given: the monthly fields a slice needs, or the 19 bioclimatic variables.
+_ROLE_VARIABLES: dict[str, dict[str, str]] = {
+    "monthly": {"tasmin": "tasmin", "tasmax": "tasmax", "pr": "pr"},
+    "bioclim": {f"bio{i}": f"bio{i}" for i in range(1, 20)},
+    "elevation": {"elevation": "elevation"},
+    "ice": {"ice": "ice"},
+}
+
+
+def _check_units(source, key: str, inp: ClimateInput | None) -> None:
+    """Refuse at config load a declared unit that cannot describe its variable."""
+    if inp is None:
+        return
+    from timeslice.harmonise.units import (
+        parse_units,
+        precipitation_conversion,
+        temperature_conversion,
+    )
+    from timeslice.errors import DataError
+
+    for var, text in inp.units.items():
+        try:
+            if var in ("tasmin", "tasmax", "tas"):
+                temperature_conversion(text, variable=var, source=key)
+            elif var == "pr":
+                precipitation_conversion(text, variable=var, source=key)
+            elif var == "elevation":
+                from cf_xarray.units import units as ureg
+
+                if parse_units(text, variable=var, source=key).dimensionality != ureg.m.dimensionality:
+                    raise DataError(f"{key}: units {text!r} of 'elevation' are not a length")
+            elif var == "ice" and str(text).strip() not in {"1", "", "fraction", "0-1", "%", "percent"}:
+                raise DataError(f"{key}: units {text!r} of 'ice' must be '1' (fraction) or '%'")
+        except DataError as err:
+            msg = str(err).split(": ", 1)[-1]
+            raise ConfigError(f"{source}: {key}.units.{var} = {text!r}: {msg}") from err
 
 
 class ClimateConfig(_Section):
-    baseline: Path
-    elevation: Path
+    baseline: ClimateInput
+    elevation: ClimateInput
     baseline_kind: Literal["monthly", "bioclim"] = "monthly"
     baseline_label: str = "baseline"
     baseline_period: str = "present"
     baseline_year: float = 2000.0
-    models: dict[str, Path] = Field(default_factory=dict)
+    models: dict[str, ClimateInput] = Field(default_factory=dict)
     aliases: dict[str, list[str]] = Field(default_factory=dict)
+    #: refused when given: units and scale belong to the input they describe
     units: dict[str, str] = Field(default_factory=dict)
     scale: dict[str, float] = Field(default_factory=dict)
     regrid: Literal["auto", "conservative", "bilinear"] | dict[str, Literal["auto", "conservative", "bilinear"]] = "auto"
@@ -69,12 +225,30 @@ class ClimateConfig(_Section):
     ice_threshold: float = Field(0.5, ge=0.0, le=1.0)
     lapse_rate: float = Field(0.0065, ge=0.0)
 
+    @field_validator("units", "scale")
+    @classmethod
+    def _per_input(cls, v, info):
+        if v:
+            raise ValueError(
+                f"[climate] {info.field_name} would apply to every input (baseline and every "
+                f"model file alike); give it per input instead, e.g. [climate.baseline] "
+                f"files = \"...\", {info.field_name} = {{...}}, a table under [climate.models], "
+                f"or `{info.field_name}` in a [[slices]] entry"
+            )
+        return v
+
 
 class SliceConfig(_Section):
     """One entry of ``[[slices]]``; expands to one slice per model in `models`."""
 
     name: str
-    file: str | None = None
+    #: path, glob or list; may hold {model}, {variable} and {month}
+    file: str | list[str] | None = None
+    #: options describing this slice's files (laid over its model's options, per variable)
+    units: dict[str, str] = Field(default_factory=dict)
+    scale: dict[str, float] = Field(default_factory=dict)
+    aliases: dict[str, str | list[str]] = Field(default_factory=dict)
+    variables: dict[str, str] | None = None
     kind: Literal["monthly", "bioclim"] = "monthly"
     between: list[str] | None = None
     scenario: str = "past"
@@ -82,11 +256,25 @@ class SliceConfig(_Section):
     year: float | None = None
     age_bp: float | None = None
     sea_level: float = 0.0
-    ice: Path | None = None
+    ice: ClimateInput | None = None
     models: list[str] | None = None
+
+    def options(self) -> ClimateInput | None:
+        """This slice's own file options, or None."""
+        if not (self.units or self.scale or self.aliases or self.variables):
+            return None
+        return ClimateInput(files=["-"], units=self.units, scale=self.scale,
+                            aliases=self.aliases, variables=self.variables)
 
     @model_validator(mode="after")
     def _one_time(self) -> SliceConfig:
+        ClimateInput.model_validate({"files": "-", "units": self.units, "scale": self.scale,
+                                     "aliases": self.aliases, "variables": self.variables})
+        if self.period is not None:
+            m = re.fullmatch(r"\s*(-?\d+)\s*-\s*(-?\d+)\s*", self.period)
+            if m and int(m.group(2)) < int(m.group(1)):
+                raise ValueError(f"`period` {self.period!r} ends before it starts; give "
+                                 "'first-last', e.g. \"2041-2060\"")
         if (self.year is None) == (self.age_bp is None):
             raise ValueError("give exactly one of `year` (CE) or `age_bp` (years before 1950)")
         if (self.file is None) == (self.between is None):
@@ -169,6 +357,9 @@ class OutputConfig(_Section):
     maps: bool = True
     geotiff: bool = False
     report: bool = True
+    #: map projection: "lonlat" (plain latitude-longitude), "equal_area" (Lambert azimuthal
+    #: equal-area centred on the region) or "polar" (the same centred on the nearer pole)
+    projection: Literal["lonlat", "equal_area", "polar"] = "lonlat"
 
 
 class Config(_Section):
@@ -185,31 +376,77 @@ class Config(_Section):
     #: path of the TOML file this came from (not a key)
     source: Path | None = Field(default=None, exclude=True)
 
-    def check_files(self) -> None:
-        """Raise :class:`InputFileError` naming the key of the first input file that is missing."""
-        keys: list[tuple[str, Path | None]] = [
-            ("climate.baseline", self.climate.baseline),
-            ("climate.elevation", self.climate.elevation),
+    def climate_inputs(self) -> list[tuple[str, ClimateInput, str, str | None]]:
+        """Every climate input of the run as ``(config key, input, role, model)``."""
+        c = self.climate
+        role = "monthly" if c.baseline_kind == "monthly" else "bioclim"
+        out: list[tuple[str, ClimateInput, str, str | None]] = [
+            ("climate.baseline", c.baseline, role, None),
+            ("climate.elevation", c.elevation, "elevation", None),
+        ]
+        out += [(f"climate.models.{k}", v, "monthly", k) for k, v in c.models.items()]
+        seen: set[str] = set()
+        for spec in self.slice_specs():
+            for end in (spec.between or [spec]):
+                if end.source is not None and end.label not in seen:
+                    seen.add(end.label)
+                    out.append((f"slices[{end.index}].file ({end.label})", end.source, end.kind,
+                                end.model))
+            if spec.ice is not None and f"ice:{spec.label}" not in seen:
+                seen.add(f"ice:{spec.label}")
+                out.append((f"slices[{spec.index}].ice ({spec.label})", spec.ice, "ice",
+                            spec.model))
+        return out
+
+    def input_files(self) -> dict[str, list]:
+        """Config key -> sorted input files (:class:`~timeslice.readers.filesets.InputFile`).
+
+        Every path, glob and ``{variable}``/``{month}`` pattern is expanded once here; the
+        stage cache, the manifest and ``rerun`` all use this list.
+        """
+        from timeslice.readers.filesets import InputFile
+
+        files: dict[str, list] = {}
+        for key, inp, role, model in self.climate_inputs():
+            files[key] = inp.expand(key=f"{self.source}: {key}" if self.source else key,
+                                    role=role, model=model)
+        for key, path in (
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
-        ]
-        keys += [(f"climate.models.{k}", v) for k, v in self.climate.models.items()]
-        keys += [(f"slices[{i}].ice", s.ice) for i, s in enumerate(self.slices)]
-        for key, path in keys:
-            if path is not None and not _exists(path):
+        ):
+            if path is not None:
+                files[key] = [InputFile(Path(path))]
+        return files
+
+    def check_files(self, *, headers: bool = True) -> dict[str, list]:
+        """Refuse, before any work, an input that is missing, unreadable, unsupported or whose
+        files disagree on the grid; return :meth:`input_files`.
+
+        Raises :class:`InputFileError` (or :class:`ConfigError`) naming the key.
+        """
+        from timeslice.readers.filesets import check_file_set
+
+        files = self.input_files()
+        for key, path in (
+            ("species.occurrences", self.species.occurrences),
+            ("species.dated_records", self.species.dated_records),
+            ("niche.calibration_mask", self.niche.calibration_mask),
+            ("niche.background_file", self.niche.background_file),
+        ):
+            if path is not None and not Path(path).exists():
                 raise InputFileError(
                     f"{self.source}: {key} = {str(path)!r}: file not found; fix the path "
                     "(relative paths are read from the config file's folder)"
                 )
-        for spec in self.slice_specs():
-            for f in spec.files():
-                if not _exists(f):
-                    raise InputFileError(
-                        f"{self.source}: slice {spec.label!r} (slices file pattern): "
-                        f"{str(f)!r} not found; fix the path or the model list"
-                    )
+        if headers:
+            inputs = {key: inp for key, inp, _, _ in self.climate_inputs()}
+            for key, inp in inputs.items():
+                pats = inp.patterns()
+                check_file_set(files[key], key=f"{self.source}: {key}" if self.source else key,
+                               pattern=pats[0] if len(pats) == 1 else None)
+        return files
 
     def _spec(self, i: int, s: SliceConfig, m: str) -> SliceSpec:
         year = s.year if s.year is not None else 1950.0 - float(s.age_bp)
@@ -237,18 +474,37 @@ class Config(_Section):
                     f"{self.source}: slices[{i}] ({s.name!r}) year {year:g} is not between the "
                     f"years of {s.between} ({lo:g}, {hi:g}); interpolation does not extrapolate"
                 )
+        from timeslice.readers.filesets import substitute_model
+
+        model_input = self.climate.models[m]
+        source = None
+        if s.file is not None:
+            pats = [s.file] if isinstance(s.file, str) else list(s.file)
+            pats = [str(_resolve(self.source, substitute_model(p, m))) for p in pats]
+            # the model's options describe its files; the slice's own options override them
+            source = ClimateInput(files=pats if len(pats) > 1 else pats[0],
+                                  units=model_input.units, scale=model_input.scale,
+                                  aliases=model_input.aliases,
+                                  variables=model_input.variables).merged(s.options())
+        ice = None
+        if s.ice is not None:
+            ipats = [str(_resolve(self.source, substitute_model(p, m))) for p in s.ice.patterns()]
+            ice = s.ice.model_copy(update={"files": ipats if len(ipats) > 1 else ipats[0]})
         return SliceSpec(
             label=f"{m}_{s.scenario}_{s.name}" if s.scenario != "past" else f"{m}_{s.name}",
+            index=i,
             model=m,
             scenario=s.scenario,
             period=period,
             year=year,
-            file=_resolve(self.source, s.file.format(model=m)) if s.file else None,
+            file=Path(source.patterns()[0]) if source is not None else None,
+            source=source,
             kind=s.kind,
             between=ends or None,
-            model_baseline=self.climate.models[m],
+            model_baseline=model_input.model_copy(update={"files": [
+                substitute_model(p, m) for p in model_input.patterns()]}),
             sea_level=s.sea_level,
-            ice=s.ice,
+            ice=ice,
         )
 
     def slice_specs(self) -> list[SliceSpec]:
@@ -284,29 +540,30 @@ class SliceSpec(BaseModel):
     """One fully resolved slice of the run."""
 
     label: str
+    #: position of the slice's entry in ``[[slices]]`` (for messages)
+    index: int = 0
     model: str
     scenario: str
     period: str
     year: float
+    #: the first file or pattern of `source` (None for an interpolated slice)
     file: Path | None
+    #: the slice's files with the options that describe them
+    source: ClimateInput | None = None
     kind: Literal["monthly", "bioclim"] = "monthly"
     between: list[SliceSpec] | None = None
-    model_baseline: Path
+    model_baseline: ClimateInput
     sea_level: float = 0.0
-    ice: Path | None = None
+    ice: ClimateInput | None = None
 
-    def files(self) -> list[Path]:
-        """Every model file this slice is built from."""
+    def files(self) -> list:
+        """Every model file this slice is built from (expanded, sorted)."""
         if self.between:
             return [f for e in self.between for f in e.files()]
-        return [self.file] if self.file is not None else []
-
-
-def _exists(path: Path) -> bool:
-    """True for an existing file, or a glob pattern matching at least one file."""
-    if any(ch in str(path) for ch in "*?["):
-        return bool(list(path.parent.glob(path.name)))
-    return path.exists()
+        if self.source is None:
+            return []
+        return self.source.expand(key=f"slices[{self.index}].file ({self.label})",
+                                  role=self.kind, model=self.model)
 
 
 def _resolve(base: Path | None, p: str | Path) -> Path:
@@ -314,6 +571,38 @@ def _resolve(base: Path | None, p: str | Path) -> Path:
     if base is not None and not p.is_absolute():
         p = (base.parent / p).resolve()
     return p
+
+
+def _resolve_input(base: Path | None, inp: ClimateInput) -> ClimateInput:
+    pats = [str(_resolve(base, p)) for p in inp.patterns()]
+    return inp.model_copy(update={"files": pats if isinstance(inp.files, list) else pats[0]})
+
+
+def _check_patterns(cfg: Config, source: str) -> None:
+    """Malformed patterns and impossible units are refused at load, naming the key."""
+    from timeslice.readers.filesets import check_pattern
+
+    c = cfg.climate
+    checks: list[tuple[str, ClimateInput | None, tuple[str, ...]]] = [
+        ("climate.baseline", c.baseline, ("variable", "month")),
+        ("climate.elevation", c.elevation, ()),
+    ]
+    checks += [(f"climate.models.{k}", v, ("model", "variable", "month"))
+               for k, v in c.models.items()]
+    for i, s in enumerate(cfg.slices):
+        if s.file is not None:
+            pats = [s.file] if isinstance(s.file, str) else s.file
+            opts = ClimateInput(files=pats, units=s.units, scale=s.scale)
+            checks.append((f"slices[{i}].file", opts, ("model", "variable", "month")))
+        checks.append((f"slices[{i}].ice", s.ice, ("model",)))
+    for key, inp, allowed in checks:
+        if inp is None:
+            continue
+        for pat in inp.patterns():
+            check_pattern(pat, key=f"{source}: {key}", allowed=allowed)
+        _check_units(source, key, inp)
+    for k, v in c.models.items():
+        _check_units(source, f"climate.models.{k}", v)
 
 
 def _section_keys(model: type[BaseModel]) -> list[str]:
@@ -326,6 +615,9 @@ _SECTIONS: dict[str, type[BaseModel]] = {
     "grid": GridConfig,
     "climate": ClimateConfig,
     "slices": SliceConfig,
+    "baseline": ClimateInput,
+    "elevation": ClimateInput,
+    "ice": ClimateInput,
     "species": SpeciesConfig,
     "niche": NicheConfig,
     "transfer": TransferConfig,
@@ -362,12 +654,16 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
     cfg.source = src.resolve() if src.name != "<config>" else None
     base = cfg.source
     c = cfg.climate
-    c.baseline = _resolve(base, c.baseline)
-    c.elevation = _resolve(base, c.elevation)
-    c.models = {k: _resolve(base, v) for k, v in c.models.items()}
+    c.baseline = _resolve_input(base, c.baseline)
+    c.elevation = _resolve_input(base, c.elevation)
+    c.models = {k: _resolve_input(base, v) for k, v in c.models.items()}
     for s in cfg.slices:
         if s.ice is not None:
-            s.ice = _resolve(base, s.ice)
+            s.ice = _resolve_input(base, s.ice)
+        if s.file is not None:
+            s.file = (str(_resolve(base, s.file)) if isinstance(s.file, str)
+                      else [str(_resolve(base, f)) for f in s.file])
+    _check_patterns(cfg, str(source))
     cfg.species.occurrences = _resolve(base, cfg.species.occurrences)
     if cfg.species.dated_records is not None:
         cfg.species.dated_records = _resolve(base, cfg.species.dated_records)

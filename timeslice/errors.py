@@ -13,6 +13,7 @@ __all__ = [
     "InputFileError",
     "TimesliceError",
     "TimesliceWarning",
+    "shorten",
 ]
 
 
@@ -34,3 +35,21 @@ class DataError(TimesliceError):
 
 class TimesliceWarning(UserWarning):
     """Something was repaired or skipped; the run goes on."""
+
+
+def shorten(text: str, width: int = 300) -> str:
+    """`text` on one line, cut at a word boundary to at most `width` characters (with "…").
+
+    Examples
+    --------
+    >>> shorten("cannot be read as NetCDF because the header is damaged", 30)
+    'cannot be read as NetCDF…'
+    """
+    one = " ".join(str(text).split())
+    if len(one) <= width:
+        return one
+    cut = one[: width - 1]
+    space = cut.rfind(" ")
+    if space > width // 2:
+        cut = cut[:space]
+    return cut.rstrip(" ,;:") + "…"

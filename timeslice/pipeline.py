@@ -27,7 +27,7 @@ import xarray as xr
 from timeslice import __version__
 from timeslice.cache import StageCache, content_key, file_digest
 from timeslice.config import Config, SliceSpec
-from timeslice.errors import DataError, TimesliceError, TimesliceWarning
+from timeslice.errors import DataError, InputFileError, TimesliceError, TimesliceWarning
 
 __all__ = ["RunResult", "fit_stage", "harmonise_stage", "run", "summarise_stage", "transfer_stage"]
 
@@ -77,20 +77,23 @@ def _about(path: Path | str | None) -> Iterator[None]:
 _YEARS = re.compile(r"\s*-?\d{1,5}\s*-\s*-?\d{1,5}\s*")
 
 
-def _open(path: Path, c=None, *, period: str | None = None, require=None):
-    """Open a climate file with the config's aliases, units and scale factors.
+def _open(inp, c, *, files=None, period: str | None = None, require=None, role="monthly",
+          model=None, key: str = "climate input"):
+    """Open one climate input with its own aliases, units and scale factors.
 
-    A period of the form 'YYYY-YYYY' is passed on, so multi-year monthly series are reduced to
-    the climatology of those years (12-step climatologies ignore it).
+    `inp` is a :class:`~timeslice.config.ClimateInput`; `files` its expanded file list (from
+    :meth:`Config.input_files`, so the files read are those hashed). A period of the form
+    'YYYY-YYYY' is passed on, so multi-year series are reduced to the climatology of those
+    years (12-step climatologies ignore it).
     """
     from timeslice.readers import open_climate
 
-    kw: dict[str, Any] = {}
-    if c is not None:
-        kw = {"aliases": c.aliases or None, "units": c.units or None, "scale": c.scale or None}
+    if files is None:
+        files = inp.expand(key=key, role=role, model=model)
+    kw: dict[str, Any] = inp.reader_options(c.aliases)
     if period is not None and _YEARS.fullmatch(period):
         kw["period"] = period
-    return open_climate(path, require=require, **kw)
+    return open_climate(files, require=require, **kw)
 
 
 def _ice_field(ds: xr.Dataset) -> xr.DataArray:
@@ -117,12 +120,16 @@ def harmonise_stage(
     from timeslice.harmonise.prepare import prepare_slice
     from timeslice.harmonise.regrid import regrid
 
+    from timeslice.harmonise.plausibility import check_change
+    from timeslice.readers.filesets import file_set_digest
+
     c = cfg.climate
     specs = cfg.slice_specs()
     monthly = c.baseline_kind == "monthly"
-    fine = _open(c.baseline, c, period=c.baseline_period,
+    files = cfg.input_files()
+    fine = _open(c.baseline, c, files=files["climate.baseline"], period=c.baseline_period,
                  require=["tasmin", "tasmax", "pr"] if monthly else None)
-    elev_ds = _open(c.elevation, c)
+    elev_ds = _open(c.elevation, c, files=files["climate.elevation"])
     elev = elev_ds["elevation"] if "elevation" in elev_ds else elev_ds[list(elev_ds.data_vars)[0]]
     if cfg.grid is not None:
         g = cfg.grid
@@ -137,7 +144,8 @@ def harmonise_stage(
         elev = regrid(elev, fine) if elev.sizes != {k: fine.sizes[k] for k in ("lat", "lon")} else elev
 
     base_key = content_key(
-        "baseline", file_digest(c.baseline), file_digest(c.elevation),
+        "baseline", file_set_digest(files["climate.baseline"]),
+        file_set_digest(files["climate.elevation"]),
         cfg.grid.model_dump() if cfg.grid else None, c.model_dump(mode="json", exclude={"models"}),
     )
     common = dict(
@@ -156,40 +164,56 @@ def harmonise_stage(
         ), [("fine_baseline", fine), ("elevation", elev_ds)]),
     )
     progress("harmonise", 1, total)
-    rows = [_input_row(c.baseline_label, "observed", "baseline", c.baseline, baseline)]
+    rows = [_input_row(c.baseline_label, "observed", "baseline",
+                       _shown(files["climate.baseline"]), baseline)]
     model_baselines: dict[str, xr.Dataset] = {}
     slices: list[xr.Dataset] = []
     for i, spec in enumerate(specs):
+        slice_files = spec.files()
+        mb_files = files[f"climate.models.{spec.model}"]
+        ice_files = (spec.ice.expand(key=f"slices[{spec.index}].ice", role="ice", model=spec.model)
+                     if spec.ice else None)
         key = content_key(
-            base_key, spec.model_dump(mode="json"), [file_digest(f) for f in spec.files()],
-            file_digest(spec.model_baseline), file_digest(spec.ice) if spec.ice else None,
+            base_key, spec.model_dump(mode="json"), file_set_digest(slice_files),
+            file_set_digest(mb_files), file_set_digest(ice_files) if ice_files else None,
         )
 
-        def compute(spec: SliceSpec = spec) -> xr.Dataset:
-            ice_ds = _open(spec.ice, c) if spec.ice else None
+        def compute(spec: SliceSpec = spec, mb_files=mb_files, ice_files=ice_files) -> xr.Dataset:
+            ice_ds = _open(spec.ice, c, files=ice_files) if spec.ice else None
             ice = _ice_field(ice_ds) if ice_ds is not None else None
             used = [("ice", ice_ds)] if ice_ds is not None else []
             meta = dict(label=spec.label, year=spec.year, period=spec.period, model=spec.model,
                         scenario=spec.scenario, sea_level=spec.sea_level, ice=ice)
             if spec.kind == "bioclim":
                 with _about(spec.file):
-                    bio = _open(spec.file, c, period=spec.period)
+                    bio = _open(spec.source, c, period=spec.period, role="bioclim",
+                                key=f"slices[{spec.index}].file")
                     return _with_inputs(prepare_slice(fine_baseline=fine if monthly else None,
                                                       bio=bio, **meta, **common),
                                         [("bioclim_slice", bio), *used])
             if spec.model not in model_baselines:
                 model_baselines[spec.model] = _open(
-                    spec.model_baseline, c, period=c.baseline_period, require=["tasmin", "tasmax", "pr"])
+                    spec.model_baseline, c, files=mb_files, period=c.baseline_period,
+                    require=["tasmin", "tasmax", "pr"])
+            mb_name = _shown(mb_files)
             if spec.between:
                 a, b = spec.between
                 with _about(a.file):
-                    raw = between(_open(a.file, c, period=a.period), _open(b.file, c, period=b.period),
-                                  spec.year, year_a=a.year, year_b=b.year,
+                    raw_a = _open(a.source, c, period=a.period, key=f"slices[{a.index}].file")
+                    raw_b = _open(b.source, c, period=b.period, key=f"slices[{b.index}].file")
+                    check_change(raw_a, model_baselines[spec.model], slice_source=_shown(a.files()),
+                                 baseline_source=mb_name)
+                    check_change(raw_b, model_baselines[spec.model], slice_source=_shown(b.files()),
+                                 baseline_source=mb_name)
+                    raw = between(raw_a, raw_b, spec.year, year_a=a.year, year_b=b.year,
                                   sea_level_a=a.sea_level, sea_level_b=b.sea_level)
                 src = f"{a.file.name} + {b.file.name}"
             else:
                 with _about(spec.file):
-                    raw = _open(spec.file, c, period=spec.period, require=["tasmin", "tasmax", "pr"])
+                    raw = _open(spec.source, c, files=spec.files(), period=spec.period,
+                                require=["tasmin", "tasmax", "pr"], key=f"slices[{spec.index}].file")
+                    check_change(raw, model_baselines[spec.model], slice_source=_shown(spec.files()),
+                                 baseline_source=mb_name)
                 src = spec.file
             with _about(src):
                 return _with_inputs(
@@ -199,12 +223,20 @@ def harmonise_stage(
 
         ds = cache.dataset("harmonise", key, compute)
         slices.append(ds)
-        src = spec.file if spec.file is not None else " + ".join(str(f.name) for f in spec.files())
+        src = _shown(slice_files)
         rows.append(_input_row(spec.label, spec.model, spec.scenario, src, ds))
         progress("harmonise", i + 2, total)
     inputs = pd.concat([pd.read_json(io.StringIO(ds.attrs.get("input_rows", "[]")), orient="records")
                         for ds in [baseline, *slices]], ignore_index=True)
     return baseline, slices, {"inputs": inputs, "slice_land": pd.DataFrame(rows)}
+
+
+def _shown(files) -> str:
+    """A file list as shown in tables and messages: the one name, or the first and a count."""
+    names = [Path(getattr(f, "path", f)).name for f in files]
+    if not names:
+        return ""
+    return names[0] if len(names) == 1 else f"{names[0]} (+{len(names) - 1} files)"
 
 
 def _with_inputs(ds: xr.Dataset, used: list[tuple[str, xr.Dataset]]) -> xr.Dataset:
@@ -232,7 +264,7 @@ def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
         "slice": label,
         "model": model,
         "scenario": scenario,
-        "file": Path(path).name,
+        "file": Path(path).name if not str(path).endswith("files)") else str(path),
         "sea_level_m": float(ds.attrs.get("sea_level", 0.0)),
         "land_km2": float(ds.attrs["land_km2"]),
         "steps": steps,
@@ -428,20 +460,23 @@ def report_stage(
     refuge = "refugium_window" if "refugium_window" in series else "refugium"
     if cfg.output.maps:
         maps = out / "maps"
-        R.slice_maps(series, maps)
+        proj = cfg.output.projection
+        R.slice_maps(series, maps, projection=proj)
         stab = R.stability_map(
-            series, maps / "stability.png", refugium=refuge,
+            series, maps / "stability.png", refugium=refuge, projection=proj,
             variable="stability_window" if "stability_window" in series else "stability")
-        change = R.change_map(series, maps / "panel_change.png")
+        change = R.change_map(series, maps / "panel_change.png", projection=proj)
         headline = [("Stability (fraction of slices suitable) with refugia outlined", stab),
                     ("Gain, loss and stable range against the reference slice", change)]
         figures.append(("Suitability in every slice (shared colour scale; hatched: novel "
-                        "climate, MESS < 0)", R.series_panel(series, maps / "panel_suitability.png")))
+                        "climate, MESS < 0)", R.series_panel(series, maps / "panel_suitability.png",
+                                                             projection=proj)))
         figures.append(("Novel climate: MESS per slice (negative = outside the calibration "
-                        "range)", R.novelty_map(series, maps / "panel_mess.png")))
+                        "range)", R.novelty_map(series, maps / "panel_mess.png", projection=proj)))
         figures.append(("Novel climate by ExDet: outside the univariate range (NT1 < 0) or a "
                         "novel combination (NT2 > 1)",
-                        R.novelty_map(series, maps / "panel_exdet.png", variable="exdet")))
+                        R.novelty_map(series, maps / "panel_exdet.png", variable="exdet",
+                                      projection=proj)))
         if "reachable_limited" in series:
             future = [str(x) for x, sc in zip(series["slice"].values, series["scenario"].values)
                       if str(sc) not in ("past", "baseline")]
@@ -452,14 +487,15 @@ def report_stage(
                     f"Suitable and reachable under limited movement "
                     f"({cfg.series.dispersal_rate or 'no rate: as occupied'}) at the last period",
                     R.reach_map(series.assign(reachable=series["reachable_limited"]),
-                                maps / "panel_reach.png", slices=pick),
+                                maps / "panel_reach.png", slices=pick, projection=proj),
                 ))
         paths["maps"] = maps
     plots = out / "plots"
     figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
     figures.append(("Gain and loss per slice", R.gain_loss_bars(summary, plots / "gain_loss.png")))
     figures.append(("Range-centroid track", R.centroid_track(
-        summary, plots / "centroid_track.png", land=series["land"].isel(slice=0))))
+        summary, plots / "centroid_track.png", land=series["land"].isel(slice=0),
+        projection=cfg.output.projection)))
     detail = analysis.tables.get("detail") if analysis is not None else None
     if detail is not None and "lat_q50" in detail:
         figures.append(("Latitude and elevation of the suitable range (median, 10-90 % band)",
@@ -533,8 +569,9 @@ def run(
     from timeslice.report import write_manifest
 
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
-    cfg.check_files()
+    # every input is expanded and its headers checked before the output folder is touched
+    input_files = cfg.check_files()
+    _make_out(out)
     cache = StageCache(out / ".cache", force=force)
     result = RunResult(out=out)
     t = result.timings
@@ -564,16 +601,13 @@ def run(
     # the warnings were collected for the report; show them to the user too, once each
     for w in {str(w.message): w for w in caught}.values():
         warnings.showwarning(w.message, w.category, w.filename, w.lineno)
-    inputs_used = [cfg.climate.baseline, cfg.climate.elevation, cfg.species.occurrences,
-                   *cfg.climate.models.values(), *[s.file for s in cfg.slice_specs()],
-                   *[s.ice for s in cfg.slices if s.ice is not None]]
-    if cfg.species.dated_records is not None:
-        inputs_used.append(cfg.species.dated_records)
+    inputs_used = {str(f.path) for fs in input_files.values() for f in fs}
     result.paths["manifest"] = write_manifest(
         {
             "config": cfg.model_dump(mode="json"),
             "config_path": str(cfg.source),
-            "inputs": sorted({str(p) for p in inputs_used}),
+            "inputs": sorted(inputs_used),
+            "input_sets": {k: [str(f.path) for f in fs] for k, fs in input_files.items()},
             "seed": cfg.run.seed,
             "timings": t,
             "command": command or sys.argv,
@@ -587,6 +621,18 @@ def run(
     result.summary = summary
     result.cache_hits, result.cache_misses = cache.hits, cache.misses
     return result
+
+
+def _make_out(out: Path) -> None:
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise InputFileError(
+            f"--out {str(out)!r}: cannot create the output folder ({err.strerror or err}); "
+            "choose a writable folder"
+        ) from err
+    if not os.access(out, os.W_OK):
+        raise InputFileError(f"--out {str(out)!r}: the folder is not writable; choose another")
 
 
 # ----------------------------------------------------------------------------- single stages

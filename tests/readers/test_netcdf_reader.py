@@ -171,7 +171,7 @@ def test_curvilinear_grid_is_refused(tmp_path):
                 "nav_lon": (("y", "x"), -30 + x + 0.1 * y, {"standard_name": "longitude"})},
     )
     ds.to_netcdf(tmp_path / "curvi.nc")
-    with pytest.raises(DataError, match=r"curvi\.nc.*'nav_lon'.*'nav_lat'.*2-D"):
+    with pytest.raises(DataError, match=r"curvi\.nc.*curvilinear grid.*2-D.*regular latitude-longitude"):
         open_climate(tmp_path / "curvi.nc")
 
 

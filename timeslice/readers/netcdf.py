@@ -18,8 +18,9 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from timeslice.errors import DataError, InputFileError
+from timeslice.errors import DataError, InputFileError, shorten
 from timeslice.grid import normalise_lonlat
+from timeslice.readers.filesets import InputFile, sniff_format, unsupported_message
 from timeslice.harmonise.units import (
     SECONDS_PER_DAY,
     days_in_month,
@@ -28,7 +29,7 @@ from timeslice.harmonise.units import (
     temperature_conversion,
 )
 
-__all__ = ["DEFAULT_ALIASES", "open_climate"]
+__all__ = ["DEFAULT_ALIASES", "grid_problem", "open_climate"]
 
 #: Names tried (after CF standard names) for each canonical variable; a user mapping
 #: given as ``aliases`` is tried first.
@@ -69,27 +70,71 @@ _CANONICAL_ATTRS = {
 }
 
 
-def _expand_paths(path) -> list[Path]:
+def _expand_paths(path) -> list[InputFile]:
+    """Files of one input: a path, a glob, a list of them, or :class:`InputFile` entries."""
+    if isinstance(path, InputFile):
+        return [path]
     if isinstance(path, (str, os.PathLike)):
         items = [path]
     elif isinstance(path, Sequence):
         items = list(path)
     else:
         raise InputFileError(f"climate input {path!r}: expected a path, a glob or a list of paths")
-    out: list[Path] = []
+    out: list[InputFile] = []
     for item in items:
+        if isinstance(item, InputFile):
+            out.append(item)
+            continue
         text = os.fspath(item)
         if any(ch in text for ch in "*?["):
             found = sorted(_glob.glob(text))
             if not found:
                 raise InputFileError(f"{text}: the pattern matches no file; check the path")
-            out.extend(Path(f) for f in found)
+            out.extend(InputFile(Path(f)) for f in found)
         else:
             p = Path(text)
+            if p.is_dir():
+                raise InputFileError(f"{text}: is a folder; give the files in it (e.g. '{text}/*.nc')")
             if not p.is_file():
                 raise InputFileError(f"{text}: file not found; check the path in the config")
-            out.append(p)
+            out.append(InputFile(p))
     return out
+
+
+def grid_problem(ds: xr.Dataset, *, source: str) -> str | None:
+    """One-line refusal for a grid timeslice cannot read as a regular lat-lon grid, else None.
+
+    Rotated-pole and projected grids (regional climate models) and curvilinear grids (2-D
+    latitude/longitude) must be remapped to a regular latitude-longitude grid first.
+    """
+    remap = ("regrid it to a regular latitude-longitude grid first, e.g. `cdo remapbil,r720x360 "
+             "in.nc out.nc` (or a grid description of your region), then give that file")
+    for name, var in ds.variables.items():
+        gm = str(var.attrs.get("grid_mapping_name", "")).lower()
+        if gm == "rotated_latitude_longitude":
+            return f"{source}: the file is on a rotated-pole grid (typical of regional climate models); {remap}"
+        if gm and gm != "latitude_longitude":
+            return f"{source}: the file is on a projected grid ({gm!r}); {remap}"
+    for name, var in ds.variables.items():
+        sn = str(var.attrs.get("standard_name", "")).lower()
+        if sn in ("grid_latitude", "grid_longitude") or str(name) in ("rlat", "rlon"):
+            return f"{source}: the file is on a rotated-pole grid ({name!r}); {remap}"
+    for name, var in ds.variables.items():
+        sn = str(var.attrs.get("standard_name", "")).lower()
+        low = str(name).lower()
+        if (sn in ("latitude", "longitude") or low in ("lat", "lon", "latitude", "longitude",
+                                                      "nav_lat", "nav_lon")) and var.ndim == 2:
+            return (f"{source}: the file is on a curvilinear grid (2-D {name!r}); {remap}")
+    from timeslice.grid import find_lonlat
+
+    try:
+        find_lonlat(ds, source=source)
+    except DataError:
+        dims = ", ".join(f"{k}={v}" for k, v in ds.sizes.items()) or "none"
+        return (f"{source}: no latitude/longitude coordinates found (dimensions {dims}); give "
+                "a file on a regular lat-lon grid with CF coordinates (units degrees_north / "
+                "degrees_east)")
+    return None
 
 
 def _decode_months_since(ds: xr.Dataset) -> xr.Dataset:
@@ -114,8 +159,11 @@ def _decode_months_since(ds: xr.Dataset) -> xr.Dataset:
 
 
 def _open_one(path: Path, chunks) -> xr.Dataset:
+    msg = unsupported_message(path, sniff_format(path))
+    if msg:
+        raise InputFileError(msg)
     try:
-        return xr.open_dataset(
+        ds = xr.open_dataset(
             path,
             decode_times=xr.coders.CFDatetimeCoder(use_cftime=True),
             chunks=chunks,
@@ -123,23 +171,29 @@ def _open_one(path: Path, chunks) -> xr.Dataset:
     except ValueError as err:
         if "decode time" not in str(err):
             raise InputFileError(
-                f"{path}: cannot be read as NetCDF ({str(err).splitlines()[0][:120]}); "
+                f"{path}: cannot be read as NetCDF ({shorten(str(err).splitlines()[0], 120)}); "
                 "give a CF NetCDF file"
             ) from err
         # e.g. "months since" in a standard calendar: decode those axes ourselves
         try:
             ds = xr.open_dataset(path, decode_times=False, chunks=chunks)
-        except (OSError, ValueError) as err2:
+        except (OSError, ValueError, RuntimeError) as err2:
             raise InputFileError(
-                f"{path}: cannot be read as NetCDF ({str(err2).splitlines()[0][:120]}); "
+                f"{path}: cannot be read as NetCDF ({shorten(str(err2).splitlines()[0], 120)}); "
                 "give a CF NetCDF file"
             ) from err2
-        return _decode_months_since(ds)
-    except OSError as err:
+        ds = _decode_months_since(ds)
+    except (OSError, RuntimeError) as err:
         raise InputFileError(
-            f"{path}: cannot be read as NetCDF ({type(err).__name__}: {str(err).splitlines()[0][:120]}); "
-            "give a CF NetCDF file"
+            f"{path}: cannot be read as NetCDF ({type(err).__name__}: "
+            f"{shorten(str(err).splitlines()[0] if str(err) else '', 120)}); the file may be "
+            "damaged or incomplete: copy or download it again"
         ) from err
+    problem = grid_problem(ds, source=str(path))
+    if problem:
+        ds.close()
+        raise DataError(problem)
+    return ds
 
 
 def _aux_names(ds: xr.Dataset) -> set[str]:
@@ -296,7 +350,14 @@ def _to_monthly(
             "give CF `units` ('days since ...') and `calendar` attributes"
         ) from err
     n = times.size
-    is_clim = n == 12 and sorted(months.tolist()) == list(range(1, 13))
+    freq = time_frequency(times)
+    is_clim = n == 12 and sorted(months.tolist()) == list(range(1, 13)) and freq != "daily"
+    if freq == "annual" and not is_clim:
+        raise DataError(
+            f"{source}: {variable!r} is annual ({n} yearly steps, {years.min()}-{years.max()}); "
+            "monthly climatologies and bioclimatic variables need monthly (or daily) values: "
+            "give the monthly file of this variable"
+        )
     if is_clim:
         if kind == "per_second":
             secs = days_in_month(calendar, source=source)[months - 1] * SECONDS_PER_DAY
@@ -313,8 +374,9 @@ def _to_monthly(
         return da
     if period is None:
         raise DataError(
-            f"{source}: {variable!r} has a {n}-step time axis that is not a 12-month "
-            "climatology; give the slice's `period` (e.g. '1971-2000') to average over"
+            f"{source}: {variable!r} is a {freq} series of {n} steps ({years.min()}-"
+            f"{years.max()}), not a 12-month climatology; give the slice's `period` (e.g. "
+            "'1971-2000') to average over"
         )
     y0, y1 = _parse_period(period, source)
     if years.min() > y0 or years.max() < y1:
@@ -341,11 +403,34 @@ def _to_monthly(
         sub = offset + factor * sub if (factor != 1.0 or offset != 0.0) else sub
     sub = sub.assign_coords(month=(tname, m_sel))
     clim = sub.groupby("month").mean(tname, keep_attrs=True)
+    span = f"{y0}" if y0 == y1 else f"{y0}-{y1}"
     log.append(
-        f"{variable}: climatology of {y0}-{y1} from {int(sel.sum())} monthly steps "
-        f"(calendar {calendar!r})"
+        f"{variable}: {freq}, {int(sel.sum())} steps, {calendar}, averaged to 12 monthly means "
+        f"over {span}"
     )
     return clim
+
+
+def time_frequency(times) -> str:
+    """``"daily"``, ``"sub-daily"``, ``"monthly"``, ``"annual"`` or ``"irregular"`` from the
+    median spacing of a decoded time axis (cftime or datetime64)."""
+    n = len(times)
+    if n < 2:
+        return "single-step"
+    try:
+        diffs = np.array([(b - a).total_seconds() for a, b in zip(times[:-1], times[1:])])
+    except (AttributeError, TypeError):
+        diffs = np.diff(np.asarray(times, dtype="datetime64[s]")).astype(float)
+    days = float(np.median(np.abs(diffs))) / 86400.0
+    if days < 0.9:
+        return "sub-daily"
+    if days < 1.5:
+        return "daily"
+    if 27.0 <= days <= 32.0:
+        return "monthly"
+    if 359.0 <= days <= 367.0:
+        return "annual"
+    return "irregular"
 
 
 def open_climate(
@@ -360,6 +445,7 @@ def open_climate(
     variable: str | None = None,
     units: str | Mapping[str, str] | None = None,
     band_names: Sequence[str] | None = None,
+    check: bool = True,
 ) -> xr.Dataset:
     """Open CF NetCDF climate data as a canonical Dataset.
 
@@ -381,8 +467,15 @@ def open_climate(
         Canonical variables that must be present.
     chunks : optional
         Passed to :func:`xarray.open_dataset` (e.g. ``{}`` or ``{"lat": 256}`` for dask).
-    variable, units, band_names : optional
+    units : str or mapping, optional
+        Units of the stored values per canonical variable, used instead of the file's own
+        ``units`` attribute (with a log line when they differ): for files that do not say, or
+        say wrongly.
+    variable, band_names : optional
         For GeoTIFF / ESRI ASCII inputs only; see :func:`timeslice.readers.open_raster`.
+    check : bool, default True
+        Stop when a converted field is physically implausible
+        (:func:`timeslice.harmonise.plausibility.check_fields`).
 
     Returns
     -------
@@ -398,7 +491,8 @@ def open_climate(
     series uses each year's own month lengths before averaging.
     """
     paths = _expand_paths(path)
-    src = source or (str(paths[0]) if len(paths) == 1 else f"{paths[0]} (+{len(paths) - 1} files)")
+    src = source or (str(paths[0].path) if len(paths) == 1
+                     else f"{paths[0].path} (+{len(paths) - 1} files)")
     log: list[str] = []
     import netCDF4
 
@@ -409,56 +503,80 @@ def open_climate(
     periods: dict[str, str] = {}
     calendars: set[str] = set()
     time_kinds: set[str] = set()
-    for p in paths:
+    pieces: dict[str, list[tuple]] = {}
+    items_all: list[tuple[str, xr.DataArray, str]] = []
+    for entry in paths:
+        p = entry.path
         fsrc = source or str(p)
-        if p.suffix.lower() in _RASTER_SUFFIXES:
+        kind = sniff_format(p)
+        msg = unsupported_message(p, kind)
+        if msg:
+            raise InputFileError(msg)
+        if kind == "raster":
             from timeslice.readers.raster import open_raster
 
             canon_ds = open_raster(
-                p, variable=variable, band_names=band_names, units=units, scale=scale,
-                source=fsrc, aliases=aliases,
+                p, variable=entry.variable or variable, band_names=band_names, units=units,
+                scale=scale, source=fsrc, aliases=aliases, month=entry.month,
             )
             found_names.extend(str(v) for v in canon_ds.data_vars)
             log.extend(json.loads(canon_ds.attrs.get("harmonise_log", "[]")))
             if not global_attrs:
                 global_attrs = {k: v for k, v in canon_ds.attrs.items()
                                 if k not in ("harmonise_log", "source_files")}
-            items = [(str(k), v) for k, v in canon_ds.data_vars.items()]
-        else:
-            ds = _open_one(p, chunks)
-            if not global_attrs:
-                global_attrs = dict(ds.attrs)
-            found_names.extend(str(v) for v in ds.data_vars)
-            fp = _file_period(ds)
-            if fp is not None:
-                periods[str(p)] = fp
-            mapping = _identify(ds, aliases, fsrc)
-            for name in mapping.values():
-                tn = _time_name(ds[name], ds)
-                if tn is not None:
-                    calendars.add(_calendar(ds, tn))
-                    time_kinds.add("12-step climatology" if ds.sizes[tn] == 12
-                                   else f"{ds.sizes[tn]} monthly steps")
-            items = []
-            for canon, name in mapping.items():
-                da = normalise_lonlat(ds[name], source=fsrc)
-                items.append((canon, _convert(
-                    da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log
-                )))
-        for canon, da in items:
-            if canon in out_vars and _partial_months(out_vars[canon], da):
-                out_vars[canon] = xr.concat(
-                    [out_vars[canon], da.assign_coords(lat=out_vars[canon]["lat"],
-                                                       lon=out_vars[canon]["lon"])],
-                    dim="month",
-                ).sortby("month")
-                continue
-            if canon in out_vars:
-                raise DataError(
-                    f"{fsrc}: variable {canon!r} is given twice (also in an earlier file); "
-                    "give each variable once"
-                )
-            out_vars[canon] = da
+            for k, v in canon_ds.data_vars.items():
+                v.attrs["source_file"] = str(p)
+                items_all.append((str(k), v, fsrc))
+            continue
+        ds = _open_one(p, chunks)
+        if not global_attrs:
+            global_attrs = dict(ds.attrs)
+        found_names.extend(str(v) for v in ds.data_vars)
+        fp = _file_period(ds)
+        if fp is not None:
+            periods[str(p)] = fp
+        mapping = _identify(ds, aliases, fsrc)
+        if entry.variable is not None:
+            mapping = _tagged(ds, mapping, entry.variable, fsrc)
+        for name in mapping.values():
+            tn = _time_name(ds[name], ds)
+            if tn is not None:
+                calendars.add(_calendar(ds, tn))
+                freq = time_frequency(ds[tn].values)
+                time_kinds.add("12-step climatology" if ds.sizes[tn] == 12 and freq != "daily"
+                               else f"{freq}, {ds.sizes[tn]} steps")
+        for canon, name in mapping.items():
+            da = normalise_lonlat(ds[name], source=fsrc)
+            tn = _time_name(da, ds)
+            if entry.month is not None:
+                da = _one_month(da, tn, entry.month, fsrc, canon)
+                tn = None
+            pieces.setdefault(canon if tn is not None else f"{canon}|{p}", []).append(
+                (canon, da, ds, name, fsrc, tn))
+    for group in pieces.values():
+        canon, da, ds, name, fsrc, tn = group[0]
+        if len(group) > 1:
+            da, fsrc = _join_in_time(group)
+        da.attrs["source_file"] = fsrc
+        conv = _convert(da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log,
+                        declared_units=_units_for(units, canon))
+        conv.attrs["source_file"] = fsrc
+        items_all.append((canon, conv, fsrc))
+    for canon, da, fsrc in items_all:
+        if canon in out_vars and _partial_months(out_vars[canon], da):
+            out_vars[canon] = xr.concat(
+                [out_vars[canon], da.assign_coords(lat=out_vars[canon]["lat"],
+                                                   lon=out_vars[canon]["lon"])],
+                dim="month", combine_attrs="override",
+            ).sortby("month")
+            continue
+        if canon in out_vars:
+            raise DataError(
+                f"{fsrc}: variable {canon!r} is given twice (also in "
+                f"{out_vars[canon].attrs.get('source_file', 'an earlier file')}); give each "
+                "variable once (or each month once)"
+            )
+        out_vars[canon] = da
     if period is not None and periods:
         try:
             want = "{}-{}".format(*_parse_period(period, src))
@@ -508,8 +626,12 @@ def open_climate(
     out = xr.Dataset(out_vars)
     if "pr" in out:
         out["pr"] = _check_negative_pr(out["pr"], src, log)
+    if check:
+        from timeslice.harmonise.plausibility import check_fields
+
+        check_fields(out, source=src)
     info = {
-        "files": [str(p) for p in paths],
+        "files": [str(p.path) for p in paths],
         "grid": f"{ref['lat'].size} x {ref['lon'].size}",
         "lat_range": [float(ref["lat"].min()), float(ref["lat"].max())],
         "lon_range": [float(ref["lon"].min()), float(ref["lon"].max())],
@@ -523,7 +645,7 @@ def open_climate(
     }
     keep = {k: v for k, v in global_attrs.items() if isinstance(v, (str, int, float))}
     out.attrs.update(keep)
-    out.attrs["source_files"] = json.dumps([str(p) for p in paths])
+    out.attrs["source_files"] = json.dumps([str(p.path) for p in paths])
     out.attrs["harmonise_log"] = json.dumps(log)
     out.attrs["source_info"] = json.dumps(info)
     return out
@@ -570,6 +692,93 @@ def _partial_months(a: xr.DataArray, b: xr.DataArray) -> bool:
     return not set(a["month"].values.tolist()) & set(b["month"].values.tolist())
 
 
+def _units_for(units, canon: str) -> str | None:
+    """Declared units of one canonical variable (a mapping per variable, or one string)."""
+    if units is None:
+        return None
+    if isinstance(units, Mapping):
+        value = units.get(canon)
+        return None if value is None else str(value)
+    return str(units)
+
+
+def _tagged(ds: xr.Dataset, mapping: dict[str, str], canon: str, source: str) -> dict[str, str]:
+    """Keep only the variable a ``{variable}`` pattern says the file holds."""
+    if canon in mapping:
+        return {canon: mapping[canon]}
+    aux = _aux_names(ds)
+    data = [str(v) for v in ds.data_vars if str(v) not in aux and ds[v].ndim >= 2]
+    if len(data) == 1:
+        return {canon: data[0]}
+    raise DataError(
+        f"{source}: the file pattern says it holds {canon!r}, but none of its variables "
+        f"({', '.join(data) or 'none'}) is recognisable as {canon!r}; map it with "
+        f"aliases = {{{canon} = \"NAME\"}}"
+    )
+
+
+def _one_month(da: xr.DataArray, tname: str | None, month: int, source: str,
+               canon: str) -> xr.DataArray:
+    """A file of one month (named by a ``{month}`` pattern) as a one-month layer."""
+    if "month" in da.dims:
+        if da.sizes["month"] != 1:
+            raise DataError(
+                f"{source}: the pattern names month {month} but {canon!r} has "
+                f"{da.sizes['month']} months; give one file per month or drop {{month}}"
+            )
+        return da.assign_coords(month=[month])
+    if tname is not None:
+        if da.sizes[tname] != 1:
+            raise DataError(
+                f"{source}: the pattern names month {month} but {canon!r} has "
+                f"{da.sizes[tname]} time steps; give one file per month or drop {{month}}"
+            )
+        da = da.isel({tname: 0}, drop=True)
+    return da.expand_dims(month=[month])
+
+
+def _join_in_time(group: list[tuple]) -> tuple[xr.DataArray, str]:
+    """Concatenate the files of one variable (one per 5-20 years, as archives ship them)."""
+    canon, first, ds0, name0, src0, tn = group[0]
+    names = [g[4] for g in group]
+    shown = f"{Path(names[0]).name} (+{len(names) - 1} files)"
+    units = {str(g[1].attrs.get("units")) for g in group}
+    if len(units) > 1:
+        raise DataError(
+            f"{shown}: the files of {canon!r} disagree on units ({', '.join(sorted(units))}); "
+            "give files of one units convention per input"
+        )
+    cals = {_calendar(g[2], g[5]) for g in group if g[5] is not None}
+    if len(cals) > 1:
+        raise DataError(
+            f"{shown}: the files of {canon!r} use different calendars ({', '.join(sorted(cals))}); "
+            "give files of one model run"
+        )
+    for g in group[1:]:
+        same = (g[1].sizes.get("lat") == first.sizes.get("lat")
+                and g[1].sizes.get("lon") == first.sizes.get("lon")
+                and np.allclose(g[1]["lat"].values, first["lat"].values, atol=1e-4)
+                and np.allclose(g[1]["lon"].values, first["lon"].values, atol=1e-4))
+        if not same:
+            raise DataError(
+                f"{g[4]}: its grid differs from {Path(src0).name} ({canon!r}); give the files of "
+                "one variable on one grid"
+            )
+    parts = [g[1].rename({g[5]: tn}) if g[5] != tn else g[1] for g in group]
+    joined = xr.concat(parts, dim=tn, combine_attrs="override", coords="minimal",
+                       compat="override", join="override")
+    order = np.argsort(np.array([t for t in joined[tn].values]), kind="stable")
+    joined = joined.isel({tn: order})
+    times = joined[tn].values
+    dup = [str(a) for a, b in zip(times[:-1], times[1:]) if a == b]
+    if dup:
+        raise DataError(
+            f"{shown}: the files of {canon!r} overlap in time (e.g. {dup[0]} twice); give each "
+            "period once"
+        )
+    return joined, shown
+
+
 def _scale_for(scale, canon: str) -> float:
     if scale is None:
         return 1.0
@@ -578,13 +787,21 @@ def _scale_for(scale, canon: str) -> float:
     return float(scale)
 
 
-def _convert(da, ds, canon, name, *, period, scale, source, log) -> xr.DataArray:
+def _convert(da, ds, canon, name, *, period, scale, source, log,
+             declared_units: str | None = None) -> xr.DataArray:
     attrs = dict(da.attrs)
     units = attrs.get("units")
+    if declared_units is not None:
+        if units is not None and str(units).strip() != declared_units.strip():
+            log.append(f"{canon} ({name}): declared units {declared_units!r} used instead of the "
+                       f"file's {str(units)!r}")
+        units = declared_units
+        attrs["units_declared"] = 1
     s = _scale_for(scale, canon)
     if s != 1.0:
         da = da * s
         log.append(f"{canon} ({name}): stored values x {s} (declared scale)")
+        attrs["scale_applied"] = s
     tname = _time_name(da, ds)
     extra = [d for d in da.dims if d not in ("lat", "lon", tname, "month")]
     for d in extra:
@@ -630,6 +847,9 @@ def _convert(da, ds, canon, name, *, period, scale, source, log) -> xr.DataArray
         new_units = "1"
     else:  # bio layers and anything else: keep units
         new_units = units if units is not None else ""
+    if tname is not None and canon not in _MONTHLY and da.sizes[tname] == 1:
+        da = da.isel({tname: 0}, drop=True)  # e.g. a fixed field (orography) with one time step
+        tname = None
     if tname is not None:
         da = _to_monthly(
             da, tname, _calendar(ds, tname), period=period, kind=kind, factor=factor,
@@ -661,7 +881,8 @@ def _convert(da, ds, canon, name, *, period, scale, source, log) -> xr.DataArray
     if np.issubdtype(da.dtype, np.floating) and da.dtype != np.float64:
         da = da.astype(np.float32)
     for k in ("units", "scale_factor", "add_offset", "_FillValue", "missing_value",
-              "valid_range", "valid_min", "valid_max", "cell_methods", "standard_name"):
+              "valid_range", "valid_min", "valid_max", "cell_methods", "standard_name",
+              "source_file"):
         attrs.pop(k, None)
     attrs.update(_CANONICAL_ATTRS.get(canon, {}))
     attrs["units"] = new_units

@@ -71,6 +71,7 @@ def open_raster(
     scale: float | Mapping[str, float] | None = None,
     source: str | None = None,
     aliases: Mapping[str, str | Sequence[str]] | None = None,
+    month: int | None = None,
 ) -> xr.Dataset:
     """Read a GeoTIFF or ESRI ASCII grid as a canonical Dataset.
 
@@ -91,6 +92,9 @@ def open_raster(
         Units of the stored values when the file does not say (rasters rarely do).
     scale : float or mapping, optional
         Multiplier for integer-scaled layers (e.g. 0.1 for degC x 10).
+    month : int, optional
+        The month (1..12) a one-band file holds, as named by a ``{month}`` file pattern;
+        without it the month is read from the end of the file name (``tmin_01.tif``).
 
     Returns
     -------
@@ -157,6 +161,19 @@ def open_raster(
     elif band_names is not None:
         for i, name in enumerate(band_names):
             layers[str(name)] = da.isel(band=i, drop=True)
+    elif nb == 1 and month is not None:
+        mcanon = variable or canon
+        if mcanon not in _MONTHLY:
+            raise DataError(
+                f"{src}: a {{month}} pattern names month {month}, but the variable "
+                f"{mcanon!r} is not monthly; give tasmin, tasmax, tas or pr files per month"
+            )
+        layers[mcanon] = da.assign_coords(band=[int(month)]).rename(band="month")
+    elif month is not None:
+        raise DataError(
+            f"{src}: a {{month}} pattern names month {month}, but the file has {nb} bands; give "
+            "one single-band file per month or drop {month}"
+        )
     elif nb == 1 and _month_file(p.stem, variable, aliases) is not None:
         # one file per month, e.g. tmin_01.tif ... tmin_12.tif: a one-month layer; the
         # reader stacks the twelve files
@@ -186,6 +203,7 @@ def open_raster(
         attrs = dict(base_attrs)
         if u is not None:
             attrs["units"] = u
+            attrs["units_declared"] = 1
         elif name in _MONTHLY or name in ("elevation", "ice"):
             if "units" not in attrs:
                 defaults = {"tasmin": "degC", "tasmax": "degC", "tas": "degC",

@@ -1,0 +1,339 @@
+"""Climate inputs as file sets: single files, globs, lists and ``{variable}``/``{month}`` patterns.
+
+Climate-model archives ship one file per variable (often per 5-20 years) and gridded
+climatologies one raster per variable and month. A config path is expanded here, once, into a
+sorted list of :class:`InputFile` (path plus the variable and month the pattern names), which the
+reader, the stage cache key, the manifest and ``rerun`` all use. :func:`check_file_set` reads only
+the file headers, so a pattern matching nothing, an unsupported file (GRIB, curvilinear or
+rotated-pole grids, no latitude/longitude) or files that disagree on the grid are refused before
+any work starts.
+"""
+
+from __future__ import annotations
+
+import glob as _glob
+import os
+import re
+import string
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+from timeslice.errors import ConfigError, InputFileError, shorten
+
+__all__ = [
+    "InputFile",
+    "PLACEHOLDERS",
+    "check_file_set",
+    "check_pattern",
+    "expand_files",
+    "file_set_digest",
+    "sniff_format",
+    "substitute_model",
+]
+
+#: Placeholders a climate path may hold: ``{model}`` (slice files, one per model),
+#: ``{variable}`` (one file set per canonical variable) and ``{month}`` (1..12; a format spec
+#: such as ``{month:02d}`` gives 01..12).
+PLACEHOLDERS = ("model", "variable", "month")
+
+_GLOB_CHARS = "*?["
+
+
+@dataclass(frozen=True, order=True)
+class InputFile:
+    """One input file and what its path pattern says it holds."""
+
+    path: Path
+    #: canonical variable named by a ``{variable}`` pattern (None: the reader identifies it)
+    variable: str | None = None
+    #: month 1..12 named by a ``{month}`` pattern (None: from the file's own time axis)
+    month: int | None = None
+
+
+def check_pattern(pattern: str, *, key: str, allowed: Iterable[str] = PLACEHOLDERS) -> set[str]:
+    """Placeholders used in `pattern`; raise :class:`ConfigError` naming `key` for a bad one.
+
+    A stray ``{`` or ``}``, an unknown placeholder or a format spec that does not fit a month
+    number is refused with the fix, before any file is touched.
+    """
+    allowed = set(allowed)
+    try:
+        fields = [f for _, f, spec, _ in string.Formatter().parse(pattern) if f is not None]
+    except ValueError as err:
+        raise ConfigError(
+            f"{key} = {pattern!r}: {err}; placeholders are {_names(allowed)}, and a literal "
+            "brace is written '{{' or '}}'"
+        ) from err
+    for f in fields:
+        if f not in allowed:
+            raise ConfigError(
+                f"{key} = {pattern!r}: unknown placeholder {{{f}}}; use {_names(allowed)}"
+            )
+    try:
+        pattern.format(model="m", variable="v", month=1)
+    except (ValueError, TypeError, IndexError, KeyError) as err:
+        raise ConfigError(
+            f"{key} = {pattern!r}: the placeholder format is not valid ({err}); e.g. write "
+            "{month:02d} for 01..12"
+        ) from err
+    return set(fields)
+
+
+def _names(allowed: Iterable[str]) -> str:
+    return ", ".join(f"{{{a}}}" for a in sorted(allowed))
+
+
+def substitute_model(pattern: str, model: str) -> str:
+    """Fill ``{model}`` only, leaving ``{variable}`` and ``{month}`` for :func:`expand_files`."""
+    return re.sub(r"\{model\}", model.replace("\\", "\\\\"), pattern)
+
+
+def expand_files(
+    patterns: str | os.PathLike | Sequence[str | os.PathLike],
+    *,
+    key: str,
+    variables: Mapping[str, str] | None = None,
+) -> list[InputFile]:
+    """Expand paths, globs and ``{variable}``/``{month}`` patterns into sorted input files.
+
+    Parameters
+    ----------
+    patterns : path, glob or list of them
+        Each may hold ``{variable}`` (filled from `variables`) and ``{month}`` (1..12).
+    key : str
+        Config key named in messages (e.g. ``climate.baseline``).
+    variables : mapping, optional
+        Canonical variable -> the text that stands for it in file names (e.g.
+        ``{"tasmin": "tmin"}``); needed when a pattern holds ``{variable}``.
+
+    Returns
+    -------
+    list of InputFile
+        Sorted by path; every file once.
+
+    Raises
+    ------
+    InputFileError
+        A path is missing, or a pattern (with its placeholders filled) matches no file.
+    ConfigError
+        A pattern is malformed, or holds ``{variable}`` without variables to fill it.
+    """
+    items = [patterns] if isinstance(patterns, (str, os.PathLike)) else list(patterns)
+    if not items:
+        raise ConfigError(f"{key}: the list of files is empty; give at least one path")
+    found: dict[Path, InputFile] = {}
+    for item in items:
+        text = os.fspath(item)
+        fields = check_pattern(text, key=key, allowed=("variable", "month"))
+        if "variable" in fields and not variables:
+            raise ConfigError(
+                f"{key} = {text!r}: the pattern holds {{variable}} but no variables are known "
+                "for this input; give `variables` (e.g. {tasmin = \"tmin\"})"
+            )
+        var_items = list(variables.items()) if "variable" in fields else [(None, None)]
+        months: list[int | None] = list(range(1, 13)) if "month" in fields else [None]
+        for canon, token in var_items:
+            for month in months:
+                name = text.format(variable=token, month=month) if fields else text
+                for path in _match(name, pattern=text, key=key):
+                    entry = InputFile(path, canon, month)
+                    old = found.get(path)
+                    if old is not None and old != entry:
+                        raise ConfigError(
+                            f"{key} = {text!r}: {path.name} matches for both "
+                            f"{_what(old)} and {_what(entry)}; make the pattern specific"
+                        )
+                    found[path] = entry
+    return sorted(found.values())
+
+
+def _what(f: InputFile) -> str:
+    parts = [f.variable or "", f"month {f.month}" if f.month else ""]
+    return " ".join(p for p in parts if p) or "the whole file"
+
+
+def _match(name: str, *, pattern: str, key: str) -> list[Path]:
+    if any(ch in name for ch in _GLOB_CHARS):
+        hits = sorted(Path(p) for p in _glob.glob(name) if Path(p).is_file())
+        if not hits:
+            filled = "" if name == pattern else f" (filled: {name!r})"
+            raise InputFileError(
+                f"{key} = {pattern!r}{filled}: the pattern matches no file; check the folder "
+                "and the file names"
+            )
+        return hits
+    p = Path(name)
+    if p.is_dir():
+        raise InputFileError(
+            f"{key} = {pattern!r}: {name!r} is a folder; give the files in it (e.g. "
+            f"'{name.rstrip('/')}/*.nc')"
+        )
+    if not p.is_file():
+        filled = "" if name == pattern else f" (filled: {name!r})"
+        raise InputFileError(
+            f"{key} = {pattern!r}{filled}: file not found; fix the path (relative paths are "
+            "read from the config file's folder)"
+        )
+    return [p]
+
+
+def file_set_digest(files: Iterable[InputFile | str | os.PathLike]) -> str:
+    """SHA-256 over the sorted files' own digests and their tags (the stage cache key)."""
+    import hashlib
+
+    from timeslice.cache import file_digest
+
+    h = hashlib.sha256()
+    entries = sorted(f if isinstance(f, InputFile) else InputFile(Path(f)) for f in files)
+    for f in entries:
+        h.update(f"{f.path.resolve()}|{f.variable}|{f.month}|".encode())
+        h.update(file_digest(f.path).encode())
+    return h.hexdigest()
+
+
+# ----------------------------------------------------------------------------- formats
+
+_MAGIC: tuple[tuple[bytes, str], ...] = (
+    (b"CDF\x01", "netcdf"),
+    (b"CDF\x02", "netcdf"),
+    (b"CDF\x05", "netcdf"),
+    (b"\x89HDF\r\n\x1a\n", "netcdf"),
+    (b"II*\x00", "raster"),
+    (b"MM\x00*", "raster"),
+    (b"II+\x00", "raster"),
+    (b"MM\x00+", "raster"),
+    (b"GRIB", "grib"),
+)
+_SUFFIX = {
+    ".nc": "netcdf", ".nc4": "netcdf", ".cdf": "netcdf", ".netcdf": "netcdf", ".h5": "netcdf",
+    ".tif": "raster", ".tiff": "raster", ".gtiff": "raster", ".asc": "raster",
+    ".grb": "grib", ".grib": "grib", ".grb2": "grib", ".grib2": "grib",
+}
+
+
+def sniff_format(path: str | os.PathLike) -> str:
+    """``"netcdf"``, ``"raster"``, ``"grib"`` or ``"unknown"`` from the first bytes (then suffix).
+
+    The magic numbers are those of the formats' own specifications: NetCDF classic/64-bit
+    ("CDF" + version byte), HDF5 (netCDF-4), TIFF and BigTIFF (byte order + 42 or 43), GRIB
+    editions 1 and 2 ("GRIB"). ESRI ASCII grids start with the text ``ncols``.
+    """
+    p = Path(path)
+    try:
+        with open(p, "rb") as fh:
+            head = fh.read(512)
+    except OSError as err:
+        raise InputFileError(f"{p}: cannot be read ({err.strerror or err}); check the file") from err
+    for magic, kind in _MAGIC:
+        if head.startswith(magic):
+            return kind
+    if head.lstrip().lower().startswith(b"ncols"):
+        return "raster"
+    if b"GRIB" in head[:128]:  # GRIB messages behind a small header (WMO bulletin)
+        return "grib"
+    return _SUFFIX.get(p.suffix.lower(), "unknown")
+
+
+def unsupported_message(path: Path, kind: str) -> str | None:
+    """The one-line refusal for a file format timeslice does not read, else None."""
+    if kind == "grib":
+        return (
+            f"{path}: this is a GRIB file, which timeslice does not read; convert it to "
+            f"NetCDF first, e.g. `cdo -f nc4 copy {path.name} {path.stem}.nc`"
+        )
+    if kind == "unknown":
+        return (
+            f"{path}: not a NetCDF, GeoTIFF or ESRI ASCII grid (unrecognised first bytes); "
+            "give climate data in one of those formats"
+        )
+    return None
+
+
+def _netcdf_grid(path: Path) -> tuple:
+    """(nlat, nlon, lat0, lat1, lon0, lon1) from a NetCDF file's header, or a refusal."""
+    import xarray as xr
+
+    from timeslice.readers.netcdf import grid_problem
+
+    try:
+        with xr.open_dataset(path, decode_times=False, decode_cf=False, cache=False) as ds:
+            problem = grid_problem(ds, source=str(path))
+            if problem:
+                raise InputFileError(problem)
+            from timeslice.grid import find_lonlat
+
+            lon, lat = find_lonlat(ds, source=str(path))
+            la, lo = ds[lat].values, ds[lon].values
+            return (la.size, lo.size, *_ends(la), *_wrap_ends(*_ends(lo)))
+    except InputFileError:
+        raise
+    except Exception as err:  # netCDF-C raises OSError/RuntimeError with HDF details
+        raise InputFileError(
+            f"{path}: cannot be read as NetCDF ({shorten(str(err).splitlines()[0] if str(err) else type(err).__name__, 100)}); "
+            "the file may be damaged or incomplete: download or copy it again"
+        ) from err
+
+
+def _raster_grid(path: Path) -> tuple:
+    import rasterio
+
+    try:
+        with rasterio.open(path) as src:
+            b = src.bounds
+            dy, dx = (b.top - b.bottom) / src.height, (b.right - b.left) / src.width
+            # cell centres, as in a NetCDF file's coordinates
+            lon = _wrap_ends(b.left + dx / 2, b.right - dx / 2)
+            return (src.height, src.width, round(b.bottom + dy / 2, 6), round(b.top - dy / 2, 6),
+                    *lon)
+    except rasterio.errors.RasterioError as err:
+        raise InputFileError(
+            f"{path}: cannot be read as a GeoTIFF or ESRI ASCII grid "
+            f"({shorten(str(err), 100)}); the file may be damaged: copy it again"
+        ) from err
+
+
+def _ends(values) -> tuple[float, float]:
+    import numpy as np
+
+    v = np.asarray(values, dtype=float).ravel()
+    if v.size == 0:
+        return (float("nan"), float("nan"))
+    return (round(float(v.min()), 6), round(float(v.max()), 6))
+
+
+def _wrap_ends(lo: float, hi: float) -> tuple[float, float]:
+    """Longitude extent in [-180, 180) terms, so 0..360 and -180..180 files compare equal."""
+    import numpy as np
+
+    w = ((np.array([lo, hi]) + 180.0) % 360.0) - 180.0
+    if hi - lo >= 359.0:  # a global axis: its wrapped extent is what matters
+        return (round(float(min(w)), 4), round(float(max(w)), 4)) if w[0] < w[1] else (-180.0, 180.0)
+    return (round(float(w[0]), 4), round(float(w[1]), 4))
+
+
+def check_file_set(files: Sequence[InputFile], *, key: str, pattern: str | None = None) -> None:
+    """Refuse an input whose files are unreadable, unsupported or on different grids.
+
+    Reads only headers (coordinates), so it is cheap enough to run at config load for every
+    input of a run.
+    """
+    grids: dict[tuple, list[Path]] = {}
+    for f in files:
+        kind = sniff_format(f.path)
+        msg = unsupported_message(f.path, kind)
+        if msg:
+            raise InputFileError(msg)
+        sig = _netcdf_grid(f.path) if kind == "netcdf" else _raster_grid(f.path)
+        sig = tuple(round(x, 3) if isinstance(x, float) else x for x in sig)
+        grids.setdefault(sig, []).append(f.path)
+    if len(grids) > 1:
+        shown = "; ".join(
+            f"{paths[0].name}{f' (+{len(paths) - 1})' if len(paths) > 1 else ''}: "
+            f"{s[0]} x {s[1]}, lat {s[2]:g}..{s[3]:g}, lon {s[4]:g}..{s[5]:g}"
+            for s, paths in list(grids.items())[:3]
+        )
+        name = f"{key} = {pattern!r}" if pattern else key
+        raise InputFileError(shorten(
+            f"{name}: the files disagree on the grid ({shown}); give files of one grid per "
+            "input, or split them into separate inputs", 400))
