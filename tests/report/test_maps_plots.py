@@ -227,14 +227,14 @@ def test_cells_land_where_their_coordinates_are(series_ds):
     ds["suitability"] = (("slice", "lat", "lon"), v[None])
     fig = Figure(figsize=(5, 4), dpi=100)
     FigureCanvasAgg(fig)
-    ax, crs = maps._axes(fig, 111, ds, 0)
-    maps._draw(ax, crs, ds, "suitability", 0)
+    ax, fr = maps._axes(fig, 111, ds, 0)
+    maps._draw(ax, fr, ds, "suitability", 0)
     fig.canvas.draw()
     img = np.asarray(fig.canvas.buffer_rgba())[:, :, :3].astype(float)
     height = img.shape[0]
 
     def pixel(lo, la):
-        x, y = ax.transData.transform((lo, la))
+        x, y = ax.transData.transform(fr.proj.transform_point(lo - fr.lon0, la, fr.data))
         return img[int(round(height - y)), int(round(x))]
 
     bright = pixel(lon[1], lat[-2])      # north-west cell centre

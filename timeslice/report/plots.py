@@ -221,7 +221,7 @@ def gain_loss_bars(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int =
 
 
 def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
-                   dpi: int = 110) -> Path:
+                   dpi: int = 110, projection: str = "lonlat") -> Path:
     """Range centroids on a map, one track per model and scenario from the baseline.
 
     Parameters
@@ -230,52 +230,58 @@ def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
         Columns ``slice, year, model, scenario, centroid_lat, centroid_lon``.
     land : xarray.DataArray, optional
         Present-day ``land(lat, lon)`` mask whose 0.5 contour is drawn as the coastline
-        (never downloaded).
+        (never downloaded); it also sets the map's extent, centred on the grid's own
+        longitudes (a grid across 180° is one piece).
+    projection : {"lonlat", "equal_area", "polar"}
+        As for the maps (:data:`timeslice.report.maps.PROJECTIONS`).
     """
-    import cartopy.crs as ccrs
+    from timeslice.grid import wrap_lon
+    from timeslice.report.maps import _graticule, _set_extent, extent_frame, map_frame
 
     _need(summary, ("year", "model", "scenario", "centroid_lat", "centroid_lon"),
           "centroid_track")
     df = summary.dropna(subset=["centroid_lat", "centroid_lon"]).copy()
     df["scenario"] = df["scenario"].astype(str)
     colours = _colours(df["scenario"])
-    crs = ccrs.PlateCarree()
+    if land is not None:
+        fr = map_frame(land, projection)
+    else:
+        # a square-ish window around the track, at least 2 degrees across, centred on the
+        # track's own longitudes (continuous across 180°)
+        lon = wrap_lon(df["centroid_lon"].to_numpy(), west=float(df["centroid_lon"].iloc[0]) - 180)
+        lat_c = float(df.centroid_lat.mean())
+        half_lat = max(1.0, 0.6 * float(np.ptp(df.centroid_lat)),
+                       0.6 * float(np.ptp(lon)) * np.cos(np.radians(lat_c)))
+        half_lon = half_lat / max(np.cos(np.radians(lat_c)), 0.2)
+        lon_c = float(lon.mean())
+        fr = extent_frame(lon_c - half_lon, lon_c + half_lon, max(-90.0, lat_c - half_lat),
+                          min(90.0, lat_c + half_lat), projection)
+    # centroids are reported in [-180, 180): onto the frame's continuous longitudes
+    df["x"] = fr.x(wrap_lon(df["centroid_lon"].to_numpy(), west=fr.west))
+    crs = fr.data
     fig = Figure(figsize=(6.0, 5.0))
-    ax = fig.add_subplot(111, projection=crs)
+    ax = fig.add_subplot(111, projection=fr.proj)
+    _set_extent(ax, fr)
     if land is not None:
         lv = np.asarray(land.transpose("lat", "lon").values, dtype=float)
-        ax.contour(land["lon"].values, land["lat"].values, lv, levels=[0.5], colors="0.3",
+        ax.contour(fr.x(land["lon"].values), land["lat"].values, lv, levels=[0.5], colors="0.3",
                    linewidths=0.8, transform=crs)
-        ax.set_extent([float(land.lon.min()), float(land.lon.max()),
-                       float(land.lat.min()), float(land.lat.max())], crs=crs)
     base = _baseline_rows(df)
     seen: set[str] = set()
     for (scen, _model), g in df[df["scenario"] != "baseline"].groupby(["scenario", "model"]):
         # every chain runs away from the baseline: back in time for the past, forward else
         g = pd.concat([base, g.sort_values("year", ascending=(scen != "past"))])
         n = df.loc[df["scenario"] == scen, "model"].nunique()
-        ax.plot(g["centroid_lon"], g["centroid_lat"], color=colours[scen], marker="o",
+        ax.plot(g["x"], g["centroid_lat"], color=colours[scen], marker="o",
                 markersize=3, linewidth=1, transform=crs,
                 label=None if scen in seen else f"{scen} ({n} model{'s' if n != 1 else ''})")
-        ax.plot(g["centroid_lon"].iloc[-1:], g["centroid_lat"].iloc[-1:], color=colours[scen],
+        ax.plot(g["x"].iloc[-1:], g["centroid_lat"].iloc[-1:], color=colours[scen],
                 marker="s", markersize=5, linestyle="none", transform=crs)
         seen.add(scen)
     if len(base):
-        ax.plot(base["centroid_lon"], base["centroid_lat"], marker="*", color="black",
+        ax.plot(base["x"], base["centroid_lat"], marker="*", color="black",
                 markersize=10, linestyle="none", transform=crs, label="baseline")
-    if land is None:
-        # a square-ish window around the track, at least 2 degrees across
-        lat_c = float(df.centroid_lat.mean())
-        half_lat = max(1.0, 0.6 * float(np.ptp(df.centroid_lat)),
-                       0.6 * float(np.ptp(df.centroid_lon)) * np.cos(np.radians(lat_c)))
-        half_lon = half_lat / max(np.cos(np.radians(lat_c)), 0.2)
-        lon_c = float(df.centroid_lon.mean())
-        ax.set_extent([lon_c - half_lon, lon_c + half_lon, lat_c - half_lat,
-                       lat_c + half_lat], crs=crs)
-    from timeslice.report.maps import _graticule
-
-    w, e, so, no = ax.get_extent(crs=crs)
-    _graticule(ax, crs, w, e, so, no)
+    _graticule(ax, fr)
     ax.legend(fontsize=7, loc="upper right", title="squares: last slice", title_fontsize=6)
     ax.set_title("Track of the area-weighted centroid of the suitable range", fontsize=9)
     return _save(fig, path, dpi)
