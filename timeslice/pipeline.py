@@ -506,6 +506,13 @@ def report_stage(
     if cfg.output.geotiff:
         R.export(series, out / "geotiff")
         paths["geotiff"] = out / "geotiff"
+    from timeslice.niche.evaluate import weak_model_message
+
+    # checked on every run (the fit may come from the cache): a red card and a line on stderr
+    weak = weak_model_message(fit.evaluation)
+    if weak:
+        warnings.warn(weak, TimesliceWarning, stacklevel=2)
+        warnings_seen = [*warnings_seen, weak]
     if cfg.output.report:
         models = sorted({str(m) for m in series["model"].values} - {"observed"})
         scenarios = sorted({str(m) for m in series["scenario"].values} - {"baseline"})
@@ -539,6 +546,7 @@ def report_stage(
             run_info={"config": str(cfg.source), "seed": cfg.run.seed, "version": __version__,
                       "warnings": "; ".join(warnings_seen) or "none"},
             highlights=findings(summary, refugium_km2=refugium_km2, reference=ref_label),
+            alerts=[weak] if weak else [],
         )
         paths["report"] = R.write_report(ctx, out / "report.html")
     return paths

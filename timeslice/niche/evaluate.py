@@ -27,10 +27,19 @@ __all__ = [
     "threshold",
     "training_scores",
     "tss",
+    "weak_model_message",
 ]
 
 #: Threshold rules accepted by :func:`threshold`.
 THRESHOLD_RULES = ("fixed", "max_sss", "mtp", "p10")
+
+#: Mean spatial-CV AUC below which a model is reported as weak: Swets (1988, Science 240:1285)
+#: calls 0.5-0.7 "low accuracy" (band limits from memory).
+WEAK_AUC = 0.7
+#: Mean spatial-CV TSS below which a model is reported as weak: common practice (no single
+#: published cut-off; TSS is often read against the kappa bands of Landis & Koch 1977,
+#: Biometrics 33:159, where 0.21-0.40 is "fair"; from memory).
+WEAK_TSS = 0.3
 
 #: km per degree of latitude on the authalic sphere.
 _KM_PER_DEG = np.pi * AUTHALIC_RADIUS_KM / 180.0
@@ -419,3 +428,52 @@ def cross_validate(
             }
         )
     return pd.DataFrame(rows)
+
+
+def weak_model_message(
+    evaluation: pd.DataFrame, *, min_auc: float = WEAK_AUC, min_tss: float = WEAK_TSS
+) -> str | None:
+    """One-line warning when a model is weak on spatial block cross-validation, else None.
+
+    Parameters
+    ----------
+    evaluation : pandas.DataFrame
+        The evaluation table of :func:`timeslice.niche.workflow.fit_niche` (a ``summary`` column
+        with a ``mean`` row), or the per-fold table of :func:`cross_validate`.
+    min_auc, min_tss : float
+        Weak when the mean held-out AUC is below `min_auc` or the mean TSS below `min_tss`
+        (defaults :data:`WEAK_AUC`, :data:`WEAK_TSS`).
+
+    Notes
+    -----
+    The rule is ours: mean AUC < 0.7 (the "low accuracy" band of Swets 1988, from memory) or
+    mean TSS < 0.3 (common practice). With presence-background data the attainable AUC falls as
+    the species occupies more of the calibration area (about 1 - a/2 for a share a; Phillips,
+    Anderson & Schapire 2006, Ecol. Model. 190:231, from memory), so a wide-ranging species can
+    be flagged with a sound model; the message says so. The truth benchmark (docs/truth.md)
+    found that a model this weak can give a change of the wrong sign.
+    """
+    if evaluation is None or len(evaluation) == 0:
+        return None
+    ev = evaluation
+    if "summary" in ev.columns and (ev["summary"] == "mean").any():
+        row = ev[ev["summary"] == "mean"].iloc[0]
+        auc_m, tss_m = float(row.get("auc", np.nan)), float(row.get("tss", np.nan))
+    else:
+        auc_m = float(np.nanmean(ev["auc"])) if "auc" in ev and ev["auc"].notna().any() else np.nan
+        tss_m = float(np.nanmean(ev["tss"])) if "tss" in ev and ev["tss"].notna().any() else np.nan
+    weak = []
+    if np.isfinite(auc_m) and auc_m < float(min_auc):
+        weak.append(f"AUC {auc_m:.2f} < {float(min_auc):g}")
+    if np.isfinite(tss_m) and tss_m < float(min_tss):
+        weak.append(f"TSS {tss_m:.2f} < {float(min_tss):g}")
+    if not np.isfinite(auc_m) and not np.isfinite(tss_m):
+        return ("model not evaluated: spatial cross-validation gave no AUC or TSS; "
+                "treat every projected change as unverified")
+    if not weak:
+        return None
+    return (
+        f"weak model on spatial block cross-validation ({' and '.join(weak)}): projected "
+        "changes may be wrong in size or even sign; check predictors and records (a wide "
+        "range also lowers AUC)"
+    )

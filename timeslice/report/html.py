@@ -70,6 +70,9 @@ nav{font-size:.85em;margin:.8em 0;color:#555}nav a{color:#0b4f8a}
 .methods p{text-align:justify}
 footer{font-size:.8em;color:#555;margin-top:3em}
 code{font-size:.95em}
+.alert{background:#fdecea;border:1px solid #c62828;border-left:8px solid #c62828;
+border-radius:6px;padding:.5em 1em;margin:.8em 0;color:#5f1010}
+.alert b{color:#8e0000}
 """
 
 
@@ -107,6 +110,9 @@ class ReportContext:
         refugia map and the change panel), so the first screen answers the main questions.
     outputs : dict of str to path
         Files of the run (description -> path relative to the report), listed as local links.
+    alerts : sequence of str
+        Warnings about the trustworthiness of the whole result (e.g. a model that is weak on
+        spatial cross-validation), shown as a red card above everything else.
     """
 
     title: str = "timeslice report"
@@ -121,6 +127,7 @@ class ReportContext:
     key_numbers: list[tuple[str, ...]] = field(default_factory=list)
     headline_figures: list[tuple[str, str | os.PathLike]] = field(default_factory=list)
     outputs: dict[str, str | os.PathLike] = field(default_factory=dict)
+    alerts: Sequence[str] = ()
 
 
 def _e(text: Any) -> str:
@@ -322,6 +329,10 @@ def render_report(context: ReportContext) -> str:
     parts.append(f"<header><h1>{title}</h1>{sub}<p>Generated {now}</p></header><main>")
 
     body: list[str] = []
+    if context.alerts:
+        body.append('<section id="alerts">' + "".join(
+            f'<div class="alert" role="alert"><b>Warning:</b> {_e(a)}</div>'
+            for a in context.alerts) + "</section>")
     cards = list(context.key_numbers) or key_numbers(context.summary)
     if cards:
         items = []
