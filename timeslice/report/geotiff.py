@@ -28,6 +28,23 @@ def _safe(text: str) -> str:
     return _SAFE.sub("_", str(text)).strip("_") or "unnamed"
 
 
+def _check_regular(coord: np.ndarray, name: str) -> None:
+    """An affine transform places every cell only on an ascending axis of equal steps: a grid
+    split at 180° (wrapped to [-180, 180)) would put the cells past the jump in the wrong
+    place, so it is refused rather than written misplaced."""
+    c = np.asarray(coord, dtype=float)
+    if c.size < 2:
+        return
+    steps = np.diff(c)
+    if np.any(steps <= 0) or not np.allclose(steps, steps[0], rtol=1e-6, atol=1e-9):
+        i = int(np.argmax(np.abs(steps - steps[0])))
+        raise DataError(
+            f"geotiff.export: `{name}` is not ascending with equal steps ({c[i]:g} -> "
+            f"{c[i + 1]:g}); put the grid on a continuous axis first "
+            "(timeslice.grid.continuous_lon for a region across 180°)"
+        )
+
+
 def _driver() -> str:
     import rasterio
 
@@ -86,7 +103,9 @@ def export(
     Rows run north to south (GDAL's convention), so the data are flipped from the ascending
     latitude of the series. Float layers use NaN as nodata; integer flag layers use -1
     ("not land"), booleans become uint8 with nodata 255. The CRS is EPSG:4326 (WGS 84); the
-    affine transform comes from the cell bounds. The "COG" driver (GDAL >= 3.1) is used when
+    affine transform comes from the cell bounds of the continuous longitude axis, so a region
+    across the 180° meridian is one raster whose eastern columns lie past 180° (e.g.
+    160 ... 200; GDAL reads x > 180 in EPSG:4326 as the same meridians, x - 360). The "COG" driver (GDAL >= 3.1) is used when
     available, else tiled GeoTIFF.
     """
     from affine import Affine
@@ -105,6 +124,8 @@ def export(
             )
     lat = ds["lat"].values
     lon = ds["lon"].values
+    _check_regular(lon, "lon")
+    _check_regular(lat, "lat")
     lat_b, lon_b = grid_edges(ds)
     dx = float(np.median(np.diff(lon_b, axis=1)))
     dy = float(np.median(np.diff(lat_b, axis=1)))

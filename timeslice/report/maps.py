@@ -214,13 +214,12 @@ def extent_frame(west: float, east: float, south: float, north: float,
     return MapFrame(west, east, south, north, lon0, lat0, projection, data, proj)
 
 
-def _outline_xy(fr: MapFrame, n: int = 90) -> tuple[np.ndarray, np.ndarray]:
-    """The grid's outer boundary, densified, as x (data CRS) and lat."""
-    lons = np.linspace(fr.west, fr.east, n)
-    lats = np.linspace(fr.south, fr.north, n)
-    lon = np.concatenate([lons, np.full(n, fr.east), lons[::-1], np.full(n, fr.west)])
-    lat = np.concatenate([np.full(n, fr.south), lats, np.full(n, fr.north), lats[::-1]])
-    return fr.x(lon), lat
+def _outline_xy(fr: MapFrame, n: int = 61) -> tuple[np.ndarray, np.ndarray]:
+    """Points covering the grid (a mesh, edges included) as x (data CRS) and lat: their
+    projected bounding box is the drawn map (the outline alone is not enough on a polar map
+    of a grid that reaches the far pole, where the boundary collapses)."""
+    lon, lat = np.meshgrid(np.linspace(fr.west, fr.east, n), np.linspace(fr.south, fr.north, n))
+    return fr.x(lon.ravel()), lat.ravel()
 
 
 def _set_extent(ax, fr: MapFrame) -> None:
@@ -250,15 +249,15 @@ def _nice_length(km: float) -> float:
 def _bar_ends(ax, fr: MapFrame) -> tuple[tuple[float, float], tuple[float, float], float]:
     """Ends of the scale bar in map coordinates, and its length in km.
 
-    The bar starts near the lower-left corner of the map and runs horizontally on the map;
+    The bar starts inside the grid near its south-west corner and runs horizontally on the map;
     its end is placed (by bisection) so that the great-circle distance between its two ends
     on the authalic sphere is a round number of km, so the bar is right where it is drawn,
     in any projection and at any latitude.
     """
     x0, x1 = ax.get_xlim()
-    y0, y1 = ax.get_ylim()
-    xs, ys = x0 + 0.05 * (x1 - x0), y0 + 0.07 * (y1 - y0)
-    lon_s, lat_s = fr.lonlat(xs, ys)
+    lon_s = fr.west + 0.05 * (fr.east - fr.west)
+    lat_s = fr.south + 0.07 * (fr.north - fr.south)
+    xs, ys = fr.proj.transform_point(fr.x(lon_s), lat_s, fr.data)
 
     def dist(dx: float) -> float:
         lon_e, lat_e = fr.lonlat(xs + dx, ys)
