@@ -25,7 +25,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import dijkstra
 
 from timeslice.errors import ConfigError, DataError
-from timeslice.grid import haversine_km, resolution
+from timeslice.grid import haversine_km, is_global_lon, lon_order
 from timeslice.series._checks import (
     check_dataarray,
     drop_nondim,
@@ -128,9 +128,18 @@ def step_distances(years: Sequence[float], rate_km_per_year: float) -> np.ndarra
 
 
 def _is_global(lon: np.ndarray) -> bool:
-    if lon.size < 2:
-        return False
-    return abs(lon.size * resolution(lon) - 360.0) < 1e-6
+    return is_global_lon(lon)
+
+
+def _check_continuous(lon: np.ndarray) -> None:
+    """A grid split at 180° (wrapped to [-180, 180)) would make neighbours of cells that are
+    a whole region apart and cut the real neighbours at 180°: refuse it."""
+    order, _ = lon_order(lon, source="movement grid")
+    if not np.array_equal(order, np.arange(order.size)):
+        raise DataError(
+            "movement grid: the longitudes jump (a region across 180° wrapped to [-180, 180)); "
+            "put it on a continuous axis first (timeslice.grid.continuous_lon)"
+        )
 
 
 def grid_graph(
@@ -150,7 +159,9 @@ def grid_graph(
     -------
     (rows, cols, km)
         Flat cell indices (``i * nlon + j``) of each undirected edge (each once) and its
-        great-circle length in km between cell centres. Longitude wraps on a global grid.
+        great-circle length in km between cell centres. Longitude wraps on a global grid;
+        a regional grid across 180° is connected through it on its continuous axis
+        (160 ... 200); a grid split at 180° is refused.
     """
     if neighbours not in (8, 16):
         raise DataError(f"`neighbours` must be 8 or 16, got {neighbours!r}")
@@ -160,6 +171,7 @@ def grid_graph(
     offsets = [(0, 1), (1, 0), (1, 1), (1, -1)]
     if neighbours == 16:
         offsets += [(1, 2), (2, 1), (1, -2), (2, -1)]
+    _check_continuous(lon)
     wrap = _is_global(lon)
     ii, jj = np.meshgrid(np.arange(ny), np.arange(nx), indexing="ij")
     rows, cols = [], []
