@@ -121,8 +121,11 @@ def _temperature_cause(lo: float, hi: float, da: xr.DataArray) -> str:
     if hi >= 140.0 and lo > -900.0:
         return ("the values look ten times too large (integer-coded degC x 10?): declare "
                 "scale = 0.1 for this variable of this input")
-    if lo < -90.0 and hi < 60.0 and scale == 1.0 and lo > -300.0:
-        return ("check the units (Kelvin converted twice, or a scale applied twice?)")
+    if hi < -200.0:
+        return "the values were converted from Kelvin twice: the units say K but they are degC"
+    if lo > -900.0 and hi < 60.0 and lo < -150.0:
+        return ("the values look ten times too large (integer-coded degC x 10?): declare "
+                "scale = 0.1 for this variable of this input")
     return "check the units and scale declared for this input"
 
 
@@ -158,19 +161,23 @@ def check_fields(ds: xr.Dataset, *, source: str) -> None:
         Naming the file, the variable, the offending value (and where it is) and the likely
         cause.
     """
-    for name in _TEMPERATURE:
-        if name not in ds:
-            continue
-        da = ds[name]
-        lo, hi = _extremes(da)
+    ext = {name: _extremes(ds[name]) for name in _TEMPERATURE if name in ds}
+    finite = [e for e in ext.values() if np.isfinite(e[0])]
+    # the likely cause is judged on all temperatures of the input together (tasmin of an
+    # integer-coded file may be all negative, tasmax all positive)
+    all_lo = min((e[0] for e in finite), default=np.nan)
+    all_hi = max((e[1] for e in finite), default=np.nan)
+    for name, (lo, hi) in ext.items():
         if not np.isfinite(lo):
             continue
+        da = ds[name]
         if lo < TEMPERATURE_RANGE[0] or hi > TEMPERATURE_RANGE[1]:
             bad = lo if lo < TEMPERATURE_RANGE[0] else hi
             raise DataError(
                 f"{_label(da, name, source)}: {bad:.4g} degC after conversion{_where(da, bad)} "
                 f"is outside the plausible {TEMPERATURE_RANGE[0]:g}..{TEMPERATURE_RANGE[1]:g} "
-                f"degC for a monthly mean; likely cause: {_temperature_cause(lo, hi, da)}"
+                f"degC for a monthly mean; likely cause: "
+                f"{_temperature_cause(all_lo, all_hi, da)}"
             )
     if "pr" in ds:
         da = ds["pr"]

@@ -250,8 +250,8 @@ def unsupported_message(path: Path, kind: str) -> str | None:
     return None
 
 
-def _netcdf_grid(path: Path) -> tuple:
-    """(nlat, nlon, lat0, lat1, lon0, lon1) from a NetCDF file's header, or a refusal."""
+def _netcdf_grid(path: Path):
+    """(lat centres, lon centres) from a NetCDF file's header, or a refusal."""
     import xarray as xr
 
     from timeslice.readers.netcdf import grid_problem
@@ -264,18 +264,19 @@ def _netcdf_grid(path: Path) -> tuple:
             from timeslice.grid import find_lonlat
 
             lon, lat = find_lonlat(ds, source=str(path))
-            la, lo = ds[lat].values, ds[lon].values
-            return (la.size, lo.size, *_ends(la), *_wrap_ends(*_ends(lo)))
+            return ds[lat].values, ds[lon].values
     except InputFileError:
         raise
     except Exception as err:  # netCDF-C raises OSError/RuntimeError with HDF details
+        first = str(err).splitlines()[0] if str(err) else type(err).__name__
         raise InputFileError(
-            f"{path}: cannot be read as NetCDF ({shorten(str(err).splitlines()[0] if str(err) else type(err).__name__, 100)}); "
-            "the file may be damaged or incomplete: download or copy it again"
+            f"{path}: cannot be read as NetCDF ({shorten(first, 100)}); the file may be damaged "
+            "or incomplete: download or copy it again"
         ) from err
 
 
-def _raster_grid(path: Path) -> tuple:
+def _raster_grid(path: Path):
+    import numpy as np
     import rasterio
 
     try:
@@ -283,9 +284,9 @@ def _raster_grid(path: Path) -> tuple:
             b = src.bounds
             dy, dx = (b.top - b.bottom) / src.height, (b.right - b.left) / src.width
             # cell centres, as in a NetCDF file's coordinates
-            lon = _wrap_ends(b.left + dx / 2, b.right - dx / 2)
-            return (src.height, src.width, round(b.bottom + dy / 2, 6), round(b.top - dy / 2, 6),
-                    *lon)
+            lat = b.bottom + dy * (np.arange(src.height) + 0.5)
+            lon = b.left + dx * (np.arange(src.width) + 0.5)
+            return lat, lon
     except rasterio.errors.RasterioError as err:
         raise InputFileError(
             f"{path}: cannot be read as a GeoTIFF or ESRI ASCII grid "
@@ -293,23 +294,20 @@ def _raster_grid(path: Path) -> tuple:
         ) from err
 
 
-def _ends(values) -> tuple[float, float]:
+def _signature(lat, lon) -> tuple:
+    """Grid identity: sorted latitudes and sorted longitudes wrapped to [-180, 180), so a
+    0..360 file and a -180..180 file of the same grid compare equal."""
     import numpy as np
 
-    v = np.asarray(values, dtype=float).ravel()
-    if v.size == 0:
-        return (float("nan"), float("nan"))
-    return (round(float(v.min()), 6), round(float(v.max()), 6))
+    la = np.sort(np.asarray(lat, dtype=float).ravel())
+    lo = np.sort(((np.asarray(lon, dtype=float).ravel() + 180.0) % 360.0) - 180.0)
+    return (la.size, lo.size, tuple(np.round(la, 3)), tuple(np.round(lo, 3)))
 
 
-def _wrap_ends(lo: float, hi: float) -> tuple[float, float]:
-    """Longitude extent in [-180, 180) terms, so 0..360 and -180..180 files compare equal."""
-    import numpy as np
-
-    w = ((np.array([lo, hi]) + 180.0) % 360.0) - 180.0
-    if hi - lo >= 359.0:  # a global axis: its wrapped extent is what matters
-        return (round(float(min(w)), 4), round(float(max(w)), 4)) if w[0] < w[1] else (-180.0, 180.0)
-    return (round(float(w[0]), 4), round(float(w[1]), 4))
+def _describe(sig: tuple) -> str:
+    la, lo = sig[2], sig[3]
+    ends = (f"lat {la[0]:g}..{la[-1]:g}, lon {lo[0]:g}..{lo[-1]:g}" if la and lo else "empty")
+    return f"{sig[0]} x {sig[1]}, {ends}"
 
 
 def check_file_set(files: Sequence[InputFile], *, key: str, pattern: str | None = None) -> None:
@@ -324,13 +322,12 @@ def check_file_set(files: Sequence[InputFile], *, key: str, pattern: str | None 
         msg = unsupported_message(f.path, kind)
         if msg:
             raise InputFileError(msg)
-        sig = _netcdf_grid(f.path) if kind == "netcdf" else _raster_grid(f.path)
-        sig = tuple(round(x, 3) if isinstance(x, float) else x for x in sig)
-        grids.setdefault(sig, []).append(f.path)
+        lat, lon = _netcdf_grid(f.path) if kind == "netcdf" else _raster_grid(f.path)
+        grids.setdefault(_signature(lat, lon), []).append(f.path)
     if len(grids) > 1:
         shown = "; ".join(
             f"{paths[0].name}{f' (+{len(paths) - 1})' if len(paths) > 1 else ''}: "
-            f"{s[0]} x {s[1]}, lat {s[2]:g}..{s[3]:g}, lon {s[4]:g}..{s[5]:g}"
+            f"{_describe(s)}"
             for s, paths in list(grids.items())[:3]
         )
         name = f"{key} = {pattern!r}" if pattern else key
