@@ -44,7 +44,8 @@ ChunksOpt = Annotated[
 
 
 def _fail(err: TimesliceError) -> None:
-    typer.echo(f"timeslice: error: {err}", err=True)
+    # always one line: a message quoting a file's own error text may hold line breaks
+    typer.echo(f"timeslice: error: {' '.join(str(err).split())}", err=True)
     raise typer.Exit(code=2)
 
 

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from timeslice.errors import DataError, InputFileError
+from timeslice.errors import DataError, InputFileError, shorten
 
 __all__ = ["open_raster"]
 
@@ -136,7 +136,7 @@ def open_raster(
         log.append(f"{p.name}: no CRS in the file; taken as geographic lon/lat")
     elif not crs.is_geographic:
         raise DataError(
-            f"{src}: the raster is on a projected CRS ({crs.to_string()[:60]}); reproject it to a "
+            f"{src}: the raster is on a projected CRS ({shorten(crs.to_string(), 60)}); reproject it to a "
             "geographic lon/lat CRS (EPSG:4326), e.g. with gdalwarp -t_srs EPSG:4326"
         )
     da = da.drop_vars([c for c in ("spatial_ref",) if c in da.coords])
