@@ -294,6 +294,10 @@ class SpeciesConfig(_Section):
     occurrences: Path
     columns: dict[str, str] | None = None
     dated_records: Path | None = None
+    #: the taxon to model: scientific or accepted name(s), or taxon key(s); None = the file's only species
+    taxon: str | int | list[str | int] | None = None
+    taxon_field: Literal["auto", "scientific_name", "accepted_name", "taxon_key"] = "auto"
+    fold_subspecies: bool = False
 
 
 class NicheConfig(_Section):
@@ -305,6 +309,10 @@ class NicheConfig(_Section):
     thin: str | float | None = "cell"
     uncertainty_max_m: float | None = None
     years: tuple[int, int] | None = None
+    keep_basis: list[Literal["fossil", "living"]] = Field(default_factory=list)
+    drop_flags: list[str] | None = None
+    centroid_min_records: int | None = Field(5, ge=2)
+    centroid_min_uncertainty_m: float = Field(10000.0, ge=0)
     screen_max_r: float = Field(0.7, gt=0, le=1)
     screen_max_vif: float = Field(10.0, gt=1)
     priority: list[str] | None = None

@@ -291,12 +291,17 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
 
     def compute():
         records = read_occurrences(cfg.species.occurrences, columns=cfg.species.columns)
+        sp = cfg.species
         with _about(cfg.species.occurrences):
             return fit_niche(
                 records, baseline, variables=n.variables, algorithm=n.algorithm,
                 algorithm_params=n.params or None, buffer_km=n.buffer_km,
                 n_background=n.n_background, thin=n.thin, uncertainty_max_m=n.uncertainty_max_m,
-                years=n.years, screen_max_r=n.screen_max_r, screen_max_vif=n.screen_max_vif,
+                years=n.years, taxon=sp.taxon, taxon_field=sp.taxon_field,
+                fold_subspecies=sp.fold_subspecies, keep_basis=n.keep_basis,
+                drop_flags=n.drop_flags, centroid_min_records=n.centroid_min_records,
+                centroid_min_uncertainty_m=n.centroid_min_uncertainty_m,
+                screen_max_r=n.screen_max_r, screen_max_vif=n.screen_max_vif,
                 priority=n.priority, cv_block_km=n.cv_block_km, cv_folds=n.cv_folds,
                 cv_scheme=n.cv_scheme, calibration=n.calibration,
                 calibration_mask=n.calibration_mask, background_file=n.background_file,
@@ -385,8 +390,16 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
 
     ser = cfg.series
     records = None
+    source = str(cfg.species.dated_records)
     if cfg.species.dated_records is not None:
         records = read_dated_records(cfg.species.dated_records)
+    past = "scenario" in stack.coords and "past" in {str(x) for x in stack["scenario"].values}
+    fossils = _dated_fossils(cfg) if past else None
+    if fossils is not None and len(fossils):
+        # fossil records of the taxon with ages, dropped from the calibration: hindcast material
+        name = f"fossil records of {cfg.species.occurrences.name}"
+        records = fossils if records is None else pd.concat([records, fossils], ignore_index=True)
+        source = name if cfg.species.dated_records is None else f"{source} + {name}"
     window = ser.refugium_window
     if window is None:
         # default refugium window: the past slices and the reference (the glacial-to-present
@@ -399,8 +412,20 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             stack, reference=_reference(cfg), window=window, rate=ser.dispersal_rate,
             rate_key="series.dispersal_rate", through=ser.movement_through,
             neighbours=ser.graph_neighbours, factors=ser.partition_factors, records=records,
-            records_source=str(cfg.species.dated_records), max_offset_years=ser.hindcast_max_offset_years,
+            records_source=source, max_offset_years=ser.hindcast_max_offset_years,
         )
+
+
+def _dated_fossils(cfg: Config) -> pd.DataFrame:
+    """The occurrence file's fossil records of the taxon that carry ages (read again: cheap)."""
+    from timeslice.niche.data import dated_fossils
+    from timeslice.readers import read_occurrences
+
+    sp = cfg.species
+    with _about(sp.occurrences):
+        occ = read_occurrences(sp.occurrences, columns=sp.columns)
+        return dated_fossils(occ, taxon=sp.taxon, taxon_field=sp.taxon_field,
+                             fold_subspecies=sp.fold_subspecies, keep_basis=cfg.niche.keep_basis)
 
 
 def _reference(cfg: Config) -> str:

@@ -47,6 +47,9 @@ class NicheFit:
         Tables for the report (see :func:`fit_niche`).
     params : dict
         Every choice made, for the methods paragraph and the manifest.
+    dated : pandas.DataFrame or None
+        Fossil records of the taxon with ages (:func:`timeslice.niche.data.dated_fossils`):
+        dropped from the calibration, offered to the hindcast check.
     """
 
     model: Any
@@ -61,6 +64,7 @@ class NicheFit:
     response: pd.DataFrame
     importance: pd.DataFrame
     params: dict = dataclasses.field(default_factory=dict)
+    dated: pd.DataFrame | None = None
 
     def tables(self) -> dict[str, pd.DataFrame]:
         """The report tables by name: cleaning, screening, evaluation, response, importance."""
@@ -184,6 +188,13 @@ def fit_niche(
     thin: str | float | None = "cell",
     uncertainty_max_m: float | None = None,
     years: tuple[float | None, float | None] | None = None,
+    taxon: str | int | Sequence[str | int] | None = None,
+    taxon_field: str = "auto",
+    fold_subspecies: bool = False,
+    keep_basis: Sequence[str] = (),
+    drop_flags: Sequence[str] | None = None,
+    centroid_min_records: int | None = 5,
+    centroid_min_uncertainty_m: float = 10_000.0,
     screen_max_r: float | None = 0.7,
     screen_max_vif: float | None = 10.0,
     priority: Sequence[str] | None = None,
@@ -224,6 +235,11 @@ def fit_niche(
         One record per cell, a minimum distance in km, or no thinning.
     uncertainty_max_m, years
         Cleaning limits (:func:`timeslice.niche.data.clean_records`).
+    taxon, taxon_field, fold_subspecies
+        Which taxon of the records to model (:func:`timeslice.niche.data.select_taxon`).
+    keep_basis, drop_flags, centroid_min_records, centroid_min_uncertainty_m
+        Record rules of :func:`timeslice.niche.data.clean_records` (fossil and living specimens,
+        aggregator flags, centroid-like coordinates; the last on by default here).
     screen_max_r, screen_max_vif, priority
         Predictor screening (:func:`timeslice.niche.select.screen`); both limits None skips it.
     cv_block_km, cv_folds, cv_scheme
@@ -282,11 +298,19 @@ def fit_niche(
     nev.threshold([0.5], [0.5], rule=threshold_rule, value=threshold_value)  # validate the rule early
 
     land = ndata.land_of(baseline)
-    kept, cleaning = ndata.clean_records(records, land=land, uncertainty_max_m=uncertainty_max_m, years=years)
+    choice = dict(taxon=taxon, taxon_field=taxon_field, fold_subspecies=fold_subspecies,
+                  keep_basis=tuple(keep_basis))
+    kept, cleaning = ndata.clean_records(
+        records, land=land, uncertainty_max_m=uncertainty_max_m, years=years, drop_flags=drop_flags,
+        centroid_min_records=centroid_min_records,
+        centroid_min_uncertainty_m=centroid_min_uncertainty_m, **choice,
+    )
+    dated = ndata.dated_fossils(records, **choice)
     n_in = cleaning.attrs["n_input"]
     by_reason = "; ".join(f"{r}: {n}" for r, n in zip(cleaning["reason"], cleaning["n_dropped"]) if n)
     drops = dict(zip(cleaning["reason"], cleaning["n_dropped"]))
-    before_grid = ndata.CLEANING_REASONS[: ndata.CLEANING_REASONS.index("outside grid")]
+    order = list(cleaning["reason"])
+    before_grid = order[: order.index("outside grid")]
     reached_grid = n_in - sum(drops[r] for r in before_grid)
     if reached_grid > 0 and drops["outside grid"] == reached_grid:
         raise DataError(
@@ -335,7 +359,12 @@ def fit_niche(
     ok_p = np.all(np.isfinite(pres[variables].to_numpy(dtype=float)), axis=1)
     ok_b = np.all(np.isfinite(back[variables].to_numpy(dtype=float)), axis=1)
     pres, back = pres[ok_p].reset_index(drop=True), back[ok_b].reset_index(drop=True)
-    extra = pd.DataFrame({"reason": ["missing predictor values"], "n_dropped": [int((~ok_p).sum())]})
+    thin_how = kept.attrs.get("thinning", "")
+    extra = pd.DataFrame({
+        "reason": ["spatial thinning", "missing predictor values"],
+        "n_dropped": [int(n_thinned), int((~ok_p).sum())],
+        "note": [thin_how or "off", ""],
+    })
     cleaning = pd.concat([cleaning, extra], ignore_index=True)
     cleaning.attrs.update(n_input=n_in, n_kept=len(pres), n_thinned=n_thinned)
     if len(pres) < int(min_records):
@@ -395,6 +424,11 @@ def fit_niche(
         "thin": thin,
         "uncertainty_max_m": uncertainty_max_m,
         "years": list(years) if years is not None else None,
+        "taxon": list(taxon) if isinstance(taxon, (list, tuple)) else taxon,
+        "taxon_field": taxon_field,
+        "fold_subspecies": bool(fold_subspecies),
+        "keep_basis": sorted(choice["keep_basis"]),
+        "n_dated_fossils": int(len(dated)),
         "screen_max_r": screen_max_r,
         "screen_max_vif": screen_max_vif,
         "priority": list(priority or []),
@@ -424,6 +458,7 @@ def fit_niche(
         response=response,
         importance=importance,
         params=params,
+        dated=dated if len(dated) else None,
     )
 
 
