@@ -85,3 +85,20 @@ def test_unknown_model_in_slice(tmp_path):
     cfg = load_config(_write(tmp_path, text))
     with pytest.raises(ConfigError, match=r"'aldr'.*did you mean 'alder'"):
         cfg.slice_specs()
+
+
+def test_between_slice_takes_interpolated_sea_level(tmp_path):
+    # a 14 ka slice between 21 ka (-120 m) and 6 ka (-2 m) with no sea level of its own gets
+    # the sea level interpolated in time, as its climate is (numpy.interp as the reference)
+    import numpy as np
+
+    text = render_demo_config(".") + (
+        '\n[[slices]]\nname = "14ka"\nbetween = ["21ka", "6ka"]\nscenario = "past"\n'
+        "age_bp = 14000\n")
+    cfg = load_config(_write(tmp_path, text))
+    spec = [s for s in cfg.slice_specs() if s.label == "alder_14ka"][0]
+    expected = np.interp(1950 - 14000, [1950 - 21000, 1950 - 6000], [-120.0, -2.0])
+    assert spec.sea_level == pytest.approx(expected)
+    # given explicitly, it is kept
+    cfg2 = load_config(_write(tmp_path, text + "sea_level = -80.0\n"))
+    assert [s for s in cfg2.slice_specs() if s.label == "alder_14ka"][0].sea_level == -80.0

@@ -255,7 +255,9 @@ class SliceConfig(_Section):
     period: str | None = None
     year: float | None = None
     age_bp: float | None = None
-    sea_level: float = 0.0
+    #: sea level relative to present, m; default 0, or for a `between` slice the sea level
+    #: interpolated in time between its two ends (as its climate is)
+    sea_level: float | None = None
     ice: ClimateInput | None = None
     models: list[str] | None = None
 
@@ -511,7 +513,7 @@ class Config(_Section):
             between=ends or None,
             model_baseline=model_input.model_copy(update={"files": [
                 substitute_model(p, m) for p in model_input.patterns()]}),
-            sea_level=s.sea_level,
+            sea_level=_sea_level(s, year, ends),
             ice=ice,
         )
 
@@ -542,6 +544,18 @@ class Config(_Section):
                 f"{sorted(dup | ({self.climate.baseline_label} & set(labels)))}"
             )
         return specs
+
+
+def _sea_level(s: SliceConfig, year: float, ends: list[SliceSpec]) -> float:
+    """A slice's sea level: given, else interpolated linearly in time between its ends (the
+    rule :func:`timeslice.harmonise.interpolate.between` applies to the climate), else 0."""
+    if s.sea_level is not None:
+        return float(s.sea_level)
+    if len(ends) == 2:
+        a, b = sorted(ends, key=lambda e: e.year)
+        w = (year - a.year) / (b.year - a.year)
+        return float((1.0 - w) * a.sea_level + w * b.sea_level)
+    return 0.0
 
 
 class SliceSpec(BaseModel):
