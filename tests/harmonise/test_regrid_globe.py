@@ -61,7 +61,7 @@ def test_polar_rows_against_analytic_field_on_a_gaussian_grid():
     # f = x, y, z of the unit sphere: smooth across the pole, with the known value at every
     # target centre. Bilinear interpolation of a smooth field on a 2.8-degree grid errs by
     # ~ (d^2 / 8) |f''| ~ 3e-4 inside; the polar rows must be as good (repeating the
-    # outermost row instead would be off by ~0.02 there: cos(87.86 deg) - cos(89.75 deg)).
+    # outermost row instead would be off by ~0.03 there: cos(87.86 deg) - cos(89.75 deg)).
     lat, lon, _ = _canesm2_axes()
     target = make_grid(lon_min=-180, lon_max=180, lat_min=-90, lat_max=90, resolution=0.5)
     truth = _xyz(target.lat.values, target.lon.values)
