@@ -82,9 +82,9 @@ def test_missing_input_file_names_key(tmp_path):
 
 def test_unknown_model_in_slice(tmp_path):
     text = render_demo_config(".").replace('age_bp = 6000', 'age_bp = 6000\nmodels = ["aldr"]')
-    cfg = load_config(_write(tmp_path, text))
+    # refused when the config is loaded, before any work
     with pytest.raises(ConfigError, match=r"'aldr'.*did you mean 'alder'"):
-        cfg.slice_specs()
+        load_config(_write(tmp_path, text))
 
 
 def test_between_slice_takes_interpolated_sea_level(tmp_path):
@@ -102,3 +102,29 @@ def test_between_slice_takes_interpolated_sea_level(tmp_path):
     # given explicitly, it is kept
     cfg2 = load_config(_write(tmp_path, text + "sea_level = -80.0\n"))
     assert [s for s in cfg2.slice_specs() if s.label == "alder_14ka"][0].sea_level == -80.0
+
+
+@pytest.mark.parametrize("old,new,pattern", [
+    ('reference = "baseline"', 'reference = "alder_21k"',
+     r"series.reference = 'alder_21k' is not a slice label; did you mean 'alder_21ka'\?"),
+    ('"21 ka BP", "6 ka BP"', '"21 ka", "6 ka BP"',
+     r"series.refugium_window names '21 ka'.*did you mean '21 ka BP'\?"),
+    ('dispersal_rate = "500 km/kyr"', 'dispersal_rate = "500"',
+     r"series.dispersal_rate.*no unit"),
+    ('algorithm = "spline"', 'algorithm = "splin"',
+     r"niche.algorithm = 'splin'.*did you mean 'spline'\?"),
+    ('threshold = "p10"', 'threshold = "fixed"', r"threshold_value in \(0, 1\)"),
+    ('seed = 20261201', 'seed = -1', r"run.seed"),
+    ('seed = 20261201', 'seed = 4294967296', r"run.seed"),
+])
+def test_references_and_choices_checked_at_load(tmp_path, old, new, pattern):
+    text = render_demo_config(".")
+    assert old in text
+    with pytest.raises(ConfigError, match=pattern):
+        load_config(_write(tmp_path, text.replace(old, new)))
+
+
+def test_suggestion_never_repeats_the_value():
+    from timeslice.config import _suggest
+
+    assert "did you mean '2081-2100'" not in _suggest("2081-2100", ["2081-2100", "2041-2060"], "x")

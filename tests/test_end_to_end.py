@@ -200,15 +200,37 @@ def test_export_and_rerun(demo_run, tmp_path):
 
 
 def test_summarise_from_finished_run(demo_run, tmp_path):
-    out, _, _ = demo_run
-    result = CliRunner().invoke(app, ["summarise", str(out), "--reference", "alder_21ka"])
+    import shutil
+
+    out, data, _ = demo_run
+    work = tmp_path / "copy"
+    shutil.copytree(out, work)
+    result = CliRunner().invoke(app, ["summarise", str(work), "--reference", "alder_21ka"])
     assert result.exit_code == 0, result.output
-    df = pd.read_csv(out / "summary.csv")
+    df = pd.read_csv(work / "summary.csv")
     assert df.loc[df["slice"] == "alder_21ka", "gain_km2"].iloc[0] == 0
-    bad = CliRunner().invoke(app, ["summarise", str(out), "--reference", "nope"])
+    assert "period" in df.columns  # summary.csv keeps all its columns
+    # the report is regenerated with the new reference, not left stale
+    assert "alder_21ka" in (work / "report.html").read_text(encoding="utf-8")
+    manifest = json.loads((work / "manifest.json").read_text())
+    assert manifest["config"]["series"]["reference"] == "alder_21ka"
+    bad = CliRunner().invoke(app, ["summarise", str(work), "--reference", "nope"])
     assert bad.exit_code == 2 and "nope" in bad.stderr
-    # restore the baseline reference for other tests of the module
-    assert CliRunner().invoke(app, ["summarise", str(out)]).exit_code == 0
+    # the same options given to `run` give the same tables and layers
+    cfg = data / "ref21.toml"
+    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
+        "maps = true", "maps = false").replace('reference = "baseline"', 'reference = "alder_21ka"'))
+    fresh = tmp_path / "fresh"
+    shutil.copytree(out / ".cache", fresh / ".cache")
+    assert CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)]).exit_code == 0
+    for name in ["summary.csv", *sorted(p.relative_to(work).as_posix()
+                                        for p in (work / "tables").glob("*.csv"))]:
+        a, b = pd.read_csv(work / name), pd.read_csv(fresh / name)
+        pd.testing.assert_frame_equal(a, b, obj=name)
+    with open_series(work / "series.nc") as a, open_series(fresh / "series.nc") as b:
+        assert sorted(a.data_vars) == sorted(b.data_vars)
+        for v in a.data_vars:
+            np.testing.assert_array_equal(a[v].values, b[v].values, err_msg=v)
 
 
 def test_input_table_names_every_file(demo_run):

@@ -213,7 +213,9 @@ def fit(
 @_guard
 def summarise(
     run_dir: Annotated[Path, typer.Argument(help="Output folder of a finished run.")],
-    reference: Annotated[str, typer.Option("--reference", help="Slice label to compare against.")] = "baseline",
+    reference: Annotated[
+        Optional[str], typer.Option("--reference", help="Slice label to compare against (default: the run's).")
+    ] = None,
     rate: Annotated[Optional[str], typer.Option("--rate", help="Movement rate, e.g. '500 km/kyr'.")] = None,
     window: Annotated[
         Optional[list[str]],
@@ -223,13 +225,15 @@ def summarise(
         Optional[Path], typer.Option("--dated-records", help="CSV of dated records for the hindcast check.")
     ] = None,
 ) -> None:
-    """Recompute change, stability, refugia, movement and ensembles from a finished run."""
+    """Recompute change, stability, refugia, movement and ensembles of a finished run with
+    other series options, and refresh its tables, maps, plots, report and manifest (harmonised
+    slices, the fit and the transfers come from the run's cache)."""
     from timeslice.pipeline import run_summarise
 
-    paths = run_summarise(run_dir, reference=reference, rate=rate, window=window or None,
-                          dated_records=dated_records)
-    for name, path in paths.items():
-        typer.echo(f"  {name:<12} {path}")
+    with _progress(True) as progress:
+        result = run_summarise(run_dir, reference=reference, rate=rate, window=window or None,
+                               dated_records=dated_records, progress=progress)
+    _report_done(result, 0)
 
 
 @app.command()

@@ -40,7 +40,8 @@ class _Section(BaseModel):
 
 class RunConfig(_Section):
     name: str = "timeslice run"
-    seed: int = 0
+    #: 0 .. 2**32 - 1 (the range numpy's and scikit-learn's seeds accept)
+    seed: int = Field(0, ge=0, le=2**32 - 1)
     scheduler: str = "threads"
     workers: int | None = None
 
@@ -627,6 +628,58 @@ def _check_patterns(cfg: Config, source: str) -> None:
         _check_units(source, f"climate.models.{k}", v)
 
 
+def _suggest(value: str, choices, what: str) -> str:
+    """' did you mean X?' for the closest choice that is not `value` itself, else the list."""
+    choices = [str(c) for c in choices]
+    close = [c for c in difflib.get_close_matches(str(value), choices, n=3, cutoff=0.5)
+             if c != str(value)]
+    if close:
+        return f"; did you mean {close[0]!r}?"
+    shown = ", ".join(repr(c) for c in choices[:12])
+    return f"; choose one of {shown}{' …' if len(choices) > 12 else ''}"
+
+
+def _check_references(cfg: Config, source: str) -> None:
+    """Names that refer to other parts of the config, and choices of the stages, checked at
+    load so a mistake costs no harmonising time."""
+    specs = cfg.slice_specs()  # unknown models, bad `between` names, duplicate labels
+    c, ser, n = cfg.climate, cfg.series, cfg.niche
+    labels = [c.baseline_label, *[s.label for s in specs]]
+    periods = [c.baseline_period, *[s.period for s in specs]]
+    if ser.reference != "baseline" and ser.reference not in labels:
+        raise ConfigError(f"{source}: series.reference = {ser.reference!r} is not a slice label"
+                          f"{_suggest(ser.reference, labels, 'slice')}")
+    if isinstance(ser.refugium_window, list):
+        for w in ser.refugium_window:
+            if w not in labels and w not in periods:
+                raise ConfigError(
+                    f"{source}: series.refugium_window names {w!r}, which is neither a slice "
+                    f"label nor a period{_suggest(w, list(dict.fromkeys(periods + labels)), 'slice')}")
+    if ser.dispersal_rate is not None:
+        from timeslice.series.dispersal import parse_rate
+
+        try:
+            parse_rate(ser.dispersal_rate, name="series.dispersal_rate")
+        except ConfigError as err:
+            raise ConfigError(f"{source}: {err}") from err
+    for f in ser.partition_factors or []:
+        if f not in ("algorithm", "model", "scenario"):
+            raise ConfigError(f"{source}: series.partition_factors names {f!r}"
+                              f"{_suggest(f, ['algorithm', 'model', 'scenario'], 'factor')}")
+    from timeslice.niche.evaluate import THRESHOLD_RULES
+    from timeslice.niche.models import MODEL_NAMES
+
+    if n.algorithm not in MODEL_NAMES:
+        raise ConfigError(f"{source}: niche.algorithm = {n.algorithm!r} is not an algorithm"
+                          f"{_suggest(n.algorithm, MODEL_NAMES, 'algorithm')}")
+    if n.threshold not in THRESHOLD_RULES:
+        raise ConfigError(f"{source}: niche.threshold = {n.threshold!r} is not a threshold rule"
+                          f"{_suggest(n.threshold, THRESHOLD_RULES, 'rule')}")
+    if n.threshold == "fixed" and (n.threshold_value is None or not 0 < n.threshold_value < 1):
+        raise ConfigError(f"{source}: niche.threshold = \"fixed\" needs niche.threshold_value "
+                          f"in (0, 1), got {n.threshold_value!r}")
+
+
 def _section_keys(model: type[BaseModel]) -> list[str]:
     return list(model.model_fields)
 
@@ -686,6 +739,7 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
             s.file = (str(_resolve(base, s.file)) if isinstance(s.file, str)
                       else [str(_resolve(base, f)) for f in s.file])
     _check_patterns(cfg, str(source))
+    _check_references(cfg, str(source))
     cfg.species.occurrences = _resolve(base, cfg.species.occurrences)
     if cfg.species.dated_records is not None:
         cfg.species.dated_records = _resolve(base, cfg.species.dated_records)

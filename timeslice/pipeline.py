@@ -716,41 +716,61 @@ def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict
 def run_summarise(
     out: str | os.PathLike,
     *,
-    reference: str = "baseline",
+    reference: str | None = None,
     rate: str | None = None,
     window: list[str] | None = None,
     dated_records: str | os.PathLike | None = None,
-) -> dict[str, Path]:
-    """Recompute the series summaries from a finished run's ``series.nc`` (no refitting).
+    progress: Progress = _quiet,
+) -> RunResult:
+    """Summarise a finished run again with other series options, and refresh every output.
 
-    Rewrites ``series.nc``, ``summary.csv``, ``ensemble.nc`` and the series tables.
+    The run's own configuration (from its manifest) is taken with the given series options laid
+    over it, and the run is repeated: harmonising, fitting and transferring come from the stage
+    cache of `out` (nothing is refitted), while the series summaries, ``series.nc``,
+    ``summary.csv``, ``ensemble.nc``, tables, maps, plots, the report and the manifest are
+    written anew. So ``summarise`` and ``run`` give the same numbers for the same options, by
+    construction: there is one code path.
+
+    Parameters
+    ----------
+    out : path
+        Output folder of a finished run (holding ``manifest.json``).
+    reference, rate, window, dated_records : optional
+        New values of ``series.reference``, ``series.dispersal_rate``,
+        ``series.refugium_window`` and ``species.dated_records``; None keeps the run's own.
     """
-    from timeslice.readers import read_dated_records
-    from timeslice.report import open_series, write_csv, write_series
-    from timeslice.series.analysis import analyse_series, key_results
+    from timeslice.config import SeriesConfig, parse_config
+    from timeslice.report import read_manifest
 
     out = Path(out)
-    path = out / "series.nc"
-    if not path.is_file():
-        raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
-    with open_series(path) as ds:
-        stack = ds.load()
-    records = read_dated_records(dated_records) if dated_records is not None else None
-    res = analyse_series(stack, reference=reference, window=window, rate=rate,
-                         rate_key="--rate", records=records,
-                         records_source=str(dated_records))
-    history = f"timeslice {__version__} summarise"
-    paths = {
-        "series": write_series(res.series, path, history=history),
-        "summary": write_csv(res.tables["summary"], out / "summary.csv"),
-        "key_results": write_csv(key_results(res), out / "tables" / "key_results.csv"),
-    }
-    if res.ensemble is not None:
-        paths["ensemble"] = write_series(res.ensemble, out / "ensemble.nc", history=history)
-    for name, df in res.tables.items():
-        if name != "summary":
-            paths[name] = write_csv(df, out / "tables" / f"series_{name}.csv")
-    return paths
+    manifest = out / "manifest.json"
+    if not manifest.is_file():
+        raise DataError(f"{out}: no manifest.json; run `timeslice run CONFIG --out {out}` first")
+    info = read_manifest(manifest, verify=False)
+    cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
+    updates: dict[str, Any] = {}
+    for key, value in (("reference", reference), ("dispersal_rate", rate),
+                       ("refugium_window", window)):
+        if value is not None:
+            updates[key] = value
+    data = {**cfg.series.model_dump(), **updates}
+    try:
+        cfg.series = SeriesConfig.model_validate(data)
+    except Exception as err:  # pydantic's ValidationError
+        raise DataError(f"summarise: {str(err).splitlines()[-1].strip()}") from err
+    if dated_records is not None:
+        cfg.species.dated_records = Path(dated_records).resolve()
+    from timeslice.config import _check_references
+
+    _check_references(cfg, "summarise")
+    command = ["timeslice", "summarise", str(out)]
+    for flag, value in (("--reference", reference), ("--rate", rate),
+                        ("--dated-records", dated_records)):
+        if value is not None:
+            command += [flag, str(value)]
+    for w in window or []:
+        command += ["--window", str(w)]
+    return run(cfg, out, progress=progress, command=command)
 
 
 def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
