@@ -213,3 +213,13 @@ def test_centroid_track_across_180(tmp_path):
     for land in (ds["land"].isel(slice=0), None):
         path = plots.centroid_track(summary, tmp_path / "t.png", land=land, dpi=40)
         assert path.is_file()
+
+
+def test_netcdf_across_180_passes_cf_checker(tmp_path):
+    # Reference: compliance-checker's "cf:1.8" suite, offline; longitudes past 180 are valid
+    # degrees_east (CF 1.8 section 4.2 sets no range; from memory, the checker agrees here)
+    from test_netcdf import _cf_errors
+
+    path = write_series(_crossing_series(), tmp_path / "series.nc", source="unit test")
+    passed, had_errors, high, medium = _cf_errors(path, tmp_path)
+    assert not had_errors and high == [] and medium == [] and passed
