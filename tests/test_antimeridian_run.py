@@ -152,3 +152,26 @@ def test_records_on_both_sides_of_180_are_used(crossing_run):
     out, _ = crossing_run
     cleaning = pd.read_csv(out / "tables" / "cleaning.csv").set_index("reason")
     assert cleaning.loc["outside grid", "n_dropped"] == 0
+
+
+def test_without_a_grid_section_the_baseline_grid_is_made_continuous(tmp_path):
+    # no [grid]: the fine baseline (written 165.25 .. 194.75, split at 180 by the reader) is
+    # the grid; it is put back on one continuous axis before anything is regridded onto it
+    cfg = write_world(tmp_path / "data")
+    text = cfg.read_text()
+    start = text.index("[grid]")
+    end = text.index("[climate]")
+    cfg.write_text(text[:start] + text[end:])
+    out = tmp_path / "h"
+    result = CliRunner().invoke(app, ["harmonise", str(cfg), "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    with xr.open_dataset(out / "harmonised" / "baseline.nc") as base:
+        np.testing.assert_allclose(base.lon.values, np.arange(WEST + RES / 2, EAST, RES))
+        LAT, LON = np.meshgrid(base.lat.values, base.lon.values, indexing="ij")
+        # land where the world's elevation (coarsened conservatively) is above sea level,
+        # on both sides of 180
+        land = base["land"].values.astype(bool)
+        assert land[:, base.lon.values < 180].any() and land[:, base.lon.values > 180].any()
+        z = true_elevation(LON, LAT)
+        clear = np.abs(z) > 50  # away from the coast, where coarsening cannot flip the sign
+        np.testing.assert_array_equal(land[clear], (z > 0)[clear])
