@@ -127,9 +127,9 @@ def _linear_1d(src: np.ndarray, dst: np.ndarray, *, periodic: bool) -> sp.csr_ma
 
     Points between the outermost source centre and the outer cell edge take the edge value
     (edge padding); points beyond the source cell edges get no weight (NaN after
-    normalisation). With ``periodic`` the source wraps around 360°; otherwise target
-    longitudes are matched to the source modulo 360° (``periodic`` is only ever set for
-    longitudes, and a non-periodic latitude never reaches ±360).
+    normalisation). With ``periodic`` the source wraps around 360° (target longitudes taken
+    modulo 360°); without it the coordinates are used as given (:func:`_linear_lon` brings
+    target longitudes to a regional source's turn first).
     """
     n = src.size
     rows, cols, vals = [], [], []
