@@ -186,3 +186,32 @@ def test_conservative_weights_sum_to_overlap_on_a_global_target():
     w_lat, w_lon, area = conservative_weights(lat, np.arange(2.5, 360, 5.0),
                                               lat, np.arange(-177.5, 180, 5.0))
     np.testing.assert_allclose(np.asarray(w_lon.sum(axis=1)).ravel(), 5.0, rtol=1e-12)
+
+
+@pytest.mark.parametrize("chunks", [None, 40])
+def test_downscaled_global_slice_has_no_nan_at_the_poles(chunks):
+    # the delta method interpolates the model's change onto the fine grid (whole grid, or in
+    # blocks of fine rows): a Gaussian-grid model onto a global 1-degree baseline leaves the
+    # polar rows filled, and a uniform +2 K change comes back as +2 K there too
+    from timeslice.harmonise.downscale import delta
+
+    lat, lon, _ = _canesm2_axes()
+    month = np.arange(1, 13)
+
+    def monthly(lat_, lon_, t, p):
+        shape = (12, lat_.size, lon_.size)
+        coords = {"month": month, "lat": lat_, "lon": lon_}
+        dims = ("month", "lat", "lon")
+        return xr.Dataset({
+            "tasmin": (dims, np.full(shape, t - 4.0), {"units": "degC"}),
+            "tasmax": (dims, np.full(shape, t + 4.0), {"units": "degC"}),
+            "pr": (dims, np.full(shape, p), {"units": "mm month-1"}),
+        }, coords=coords)
+
+    fine = make_grid(lon_min=-180, lon_max=180, lat_min=-90, lat_max=90, resolution=1.0)
+    out = delta(monthly(lat, lon, -8.0, 40.0), monthly(lat, lon, -10.0, 50.0),
+                monthly(fine.lat.values, fine.lon.values, 0.0, 30.0), chunks=chunks)
+    for v in ("tasmin", "tasmax", "pr"):
+        assert np.isfinite(out[v].values).all(), v
+    np.testing.assert_allclose(out["tasmin"].isel(lat=[0, -1]).values, -4.0 + 2.0, atol=1e-5)
+    np.testing.assert_allclose(out["pr"].isel(lat=[0, -1]).values, 30.0 * 40.0 / 50.0, rtol=1e-5)
