@@ -104,6 +104,10 @@ def make_grid(
             f"{lon_max}, lat {lat_min}..{lat_max}); give a smaller resolution"
         )
     lon = west + resolution * (np.arange(nlon) + 0.5)
+    # the same floating-point steps as grids have always had within [-180, 180) (so their
+    # coordinates stay bit for bit), continued past 180 for a region that crosses it
+    wrapped = ((lon + 180.0) % 360.0) - 180.0
+    lon = np.where(lon >= 180.0, wrapped + 360.0, wrapped)
     lat = lat_min + resolution * (np.arange(nlat) + 0.5)
     ds = xr.Dataset(coords={"lat": ("lat", lat), "lon": ("lon", lon)})
     _set_coord_attrs(ds)
