@@ -174,7 +174,9 @@ def _linear_lon(src: np.ndarray, dst: np.ndarray) -> sp.csr_matrix:
     order, src_c = lon_order(src, source="regrid source")
     if src_c.size > 1:
         west = src_c[0] - resolution(src_c) / 2
-        dst = ((dst - west) % 360.0) + west
+        # only longitudes outside the source's turn move (the rest stay bit for bit)
+        off = (dst < west) | (dst >= west + 360.0)
+        dst = np.where(off, ((dst - west) % 360.0) + west, dst)
     return _unpermute(_linear_1d(src_c, dst, periodic=False), order)
 
 
