@@ -129,3 +129,10 @@ def test_config_projection_choices():
     assert parse_config({**base, "output": {"projection": "polar"}}).output.projection == "polar"
     with pytest.raises(ConfigError, match="projection"):
         parse_config({**base, "output": {"projection": "mercator"}})
+
+
+def test_two_columns_either_side_of_180():
+    order, values = lon_order(np.array([-179.5, 179.5]))
+    assert order.tolist() == [1, 0] and values.tolist() == [179.5, 180.5]
+    order, values = lon_order(np.array([10.0, 11.0]))
+    assert order.tolist() == [0, 1] and values.tolist() == [10.0, 11.0]

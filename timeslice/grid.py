@@ -156,7 +156,11 @@ def lon_order(lon, *, source: str = "input") -> tuple[np.ndarray, np.ndarray]:
     v = np.asarray(lon, dtype=float)
     n = v.size
     order = np.arange(n)
-    if n < 3:
+    if n < 2:
+        return order, v.copy()
+    if n == 2:  # two columns: across 180 when the way round through 180 is the shorter step
+        if v[0] + 360.0 - v[1] < v[1] - v[0]:
+            return order[::-1].copy(), np.array([v[1], v[0] + 360.0])
         return order, v.copy()
     steps = np.diff(v)
     step = float(np.median(steps))
