@@ -7,6 +7,7 @@ from __future__ import annotations
 import csv
 import io
 import zipfile
+from pathlib import Path
 
 import pandas as pd
 import pytest
@@ -118,3 +119,15 @@ def test_run_on_a_darwin_core_archive_and_a_simple_download(demo):
     assert int(b["n_dropped"].sum()) < n_occ
     html = (out / "report.html").read_text()
     assert f"{n_occ} read" in html  # the methods paragraph counts the records read
+
+
+def test_multi_species_file_stops_the_run_with_one_line(demo):
+    root, data = demo
+    ebird = Path(__file__).resolve().parent / "data" / "occurrences" / "ebird.tab.txt"
+    cfg = root / "multi.toml"
+    cfg.write_text(_config(data, str(ebird), dated=True))
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(root / "out")])
+    assert result.exit_code == 2, result.output
+    lines = [l for l in result.stderr.splitlines() if l.strip()]
+    assert len(lines) == 1 and "ebird.tab.txt" in lines[0]
+    assert "5 species: Pipilo maculatus (4)" in lines[0] and "[species] taxon" in lines[0]

@@ -289,3 +289,24 @@ def test_zero_count_without_status_is_an_absence(globe):
     rec = _frame(status=["present", "", "", "absent"], count=[0.0, 0.0, 3.0, 2.0])
     _, table = nd.clean_records(rec, land=globe)
     assert _counts(table)["status absent"] == 2
+
+
+# ---------------------------------------------------------------------------- config keys
+def test_config_keys_for_records(tmp_path):
+    import tomllib
+
+    from timeslice.config import parse_config
+    from timeslice.demo_config import render_demo_config
+    from timeslice.errors import ConfigError as CfgError
+
+    data = tomllib.loads(render_demo_config("."))
+    data["species"].update(taxon=["Puma concolor", "Felis concolor"], fold_subspecies=True)
+    data["niche"].update(keep_basis=["fossil"], centroid_min_records=8)
+    cfg = parse_config(data, source=tmp_path / "c.toml")
+    assert cfg.species.taxon == ["Puma concolor", "Felis concolor"] and cfg.species.taxon_field == "auto"
+    assert cfg.niche.keep_basis == ["fossil"] and cfg.niche.centroid_min_records == 8
+    data["species"]["taxon"] = 2435099  # a taxon key stays a number
+    assert parse_config(data, source=tmp_path / "c.toml").species.taxon == 2435099
+    data["niche"]["keep_basis"] = ["zoo"]
+    with pytest.raises(CfgError, match="niche.keep_basis"):
+        parse_config(data, source=tmp_path / "c.toml")

@@ -214,6 +214,12 @@ def taxon_name(name: str, *, fold: bool = False) -> str:
     return " ".join(out)
 
 
+def _names(series: pd.Series, *, fold: bool = False) -> pd.Series:
+    """:func:`taxon_name` of every value, computed once per distinct value."""
+    uniq = pd.unique(series)
+    return series.map(dict(zip(uniq, (taxon_name(u, fold=fold) for u in uniq))))
+
+
 def _shown(name: str) -> str:
     return name[:1].upper() + name[1:] if name else "(no name)"
 
@@ -227,14 +233,14 @@ def _text(df: pd.DataFrame, col: str) -> pd.Series:
 def _taxon_groups(df: pd.DataFrame) -> tuple[pd.Series, pd.Series]:
     """Species identity of each record (species key, else accepted name, else scientific name,
     at species level) and a readable name per identity."""
-    names = _text(df, "species").map(lambda s: taxon_name(s, fold=True))
+    names = _names(_text(df, "species"), fold=True)
     if "species_key" in df.columns and (_text(df, "species_key") != "").all() and len(df):
         key = _text(df, "species_key")
         label = names.groupby(key).agg(lambda s: s.mode().iloc[0] if len(s.mode()) else "")
         return key, key.map(lambda k: f"{_shown(label[k])} (key {k})")
     acc = _text(df, "accepted_name")
     if (acc != "").any():
-        key = acc.map(lambda s: taxon_name(s, fold=True))
+        key = _names(acc, fold=True)
         return key, key.map(_shown)
     return names, names.map(_shown)
 
@@ -317,11 +323,11 @@ def select_taxon(
                               f"{'acceptedScientificName' if col == 'accepted_name' else 'scientificName'} "
                               "column; choose by another field or map the column")
         raw = _text(records, col)
-        full = raw.map(taxon_name)
+        full = _names(raw)
         want = {taxon_name(c) for c in choices}
         match = full.isin(want).to_numpy().copy()
         if fold_subspecies:
-            match |= raw.map(lambda s: taxon_name(s, fold=True)).isin(want).to_numpy()
+            match |= _names(raw, fold=True).isin(want).to_numpy()
         what, shown = field.replace("_", " "), full.map(_shown)
     if n and not match.any():
         raise DataError(
@@ -363,7 +369,9 @@ def _check_kinds(keep_basis: Sequence[str]) -> set[str]:
 
 
 def _split_flags(flags: pd.Series) -> pd.Series:
-    return flags.str.upper().str.split(r"[;,|\s]+", regex=True).map(lambda xs: {x for x in xs if x})
+    uniq = pd.unique(flags)
+    sets = {u: frozenset(x for x in re.split(r"[;,|\s]+", str(u).upper()) if x) for u in uniq}
+    return flags.map(sets)
 
 
 def _coordinate_checks(df: pd.DataFrame) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -184,7 +184,9 @@ def _parse(text: str, name: str, *, sep: str, quoting: int, quotechar: str = '"'
     df["__line__"] = np.arange(first, len(df) + first, dtype=np.int64)
     cols = [c for c in df.columns if c != "__line__"]
     if cols:
-        blank = (df[cols].apply(lambda s: s.str.strip()) == "").all(axis=1)
+        blank = (df[cols[0]].str.strip() == "").to_numpy().copy()
+        if len(cols) > 1 and blank.any():
+            blank &= (df[cols[1:]] == "").all(axis=1).to_numpy()
         df = df.loc[~blank].reset_index(drop=True)
     return df
 
