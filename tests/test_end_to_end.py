@@ -270,3 +270,25 @@ def test_local_cluster_matches_threads(demo_run, tmp_path):
     with open_series(out / "series.nc") as a, open_series(tmp_path / "w" / "series.nc") as b:
         for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2", "stability"):
             assert a[name].values.tobytes() == b[name].values.tobytes(), name
+
+
+def test_headline_numbers_trace_to_key_results(demo_run):
+    # every card of the report and every headline line of the CLI is a key_results row
+    out, _, result = demo_run
+    k = pd.read_csv(out / "tables" / "key_results.csv")
+    html = (out / "report.html").read_text(encoding="utf-8")
+    ref = k[k["topic"] == "reference"].iloc[0]
+    assert f"{ref['value']:,.0f} km²" in html
+    med = k[k["quantity"] == "change in suitable area, median over models"]
+    assert len(med) == 6  # 2 past slices + 2 scenarios x 2 periods, one model
+    for _, r in med.iterrows():
+        scen, _, per = r["scope"].partition(" ")
+        card = f"{scen}, {per}: change in suitable area"
+        assert card in html
+        assert f"{r['value']:+.0f} %" in html
+        assert f"{r['scope']}: suitable area {r['value']:+.0f} %" in result.output
+    land = k[k["quantity"] == "share of land in novel climate"]
+    assert len(land) == 6 and all(f"{100 * v:.0f} % of land" in html for v in land["value"])
+    win = k[(k["topic"] == "refugia") & k["scope"].str.startswith("window")
+            & (k["quantity"] == "refugium area")]
+    assert f"{win['value'].iloc[0]:,.0f} km²" in html

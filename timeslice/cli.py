@@ -122,6 +122,11 @@ def _apply_overrides(cfg, scheduler, workers, chunks):
 
 
 def _report_done(result, verbose: int) -> None:
+    from timeslice.narrative import findings
+
+    # the headline numbers, from the same key-results rows as the report's cards
+    for line in findings(getattr(result, "key_results", None)):
+        typer.echo(line)
     typer.echo(f"outputs in {result.out.resolve()}")
     for name, path in result.paths.items():
         typer.echo(f"  {name:<12} {path}")

@@ -98,27 +98,38 @@ def methods_paragraph(
     )
 
 
-def findings(summary: pd.DataFrame, *, refugium_km2: float | None = None,
-             reference: str = "baseline") -> list[str]:
-    """Short sentences with the headline numbers of a run, for the top of the report."""
+def findings(results: pd.DataFrame) -> list[str]:
+    """Short sentences with the headline numbers of a run, for the top of the report.
+
+    Every number is read from the key-results table (:func:`timeslice.series.key_results`),
+    the same rows the report cards, ``tables/key_results.csv`` and the command line show.
+    """
     out: list[str] = []
-    s = summary.copy()
-    ref = s[s["slice"] == reference]
+    if results is None or results.empty:
+        return out
+    k = results
+    ref = k[k["topic"] == "reference"]
     if len(ref):
-        out.append(
-            f"Suitable area in the reference slice '{reference}': "
-            f"{float(ref['suitable_area_km2'].iloc[0]):,.0f} km²."
-        )
-    if refugium_km2 is not None:
-        out.append(f"Refugia (suitable in every slice of the window): {refugium_km2:,.0f} km².")
-    others = s[s["slice"] != reference]
-    for (scen, period), grp in others.groupby(["scenario", "period"] if "period" in s else ["scenario", "year"]):
-        area = grp["suitable_area_km2"]
-        novel = grp["novel_area_km2"].sum() / max(area.sum(), 1e-9)
-        out.append(
-            f"{scen}, {period}: suitable area {area.min():,.0f}–{area.max():,.0f} km² across "
-            f"{len(grp)} models (mean loss {grp['loss_km2'].mean():,.0f} km², mean gain "
-            f"{grp['gain_km2'].mean():,.0f} km²; {100 * novel:.0f} % of the suitable area in novel "
-            f"climate)."
-        )
+        out.append(f"Suitable area in the reference slice '{ref['scope'].iloc[0]}': "
+                   f"{float(ref['value'].iloc[0]):,.0f} km².")
+    win = k[(k["topic"] == "refugia") & (k["quantity"] == "refugium area")
+            & k["scope"].str.startswith("window")]
+    if len(win):
+        out.append(f"Refugia (suitable in every slice of the window, in every model): "
+                   f"{float(win['value'].iloc[0]):,.0f} km².")
+    change = k[k["topic"] == "change"]
+    for scope in dict.fromkeys(change["scope"]):
+        sub = k[(k["scope"] == scope) & k["topic"].isin(["change", "novelty"])]
+        g = sub.drop_duplicates("quantity").set_index("quantity")["value"]
+        if "change in suitable area, median over models" not in g:
+            continue
+        n = int(g.get("models", 1))
+        text = f"{scope}: suitable area {g['change in suitable area, median over models']:+.0f} %"
+        if n > 1:
+            text += (f" (median of {n} models, range {g['change in suitable area, lowest model']:+.0f}"
+                     f" to {g['change in suitable area, highest model']:+.0f} %)")
+        land = g.get("share of land in novel climate")
+        if land is not None and np.isfinite(land):
+            text += f"; {100 * land:.0f} % of the land in novel climate"
+        out.append(text + ".")
     return out

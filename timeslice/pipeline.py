@@ -48,6 +48,8 @@ class RunResult:
     timings: dict[str, float] = field(default_factory=dict)
     cache_hits: list[str] = field(default_factory=list)
     cache_misses: list[str] = field(default_factory=list)
+    #: the headline numbers (:func:`timeslice.series.key_results`), as in the report
+    key_results: pd.DataFrame | None = None
 
 
 @contextlib.contextmanager
@@ -468,10 +470,12 @@ def report_stage(
         "response": fit.response,
         "importance": fit.importance,
     }
+    results = None
     if analysis is not None:
         from timeslice.series.analysis import key_results
 
-        tables["key_results"] = key_results(analysis)
+        results = key_results(analysis)
+        tables["key_results"] = results
         for name, df in analysis.tables.items():
             if name != "summary":
                 tables[f"series_{name}"] = df
@@ -542,15 +546,11 @@ def report_stage(
         models = sorted({str(m) for m in series["model"].values} - {"observed"})
         scenarios = sorted({str(m) for m in series["scenario"].values} - {"baseline"})
         ref_label = cfg.climate.baseline_label if cfg.series.reference == "baseline" else cfg.series.reference
-        refugium_km2 = None
-        if "refugium" in series:
-            from timeslice.grid import cell_area
-
-            refugium_km2 = float(cell_area(series).where(series[refuge].astype(bool)).sum())
         ctx = R.ReportContext(
             title=title,
             headline_figures=headline,
-            key_numbers=R.key_numbers(summary, series=series, refugium=refuge),
+            key_numbers=R.key_numbers(results if results is not None else summary,
+                                      series=series, refugium=refuge),
             outputs={
                 "all layers, CF NetCDF": "series.nc",
                 "one row per slice": "summary.csv",
@@ -570,7 +570,7 @@ def report_stage(
             ),
             run_info={"config": str(cfg.source), "seed": cfg.run.seed, "version": __version__,
                       "warnings": "; ".join(warnings_seen) or "none"},
-            highlights=findings(summary, refugium_km2=refugium_km2, reference=ref_label),
+            highlights=findings(results) if results is not None else [],
             alerts=[weak] if weak else [],
         )
         paths["report"] = R.write_report(ctx, out / "report.html")
@@ -631,6 +631,9 @@ def run(
                 cfg, series=series, summary=summary, fit=fit, inputs=inputs, out=out,
                 warnings_seen=[str(w.message) for w in caught], analysis=analysis,
             )
+        from timeslice.series.analysis import key_results
+
+        result.key_results = key_results(analysis)
     # the warnings were collected for the report; show them to the user too, once each
     for w in {str(w.message): w for w in caught}.values():
         warnings.showwarning(w.message, w.category, w.filename, w.lineno)

@@ -141,3 +141,26 @@ def test_unbalanced_ensemble_is_skipped_with_a_note(stack_factory):
     assert list(res.tables["partition"]["period"].unique()) == ["2041-2060"]
     with pytest.raises(DataError, match="unbalanced design"):
         analyse_series(ds, factors=("model", "scenario"))
+
+
+def test_key_results_change_per_scenario_and_period(stack_factory):
+    # the headline change is 100 (A_t - A_ref) / A_ref per model, median and range over models
+    # (recomputed here from the per-slice summary with numpy)
+    import numpy as np
+
+    from timeslice.series import key_results
+
+    ds = _full_stack(stack_factory)
+    res = analyse_series(ds, reference="baseline")
+    k = key_results(res)
+    s = res.tables["summary"]
+    a0 = float(s.loc[s["slice"] == "baseline", "suitable_area_km2"].iloc[0])
+    assert k[(k["topic"] == "reference")]["value"].item() == pytest.approx(a0)
+    g = s[(s["scenario"] == "low") & (s["year"] == 2090.0)]
+    pct = 100 * (g["suitable_area_km2"].to_numpy() - a0) / a0
+    row = k[(k["scope"] == "low 2081-2100")].set_index("quantity")["value"]
+    assert row["change in suitable area, median over models"] == pytest.approx(np.median(pct))
+    assert row["change in suitable area, lowest model"] == pytest.approx(pct.min())
+    assert row["change in suitable area, highest model"] == pytest.approx(pct.max())
+    assert row["models"] == len(g)
+    assert 0 <= row["share of land in novel climate"] <= 1

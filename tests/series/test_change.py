@@ -225,3 +225,31 @@ def test_detail_without_optional_layers(stack_factory):
                 "novel_mess_km2"):
         assert tab[col].isna().all(), col
     assert tab["lat_q50"].notna().any()
+
+
+def test_novel_climate_over_all_land_and_in_the_loss(stack_factory):
+    # a slice wholly outside the calibration climate (MESS < 0 on all land) with nothing
+    # suitable: its novel suitable area is 0, but all of its land is novel and all of its loss
+    # lies in novel climate
+    import numpy as np
+
+    from timeslice.series.change import change_table
+
+    stack = stack_factory()
+    land = stack["land"].values
+    stack["mess"][3] = np.where(land, -5.0, np.nan)
+    stack["nt1"][3] = np.where(land, -0.5, np.nan)
+    stack["suitable"][3] = np.where(land, 0, -1).astype(np.int8)
+    t = change_table(stack, detail=True).set_index("slice")
+    row = t.loc["low_2081-2100"]
+    # land area by the sphere formula R^2 dlon (sin phi2 - sin phi1), R = 6371.0072 km
+    # (Snyder 1987, USGS PP 1395), computed here without timeslice
+    lat = stack["lat"].values
+    edges = np.deg2rad(np.stack([lat - 0.5, lat + 0.5], axis=1))
+    band = 6371.0072**2 * np.deg2rad(1.0) * (np.sin(edges[:, 1]) - np.sin(edges[:, 0]))
+    land_km2 = float((band[:, None] * land).sum())
+    assert row["suitable_area_km2"] == 0 and row["novel_area_km2"] == 0
+    assert row["land_km2"] == pytest.approx(land_km2, rel=1e-12)
+    assert row["novel_land_km2"] == pytest.approx(land_km2, rel=1e-12)
+    assert row["novel_land_share"] == pytest.approx(1.0)
+    assert row["loss_km2"] > 0 and row["loss_novel_share"] == pytest.approx(1.0)

@@ -235,63 +235,81 @@ TABLE_TITLES = {
 }
 
 
-def key_numbers(summary: pd.DataFrame | None, *, series=None,
+def key_numbers(results: pd.DataFrame | None, *, series=None,
                 refugium: str = "refugium") -> list[tuple[str, ...]]:
-    """Headline cards for the top of the report.
+    """Headline cards for the top of the report, read from the run's key-results table.
 
     Parameters
     ----------
-    summary : pandas.DataFrame
-        The per-slice summary (``scenario``, ``suitable_area_km2``, optionally ``period``,
-        ``novel_area_km2``).
+    results : pandas.DataFrame
+        The key results (:func:`timeslice.series.key_results`: ``topic, scope, quantity, value,
+        unit``). A per-slice summary (``slice``, ``scenario``, ``suitable_area_km2``, ...) is
+        accepted too and turned into those rows by :func:`timeslice.series.change_rows` with the
+        baseline as reference, so the numbers have one source either way.
     series : xarray.Dataset, optional
-        The summarised series; with a ``refugium(lat, lon)`` layer a card gives the refugia
-        area (sum of spherical cell areas) and the latitude-longitude box they span.
+        The summarised series; with a `refugium` layer a card gives the refugium area and the
+        latitude-longitude box it spans.
 
     Returns
     -------
     list of (label, value, detail)
-        Reference suitable area; refugia (when `series` is given); per scenario and period
-        the median over models of the change in suitable area in % of the reference area,
-        :math:`100 (A_t - A_{ref}) / A_{ref}`, its range, and the share of the suitable area in
-        novel climate, :math:`\\sum A_{novel} / \\sum A_t` over the models.
+        The reference slice's suitable area; refugia (when `series` is given); per scenario and
+        period the median over models of the change in suitable area in % of the reference
+        area, its range over models, and the shares of land, gain and loss in novel climate.
     """
-    need = {"scenario", "suitable_area_km2"}
-    if summary is None or summary.empty or not need <= set(summary.columns):
+    from timeslice.series.analysis import change_rows
+
+    if results is None or results.empty:
         return []
-    s = summary.copy()
-    s["scenario"] = s["scenario"].astype(str)
-    base = s[s["scenario"] == "baseline"]
+    if "topic" not in results.columns:
+        if not {"slice", "scenario", "suitable_area_km2"} <= set(results.columns):
+            return []
+        base = results[results["scenario"].astype(str) == "baseline"]
+        if not len(base):
+            return []
+        results = pd.DataFrame(change_rows(results, reference=str(base["slice"].iloc[0])))
+        if results.empty:
+            return []
+    k = results
     out: list[tuple[str, ...]] = []
-    if not len(base):
-        return out
-    a0 = float(base["suitable_area_km2"].iloc[0])
-    out.append(("Suitable area, reference slice", f"{a0:,.0f} km²"))
+    ref = k[k["topic"] == "reference"]
+    if len(ref):
+        out.append((f"Suitable area, reference slice ({ref['scope'].iloc[0]})",
+                    f"{float(ref['value'].iloc[0]):,.0f} km²"))
     if series is not None and refugium in getattr(series, "data_vars", {}):
-        out.append(_refugia_card(series, refugium))
-    when = "period" if "period" in s.columns else "year"
-    rest = s[s["scenario"] != "baseline"]
-    for (scen, per), g in rest.groupby(["scenario", when], sort=False):
-        if a0 <= 0:
-            break
-        pct = 100.0 * (g["suitable_area_km2"].to_numpy(float) - a0) / a0
-        n = len(g)
-        value = f"{np.median(pct):+.0f} %"
-        detail = (f"range {pct.min():+.0f} to {pct.max():+.0f} % over {n} models" if n > 1
-                  else "1 model")
-        if "novel_area_km2" in g.columns:
-            tot = float(g["suitable_area_km2"].sum())
-            if tot > 0:
-                detail += f"; {100 * float(g['novel_area_km2'].sum()) / tot:.0f} % in novel climate"
+        area = k[(k["topic"] == "refugia") & (k["quantity"] == "refugium area")
+                 & (k["scope"].str.startswith("window"))]
+        out.append(_refugia_card(series, refugium,
+                                 area=float(area["value"].iloc[0]) if len(area) else None))
+    change = k[k["topic"] == "change"]
+    for scope in dict.fromkeys(change["scope"]):
+        sub = k[(k["scope"] == scope) & k["topic"].isin(["change", "novelty"])]
+        g = sub.drop_duplicates("quantity").set_index("quantity")["value"]
+        if "change in suitable area, median over models" not in g:
+            continue
+        n = int(g.get("models", 1))
+        scen, _, per = scope.partition(" ")
+        value = f"{g['change in suitable area, median over models']:+.0f} %"
+        detail = (f"range {g['change in suitable area, lowest model']:+.0f} to "
+                  f"{g['change in suitable area, highest model']:+.0f} % over {n} models"
+                  if n > 1 else "1 model")
+        shares = [(w, g[q]) for w, q in (("of land", "share of land in novel climate"),
+                                         ("of the gain", "share of the gain in novel climate"),
+                                         ("of the loss", "share of the loss in novel climate"))
+                  if q in g and np.isfinite(g[q])]
+        if shares:
+            detail += "; novel climate: " + ", ".join(f"{100 * v:.0f} % {w}" for w, v in shares)
         out.append((f"{scen}, {per}: change in suitable area", value, detail))
     return out
 
 
-def _refugia_card(series, layer: str = "refugium") -> tuple[str, str, str]:
+def _refugia_card(series, layer: str = "refugium", *,
+                  area: float | None = None) -> tuple[str, str, str]:
     from timeslice.grid import cell_area
 
     ref = np.asarray(series[layer].transpose("lat", "lon").values).astype(bool)
-    area = float((cell_area(series).values * ref).sum())
+    if area is None:  # no key-results row (a series without a window): sum the layer
+        area = float((cell_area(series).values * ref).sum())
     window = str(series[layer].attrs.get("slices", "")).split()
     n = len(window) or series.sizes.get("slice", 0)
     label = f"Refugia (suitable in all {n} slices)" if n else "Refugia"

@@ -4,7 +4,7 @@ hindcast checks."""
 from __future__ import annotations
 
 from timeslice.series import dispersal, ensemble, hindcast
-from timeslice.series.analysis import SeriesResult, analyse_series, key_results
+from timeslice.series.analysis import SeriesResult, analyse_series, change_rows, key_results
 from timeslice.series.change import (
     CHANGE_FLAG_MEANINGS,
     CHANGE_FLAG_VALUES,
@@ -50,6 +50,7 @@ __all__ = [
     "ensemble",
     "geometric_mean",
     "hindcast",
+    "change_rows",
     "key_results",
     "minimum_suitability",
     "movement",

@@ -22,7 +22,7 @@ from timeslice.series.hindcast import check as hindcast_check
 from timeslice.series.stacking import chains as find_chains
 from timeslice.series.summary import movement_table, summarise
 
-__all__ = ["SeriesResult", "analyse_series", "key_results"]
+__all__ = ["SeriesResult", "analyse_series", "change_rows", "key_results"]
 
 
 @dataclasses.dataclass
@@ -48,6 +48,10 @@ class SeriesResult:
     ensemble: xr.Dataset | None
     tables: dict[str, pd.DataFrame]
     notes: list[str]
+    #: label of the reference slice that change is measured against
+    reference: str | None = None
+    #: the refugium window used (slice labels/periods, a year range, or None for all slices)
+    window: object = None
 
 
 def _models(stack: xr.Dataset) -> list[str]:
@@ -202,7 +206,64 @@ def analyse_series(
             if not issubclass(w.category, TimesliceWarning):
                 warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
         tables["hindcast"] = pd.concat(rows, ignore_index=True)
-    return SeriesResult(series=series, ensemble=ensemble, tables=tables, notes=notes)
+    return SeriesResult(series=series, ensemble=ensemble, tables=tables, notes=notes,
+                        reference=reference, window=window)
+
+
+def change_rows(detail: pd.DataFrame, *, reference: str,
+                periods: dict[str, str] | None = None) -> list[dict]:
+    """Headline change rows from a per-slice summary: the one place these numbers come from.
+
+    Parameters
+    ----------
+    detail : pandas.DataFrame
+        Per-slice summary (``slice``, ``year``, ``scenario``, ``suitable_area_km2``; optional
+        ``period`` and the novel-share columns of the detail table).
+    reference : str
+        Label of the reference slice.
+    periods : dict, optional
+        Slice label -> period text (default: the ``period`` column, else the year).
+
+    Returns
+    -------
+    list of dict
+        Rows ``topic, scope, quantity, value, unit``: the reference's suitable area; per
+        scenario and period the change in suitable area in % of the reference area,
+        :math:`100 (A_t - A_{ref}) / A_{ref}` (median, lowest and highest model), the number of
+        models, and the mean over models of the shares of land, of the gain and of the loss in
+        novel climate.
+    """
+    rows: list[dict] = []
+
+    def add(topic, scope, quantity, value, unit):
+        rows.append({"topic": topic, "scope": scope, "quantity": quantity,
+                     "value": float(value), "unit": unit})
+
+    if detail is None or detail.empty or reference not in set(map(str, detail["slice"])):
+        return rows
+    d = detail.assign(slice=detail["slice"].astype(str), scenario=detail["scenario"].astype(str))
+    a0 = float(d.loc[d["slice"] == reference, "suitable_area_km2"].iloc[0])
+    add("reference", reference, "suitable area", a0, "km2")
+    if periods is None and "period" in d:
+        periods = dict(zip(d["slice"], d["period"].astype(str)))
+    periods = periods or {}
+    d = d.assign(period=[periods.get(x, f"{y:g}") for x, y in zip(d["slice"], d["year"])])
+    d = d[d["slice"] != reference]
+    for (scen, per), g in d.groupby(["scenario", "period"], sort=False):
+        scope = f"{scen} {per}"
+        if a0 > 0:
+            pct = 100.0 * (g["suitable_area_km2"].to_numpy(float) - a0) / a0
+            add("change", scope, "change in suitable area, median over models",
+                np.median(pct), "%")
+            add("change", scope, "change in suitable area, lowest model", pct.min(), "%")
+            add("change", scope, "change in suitable area, highest model", pct.max(), "%")
+        add("change", scope, "models", len(g), "1")
+        for col, words in (("novel_land_share", "share of land in novel climate"),
+                           ("gain_novel_share", "share of the gain in novel climate"),
+                           ("loss_novel_share", "share of the loss in novel climate")):
+            if col in g and g[col].notna().any():
+                add("novelty", scope, words, g[col].mean(), "1")
+    return rows
 
 
 def key_results(result: SeriesResult, *, horizon: str | None = None) -> pd.DataFrame:
@@ -218,7 +279,11 @@ def key_results(result: SeriesResult, *, horizon: str | None = None) -> pd.DataF
     Returns
     -------
     pandas.DataFrame
-        Columns ``topic, scope, quantity, value, unit``: refugium area per paleo chain and
+        Columns ``topic, scope, quantity, value, unit``: the reference slice's suitable area;
+        per scenario and period the change in suitable area in % of the reference area
+        (median, lowest and highest model, :math:`100 (A_t - A_{ref}) / A_{ref}`) and the mean
+        over models of the shares of land, of the gain and of the loss in novel climate;
+        refugium area per paleo chain and
         over the window; per scenario at the horizon, the mean over models of the area lost and
         gained under each movement assumption and of the share of the gain in novel climate;
         the area where every model / a majority agrees; the mean variance share of each
@@ -235,6 +300,11 @@ def key_results(result: SeriesResult, *, horizon: str | None = None) -> pd.DataF
 
     series = result.series
     area = cell_area(series)
+    if result.reference is not None:
+        periods = (dict(zip(map(str, series["slice"].values), map(str, series["period"].values)))
+                   if "period" in series.coords else None)
+        rows += change_rows(result.tables.get("detail"), reference=result.reference,
+                            periods=periods)
     if "refugium_chain" in series:
         scen = dict(zip(map(str, series["slice"].values),
                         map(str, series["scenario"].values))) if "scenario" in series.coords \
@@ -267,9 +337,6 @@ def key_results(result: SeriesResult, *, horizon: str | None = None) -> pd.DataF
                         g[f"{a}_loss_km2"].mean(), "km2")
                     add("movement", scope, f"range gained, {words}",
                         g[f"{a}_gain_km2"].mean(), "km2")
-            if "gain_novel_share" in g:
-                add("novelty", scope, "share of the gain in novel climate",
-                    g["gain_novel_share"].mean(), "1")
     agree = result.tables.get("agreement")
     if agree is not None:
         for _, r in agree.iterrows():

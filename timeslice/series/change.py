@@ -80,6 +80,11 @@ DETAIL_COLUMNS = [
     "novel_any_km2",
     "gain_novel_km2",
     "gain_novel_share",
+    "loss_novel_km2",
+    "loss_novel_share",
+    "land_km2",
+    "novel_land_km2",
+    "novel_land_share",
 ]
 
 
@@ -444,28 +449,38 @@ def _detail_columns(stack: xr.Dataset, computed: xr.Dataset, iref: int,
         table["novel_any_km2"] = computed["d_novel_any"].values.astype(float)
         table["analog_area_km2"] = total - table["novel_any_km2"].to_numpy()
         table["gain_novel_km2"] = computed["d_gain_novel"].values.astype(float)
+        table["loss_novel_km2"] = computed["d_loss_novel"].values.astype(float)
         with np.errstate(invalid="ignore", divide="ignore"):
             table["gain_novel_share"] = table["gain_novel_km2"] / table["gain_km2"].where(
                 table["gain_km2"] > 0)
+            table["loss_novel_share"] = table["loss_novel_km2"] / table["loss_km2"].where(
+                table["loss_km2"] > 0)
     else:
-        for c in ("novel_any_km2", "analog_area_km2", "gain_novel_km2", "gain_novel_share"):
+        for c in ("novel_any_km2", "analog_area_km2", "gain_novel_km2", "gain_novel_share",
+                  "loss_novel_km2", "loss_novel_share"):
             table[c] = np.nan
+    table["land_km2"] = computed["d_land"].values.astype(float)
+    table["novel_land_km2"] = computed["d_novel_land"].values.astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        table["novel_land_share"] = table["novel_land_km2"] / table["land_km2"].where(
+            table["land_km2"] > 0)
     return table
 
 
 _SUM_NAMES = (
     "suitable_area_km2", "gain_km2", "loss_km2", "stable_km2", "lat_sum", "sin_sum", "cos_sum",
     "d_novel_mess", "d_novel_nt1", "d_novel_nt2", "d_novel_any", "d_gain_novel", "d_elev_w",
-    "d_elev_sum",
+    "d_elev_sum", "d_land", "d_novel_land", "d_loss_novel",
 )
 
 
-def _sums_kernel(cur, ref, band, latc, dlon, sinl, cosl, *opt, novelty, elev):
+def _sums_kernel(cur, ref, band, latc, dlon, sinl, cosl, *opt, novelty, elev, land=False):
     """Per-slice area sums of one block: shape (slices, 1, 1, len(_SUM_NAMES)).
 
     Cell areas come from 1-D factors (``band`` = R²(sin φ₂ − sin φ₁) per row, ``dlon`` in
     radians per column), so no full-grid weight array is ever held. `opt` holds the novelty
-    blocks named in `novelty`, then the elevation block if `elev`.
+    blocks named in `novelty`, then the elevation block if `elev`, then the land block if
+    `land`.
     """
     code = _change_kernel(cur, ref, False)
     suit = suitable_mask(cur)
@@ -494,11 +509,18 @@ def _sums_kernel(cur, ref, band, latc, dlon, sinl, cosl, *opt, novelty, elev):
     if any_novel is not None:
         out[:, 10] = asum(suit & any_novel)
         out[:, 11] = asum((code == 1) & any_novel)
+        # loss is judged in the slice's own climate: lost cells whose climate there is novel
+        out[:, 16] = asum((code == 2) & any_novel)
     if elev:
         e = opt[len(novelty)][0]
         ok = np.isfinite(e)
         out[:, 12] = asum(suit, np.where(ok, a, 0.0))
         out[:, 13] = asum(suit, np.where(ok, a * e, 0.0))
+    if land:
+        lnd = np.asarray(opt[len(novelty) + int(elev)], dtype=bool)
+        out[:, 14] = asum(lnd)
+        if any_novel is not None:
+            out[:, 15] = asum(lnd & any_novel)
     return out[:, None, None, :]
 
 
@@ -533,7 +555,13 @@ def _area_sums(stack: xr.Dataset, suitable: xr.DataArray, iref: int):
         if set(e.dims) != {"lat", "lon"}:
             raise DataError(f"`elevation` must be one (lat, lon) map, got dims {list(e.dims)}")
         layers.append(e.transpose("lat", "lon").data[None])
-    kw = {"novelty": novelty, "elev": elev}
+    land = "land" in stack.data_vars and set(stack["land"].dims) <= {"slice", "lat", "lon"}
+    if land:
+        lnd = stack["land"].fillna(False).astype(bool)
+        if "slice" not in lnd.dims:  # one land mask for every slice
+            lnd = lnd.expand_dims(slice=stack.sizes["slice"])
+        layers.append(lnd.transpose("slice", "lat", "lon").data)
+    kw = {"novelty": novelty, "elev": elev, "land": land}
     cur = suitable.data
     if not isinstance(cur, dsa.Array):
         c = np.asarray(cur)
@@ -548,7 +576,9 @@ def _area_sums(stack: xr.Dataset, suitable: xr.DataArray, iref: int):
     c_arr = [dsa.from_array(c[None, None, :], chunks=((1,), (1,), xch)) for c in cols]
     lay = [dsa.asarray(x).rechunk(chunks) for x in layers[: len(novelty)]]
     if elev:
-        lay.append(dsa.asarray(layers[-1]).rechunk(((1,), ych, xch)))
+        lay.append(dsa.asarray(layers[len(novelty)]).rechunk(((1,), ych, xch)))
+    if land:
+        lay.append(dsa.asarray(layers[-1]).rechunk(chunks))
     out = dsa.map_blocks(
         _sums_kernel, cur, cur[iref:iref + 1].rechunk(((1,), ych, xch)), *r_arr, *c_arr, *lay,
         chunks=(chunks[0], (1,) * len(ych), (1,) * len(xch), (len(_SUM_NAMES),)),
@@ -595,6 +625,10 @@ def change_table(
     ``suitable_area_km2 - A_ref == gain_km2 - loss_km2`` and
     ``stable_km2 + loss_km2 == A_ref`` hold to float rounding. ``novel_area_km2`` is the area of
     suitable cells with MESS < 0 (Elith, Kearney & Phillips 2010, Methods Ecol. Evol. 1:330).
+    Because a slice whose climate is wholly novel may have no suitable cell at all, the detail
+    columns also give novel climate over all land (``novel_land_km2``, ``novel_land_share`` of
+    ``land_km2``, any criterion) and the lost area whose climate in the slice is novel
+    (``loss_novel_km2``, ``loss_novel_share``).
     ``centroid_shift_km`` is the great-circle distance on the authalic sphere from the reference
     centroid (Sinnott 1984, Sky and Telescope 68:159).
     """
