@@ -52,8 +52,14 @@ def methods_paragraph(
     reference: str,
     clamp: bool,
     evaluation: pd.DataFrame | None = None,
+    window: Sequence[str] | tuple[float, float] | None = None,
 ) -> str:
-    """One paragraph stating every choice of the run with its citation."""
+    """One paragraph stating every choice of the run with its citation.
+
+    `n_slices` counts the transferred slices without the observed baseline; `window` is the
+    refugium window actually used (slice labels or periods, a year range, or None for every
+    slice).
+    """
     p = dict(fit_params)
     algo = _ALGORITHMS.get(str(p.get("algorithm")), str(p.get("algorithm")))
     rule = _THRESHOLDS.get(str(p.get("threshold_rule")), str(p.get("threshold_rule")))
@@ -74,18 +80,41 @@ def methods_paragraph(
                 f"{float(mean['auc'].iloc[0]):.3f} ± {float(sd['auc'].iloc[0]):.3f} and continuous "
                 f"Boyce index {float(mean['boyce'].iloc[0]):.2f} (Hirzel et al. 2006)."
             )
+    cal = str(p.get("calibration", "buffer"))
+    cal_txt = {
+        "buffer": f"a {p.get('buffer_km')} km geodesic buffer around the records on land",
+        "hull_buffer": (f"the convex hull of the records widened by a {p.get('buffer_km')} km "
+                        "geodesic buffer, on land"),
+        "mask": "the calibration mask given in the configuration, on land",
+    }.get(cal, cal)
+    if str(p.get("background", "")).startswith("target-group"):
+        back_txt = (f"{p.get('n_background')} background points were taken from the "
+                    "target-group file given (records of related species sampled the same way, "
+                    "which carries their sampling bias into the background; Phillips et al. "
+                    "2009, Ecol. Appl. 19:181)")
+    else:
+        back_txt = (f"{p.get('n_background')} background cells were drawn from it in proportion "
+                    "to their area on the sphere")
+    if window is None:
+        win_txt = "every slice of the series"
+    elif isinstance(window, tuple) and len(window) == 2:
+        win_txt = f"every slice from year {window[0]:g} to {window[1]:g} CE"
+    else:
+        win_txt = "the slices " + ", ".join(f"'{w}'" for w in window)
+    models_txt = f"{len(models)} model{'s' if len(models) != 1 else ''}"
+    scen_txt = (f"scenario{'s' if len(scenarios) != 1 else ''}: {', '.join(scenarios)}"
+                if scenarios else "no scenarios")
+    slices_txt = f"{n_slices} slice{'s' if n_slices != 1 else ''}"
     return (
         f"Occurrence records of {species} ({p.get('n_records_input')} read, "
         f"{p.get('n_records_used')} used after cleaning) were {thin_txt}. The calibration area was "
-        f"a {p.get('buffer_km')} km geodesic buffer around the records on land, from which "
-        f"{p.get('n_background')} background cells were drawn in proportion to their area on the "
-        f"sphere. Bioclimatic variables were computed from monthly climatologies following "
+        f"{cal_txt}; {back_txt}. Bioclimatic variables were computed from monthly climatologies following "
         f"O'Donnell & Ignizio (2012, USGS Data Series 691) and screened for collinearity "
         f"(|r| ≤ {p.get('screen_max_r')}, VIF ≤ {p.get('screen_max_vif')}), keeping {variables}. "
         f"The niche was modelled with {algo}; the suitable/unsuitable threshold was {rule} "
         f"(value {float(p.get('threshold', np.nan)):.3f}).{ev} Climate-model slices "
-        f"({n_slices} slices from {len(models)} models: {', '.join(models)}; scenarios: "
-        f"{', '.join(scenarios)}) were downscaled by the change-factor method against each model's "
+        f"({slices_txt} besides the observed baseline, from {models_txt}: {', '.join(models)}; "
+        f"{scen_txt}) were downscaled by the change-factor method against each model's "
         f"own baseline (Hay, Wilby & Leavesley 2000; Ramirez-Villegas & Jarvis 2010) with the "
         f"precipitation safeguards of Navarro-Racines et al. (2020); each slice has its own land "
         f"mask from the DEM, its sea level and its ice. The niche was transferred to every slice "
@@ -93,8 +122,8 @@ def methods_paragraph(
         f"novel climate was flagged with MESS (Elith, Kearney & Phillips 2010) and ExDet NT1/NT2 "
         f"(Mesgaran, Cousens & Webber 2014) against the background sample. Areas are sums of cell "
         f"areas on the authalic sphere; gain, loss and stability are relative to the slice "
-        f"'{reference}'; a refugium is a cell suitable in every slice (Carnaval & Moritz 2008; "
-        f"Graham et al. 2010)."
+        f"'{reference}'; a refugium is a cell suitable in {win_txt} of every model (Carnaval & "
+        f"Moritz 2008; Graham et al. 2010)."
     )
 
 

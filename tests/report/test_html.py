@@ -150,3 +150,26 @@ def test_output_links_are_local(summary_df, tmp_path):
     ctx.outputs = {"x": "/etc/passwd"}
     with pytest.raises(DataError, match="relative"):
         render_report(ctx)
+
+
+def test_methods_paragraph_states_what_was_done():
+    from timeslice.narrative import methods_paragraph
+
+    params = {"algorithm": "ellipsoid", "threshold_rule": "p10", "threshold": 0.2,
+              "variables": ["bio1", "bio12"], "thin": "cell", "buffer_km": 250.0,
+              "calibration": "hull_buffer", "n_background": 5000,
+              "background": "target-group file", "n_records_input": 120, "n_records_used": 90}
+    text = methods_paragraph(species="Nivalia demonstrata", fit_params=params, n_slices=1,
+                             models=["alder"], scenarios=["low"], reference="baseline",
+                             clamp=False, window=["21 ka BP", "1981-2010"])
+    assert "convex hull of the records widened by a 250.0 km" in text
+    assert "target-group file" in text
+    assert "1 slice besides the observed baseline, from 1 model: alder; scenario: low" in text
+    assert "suitable in the slices '21 ka BP', '1981-2010' of every model" in text
+    text = methods_paragraph(species="x", fit_params={**params, "calibration": "mask",
+                                                      "background": "random cells by area"},
+                             n_slices=4, models=["a", "b"], scenarios=["s1", "s2"],
+                             reference="baseline", clamp=True, window=None)
+    assert "calibration mask given in the configuration" in text
+    assert "4 slices besides the observed baseline, from 2 models" in text
+    assert "suitable in every slice of the series" in text
