@@ -116,8 +116,12 @@ def test_netcdf_across_180_keeps_bounds_and_areas(tmp_path):
     assert total == pytest.approx(_sphere_polygon_km2(170.0, 190.0, 62.0, 74.0), rel=1e-6)
 
 
+@pytest.mark.parametrize("mesh", [True, False])
 @pytest.mark.parametrize("projection", maps.PROJECTIONS)
-def test_map_is_centred_on_the_region_and_cells_sit_where_they_are(projection):
+def test_map_is_centred_on_the_region_and_cells_sit_where_they_are(projection, mesh,
+                                                                   monkeypatch):
+    if not mesh:  # large grids on projected maps: a resampled image instead of the mesh
+        monkeypatch.setattr(maps, "_MESH_MAX_CELLS", 10)
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
     import cartopy.crs as ccrs
