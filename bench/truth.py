@@ -71,7 +71,8 @@ class Species:
     bio12_midpoint: float = 700.0
     bio12_scale: float = 60.0
     n_records: int = 400
-    #: "demo" (the demo's committed records), "effort" (demo-like effort), "roads" (strong bias)
+    #: "demo" (the demo's committed records), "effort" (the demo's effort: coasts, lowlands,
+    #: the south), "uniform" (equal effort), "roads" (strong bias: coasts and one road)
     sampling: str = "effort"
     #: records only south of this latitude (a survey region), None for the whole island
     survey_lat_max: float | None = None
@@ -93,10 +94,10 @@ WORLDS: dict[str, Species] = {
         bio10_optimum=11.0, bio10_sd=4.0, bio12_midpoint=1000.0, bio12_scale=70.0,
         n_records=400, seed=13),
     "small_area": Species(
-        "Nivalia australis", "records only from a southern survey region (lat < 46.5): "
-        "the calibration area is small against the transfer region",
+        "Nivalia australis", "records only from a southern survey region (lat < 46.5, equal "
+        "effort there): the calibration area is small against the transfer region",
         bio10_optimum=10.0, bio10_sd=2.5, bio12_midpoint=700.0, n_records=300,
-        survey_lat_max=46.5, seed=14),
+        sampling="uniform", survey_lat_max=46.5, seed=14),
     "road_bias": Species(
         "Nivalia viaria", "strong sampling bias: records near coasts and one road",
         bio10_optimum=8.5, bio10_sd=2.5, bio12_midpoint=700.0, n_records=400,
@@ -138,6 +139,8 @@ def _effort(sp: Species, base: xr.Dataset) -> np.ndarray:
         road_lon = -31.0 + 0.6 * np.sin((lat2 - 42.0) / 2.0)
         d_road = np.abs(lon2 - road_lon) * KM_PER_DEGREE * np.cos(np.deg2rad(lat2))
         e = 0.01 + np.exp(-dist / 8.0) + 0.8 * np.exp(-d_road / 10.0)
+    elif sp.sampling == "uniform":
+        e = np.ones(land.shape)
     else:
         e = EFFORT
         e = (e["base"] + e["coast"] * np.exp(-dist / e["coast_km"])
@@ -300,12 +303,19 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
         t_pp = 100.0 * (area[true[i]].sum() / a_true0 - 1.0)
         e_pp = 100.0 * (area[est[i]].sum() / a_est0 - 1.0) if a_est0 > 0 else np.nan
         ov = overlap(true[i], est[i], area, land)
+        # share of the misclassified area that lies in novel climate (flagged by the tool)
+        novel = ((np.asarray(stack["mess"].isel(slice=i).values) < 0)
+                 | (np.asarray(stack["nt2"].isel(slice=i).values) > 1)) & land
+        wrong = (true[i] != est[i]) & land
+        novel_share = float(area[wrong & novel].sum() / area[wrong].sum()) if wrong.any() else 0.0
         rows.append({
             "world": key, "slice": str(ds.attrs["slice_label"]), "model": ds.attrs["model"],
             "period": str(ds.attrs["period"]), "scenario": ds.attrs["scenario"],
             "true_km2": float(area[true[i]].sum()), "est_km2": float(area[est[i]].sum()),
             "true_change_pct": t_pp, "est_change_pct": e_pp, "error_pp": e_pp - t_pp,
             "sign_agrees": sign_agrees(t_pp, e_pp), "tss": ov["tss"], "jaccard": ov["jaccard"],
+            "novel_land_share": float(area[novel].sum() / area[land].sum()),
+            "error_in_novel_share": novel_share,
         })
     df = pd.DataFrame(rows)
     # refugia: suitable today and in every past slice, per model (as the run's per-model
@@ -323,12 +333,16 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
         inter, union = area[est_ref & true_ref].sum(), area[est_ref | true_ref].sum()
         ref_rows.append({"world": key, "models": name, "true_refugium_km2": float(area[true_ref].sum()),
                          "est_refugium_km2": float(area[est_ref].sum()),
-                         "refugium_jaccard": float(inter / union) if union > 0 else np.nan})
+                         # no true refugium: nothing to overlap (not scored)
+                         "refugium_jaccard": float(inter / union) if true_ref.any() else np.nan})
     ref_df = pd.DataFrame(ref_rows)
     per_model = ref_df[ref_df["models"] != "all models"]
-    ref = {"true_refugium_km2": float(per_model["true_refugium_km2"].mean()) if len(per_model) else np.nan,
+    allm = ref_df[ref_df["models"] == "all models"]["refugium_jaccard"]
+    ref = {"all_models_jaccard": float(allm.iloc[0]) if len(allm) else np.nan,
+           "true_refugium_km2": float(per_model["true_refugium_km2"].mean()) if len(per_model) else np.nan,
            "est_refugium_km2": float(per_model["est_refugium_km2"].mean()) if len(per_model) else np.nan,
-           "refugium_jaccard": float(per_model["refugium_jaccard"].median()) if len(per_model) else np.nan,
+           "refugium_jaccard": (float(per_model["refugium_jaccard"].median())
+                                if per_model["refugium_jaccard"].notna().any() else np.nan),
            "table": ref_df}
     return {
         "rows": df, "refugium": ref, "cpu_s": cpu,
@@ -392,7 +406,8 @@ def per_period(rows: pd.DataFrame) -> pd.DataFrame:
     g = r.groupby(["world", "scenario", "period"], sort=False)
     out = g.agg(true_change_pct=("true_change_pct", "mean"), est_change_pct=("est_change_pct", "mean"),
                 max_abs_error_pp=("abs_error_pp", "max"), sign_agrees=("sign_agrees", "sum"),
-                n=("sign_agrees", "size"), tss=("tss", "mean"), jaccard=("jaccard", "mean"))
+                n=("sign_agrees", "size"), tss=("tss", "mean"), jaccard=("jaccard", "mean"),
+                novel=("novel_land_share", "mean"), error_in_novel=("error_in_novel_share", "mean"))
     return out.reset_index()
 
 
@@ -401,19 +416,27 @@ def markdown(rows: pd.DataFrame, refugia: dict, fits: dict, settings: dict, harm
     g = goals(rows, refugia)
     pp = per_period(rows)
     lines = ["| world | slice | true change % | estimated change % | max abs error pp | sign "
-             "agrees | TSS | Jaccard |", "|---|---|---:|---:|---:|:---:|---:|---:|"]
+             "agrees | TSS | Jaccard | land in novel climate | misclassified area in novel "
+             "climate |", "|---|---|---:|---:|---:|:---:|---:|---:|---:|---:|"]
     for _, r in pp.iterrows():
         sl = r["period"] if r["scenario"] == "past" else f"{r['scenario']} {r['period']}"
         lines.append(f"| {r['world']} | {sl} | {r['true_change_pct']:+.0f} | "
                      f"{r['est_change_pct']:+.0f} | {r['max_abs_error_pp']:.0f} | "
-                     f"{int(r['sign_agrees'])}/{int(r['n'])} | {r['tss']:.2f} | {r['jaccard']:.2f} |")
-    ref = ["| world | purpose | variables | CV AUC | CV TSS | true refugium km2 | estimated km2 "
-           "| refugium Jaccard | CPU s |", "|---|---|---|---:|---:|---:|---:|---:|---:|"]
+                     f"{int(r['sign_agrees'])}/{int(r['n'])} | {r['tss']:.2f} | {r['jaccard']:.2f} | "
+                     f"{100 * r['novel']:.0f} % | {100 * r['error_in_novel']:.0f} % |")
+    ref = ["| world | purpose | variables kept | CV AUC | CV TSS | true refugium km2 (mean "
+           "per model) | estimated km2 | refugium Jaccard (median per model) | all models "
+           "together | CPU s |", "|---|---|---|---:|---:|---:|---:|---:|---:|---:|"]
+
+    def j(v):
+        return "n/a (no true refugium)" if not np.isfinite(v) else f"{v:.2f}"
+
     for k, v in refugia.items():
         f = fits[k]
         ref.append(f"| {k} | {WORLDS[k].purpose} | {', '.join(f['variables'])} | "
                    f"{f['cv_auc']:.2f} | {f['cv_tss']:.2f} | {v['true_refugium_km2']:,.0f} | "
-                   f"{v['est_refugium_km2']:,.0f} | {v['refugium_jaccard']:.2f} | {cpu[k]:.1f} |")
+                   f"{v['est_refugium_km2']:,.0f} | {j(v['refugium_jaccard'])} | "
+                   f"{j(v['all_models_jaccard'])} | {cpu[k]:.1f} |")
     full = ["| world | slice | true % | est. % | error pp | sign | TSS | Jaccard |",
             "|---|---|---:|---:|---:|:---:|---:|---:|"]
     for _, r in rows[rows["scenario"] != "baseline"].iterrows():
@@ -530,7 +553,7 @@ def main(argv: list[str] | None = None) -> int:
         niche["variables"] = a.variables.split(",")
         niche["priority"] = None
     if a.priority:
-        niche["priority"] = a.priority.split(",")
+        niche["priority"] = None if a.priority == "none" else a.priority.split(",")
     results, all_rows, refugia, fits, cpu = {}, [], {}, {}, {}
     for key in a.worlds.split(","):
         res = run_world(prep, key, niche=niche)
@@ -543,7 +566,8 @@ def main(argv: list[str] | None = None) -> int:
               f"TSS {f['cv_tss']:.3f}, {f['n_records']} records, {res['cpu_s']:.1f} CPU s")
         with pd.option_context("display.width", 160, "display.max_columns", 20):
             print(res["rows"][["slice", "true_change_pct", "est_change_pct", "error_pp",
-                               "sign_agrees", "tss", "jaccard"]].round(2).to_string(index=False))
+                               "sign_agrees", "tss", "jaccard", "error_in_novel_share"]]
+                  .round(2).to_string(index=False))
         r = res["refugium"]
         print(r["table"].round(2).to_string(index=False))
     rows = pd.concat(all_rows, ignore_index=True)

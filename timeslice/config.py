@@ -304,7 +304,7 @@ class SpeciesConfig(_Section):
 
 
 class NicheConfig(_Section):
-    algorithm: str = "ellipsoid"
+    algorithm: str = "envelope"  # chosen by the truth benchmark (docs/truth.md)
     params: dict[str, Any] = Field(default_factory=dict)
     variables: list[str] | None = None
     buffer_km: float = Field(300.0, gt=0)
