@@ -292,3 +292,45 @@ def test_headline_numbers_trace_to_key_results(demo_run):
     win = k[(k["topic"] == "refugia") & k["scope"].str.startswith("window")
             & (k["quantity"] == "refugium area")]
     assert f"{win['value'].iloc[0]:,.0f} km²" in html
+
+
+def test_output_folder_holds_one_run(demo_run, tmp_path):
+    import shutil
+
+    out, data, _ = demo_run
+    work = tmp_path / "copy"
+    shutil.copytree(out, work)
+    # outputs of an earlier run that the new one does not write: another model's map, an
+    # ensemble file, a table; and a temporary file a killed writer left behind
+    (work / "maps").mkdir(exist_ok=True)
+    (work / "maps" / "cedar_21ka.png").write_bytes(b"old")
+    (work / "ensemble.nc").write_bytes(b"old")
+    (work / "tables" / "series_agreement.csv").write_text("old\n")
+    (work / "tables" / ".summary.csv.abc.part").write_text("half")
+    cfg = data / "demo.toml"
+    res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(work)])
+    assert res.exit_code == 0, res.output
+    assert not (work / "maps").exists() and not (work / "ensemble.nc").exists()
+    assert not (work / "tables" / "series_agreement.csv").exists()
+    assert not list(work.rglob("*.part"))
+    manifest = json.loads((work / "manifest.json").read_text())
+    assert manifest["status"] == "complete"
+    assert {"maps/cedar_21ka.png", "ensemble.nc"} <= set(manifest["removed_stale"])
+    on_disk = {p.relative_to(work).as_posix() for p in work.rglob("*")
+               if p.is_file() and ".cache" not in p.parts and p.name != "manifest.json"}
+    assert on_disk == set(manifest["files"])
+
+
+def test_incomplete_run_is_refused_by_commands_that_read_it(demo_run, tmp_path):
+    import shutil
+
+    out, _, _ = demo_run
+    work = tmp_path / "copy"
+    shutil.copytree(out, work)
+    m = json.loads((work / "manifest.json").read_text())
+    m["status"] = "incomplete"
+    (work / "manifest.json").write_text(json.dumps(m))
+    for args in (["export", str(work)], ["summarise", str(work)],
+                 ["rerun", str(work / "manifest.json")]):
+        res = CliRunner().invoke(app, args)
+        assert res.exit_code == 2 and "did not finish" in res.stderr, (args, res.output)

@@ -607,6 +607,7 @@ def run(
     # every input is expanded and its headers checked before the output folder is touched
     input_files = cfg.check_files()
     _make_out(out)
+    started = _begin_run(out, cfg, command)
     cache = StageCache(out / ".cache", force=force)
     result = RunResult(out=out)
     t = result.timings
@@ -640,8 +641,12 @@ def run(
     for w in {str(w.message): w for w in caught}.values():
         warnings.showwarning(w.message, w.category, w.filename, w.lineno)
     inputs_used = {str(f.path) for fs in input_files.values() for f in fs}
+    written, removed = _finish_run(out, started)
     result.paths["manifest"] = write_manifest(
         {
+            "status": "complete",
+            "files": written,
+            "removed_stale": removed,
             "config": cfg.model_dump(mode="json"),
             "config_path": str(cfg.source),
             "inputs": sorted(inputs_used),
@@ -659,6 +664,77 @@ def run(
     result.summary = summary
     result.cache_hits, result.cache_misses = cache.hits, cache.misses
     return result
+
+
+#: What a run writes in its folder (files, and folders whose every file is an output). A file
+#: there that the current run did not write is left over from an earlier run and is removed
+#: when the run completes, so the folder always holds one run.
+RUN_FILES = ("series.nc", "ensemble.nc", "summary.csv", "report.html")
+RUN_FOLDERS = ("maps", "plots", "tables", "geotiff")
+
+
+def _run_outputs(out: Path) -> list[Path]:
+    files = [out / f for f in RUN_FILES if (out / f).is_file()]
+    for d in RUN_FOLDERS:
+        if (out / d).is_dir():
+            files += sorted(p for p in (out / d).rglob("*") if p.is_file())
+    return files
+
+
+def _begin_run(out: Path, cfg: Config, command) -> int:
+    """Mark the folder as holding an unfinished run; remove temporary files a killed run left.
+
+    Returns the start time (ns) that tells this run's outputs from older ones.
+    """
+    from timeslice.report import write_manifest
+
+    for tmp in out.rglob(".*.part"):
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+    started = time.time_ns()
+    write_manifest({"status": "incomplete", "config": cfg.model_dump(mode="json"),
+                    "config_path": str(cfg.source), "inputs": [], "seed": cfg.run.seed,
+                    "command": command or sys.argv}, out / "manifest.json")
+    return started
+
+
+def _finish_run(out: Path, started: int) -> tuple[list[str], list[str]]:
+    """(files this run wrote, stale files of earlier runs removed), as paths relative to `out`."""
+    written, removed = [], []
+    for p in _run_outputs(out):
+        rel = p.relative_to(out).as_posix()
+        if p.stat().st_mtime_ns >= started:
+            written.append(rel)
+        else:
+            with contextlib.suppress(OSError):
+                p.unlink()
+                removed.append(rel)
+    for d in RUN_FOLDERS:  # folders emptied by the clean-up go too
+        for sub in sorted((out / d).rglob("*"), reverse=True) if (out / d).is_dir() else []:
+            if sub.is_dir() and not any(sub.iterdir()):
+                sub.rmdir()
+        if (out / d).is_dir() and not any((out / d).iterdir()):
+            (out / d).rmdir()
+    return sorted(written), sorted(removed)
+
+
+def _require_complete(out: Path, what: str) -> None:
+    """Refuse to read a run whose manifest says it did not finish."""
+    import json as _json
+
+    path = out / "manifest.json"
+    if not path.is_file():
+        return
+    try:
+        status = _json.loads(path.read_text(encoding="utf-8")).get("status", "complete")
+    except (ValueError, OSError):
+        return
+    if status != "complete":
+        raise DataError(
+            f"{out}: the run in this folder did not finish (manifest.json says {status!r}), so "
+            f"its outputs may be of two runs; finish it with `timeslice run CONFIG --out {out}` "
+            f"(finished stages are reused) before `{what}`"
+        )
 
 
 def _make_out(out: Path) -> None:
@@ -751,6 +827,7 @@ def run_summarise(
     manifest = out / "manifest.json"
     if not manifest.is_file():
         raise DataError(f"{out}: no manifest.json; run `timeslice run CONFIG --out {out}` first")
+    _require_complete(out, "timeslice summarise")
     info = read_manifest(manifest, verify=False)
     cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
     updates: dict[str, Any] = {}
@@ -789,6 +866,7 @@ def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
     path = out / "series.nc"
     if not path.is_file():
         raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
+    _require_complete(out, "timeslice export")
     return export_file(path, out / "geotiff", variables=variables)
 
 
@@ -798,6 +876,7 @@ def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
     from timeslice.config import parse_config
     from timeslice.report import read_manifest
 
+    _require_complete(Path(manifest).resolve().parent, "timeslice rerun")
     info = read_manifest(manifest, verify=True)
     cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
     target = Path(out) if out is not None else Path(manifest).resolve().parent
