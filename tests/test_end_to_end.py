@@ -50,15 +50,19 @@ def test_outputs_exist(demo_run):
 def test_series_names_and_ranges(demo_run):
     out, _, _ = demo_run
     with xr.open_dataset(out / "series.nc") as ds:
-        for name in ("suitability", "suitable", "mess", "nt1", "nt2", "stability", "refugium"):
+        for name in ("suitability", "suitable", "mess", "nt1", "nt2", "stability_all_slices",
+                     "refugium_all_slices", "refugium_window", "stability_window"):
             assert name in ds, name
+        # each refugium/stability layer says which window it covers
+        assert "all slices" in ds["refugium_all_slices"].attrs["long_name"]
+        assert "refugium window" in ds["refugium_window"].attrs["long_name"]
         assert ds["suitability"].dims == ("slice", "lat", "lon")
         s = ds["suitability"].values
         assert np.nanmin(s) >= 0 and np.nanmax(s) <= 1
-        st = ds["stability"].values
+        st = ds["stability_all_slices"].values
         assert np.nanmin(st) >= 0 and np.nanmax(st) <= 1
         suitable = ds["suitable"].values == 1
-        refugium = ds["refugium"].values.astype(bool)
+        refugium = ds["refugium_all_slices"].values.astype(bool)
         # a refugium is suitable in every slice
         assert np.all(suitable[:, refugium])
         assert ds.attrs["Conventions"].startswith("CF-")
@@ -187,6 +191,10 @@ def test_export_and_rerun(demo_run, tmp_path):
     rasterio = pytest.importorskip("rasterio")
     tif = sorted((out / "geotiff").glob("suitability_*.tif"))
     assert tif
+    # every layer a user may need is exported, window refugia and masks included
+    names = {p.name for p in (out / "geotiff").glob("*.tif")}
+    for layer in ("refugium_window", "stability_window", "refugium_all_slices", "land_", "ice_"):
+        assert any(n.startswith(layer) for n in names), layer
     with rasterio.open(tif[0]) as src, open_series(out / "series.nc") as ds:
         # bounds of the raster = outer cell edges of the grid
         assert src.bounds.left == pytest.approx(float(ds["lon"].min()) - 0.25)
@@ -268,7 +276,8 @@ def test_local_cluster_matches_threads(demo_run, tmp_path):
                                       "--workers", "2"])
     assert result.exit_code == 0, result.output
     with open_series(out / "series.nc") as a, open_series(tmp_path / "w" / "series.nc") as b:
-        for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2", "stability"):
+        for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2",
+                     "stability_all_slices"):
             assert a[name].values.tobytes() == b[name].values.tobytes(), name
 
 

@@ -486,14 +486,14 @@ def report_stage(
     figures: list[tuple[str, Path]] = []
     headline: list[tuple[str, Path]] = []
     series = series.load()  # every map reads every layer: compute once
-    refuge = "refugium_window" if "refugium_window" in series else "refugium"
+    refuge = "refugium_window" if "refugium_window" in series else "refugium_all_slices"
     if cfg.output.maps:
         maps = out / "maps"
         proj = cfg.output.projection
         R.slice_maps(series, maps, projection=proj)
         stab = R.stability_map(
             series, maps / "stability.png", refugium=refuge, projection=proj,
-            variable="stability_window" if "stability_window" in series else "stability")
+            variable="stability_window" if "stability_window" in series else "stability_all_slices")
         change = R.change_map(series, maps / "panel_change.png", projection=proj)
         headline = [("Stability (fraction of slices suitable) with refugia outlined", stab),
                     ("Gain, loss and stable range against the reference slice", change)]
@@ -867,7 +867,12 @@ def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
     if not path.is_file():
         raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
     _require_complete(out, "timeslice export")
-    return export_file(path, out / "geotiff", variables=variables)
+    written = export_file(path, out / "geotiff", variables=variables)
+    ensemble = out / "ensemble.nc"
+    if ensemble.is_file() and variables is None:
+        # agreement, consensus and variance shares across models, beside the series layers
+        written += export_file(ensemble, out / "geotiff" / "ensemble")
+    return written
 
 
 def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,

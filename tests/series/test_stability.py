@@ -93,16 +93,16 @@ def test_summarise_adds_layers_and_table(stack_factory):
     ds = stack_factory()
     out, table = summarise(ds, chains={"past": ["21ka", "6ka", "baseline"]})
     assert out["change"].dims == ("slice", "lat", "lon")
-    assert out["stability"].dims == ("lat", "lon")
-    assert out["refugium"].dtype == bool
+    assert out["stability_all_slices"].dims == ("lat", "lon")
+    assert out["refugium_all_slices"].dtype == bool
     assert out["refugium_chain"].dims == ("chain", "lat", "lon")
     assert out["chain_slices"].values.tolist() == ["21ka 6ka baseline"]
     assert len(table) == ds.sizes["slice"]
     assert "history" in out.attrs
     # the past-chain refugium contains the all-slice refugium
     past = out["refugium_chain"].sel(chain="past")
-    assert not bool((out["refugium"] & ~past).any())
-    for v in ("refugium_analog", "static_stability", "geometric_mean_suitability",
+    assert not bool((out["refugium_all_slices"] & ~past).any())
+    for v in ("refugium_all_slices_analog", "static_stability", "geometric_mean_suitability",
               "minimum_suitability", "refugium_analog_chain", "static_stability_chain"):
         assert v in out, v
 
@@ -128,7 +128,7 @@ def test_stability_is_lazy(stack_factory, raise_if_dask_computes):
     # summarise computes the table (one pass) but leaves the layers lazy
     with raise_if_dask_computes(max_computes=1):
         out, _ = summarise(ds)
-    assert out["stability"].chunks is not None and out["change"].chunks is not None
+    assert out["stability_all_slices"].chunks is not None and out["change"].chunks is not None
 
 
 # ---- dynamic stability, windows, analog refugia -------------------------------------------

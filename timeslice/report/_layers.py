@@ -111,6 +111,44 @@ LAYERS: dict[str, dict[str, Any]] = {
         "description": "1 where the cell is land and suitable in every slice of the series "
         "(a hypothesis of climatic stability, not of occupancy)",
     },
+    "stability_all_slices": {
+        "units": "1",
+        "long_name": "fraction of all slices suitable (past and future together)",
+        "description": "share of every slice of the series, past and future, in which the cell "
+        "is suitable (0..1)",
+    },
+    "refugium_all_slices": {
+        "units": "1",
+        "long_name": "climatic refugium over all slices (past and future together)",
+        "bool_flags": "not_refugium refugium",
+        "description": "1 where the cell is land and suitable in every slice of the series, "
+        "past and future together (a hypothesis of climatic stability, not of occupancy)",
+    },
+    "refugium_all_slices_analog": {
+        "units": "1",
+        "long_name": "climatic refugium over all slices, in analog climate",
+        "bool_flags": "not_refugium refugium",
+        "description": "as refugium_all_slices, and in analog climate in every slice",
+    },
+    "stability_window": {
+        "units": "1",
+        "long_name": "fraction of the refugium window's slices suitable",
+        "description": "share of the slices of the refugium window in which the cell is "
+        "suitable (0..1)",
+    },
+    "refugium_window": {
+        "units": "1",
+        "long_name": "climatic refugium over the refugium window",
+        "bool_flags": "not_refugium refugium",
+        "description": "1 where the cell is land and suitable in every slice of the refugium "
+        "window, in every model (a hypothesis of climatic stability, not of occupancy)",
+    },
+    "refugium_window_analog": {
+        "units": "1",
+        "long_name": "climatic refugium over the refugium window, in analog climate",
+        "bool_flags": "not_refugium refugium",
+        "description": "as refugium_window, and in analog climate in every slice of the window",
+    },
     "static_stability": {
         "units": "1",
         "long_name": "static stability (sum of log suitability)",
@@ -139,9 +177,10 @@ def layer_spec(name: str) -> dict[str, Any]:
     key = str(name)
     if key in LAYERS:
         return LAYERS[key]
-    for base in ("stability", "refugium", "static_stability", "reachable"):
-        if key.startswith(base + "_") and base in LAYERS:
-            return LAYERS[base]
+    # the longest table name that `key` extends (refugium_window_alder -> refugium_window)
+    bases = sorted((b for b in LAYERS if key.startswith(b + "_")), key=len, reverse=True)
+    if bases and bases[0].split("_")[0] in ("stability", "refugium", "static", "reachable"):
+        return LAYERS[bases[0]]
     return {}
 
 

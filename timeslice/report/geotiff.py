@@ -113,7 +113,13 @@ def export(
     if not isinstance(ds, xr.Dataset):
         raise DataError(f"geotiff.export: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
     if variables is None:
-        names = [v for v in _DEFAULT_VARIABLES if v in ds.data_vars]
+        # every layer on the grid: per-slice layers, window and all-slice refugia and
+        # stability, reachable layers, land, ice, exposed shelf, ensemble layers
+        first = [v for v in _DEFAULT_VARIABLES if v in ds.data_vars]
+        rest = sorted(str(v) for v in ds.data_vars
+                      if str(v) not in first and {"lat", "lon"} <= set(ds[v].dims)
+                      and len(ds[v].dims) <= 3 and not str(v).endswith(("_bnds", "_bounds")))
+        names = first + rest
     else:
         names = list(variables)
         missing = [v for v in names if v not in ds.data_vars]
@@ -154,6 +160,9 @@ def export(
         spec = LAYERS.get(str(name), {})
         desc = str(da.attrs.get("long_name", spec.get("long_name", name)))
         tags = {"units": str(da.attrs.get("units", spec.get("units", "1")))}
+        for key in ("reference_slice", "slices"):  # what a change or window layer is against
+            if da.attrs.get(key):
+                tags[key] = str(da.attrs[key])
         pairs = flag_pairs(ds[name])
         if pairs:
             tags["flag_values"] = " ".join(str(v) for v, _ in pairs)

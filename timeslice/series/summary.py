@@ -39,7 +39,8 @@ __all__ = ["DERIVED_VARIABLES", "movement_table", "summarise"]
 #: Variables (and coords) that :func:`summarise` adds; dropped from the input first, so a
 #: finished series can be summarised again with other options.
 DERIVED_VARIABLES = (
-    "change", "stability", "refugium", "refugium_analog", "static_stability",
+    "change", "stability_all_slices", "refugium_all_slices", "refugium_all_slices_analog",
+    "static_stability",
     "geometric_mean_suitability", "minimum_suitability", "refugium_window",
     "refugium_window_analog", "stability_window", "stability_chain", "refugium_chain", "refugium_analog_chain",
     "static_stability_chain", "dynamic_stability_chain", "reachable_none",
@@ -201,12 +202,15 @@ def summarise(
     out = stack.copy()
     out["change"] = change_map(suitable, ref)
     out["change"].attrs["reference_slice"] = str(reference)
-    out["stability"] = drop_nondim(stability(suitable))
-    out["refugium"] = drop_nondim(refugium(suitable))
+    # layers are named by their window: every slice of the series (past and future together),
+    # or the chosen refugium window (by default the past slices and the reference)
+    out["stability_all_slices"] = _named(stability(suitable), "stability_all_slices")
+    out["refugium_all_slices"] = _named(refugium(suitable), "refugium_all_slices")
     has_novelty = any(v in stack.data_vars for v in ("mess", "nt1", "nt2"))
     analog = ~novel_mask(stack) if has_novelty else None
     if analog is not None:
-        out["refugium_analog"] = drop_nondim(refugium(suitable, analog=analog))
+        out["refugium_all_slices_analog"] = _named(refugium(suitable, analog=analog),
+                                                   "refugium_all_slices_analog")
     if "suitability" in stack.data_vars:
         s = stack["suitability"]
         out["static_stability"] = drop_nondim(static_stability(s))
@@ -214,14 +218,19 @@ def summarise(
         out["minimum_suitability"] = drop_nondim(minimum_suitability(s))
     if window is not None:
         out["refugium_window"] = drop_nondim(refugium(suitable, window=window))
-        out["refugium_window"].attrs["long_name"] = "climatic refugium over the chosen window"
+        names = out["refugium_window"].attrs.get("slices", "")
+        out["refugium_window"].attrs["long_name"] = (
+            f"climatic refugium over the refugium window (suitable in every one of its slices: "
+            f"{names})")
         out["stability_window"] = drop_nondim(stability(select_window(suitable, window)))
         out["stability_window"].attrs["long_name"] = (
-            "fraction of the chosen window's slices suitable")
-        out["stability_window"].attrs["slices"] = out["refugium_window"].attrs.get("slices", "")
+            f"fraction of the refugium window's slices suitable ({names})")
+        out["stability_window"].attrs["slices"] = names
         if analog is not None:
             out["refugium_window_analog"] = drop_nondim(
                 refugium(suitable, window=window, analog=analog))
+            out["refugium_window_analog"].attrs["long_name"] = (
+                f"climatic refugium over the refugium window in analog climate ({names})")
 
     moving = rate is not None or distance_km is not None
     chain_map = _resolve_chains(stack, "auto" if (moving and chains is None) else chains,
@@ -238,6 +247,18 @@ def summarise(
         line += f", movement ({rate or f'{distance_km} km per step'})"
     out.attrs["history"] = f"{history}\n{line}".strip()
     return out, table
+
+
+def _named(da: xr.DataArray, name: str) -> xr.DataArray:
+    """A series-wide layer under its window name, with the long_name of that window."""
+    from timeslice.report._layers import LAYERS
+
+    out = drop_nondim(da)
+    out.name = name
+    if name in LAYERS:
+        out.attrs.update({k: v for k, v in LAYERS[name].items()
+                          if k in ("long_name", "description")})
+    return out
 
 
 def _add_chain_layers(out, stack, chain_map, analog, *, rate, distance_km) -> None:
