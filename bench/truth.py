@@ -297,6 +297,8 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
     true = [true_suitable(sp, ds) for ds in prepared]
     a_true0, a_est0 = area[true[0]].sum(), area[est[0]].sum()
     ev = fit.evaluation.query("summary == 'mean'").iloc[0]
+    perfect = _perfect_model(sp, fit, prepared)
+    a_perf0 = area[perfect[0]].sum()
     rows = []
     for i, ds in enumerate(prepared):
         land = np.asarray(ds["land"].values, bool)
@@ -314,6 +316,7 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
             "true_km2": float(area[true[i]].sum()), "est_km2": float(area[est[i]].sum()),
             "true_change_pct": t_pp, "est_change_pct": e_pp, "error_pp": e_pp - t_pp,
             "sign_agrees": sign_agrees(t_pp, e_pp), "tss": ov["tss"], "jaccard": ov["jaccard"],
+            "perfect_change_pct": 100.0 * (area[perfect[i]].sum() / a_perf0 - 1.0),
             "novel_land_share": float(area[novel].sum() / area[land].sum()),
             "error_in_novel_share": novel_share,
         })
@@ -330,15 +333,21 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
             str(prepared[i].attrs["slice_label"]) for i in idx]
         est_ref = np.asarray(refugium(stack["suitable"], window=labels).values, bool)
         true_ref = np.logical_and.reduce([true[0]] + [true[i] for i in idx])
+        perf_ref = np.logical_and.reduce([perfect[0]] + [perfect[i] for i in idx])
         inter, union = area[est_ref & true_ref].sum(), area[est_ref | true_ref].sum()
+        p_union = area[perf_ref | true_ref].sum()
         ref_rows.append({"world": key, "models": name, "true_refugium_km2": float(area[true_ref].sum()),
                          "est_refugium_km2": float(area[est_ref].sum()),
                          # no true refugium: nothing to overlap (not scored)
-                         "refugium_jaccard": float(inter / union) if true_ref.any() else np.nan})
+                         "refugium_jaccard": float(inter / union) if true_ref.any() else np.nan,
+                         "perfect_refugium_jaccard": (float(area[perf_ref & true_ref].sum() / p_union)
+                                                      if true_ref.any() else np.nan)})
     ref_df = pd.DataFrame(ref_rows)
     per_model = ref_df[ref_df["models"] != "all models"]
     allm = ref_df[ref_df["models"] == "all models"]["refugium_jaccard"]
+    pj = per_model["perfect_refugium_jaccard"]
     ref = {"all_models_jaccard": float(allm.iloc[0]) if len(allm) else np.nan,
+           "perfect_jaccard": float(pj.median()) if pj.notna().any() else np.nan,
            "true_refugium_km2": float(per_model["true_refugium_km2"].mean()) if len(per_model) else np.nan,
            "est_refugium_km2": float(per_model["est_refugium_km2"].mean()) if len(per_model) else np.nan,
            "refugium_jaccard": (float(per_model["refugium_jaccard"].median())
@@ -351,8 +360,35 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
                 "cv_auc": float(ev["auc"]), "cv_tss": float(ev["tss"]),
                 "n_records": int(fit.params["n_records_used"])},
         "maps": {"true": true, "est": est, "lat": prep.baseline["lat"].values,
+                 "land": [np.asarray(ds["land"].values, bool) for ds in prepared],
                  "lon": prep.baseline["lon"].values},
     }
+
+
+def _perfect_model(sp: Species, fit, prepared: list[xr.Dataset]) -> list[np.ndarray]:
+    """Suitable maps of a perfect model: the true probability as the suitability, thresholded
+    by the fit's own rule on the true probability at the fit's presences and background.
+
+    This separates the threshold rule (what "suitable" means to the tool) from the model: a gap
+    between the truth and this map is the rule's, a gap between this map and the tool's is the
+    model's.
+    """
+    from timeslice.niche.data import extract
+    from timeslice.niche.evaluate import threshold
+
+    base = prepared[0]
+
+    def p_at(points):
+        v = extract(base, points[["lon", "lat"]], variables=["bio10", "bio12"])
+        return np.nan_to_num(true_probability(sp, v["bio10"].to_numpy(), v["bio12"].to_numpy()))
+
+    t = threshold(p_at(fit.presence), p_at(fit.background), rule=fit.params["threshold_rule"],
+                  value=fit.params.get("threshold_value"))
+    out = []
+    for ds in prepared:
+        p = true_probability(sp, ds["bio10"].values.astype(float), ds["bio12"].values.astype(float))
+        out.append(np.asarray(ds["land"].values, bool) & (np.nan_to_num(p) >= t))
+    return out
 
 
 def harmonise_check(prep: Prepared) -> pd.DataFrame:
@@ -390,9 +426,15 @@ def goals(rows: pd.DataFrame, refugia: dict[str, dict]) -> dict:
     """The three goals over all non-baseline slices."""
     r = rows[rows["scenario"] != "baseline"]
     jac = [v["refugium_jaccard"] for v in refugia.values() if np.isfinite(v["refugium_jaccard"])]
+    perfect_sign = [sign_agrees(t, e) for t, e in zip(r["true_change_pct"], r["perfect_change_pct"])]
     return {
         "n_slices": int(len(r)),
         "sign_agrees": int(r["sign_agrees"].sum()),
+        "perfect_sign_agrees": int(np.sum(perfect_sign)),
+        "perfect_median_abs_error_pp": float(np.median(np.abs(r["perfect_change_pct"]
+                                                             - r["true_change_pct"]))),
+        "perfect_median_refugium_jaccard": float(np.nanmedian(
+            [v.get("perfect_jaccard", np.nan) for v in refugia.values()])),
         "median_abs_error_pp": float(np.median(np.abs(r["error_pp"]))),
         "min_refugium_jaccard": float(min(jac)) if jac else float("nan"),
         "median_refugium_jaccard": float(np.median(jac)) if jac else float("nan"),
@@ -405,6 +447,7 @@ def per_period(rows: pd.DataFrame) -> pd.DataFrame:
     r["abs_error_pp"] = r["error_pp"].abs()
     g = r.groupby(["world", "scenario", "period"], sort=False)
     out = g.agg(true_change_pct=("true_change_pct", "mean"), est_change_pct=("est_change_pct", "mean"),
+                perfect_change_pct=("perfect_change_pct", "mean"),
                 max_abs_error_pp=("abs_error_pp", "max"), sign_agrees=("sign_agrees", "sum"),
                 n=("sign_agrees", "size"), tss=("tss", "mean"), jaccard=("jaccard", "mean"),
                 novel=("novel_land_share", "mean"), error_in_novel=("error_in_novel_share", "mean"))
@@ -415,18 +458,21 @@ def markdown(rows: pd.DataFrame, refugia: dict, fits: dict, settings: dict, harm
              cpu: dict) -> str:
     g = goals(rows, refugia)
     pp = per_period(rows)
-    lines = ["| world | slice | true change % | estimated change % | max abs error pp | sign "
-             "agrees | TSS | Jaccard | land in novel climate | misclassified area in novel "
-             "climate |", "|---|---|---:|---:|---:|:---:|---:|---:|---:|---:|"]
+    lines = ["| world | slice | true change % | estimated change % | perfect model, tool's "
+             "threshold rule % | max abs error pp | sign agrees | TSS | Jaccard | land in novel "
+             "climate | misclassified area in novel climate |",
+             "|---|---|---:|---:|---:|---:|:---:|---:|---:|---:|---:|"]
     for _, r in pp.iterrows():
         sl = r["period"] if r["scenario"] == "past" else f"{r['scenario']} {r['period']}"
         lines.append(f"| {r['world']} | {sl} | {r['true_change_pct']:+.0f} | "
-                     f"{r['est_change_pct']:+.0f} | {r['max_abs_error_pp']:.0f} | "
+                     f"{r['est_change_pct']:+.0f} | {r['perfect_change_pct']:+.0f} | "
+                     f"{r['max_abs_error_pp']:.0f} | "
                      f"{int(r['sign_agrees'])}/{int(r['n'])} | {r['tss']:.2f} | {r['jaccard']:.2f} | "
                      f"{100 * r['novel']:.0f} % | {100 * r['error_in_novel']:.0f} % |")
     ref = ["| world | purpose | variables kept | CV AUC | CV TSS | true refugium km2 (mean "
            "per model) | estimated km2 | refugium Jaccard (median per model) | all models "
-           "together | CPU s |", "|---|---|---|---:|---:|---:|---:|---:|---:|---:|"]
+           "together | perfect model, tool's threshold rule | CPU s |",
+           "|---|---|---|---:|---:|---:|---:|---:|---:|---:|---:|"]
 
     def j(v):
         return "n/a (no true refugium)" if not np.isfinite(v) else f"{v:.2f}"
@@ -436,7 +482,7 @@ def markdown(rows: pd.DataFrame, refugia: dict, fits: dict, settings: dict, harm
         ref.append(f"| {k} | {WORLDS[k].purpose} | {', '.join(f['variables'])} | "
                    f"{f['cv_auc']:.2f} | {f['cv_tss']:.2f} | {v['true_refugium_km2']:,.0f} | "
                    f"{v['est_refugium_km2']:,.0f} | {j(v['refugium_jaccard'])} | "
-                   f"{j(v['all_models_jaccard'])} | {cpu[k]:.1f} |")
+                   f"{j(v['all_models_jaccard'])} | {j(v['perfect_jaccard'])} | {cpu[k]:.1f} |")
     full = ["| world | slice | true % | est. % | error pp | sign | TSS | Jaccard |",
             "|---|---|---:|---:|---:|:---:|---:|---:|"]
     for _, r in rows[rows["scenario"] != "baseline"].iterrows():
@@ -460,6 +506,10 @@ def markdown(rows: pd.DataFrame, refugia: dict, fits: dict, settings: dict, harm
         f"(goal: all); median |error| {g['median_abs_error_pp']:.1f} pp (goal < "
         f"{GOAL_MEDIAN_ABS_ERROR_PP:g}); refugium Jaccard min {g['min_refugium_jaccard']:.2f}, "
         f"median {g['median_refugium_jaccard']:.2f} (goal >= {GOAL_REFUGIUM_JACCARD:g}).", "",
+        f"A perfect model (the true probability as suitability) thresholded by the same rule: "
+        f"sign right in {g['perfect_sign_agrees']}/{g['n_slices']}, median |error| "
+        f"{g['perfect_median_abs_error_pp']:.1f} pp, median refugium Jaccard "
+        f"{g['perfect_median_refugium_jaccard']:.2f}.", "",
         *harm_lines, "",
         "### Per world and period (mean over the three models)", "", *lines, "",
         "### Per world: fit and refugia", "", *ref, "",
@@ -498,24 +548,30 @@ def figure(results: dict, rows: pd.DataFrame, path: Path) -> Path:
     ax.legend(fontsize=8, loc="upper left")
     demo = results.get("demo") or results[keys[0]]
     mp = demo["maps"]
-    n_window = [i for i in range(len(mp["true"]))]
-    land = None
-    for j, (title, sel) in enumerate((("true suitable, 21 ka (first model)", "21"),
-                                      ("estimated suitable, 21 ka (first model)", "21"))):
+    idx = next((i for i, lab in enumerate(demo["rows"]["slice"]) if "21ka" in lab), 0)
+    label = str(demo["rows"]["slice"].iloc[idx])
+    land = mp["land"][idx]
+    colours = matplotlib.colors.ListedColormap(
+        ["#ffffff", "#e6e6e6", "#6a8fc7", "#e4a83a", "#2e6b3a"])
+    for j, title in enumerate((f"true suitable: {label}", f"tool against truth: {label}")):
         axm = fig.add_subplot(gs[j + 1])
-        idx = next((i for i, lab in enumerate(demo["rows"]["slice"]) if "21ka" in lab), 0)
         t, e = mp["true"][idx], mp["est"][idx]
-        code = np.where(t & e, 3, np.where(t, 2, np.where(e, 1, 0))).astype(float)
-        if land is None:
-            land = demo["rows"]
-        show = code if j == 1 else np.where(t, 2.0, 0.0)
-        axm.pcolormesh(mp["lon"], mp["lat"], show, cmap=matplotlib.colors.ListedColormap(
-            ["#f2f2f2", "#e4a83a", "#6a8fc7", "#2e6b3a"]), vmin=-0.5, vmax=3.5, shading="nearest")
-        axm.set_title(title if j == 0 else "tool vs truth at 21 ka: green both, blue missed, "
-                      "orange false", fontsize=9)
+        if j == 0:
+            code = np.where(t, 4, np.where(land, 1, 0))
+        else:
+            code = np.where(t & e, 4, np.where(t, 2, np.where(e, 3, np.where(land, 1, 0))))
+        axm.pcolormesh(mp["lon"], mp["lat"], code.astype(float), cmap=colours, vmin=-0.5,
+                       vmax=4.5, shading="nearest")
+        axm.set_title(title, fontsize=9)
         axm.set_aspect(1 / np.cos(np.deg2rad(47.5)))
         axm.set_xlabel("lon")
-    del n_window
+        if j == 1:
+            from matplotlib.patches import Patch
+
+            axm.legend(handles=[Patch(color="#2e6b3a", label="both"),
+                                Patch(color="#6a8fc7", label="missed by the tool"),
+                                Patch(color="#e4a83a", label="false suitable")],
+                       fontsize=7, loc="lower right")
     fig.suptitle("Virtual-species truth benchmark (invented worlds)")
     fig.savefig(path, dpi=110)
     plt.close(fig)
@@ -565,8 +621,9 @@ def main(argv: list[str] | None = None) -> int:
               f"{f['threshold_rule']} threshold {f['threshold']:.3f}, CV AUC {f['cv_auc']:.3f} "
               f"TSS {f['cv_tss']:.3f}, {f['n_records']} records, {res['cpu_s']:.1f} CPU s")
         with pd.option_context("display.width", 160, "display.max_columns", 20):
-            print(res["rows"][["slice", "true_change_pct", "est_change_pct", "error_pp",
-                               "sign_agrees", "tss", "jaccard", "error_in_novel_share"]]
+            print(res["rows"][["slice", "true_change_pct", "est_change_pct", "perfect_change_pct",
+                               "error_pp", "sign_agrees", "tss", "jaccard",
+                               "error_in_novel_share"]]
                   .round(2).to_string(index=False))
         r = res["refugium"]
         print(r["table"].round(2).to_string(index=False))
@@ -575,7 +632,11 @@ def main(argv: list[str] | None = None) -> int:
     print(f"\nGOALS: sign {g['sign_agrees']}/{g['n_slices']} (goal all); median |error| "
           f"{g['median_abs_error_pp']:.1f} pp (goal < {GOAL_MEDIAN_ABS_ERROR_PP:g}, ratio "
           f"{g['median_abs_error_pp'] / GOAL_MEDIAN_ABS_ERROR_PP:.2f}); refugium Jaccard min "
-          f"{g['min_refugium_jaccard']:.2f} (goal >= {GOAL_REFUGIUM_JACCARD:g})")
+          f"{g['min_refugium_jaccard']:.2f} median {g['median_refugium_jaccard']:.2f} (goal >= "
+          f"{GOAL_REFUGIUM_JACCARD:g})")
+    print(f"PERFECT MODEL, same threshold rule: sign {g['perfect_sign_agrees']}/{g['n_slices']}; "
+          f"median |error| {g['perfect_median_abs_error_pp']:.1f} pp; median refugium Jaccard "
+          f"{g['perfect_median_refugium_jaccard']:.2f}")
     harm = harmonise_check(prep)
     if len(harm):
         print(f"harmonise check, 21 ka: truth.json {harm.attrs['truth_json_change_pct']:+.1f} %; "
