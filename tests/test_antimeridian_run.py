@@ -16,8 +16,8 @@ from timeslice.cli import app
 from timeslice.grid import AUTHALIC_RADIUS_KM
 from timeslice.report import open_series
 
-pytestmark = pytest.mark.slow
-
+# a whole run across 180 takes ~20 s: part of the default suite, since it is the check that
+# a study across the antimeridian works end to end
 pyproj = pytest.importorskip("pyproj")
 
 
@@ -145,9 +145,6 @@ def test_maps_are_drawn(crossing_run):
     assert {"stability.png", "panel_change.png", "suitability_baseline.png"} <= names
 
 
-@pytest.mark.xfail(strict=True, reason="records west of 180 (lon < 0) are matched to grid cells "
-                   "without bringing them onto the grid's continuous axis (niche/data.py "
-                   "_cell_index); remove this marker once they are")
 def test_records_on_both_sides_of_180_are_used(crossing_run):
     out, _ = crossing_run
     cleaning = pd.read_csv(out / "tables" / "cleaning.csv").set_index("reason")

@@ -19,7 +19,7 @@ import xarray as xr
 from scipy.spatial import cKDTree
 
 from timeslice.errors import ConfigError, DataError, InputFileError, TimesliceWarning
-from timeslice.grid import AUTHALIC_RADIUS_KM, cell_area, grid_edges
+from timeslice.grid import AUTHALIC_RADIUS_KM, cell_area, grid_edges, wrap_lon
 
 __all__ = [
     "BASIS_KINDS",
@@ -104,7 +104,8 @@ def _cell_index(grid: xr.Dataset | xr.DataArray, lon, lat) -> tuple[np.ndarray, 
     glat = np.asarray(grid["lat"].values, dtype=float)
     glon = np.asarray(grid["lon"].values, dtype=float)
     lat_b, lon_b = grid_edges(grid)
-    lon = np.asarray(lon, dtype=float)
+    # records come in [-180, 180); a grid across 180 runs on past it (e.g. 165..195)
+    lon = wrap_lon(np.asarray(lon, dtype=float), west=lon_b[0, 0])
     lat = np.asarray(lat, dtype=float)
     inside = (
         (lat >= lat_b[0, 0]) & (lat <= lat_b[-1, 1]) & (lon >= lon_b[0, 0]) & (lon <= lon_b[-1, 1])

@@ -125,7 +125,10 @@ def assign(
     dist = np.where(inside, dist, np.inf)
     k = np.argmin(dist, axis=1)
     in_win = np.isfinite(dist[np.arange(k.size), k])
-    lon = ((lon + 180.0) % 360.0) - 180.0
+    from timeslice.grid import grid_edges, wrap_lon
+
+    # records come in [-180, 180); a grid across 180 runs on past it (e.g. 165..195)
+    lon = wrap_lon(lon, west=float(grid_edges(stack)[1][0, 0]))
     iy, ok_y = _nearest_index(np.asarray(stack["lat"].values, float), lat)
     ix, ok_x = _nearest_index(np.asarray(stack["lon"].values, float), lon)
     suit = np.asarray(stack["suitable"].transpose("slice", "lat", "lon").values)
