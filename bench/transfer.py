@@ -249,7 +249,7 @@ def run(paths: list[Path], out_dir: Path, k: int, size: str, estimator: str, bud
 
     from timeslice.io import atomic_path
     from timeslice.transfer import auto_chunks, project_slice
-    from timeslice.transfer.scheduler import set_chunk_cache
+    from timeslice.transfer.scheduler import one_blas_thread, set_chunk_cache
 
     set_chunk_cache()
     names = _var_names(k)
@@ -269,7 +269,8 @@ def run(paths: list[Path], out_dir: Path, k: int, size: str, estimator: str, bud
     chunks = auto_chunks(dict(zip(("lat", "lon"), SIZES[size])), n_variables=k, budget_mb=budget_mb)
     n_suitable = 0
     opts = {"scheduler": "threads", "num_workers": threads} if threads else {"scheduler": "sync"}
-    with dask.config.set(**opts):  # threads=0: synchronous (for profiling)
+    # as timeslice.transfer.scheduler does for every run: one BLAS thread per dask thread
+    with dask.config.set(**opts), one_blas_thread():  # threads=0: synchronous (for profiling)
         for path in paths:
             ds = xr.open_dataset(path, chunks=chunks, engine="netcdf4", cache=False)
             out = project_slice(model, ds, variables=names, reference=reference,

@@ -21,7 +21,7 @@ import dask
 
 from timeslice.errors import ConfigError
 
-__all__ = ["NETCDF_CHUNK_CACHE_BYTES", "get_client", "scheduler", "set_chunk_cache"]
+__all__ = ["NETCDF_CHUNK_CACHE_BYTES", "get_client", "one_blas_thread", "scheduler", "set_chunk_cache"]
 
 #: netCDF chunk-cache size per variable, bytes (our choice, measured: 8 variables peaked at
 #: 1.27 GB with the 64 MiB default and 0.37 GB with 4 MiB).
@@ -48,6 +48,25 @@ def set_chunk_cache(size: int = NETCDF_CHUNK_CACHE_BYTES) -> tuple[int, int, flo
 
     netCDF4.set_chunk_cache(int(size))
     return netCDF4.get_chunk_cache()
+
+
+@contextlib.contextmanager
+def one_blas_thread() -> Iterator[None]:
+    """One BLAS thread per dask thread for the block.
+
+    dask already runs one task per core; a BLAS that also starts one thread per core inside
+    each task (the Mahalanobis products of the ellipsoid and ExDet) oversubscribes the cores.
+    Measured here (2 cores, load ~2.3): the ellipsoid's prediction of 4 million cells x 8
+    predictors on dask threads took 1.21-1.31 CPU s with OpenBLAS's default 2 threads per task
+    and 0.25-0.28 CPU s with one.
+    """
+    try:
+        from threadpoolctl import threadpool_limits  # a scikit-learn dependency
+    except ImportError:  # pragma: no cover - scikit-learn always brings it
+        yield
+        return
+    with threadpool_limits(limits=1, user_api="blas"):
+        yield
 
 
 def _check_workers(workers: Any) -> int | None:
@@ -191,7 +210,7 @@ def scheduler(
         opts: dict[str, Any] = {"scheduler": "threads"}
         if threads is not None:
             opts["num_workers"] = threads
-        with dask.config.set(**opts):
+        with dask.config.set(**opts), one_blas_thread():
             yield None
         return
     cluster = client.cluster if address is None else None
