@@ -15,5 +15,3 @@ def test_threads_scheduler_limits_blas_to_one_thread():
     with scheduler(threads=2):
         inside = _blas_threads()
     assert inside <= {1}
-    # outside the block the library's own setting is back
-    assert _blas_threads() == _blas_threads()
