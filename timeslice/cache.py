@@ -3,7 +3,8 @@
 Each stage output is stored under ``DIR/.cache/<stage>/<key>.<ext>``, where the key is a SHA-256
 of the stage's inputs (file hashes, the config values the stage reads and the package version).
 Files are written atomically (temporary name, then rename), so a run killed at any point leaves
-either a complete entry or none.
+either a complete entry or none. A write that fails (a full disk) stops the run with one line
+naming the cache; an entry that cannot be read back (damaged on disk) is computed again.
 """
 
 from __future__ import annotations
@@ -12,12 +13,14 @@ import hashlib
 import json
 import os
 import pickle
+import warnings
 from pathlib import Path
 from typing import Any
 
 import xarray as xr
 
 from timeslice import __version__
+from timeslice.errors import InputFileError, TimesliceWarning, write_failure
 from timeslice.io import atomic_path
 
 __all__ = ["StageCache", "file_digest", "content_key"]
@@ -26,7 +29,10 @@ _DIGESTS: dict[tuple[str, int, int], str] = {}
 
 
 def file_digest(path: str | os.PathLike) -> str:
-    """SHA-256 of a file (or of every file a glob pattern matches), memoised by size and mtime."""
+    """SHA-256 of a file (or of every file a glob pattern matches), memoised by size and mtime.
+
+    Raises :class:`InputFileError` naming the path when it is missing, a folder or unreadable.
+    """
     p = Path(path)
     if any(ch in str(p) for ch in "*?["):
         files = sorted(p.parent.glob(p.name))
@@ -34,14 +40,20 @@ def file_digest(path: str | os.PathLike) -> str:
         for f in files:
             h.update(file_digest(f).encode())
         return h.hexdigest()
-    st = p.stat()
-    memo = (str(p.resolve()), st.st_size, st.st_mtime_ns)
-    if memo in _DIGESTS:
-        return _DIGESTS[memo]
-    h = hashlib.sha256()
-    with open(p, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
+    if p.is_dir():
+        raise InputFileError(f"{p}: is a folder, expected a file; give the file in it")
+    try:
+        st = p.stat()
+        memo = (str(p.resolve()), st.st_size, st.st_mtime_ns)
+        if memo in _DIGESTS:
+            return _DIGESTS[memo]
+        h = hashlib.sha256()
+        with open(p, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+    except OSError as err:
+        raise InputFileError(f"{p}: cannot be read ({err.strerror or err}); check that the file "
+                             "exists and is readable") from err
     _DIGESTS[memo] = h.hexdigest()
     return _DIGESTS[memo]
 
@@ -71,18 +83,28 @@ class StageCache:
         path = self._path(stage, key, "nc")
         if path is None or self.force or not path.exists():
             return None
-        self.hits.append(f"{stage}/{key}")
         # raw values: a fill value such as -1 of an int8 flag layer must stay -1, not NaN
-        with xr.open_dataset(path, mask_and_scale=False) as ds:
-            return _restore_bools(ds.load())
+        try:
+            with xr.open_dataset(path, mask_and_scale=False) as ds:
+                loaded = _restore_bools(ds.load())
+        except (OSError, RuntimeError, ValueError) as err:
+            _discard(path, err)
+            return None
+        self.hits.append(f"{stage}/{key}")
+        return loaded
 
     def store(self, stage: str, key: str, ds: xr.Dataset) -> None:
-        """Write a computed Dataset under (stage, key), atomically."""
+        """Write a computed Dataset under (stage, key), atomically.
+
+        Raises :class:`InputFileError` naming the cache file when the write fails (full disk,
+        read-only folder); no partial entry is left.
+        """
         self.misses.append(f"{stage}/{key}")
         path = self._path(stage, key, "nc")
         if path is not None:
-            with atomic_path(path) as tmp:
-                _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+            with _writing(path):
+                with atomic_path(path) as tmp:
+                    _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
 
     def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
         """Return the cached Dataset for (stage, key), or compute, store and return it."""
@@ -98,16 +120,50 @@ class StageCache:
         """Return the cached picklable object for (stage, key), or compute and store it."""
         path = self._path(stage, key, "pkl")
         if path is not None and path.exists() and not self.force:
-            self.hits.append(f"{stage}/{key}")
-            with open(path, "rb") as fh:
-                return pickle.load(fh)
+            try:
+                with open(path, "rb") as fh:
+                    value = pickle.load(fh)
+            except (OSError, EOFError, pickle.UnpicklingError, AttributeError, ImportError) as err:
+                _discard(path, err)
+            else:
+                self.hits.append(f"{stage}/{key}")
+                return value
         self.misses.append(f"{stage}/{key}")
         value = compute()
         if path is not None:
-            with atomic_path(path) as tmp:
-                with open(tmp, "wb") as fh:
-                    pickle.dump(value, fh, protocol=pickle.HIGHEST_PROTOCOL)
+            with _writing(path):
+                with atomic_path(path) as tmp:
+                    with open(tmp, "wb") as fh:
+                        pickle.dump(value, fh, protocol=pickle.HIGHEST_PROTOCOL)
         return value
+
+
+class _writing:
+    """Turn a failed cache write into one line naming the cache file and what to do."""
+
+    def __init__(self, path: Path):
+        self.path = path
+
+    def __enter__(self) -> None:
+        return None
+
+    def __exit__(self, kind, err, tb) -> bool:
+        if isinstance(err, (OSError, RuntimeError)):
+            failure = write_failure(self.path, err, what=" the stage cache entry")
+            if failure is not None:
+                raise InputFileError(
+                    f"{failure}; finished stages stay cached and are reused") from err
+        return False
+
+
+def _discard(path: Path, err: BaseException) -> None:
+    """Drop a cache entry that cannot be read back, so it is computed again."""
+    warnings.warn(f"stage cache entry {path.name} could not be read "
+                  f"({type(err).__name__}); computing it again", TimesliceWarning, stacklevel=3)
+    try:
+        path.unlink()
+    except OSError:
+        pass
 
 
 def _encode_bools(ds: xr.Dataset) -> xr.Dataset:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import contextlib
 import functools
+import os
 import sys
 import warnings
 from collections.abc import Iterator
@@ -13,7 +14,13 @@ from typing import Annotated, Optional
 import typer
 
 from timeslice import __version__
-from timeslice.errors import TimesliceError, TimesliceWarning
+from timeslice.errors import (
+    InputFileError,
+    TimesliceError,
+    TimesliceWarning,
+    shorten,
+    write_failure,
+)
 
 _default_showwarning = warnings.showwarning
 
@@ -43,10 +50,22 @@ ChunksOpt = Annotated[
 ]
 
 
+#: Longest error line the command prints; a longer message is cut at a word boundary.
+MAX_ERROR_LINE = 400
+
+
 def _fail(err: TimesliceError) -> None:
     # always one line: a message quoting a file's own error text may hold line breaks
-    typer.echo(f"timeslice: error: {' '.join(str(err).split())}", err=True)
+    typer.echo(f"timeslice: error: {shorten(str(err), MAX_ERROR_LINE)}", err=True)
     raise typer.Exit(code=2)
+
+
+def _os_failure(err: OSError) -> TimesliceError | None:
+    """One line for an operating-system error on a named file (a read-only or full disk met
+    where no stage expected it), or None for anything else."""
+    if err.filename is None:
+        return None
+    return write_failure(err.filename, err)
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
@@ -68,6 +87,11 @@ def _guard(func):
             return func(*args, **kwargs)
         except TimesliceError as err:
             _fail(err)
+        except OSError as err:
+            failure = _os_failure(err)
+            if failure is None:
+                raise
+            _fail(failure)
         finally:
             warnings.showwarning = saved
 
@@ -250,6 +274,12 @@ def export(
     """Export the layers of a finished run (one GeoTIFF per layer and slice)."""
     from timeslice.pipeline import run_export
 
+    if (run_dir / "series.nc").is_file() and not os.access(run_dir, os.W_OK):
+        # refused before any layer is read: export writes into the run folder
+        raise InputFileError(
+            f"{run_dir}: the run folder is not writable and `timeslice export` writes its "
+            "GeoTIFFs into it (geotiff/); copy the run folder somewhere writable and export the "
+            "copy")
     paths = run_export(run_dir, fmt=format)
     typer.echo(f"{len(paths)} files in {Path(run_dir).resolve() / 'geotiff'}")
 

@@ -451,6 +451,11 @@ class Config(_Section):
                     f"{self.source}: {key} = {str(path)!r}: file not found; fix the path "
                     "(relative paths are read from the config file's folder)"
                 )
+            if path is not None and Path(path).is_dir():
+                raise InputFileError(
+                    f"{self.source}: {key} = {str(path)!r} is a folder; give the file in it "
+                    "(a CSV, tab-separated text, .gz or .zip of records, or a raster for a mask)"
+                )
         if headers:
             inputs = {key: inp for key, inp, _, _ in self.climate_inputs()}
             for key, inp in inputs.items():
@@ -544,7 +549,33 @@ class Config(_Section):
                 f"{self.source}: slice labels must be unique, repeated: "
                 f"{sorted(dup | ({self.climate.baseline_label} & set(labels)))}"
             )
+        _check_file_names([self.climate.baseline_label, *labels], self.source)
         return specs
+
+
+#: Longest file-name part a slice label may give (file systems allow 255 bytes per name; the
+#: layer prefix and extension take the rest).
+MAX_LABEL_STEM = 120
+
+
+def _check_file_names(labels: list[str], source) -> None:
+    """Maps and GeoTIFFs are named after slice labels (:func:`timeslice.io.file_stem`): two
+    labels with one file name would overwrite each other, so they are refused naming both."""
+    from timeslice.io import file_stem
+
+    seen: dict[str, str] = {}
+    for label in labels:
+        stem = file_stem(label)
+        if len(stem) > MAX_LABEL_STEM:
+            raise ConfigError(
+                f"{source}: slice label {label[:40]!r}… gives a file name of {len(stem)} "
+                f"characters, more than {MAX_LABEL_STEM}; shorten the slice `name` or model name")
+        if stem in seen:
+            raise ConfigError(
+                f"{source}: slice labels {seen[stem]!r} and {label!r} give the same file name "
+                f"{stem!r} (maps and GeoTIFFs keep letters, digits, '.', '_' and '-'); rename "
+                "one of the slices (or models) so they differ in those characters")
+        seen[stem] = label
 
 
 def _sea_level(s: SliceConfig, year: float, ends: list[SliceSpec]) -> float:

@@ -1,14 +1,16 @@
-"""Atomic output writing: write to a temporary name in the target folder, rename when done."""
+"""Atomic output writing: write to a temporary name in the target folder, rename when done; the
+one rule that turns a label into a file name."""
 
 from __future__ import annotations
 
 import contextlib
 import os
+import re
 import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
-__all__ = ["atomic_path"]
+__all__ = ["atomic_path", "file_stem"]
 
 
 @contextlib.contextmanager
@@ -34,3 +36,24 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
         with contextlib.suppress(FileNotFoundError):
             tmp_path.unlink()
         raise
+
+
+_NOT_IN_NAMES = re.compile(r"[^A-Za-z0-9._-]+")
+
+
+def file_stem(text: str) -> str:
+    """The file-name part for a label: runs of characters other than ASCII letters, digits,
+    ``.``, ``_`` and ``-`` become one ``_`` (so no folder separator, colon or space reaches a
+    path), without leading or trailing ``_``; ``"unnamed"`` if nothing is left.
+
+    Every output named after a slice label, layer or model uses this one function, and the
+    config refuses labels whose stems coincide (:meth:`timeslice.config.Config.slice_specs`).
+
+    Examples
+    --------
+    >>> file_stem("21ka/a"), file_stem("21ka:a"), file_stem("..")
+    ('21ka_a', '21ka_a', 'unnamed')
+    """
+    stem = _NOT_IN_NAMES.sub("_", str(text)).strip("_") or "unnamed"
+    # "." and ".." are folders, not names
+    return stem if stem.strip(".") else "unnamed"

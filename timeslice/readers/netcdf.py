@@ -252,6 +252,25 @@ def _identify(ds: xr.Dataset, aliases: Mapping[str, object] | None, source: str)
     return found
 
 
+def _why_not_taken(ds: xr.Dataset, mapping: Mapping[str, str]) -> dict[str, str]:
+    """For file variables not read as the canonical variable of their own name: why."""
+    used = {name: canon for canon, name in mapping.items()}
+    aux = _aux_names(ds)
+    why: dict[str, str] = {}
+    for v in map(str, ds.data_vars):
+        if v in used:
+            if used[v].lower() != v.lower():
+                why[v] = (f"is read as {used[v]!r} (by `aliases` or its standard_name and "
+                          "cell_methods); fix the mapping")
+        elif v in aux or ds[v].ndim < 2:
+            why[v] = (f"has dimensions {tuple(map(str, ds[v].dims))}, not a latitude-longitude "
+                      "field; give the gridded variable")
+        else:
+            why[v] = ("was not recognised (its standard_name or units say otherwise); map it "
+                      "with `aliases`")
+    return why
+
+
 def _time_name(da: xr.DataArray, ds: xr.Dataset | None) -> str | None:
     if ds is None:
         return None
@@ -373,6 +392,7 @@ def _to_monthly(
         da = da.drop_vars(tname).sortby("month")
         return da
     if period is None:
+        _too_few_months(n, freq, months, years, source, variable)
         raise DataError(
             f"{source}: {variable!r} is a {freq} series of {n} steps ({years.min()}-"
             f"{years.max()}), not a 12-month climatology; give the slice's `period` (e.g. "
@@ -380,6 +400,7 @@ def _to_monthly(
         )
     y0, y1 = _parse_period(period, source)
     if years.min() > y0 or years.max() < y1:
+        _too_few_months(n, freq, months, years, source, variable)
         raise DataError(
             f"{source}: period {y0}-{y1} is outside the file's time range "
             f"{years.min()}-{years.max()}; choose a period inside it"
@@ -409,6 +430,17 @@ def _to_monthly(
         f"over {span}"
     )
     return clim
+
+
+def _too_few_months(n, freq, months, years, source, variable) -> None:
+    """Fewer steps than a year has months: incomplete, whatever `period` says."""
+    if n < 12 and freq != "daily":
+        missing = sorted(set(range(1, 13)) - set(months.tolist()))
+        raise DataError(
+            f"{source}: {variable!r} has only {n} monthly step{'s' if n != 1 else ''} "
+            f"({years.min()}-{months[0]:02d} to {years[-1]}-{months[-1]:02d}), missing months "
+            f"{missing}, so not a 12-month climatology; give the file with all twelve months"
+        )
 
 
 def time_frequency(times) -> str:
@@ -500,6 +532,8 @@ def open_climate(
     out_vars: dict[str, xr.DataArray] = {}
     global_attrs: dict = {}
     found_names: list[str] = []
+    #: file variable -> why it is not the canonical variable of the same name (for messages)
+    not_taken: dict[str, str] = {}
     periods: dict[str, str] = {}
     calendars: set[str] = set()
     time_kinds: set[str] = set()
@@ -538,6 +572,7 @@ def open_climate(
         mapping = _identify(ds, aliases, fsrc)
         if entry.variable is not None:
             mapping = _tagged(ds, mapping, entry.variable, fsrc)
+        not_taken.update(_why_not_taken(ds, mapping))
         for name in mapping.values():
             tn = _time_name(ds[name], ds)
             if tn is not None:
@@ -607,9 +642,17 @@ def open_climate(
         )
     for canon in require or ():
         if canon not in out_vars:
+            near = [v for v in dict.fromkeys(found_names)
+                    if v.lower() in (canon, *DEFAULT_ALIASES.get(canon, ())) and v in not_taken]
+            if near:
+                raise DataError(
+                    f"{src}: required variable {canon!r} is not usable: the file variable "
+                    f"{near[0]!r} {not_taken[near[0]]}"
+                )
             raise DataError(
                 f"{src}: required variable {canon!r} is missing (found "
-                f"{sorted(set(found_names))}); add it or map it with `aliases`"
+                f"{shorten(', '.join(sorted(set(found_names))), 120)}); add it or map it with "
+                "`aliases`"
             )
     grids = {k: (v["lat"].size, v["lon"].size) for k, v in out_vars.items()}
     ref = next(iter(out_vars.values()))
@@ -629,6 +672,7 @@ def open_climate(
     if check:
         from timeslice.harmonise.plausibility import check_fields
 
+        _check_filled(out, src)
         check_fields(out, source=src)
     info = {
         "files": [str(p.path) for p in paths],
@@ -649,6 +693,32 @@ def open_climate(
     out.attrs["harmonise_log"] = json.dumps(log)
     out.attrs["source_info"] = json.dumps(info)
     return out
+
+
+def _check_filled(ds: xr.Dataset, source: str) -> None:
+    """Refuse a field without one valid value, and an ice fraction outside 0..1 after its unit
+    conversion, naming the file (checked where it is read, so no later stage misreads it)."""
+    for canon, da in ds.data_vars.items():
+        values = np.asarray(da.values, dtype=float)
+        shown = da.attrs.get("source_variable", canon)
+        name = f"{canon!r}" if shown == canon else f"{canon!r} ({shown!r})"
+        if not np.isfinite(values).any():
+            raise DataError(
+                f"{da.attrs.get('source_file', source)}: {name} has no valid value (every cell "
+                "is missing or equals the fill value); check the file's _FillValue / "
+                "missing_value, or give another file")
+        if canon == "ice":
+            vmax = float(np.nanmax(values))
+            vmin = float(np.nanmin(values))
+            if vmax > 1.0 + 1e-6 or vmin < -1e-6:
+                was = da.attrs.get("source_units", da.attrs.get("units", ""))
+                stored = f"{vmin * 100:g}..{vmax * 100:g} %" if was in ("%", "percent") else \
+                    f"{vmin:g}..{vmax:g}"
+                fix = ("fix the values" if was in ("%", "percent") else
+                       "if the file is in percent, declare it (`units = {ice = \"%\"}`)")
+                raise DataError(
+                    f"{da.attrs.get('source_file', source)}: ice cover {name} runs {stored} "
+                    f"(units {was or 'none'!r}), outside 0..100 % (fraction 0..1); {fix}")
 
 
 #: Negative monthly precipitation above this magnitude (mm month-1) is an input error, below it

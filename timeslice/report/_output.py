@@ -1,17 +1,29 @@
-"""Atomic output files with one-line errors for the usual ways writing fails."""
+"""Atomic output files with one-line errors for the usual ways writing fails, the one rule that
+turns labels into file names, and figures whose text is drawn as written."""
 
 from __future__ import annotations
 
 import contextlib
-import errno
 import os
 from collections.abc import Iterator
 from pathlib import Path
 
-from timeslice.errors import InputFileError
-from timeslice.io import atomic_path
+from timeslice.errors import InputFileError, write_failure
+from timeslice.io import atomic_path, file_stem
 
-__all__ = ["output_path"]
+__all__ = ["file_stem", "output_path", "save_figure"]
+
+def save_figure(fig, path: str | os.PathLike, *, dpi: int) -> None:
+    """Save a matplotlib figure as PNG with every text drawn as written: a ``$`` in a slice label
+    is a dollar sign, never the start of a mathematical formula (matplotlib's ``parse_math``)."""
+    import matplotlib
+    from matplotlib.text import Text
+
+    for text in fig.findobj(Text):
+        text.set_parse_math(False)
+    # tick labels made while drawing take the setting from rcParams
+    with matplotlib.rc_context({"text.parse_math": False}):
+        fig.savefig(path, format="png", dpi=dpi, bbox_inches="tight")
 
 
 @contextlib.contextmanager
@@ -28,11 +40,8 @@ def output_path(path: str | os.PathLike) -> Iterator[Path]:
     try:
         with atomic_path(target) as tmp:
             yield tmp
-    except OSError as err:
-        if err.errno == errno.ENOSPC:
-            hint = "free some disk space and run again"
-        elif err.errno in (errno.EACCES, errno.EPERM, errno.EROFS):
-            hint = "choose an output folder you can write to (-o/--out)"
-        else:
-            hint = "check the output folder and run again"
-        raise InputFileError(f"{target}: could not write ({err.strerror or err}); {hint}") from err
+    except (OSError, RuntimeError) as err:
+        failure = write_failure(target, err)
+        if failure is None:
+            raise
+        raise failure from err

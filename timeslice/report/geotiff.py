@@ -12,7 +12,7 @@ import xarray as xr
 
 from timeslice.errors import DataError
 from timeslice.grid import grid_edges
-from timeslice.report._output import output_path
+from timeslice.report._output import file_stem, output_path
 from timeslice.report._layers import LAYERS, flag_pairs, slice_labels
 
 __all__ = ["export", "export_file"]
@@ -25,7 +25,7 @@ _SAFE = re.compile(r"[^A-Za-z0-9._-]+")
 
 
 def _safe(text: str) -> str:
-    return _SAFE.sub("_", str(text)).strip("_") or "unnamed"
+    return file_stem(text)
 
 
 def _check_regular(coord: np.ndarray, name: str) -> None:

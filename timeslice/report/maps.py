@@ -30,7 +30,7 @@ from matplotlib.patches import Patch
 
 from timeslice.errors import DataError
 from timeslice.grid import AUTHALIC_RADIUS_KM, grid_edges, haversine_km
-from timeslice.report._output import output_path
+from timeslice.report._output import file_stem, output_path, save_figure
 from timeslice.report._layers import LAYERS, slice_labels, slice_title
 
 __all__ = [
@@ -522,7 +522,7 @@ def _decorate(ax, fr: MapFrame, ds, i, name: str, *, scale_bar: bool = True) -> 
 
 def _save(fig: Figure, path: Path, *, dpi: int) -> Path:
     with output_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=dpi, bbox_inches="tight")
+        save_figure(fig, tmp, dpi=dpi)
     return path
 
 
@@ -564,9 +564,7 @@ def _single(ds: xr.Dataset, name: str, i: int | None, path: Path, *, title: str,
 
 
 def _safe(text: str) -> str:
-    import re
-
-    return re.sub(r"[^A-Za-z0-9._-]+", "_", str(text)).strip("_") or "unnamed"
+    return file_stem(text)
 
 
 def _slice_indices(ds: xr.Dataset, slices: Sequence[str] | None) -> list[int]:

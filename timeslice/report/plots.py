@@ -10,7 +10,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from timeslice.errors import DataError
-from timeslice.report._output import output_path
+from timeslice.report._output import output_path, save_figure
 
 __all__ = [
     "PAST_BEFORE_YEAR",
@@ -47,7 +47,7 @@ def _need(df: pd.DataFrame, columns, what: str) -> None:
 def _save(fig: Figure, path: str | os.PathLike, dpi: int) -> Path:
     target = Path(path)
     with output_path(target) as tmp:
-        fig.savefig(tmp, format="png", dpi=dpi, bbox_inches="tight")
+        save_figure(fig, tmp, dpi=dpi)
     return target
 
 
