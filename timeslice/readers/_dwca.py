@@ -105,6 +105,14 @@ def decode(data: bytes, name: str, *, declared: str | None = None) -> tuple[str,
         except UnicodeDecodeError as err:
             raise InputFileError(f"{name}: starts with a UTF-16 byte-order mark but is not valid "
                                  f"UTF-16 ({err.reason} at byte {err.start}); re-save it as UTF-8") from err
+    utf16 = _utf16_without_bom(data)
+    if utf16 is not None:
+        try:
+            return data.decode(utf16), f"{utf16.upper()} (no byte-order mark)", notes
+        except UnicodeDecodeError as err:
+            raise InputFileError(f"{name}: looks like UTF-16 without a byte-order mark but is not "
+                                 f"valid {utf16.upper()} ({err.reason} at byte {err.start}); "
+                                 "re-save it as UTF-8") from err
     if b"\x00" in data[:65536]:
         raise InputFileError(f"{name}: holds NUL bytes, so it is not a delimited text file "
                              "(a spreadsheet or other binary file?); export it as CSV or tab-separated text")
@@ -129,6 +137,25 @@ def decode(data: bytes, name: str, *, declared: str | None = None) -> tuple[str,
         return text, "Windows-1252" if cp else "Latin-1", notes
     except UnicodeDecodeError:
         return body.decode("latin-1"), "Latin-1", notes
+
+
+def _utf16_without_bom(data: bytes) -> str | None:
+    """"utf-16-le" or "utf-16-be" for text saved as UTF-16 without a byte-order mark, else None.
+
+    Text that is mostly ASCII has a NUL in every other byte when saved as UTF-16: at odd
+    offsets in little-endian, at even offsets in big-endian (Unicode Standard, ch. 3, UTF-16
+    encoding forms). A binary file has NULs at both.
+    """
+    head = data[:4096]
+    if len(head) < 4:
+        return None
+    even, odd = head[0::2], head[1::2]
+    nul_even, nul_odd = even.count(0) / len(even), odd.count(0) / len(odd)
+    if nul_odd > 0.6 and nul_even < 0.05:
+        return "utf-16-le"
+    if nul_even > 0.6 and nul_odd < 0.05:
+        return "utf-16-be"
+    return None
 
 
 # ---------------------------------------------------------------------------------------------

@@ -101,9 +101,10 @@ def header_key(name: str) -> str:
     return re.sub(r"[^a-z0-9]", "", term_name(str(name).strip().lstrip("\ufeff")).lower())
 
 
-def _clip(items, n: int = 8) -> str:
-    items = list(items)
-    return ", ".join(map(str, items[:n])) + (f" and {len(items) - n} more" if len(items) > n else "")
+def _clip(items, n: int = 8, width: int = 40) -> str:
+    # a column name is quoted only in part: the header of an arbitrary file can be one long line
+    items = [str(x) if len(str(x)) <= width else str(x)[: width - 1] + "…" for x in items]
+    return ", ".join(items[:n]) + (f" and {len(items) - n} more" if len(items) > n else "")
 
 
 def _columns(df: pd.DataFrame) -> list[str]:
@@ -172,6 +173,22 @@ def _resolve_columns(
 
 def _numeric(series: pd.Series) -> np.ndarray:
     return pd.to_numeric(series.astype(str).str.strip(), errors="coerce").to_numpy(dtype=float)
+
+
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
+
+
+def _coordinate(series: pd.Series) -> tuple[np.ndarray, int]:
+    """Decimal degrees of a coordinate column, and how many were written with a decimal comma
+    ("48,6563", the convention of semicolon-separated exports in many locales): one comma
+    between digits cannot be a thousands separator in a coordinate, so it is read as the
+    decimal point."""
+    values = _numeric(series).copy()
+    text = series.astype(str)
+    comma = np.isnan(values) & text.str.match(_DECIMAL_COMMA).to_numpy()
+    if comma.any():
+        values[comma] = _numeric(text[comma].str.replace(",", ".", regex=False))
+    return values, int(comma.sum())
 
 
 def _date_years(text: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -244,8 +261,8 @@ def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | No
         )
     n = len(df)
     out = pd.DataFrame(index=pd.RangeIndex(n))
-    out["lon"] = _numeric(df[found["lon"]])
-    out["lat"] = _numeric(df[found["lat"]])
+    out["lon"], n_lon = _coordinate(df[found["lon"]])
+    out["lat"], n_lat = _coordinate(df[found["lat"]])
     out["uncertainty_m"] = _numeric(df[found["uncertainty_m"]]) if "uncertainty_m" in found else np.nan
     out["status"] = (
         df[found["status"]].str.strip().str.lower().to_numpy() if "status" in found else ""
@@ -286,7 +303,9 @@ def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | No
         out["age_sd"] = sd
     out.attrs["source_file"] = str(path)
     out.attrs["columns"] = {k: v for k, v in found.items()}
-    out.attrs["read"] = f"{Path(path).name}: {table.describe()}; {n} records"
+    comma = (f"; {max(n_lon, n_lat)} coordinates with a decimal comma read as decimal points"
+             if n_lon or n_lat else "")
+    out.attrs["read"] = f"{Path(path).name}: {table.describe()}; {n} records{comma}"
     return out
 
 
