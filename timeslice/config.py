@@ -8,6 +8,7 @@ the config file. See docs/config.md for every key.
 from __future__ import annotations
 
 import difflib
+import math
 import re
 import tomllib
 from pathlib import Path
@@ -43,7 +44,7 @@ class RunConfig(_Section):
     #: 0 .. 2**32 - 1 (the range numpy's and scikit-learn's seeds accept)
     seed: int = Field(0, ge=0, le=2**32 - 1)
     scheduler: str = "threads"
-    workers: int | None = None
+    workers: int | None = Field(None, ge=1)
 
 
 class GridConfig(_Section):
@@ -74,7 +75,16 @@ class GridConfig(_Section):
         if self.resolution > min(width, self.lat_max - self.lat_min):
             raise ValueError(f"`resolution` {self.resolution:g}° is larger than the grid "
                              "extent; give a smaller cell size")
+        cells = (width / self.resolution) * ((self.lat_max - self.lat_min) / self.resolution)
+        if cells > MAX_GRID_CELLS:
+            raise ValueError(f"`resolution` {self.resolution:g}° gives {cells:.3g} cells, more "
+                             f"than {MAX_GRID_CELLS:.0e} (a global 30-arc-second grid has "
+                             "9.3e8); give a coarser cell size or a smaller region")
         return self
+
+
+#: Largest target grid accepted, in cells: a global 30-arc-second grid (43200 x 21600) fits.
+MAX_GRID_CELLS = 1e9
 
 
 #: Canonical variables a units/scale/aliases/variables mapping may name.
@@ -220,11 +230,27 @@ class ClimateConfig(_Section):
     units: dict[str, str] = Field(default_factory=dict)
     scale: dict[str, float] = Field(default_factory=dict)
     regrid: Literal["auto", "conservative", "bilinear"] | dict[str, Literal["auto", "conservative", "bilinear"]] = "auto"
+
+    @field_validator("regrid")
+    @classmethod
+    def _regrid_keys(cls, v):
+        if isinstance(v, dict):
+            ClimateInput._canonical_keys(v)
+        return v
     pr_floor: float = Field(0.1, ge=0.0)
     ratio_quantile: float = Field(0.98, gt=0.5, le=1.0)
     present_sea_level: float = 0.0
     ice_threshold: float = Field(0.5, ge=0.0, le=1.0)
     lapse_rate: float = Field(0.0065, ge=0.0)
+
+    @field_validator("baseline_period")
+    @classmethod
+    def _period_order(cls, v):
+        m = re.fullmatch(r"\s*(-?\d+)\s*-\s*(-?\d+)\s*", v)
+        if m and int(m.group(2)) < int(m.group(1)):
+            raise ValueError(f"`baseline_period` {v!r} ends before it starts; give "
+                             "'first-last', e.g. \"1981-2010\"")
+        return v
 
     @field_validator("units", "scale")
     @classmethod
@@ -310,7 +336,7 @@ class NicheConfig(_Section):
     buffer_km: float = Field(300.0, gt=0)
     n_background: int = Field(10000, gt=0)
     thin: str | float | None = "cell"
-    uncertainty_max_m: float | None = None
+    uncertainty_max_m: float | None = Field(None, gt=0)
     years: tuple[int, int] | None = None
     keep_basis: list[Literal["fossil", "living"]] = Field(default_factory=list)
     drop_flags: list[str] | None = None
@@ -326,7 +352,7 @@ class NicheConfig(_Section):
     calibration_mask: Path | None = None
     background_file: Path | None = None
     min_records: int = Field(10, ge=1)
-    importance_repeats: int = Field(5, ge=0)
+    importance_repeats: int = Field(5, ge=0, le=1000)
     threshold: str = "max_sss"  # chosen by the truth benchmark (docs/truth.md)
     threshold_value: float | None = None
 
@@ -335,16 +361,49 @@ class NicheConfig(_Section):
     def _thin(cls, v):
         if isinstance(v, str) and v not in {"cell", "none"}:
             try:
-                return float(v)
+                v = float(v)
             except ValueError as err:
                 raise ValueError("`thin` is \"cell\", \"none\" or a distance in km") from err
+        if isinstance(v, float) and not v > 0:
+            raise ValueError("`thin` as a distance must be more than 0 km")
         return None if v == "none" else v
+
+    @field_validator("years")
+    @classmethod
+    def _years(cls, v):
+        if v is not None and v[1] < v[0]:
+            raise ValueError(f"`years` {list(v)} ends before it starts; give [first, last]")
+        return v
+
+    @field_validator("variables", "priority")
+    @classmethod
+    def _predictors(cls, v, info):
+        if v is None:
+            return v
+        if info.field_name == "variables" and not v:
+            raise ValueError("the list of predictors is empty; name at least one (bio1..bio19) "
+                             "or leave `variables` out to offer all nineteen")
+        for name in v:
+            if name not in _PREDICTORS:
+                close = difflib.get_close_matches(name, _PREDICTORS, n=1)
+                hint = f"; did you mean {close[0]!r}?" if close and close[0] != name else ""
+                raise ValueError(f"{name!r} is not a predictor (bio1..bio19 or elevation){hint}")
+        dup = sorted({x for x in v if v.count(x) > 1})
+        if dup:
+            raise ValueError(f"{dup} named more than once; name each predictor once")
+        return v
+
+
+#: Predictors a niche may use: the bioclimatic variables of every prepared slice and elevation.
+_PREDICTORS = (*(f"bio{i}" for i in range(1, 20)), "elevation")
 
 
 class TransferConfig(_Section):
     clamp: bool = False
     chunks: int | Literal["auto"] = "auto"
     chunk_budget_mb: float = Field(64.0, gt=0)
+    #: slices computed in one dask graph before the batch is cached (smaller: finer resume)
+    batch: int = Field(4, ge=1)
 
     @field_validator("chunks")
     @classmethod
@@ -703,6 +762,13 @@ def _check_references(cfg: Config, source: str) -> None:
     if n.algorithm not in MODEL_NAMES:
         raise ConfigError(f"{source}: niche.algorithm = {n.algorithm!r} is not an algorithm"
                           f"{_suggest(n.algorithm, MODEL_NAMES, 'algorithm')}")
+    if n.params:
+        from timeslice.niche.models import make_model
+
+        try:  # parameter names, checked now rather than after harmonising
+            make_model(n.algorithm, **n.params)
+        except ConfigError as err:
+            raise ConfigError(f"{source}: niche.params: {err}") from err
     if n.threshold not in THRESHOLD_RULES:
         raise ConfigError(f"{source}: niche.threshold = {n.threshold!r} is not a threshold rule"
                           f"{_suggest(n.threshold, THRESHOLD_RULES, 'rule')}")
@@ -750,9 +816,22 @@ def _format_error(err: ValidationError, source: str) -> str:
     return f"{source}: key {key!r}: {msg}{got_s}"
 
 
+def _finite(data, source: str, key: str = "") -> None:
+    """TOML has nan and inf; no key of a run takes them."""
+    if isinstance(data, dict):
+        for k, v in data.items():
+            _finite(v, source, f"{key}.{k}" if key else str(k))
+    elif isinstance(data, list):
+        for i, v in enumerate(data):
+            _finite(v, source, f"{key}[{i}]")
+    elif isinstance(data, float) and not math.isfinite(data):
+        raise ConfigError(f"{source}: key {key!r} is {data!r}; give a finite number")
+
+
 def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
     """Validate a config mapping; relative paths resolve against the folder of `source`."""
     src = Path(source)
+    _finite(data, str(source))
     try:
         cfg = Config.model_validate(data)
     except ValidationError as err:

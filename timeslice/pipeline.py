@@ -339,7 +339,7 @@ def transfer_stage(
     progress("transfer", len(slices) - len(todo), len(slices))
     # slices are independent: compute them in batches of one graph each, so the scheduler runs
     # them in parallel while each finished batch is cached before the next starts
-    batch = max(1, int(os.environ.get("TIMESLICE_TRANSFER_BATCH", "4")))
+    batch = tc.batch
     for start in range(0, len(todo), batch):
         idx = todo[start:start + batch]
         lazy = [
