@@ -146,12 +146,9 @@ def findings(results: pd.DataFrame) -> list[str]:
     if len(win):
         out.append(f"Refugia (suitable in every slice of the window, in every model): "
                    f"{float(win['value'].iloc[0]):,.0f} km².")
-    change = k[k["topic"] == "change"]
-    for scope in dict.fromkeys(change["scope"]):
-        sub = k[(k["scope"] == scope) & k["topic"].isin(["change", "novelty"])]
-        g = sub.drop_duplicates("quantity").set_index("quantity")["value"]
-        if "change in suitable area, median over models" not in g:
-            continue
+    from timeslice.series.analysis import change_by_scope
+
+    for scope, g in change_by_scope(k):
         n = int(g.get("models", 1))
         text = f"{scope}: suitable area {g['change in suitable area, median over models']:+.0f} %"
         if n > 1:

@@ -281,12 +281,9 @@ def key_numbers(results: pd.DataFrame | None, *, series=None,
                  & (k["scope"].str.startswith("window"))]
         out.append(_refugia_card(series, refugium,
                                  area=float(area["value"].iloc[0]) if len(area) else None))
-    change = k[k["topic"] == "change"]
-    for scope in dict.fromkeys(change["scope"]):
-        sub = k[(k["scope"] == scope) & k["topic"].isin(["change", "novelty"])]
-        g = sub.drop_duplicates("quantity").set_index("quantity")["value"]
-        if "change in suitable area, median over models" not in g:
-            continue
+    from timeslice.series.analysis import change_by_scope
+
+    for scope, g in change_by_scope(k):
         n = int(g.get("models", 1))
         scen, _, per = scope.partition(" ")
         value = f"{g['change in suitable area, median over models']:+.0f} %"

@@ -22,7 +22,7 @@ from timeslice.series.hindcast import check as hindcast_check
 from timeslice.series.stacking import chains as find_chains
 from timeslice.series.summary import movement_table, summarise
 
-__all__ = ["SeriesResult", "analyse_series", "change_rows", "key_results"]
+__all__ = ["SeriesResult", "analyse_series", "change_by_scope", "change_rows", "key_results"]
 
 
 @dataclasses.dataclass
@@ -264,6 +264,24 @@ def change_rows(detail: pd.DataFrame, *, reference: str,
             if col in g and g[col].notna().any():
                 add("novelty", scope, words, g[col].mean(), "1")
     return rows
+
+
+def change_by_scope(results: pd.DataFrame) -> list[tuple[str, dict[str, float]]]:
+    """The change and novelty rows of a key-results table grouped by scope (scenario and
+    period), in table order: ``[(scope, {quantity: value}), ...]``, only scopes with a change.
+
+    The report cards, the report's findings and the command line read their numbers here.
+    """
+    if results is None or results.empty:
+        return []
+    k = results[results["topic"].isin(["change", "novelty"])]
+    out = []
+    for scope in dict.fromkeys(k.loc[k["topic"] == "change", "scope"]):
+        sub = k[k["scope"] == scope].drop_duplicates("quantity")
+        values = dict(zip(sub["quantity"], sub["value"].astype(float)))
+        if "change in suitable area, median over models" in values:
+            out.append((str(scope), values))
+    return out
 
 
 def key_results(result: SeriesResult, *, horizon: str | None = None) -> pd.DataFrame:
