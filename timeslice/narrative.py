@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["findings", "methods_paragraph"]
+__all__ = ["findings", "methods_paragraph", "resolution_note"]
 
 _ALGORITHMS = {
     "envelope": "a percentile envelope (Nix 1986; Busby 1991)",
@@ -53,6 +53,7 @@ def methods_paragraph(
     clamp: bool,
     evaluation: pd.DataFrame | None = None,
     window: Sequence[str] | tuple[float, float] | None = None,
+    cell_km: float | None = None,
 ) -> str:
     """One paragraph stating every choice of the run with its citation.
 
@@ -124,7 +125,32 @@ def methods_paragraph(
         f"areas on the authalic sphere; gain, loss and stability are relative to the slice "
         f"'{reference}'; a refugium is a cell suitable in {win_txt} of every model (Carnaval & "
         f"Moritz 2008; Graham et al. 2010)."
+        + (f" {resolution_note(cell_km)}" if cell_km is not None else "")
     )
+
+
+def resolution_note(cell_km: float) -> str:
+    """What the Eltonian-noise hypothesis implies at a grid's cell size, as one sentence.
+
+    The hypothesis (Soberón & Nakamura 2009, PNAS 106:19644; Soberón 2007, Ecol. Lett.
+    10:1115) holds that biotic interactions shape distributions mostly at fine grain and
+    fade in coarse-grained, broad-extent maps; it names no sharp cell size. The bands here
+    (below ~10 km, 10-50 km, above ~50 km) are our reading of it (common practice, from memory).
+    """
+    size = f"{cell_km:,.0f} km" if cell_km >= 10 else f"{cell_km:.1f} km"
+    if cell_km < 10:
+        implied = ("at this fine grain competitors, hosts and mutualists can still shape where "
+                   "the species occurs, so the climatic projection may over-predict the range "
+                   "more than at coarse grain")
+    elif cell_km <= 50:
+        implied = ("at this intermediate grain biotic interactions may still matter locally; "
+                   "read suitable cells as climatically possible, not occupied")
+    else:
+        implied = ("at this coarse grain biotic effects tend to fade into noise, so the "
+                   "climatic niche is the main control the map can show; interactions still "
+                   "matter within each cell")
+    return (f"Cells are about {size} across; by the Eltonian-noise hypothesis (Soberón & "
+            f"Nakamura 2009; Soberón 2007) {implied}.")
 
 
 def findings(results: pd.DataFrame) -> list[str]:

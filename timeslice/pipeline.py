@@ -569,6 +569,7 @@ def report_stage(
                 models=models, scenarios=[x for x in scenarios if x != "past"] or scenarios,
                 reference=ref_label, clamp=cfg.transfer.clamp, evaluation=fit.evaluation,
                 window=getattr(analysis, "window", None) if analysis is not None else None,
+                cell_km=_cell_km(series),
             ),
             run_info={"config": str(cfg.source), "seed": cfg.run.seed, "version": __version__,
                       "warnings": "; ".join(warnings_seen) or "none"},
@@ -735,6 +736,18 @@ def _require_complete(out: Path, what: str) -> None:
             f"its outputs may be of two runs; finish it with `timeslice run CONFIG --out {out}` "
             f"(finished stages are reused) before `{what}`"
         )
+
+
+def _cell_km(ds: xr.Dataset) -> float:
+    """Typical cell size, km: the square root of the mean land cell area (authalic sphere)."""
+    from timeslice.grid import cell_area
+
+    area = cell_area(ds)
+    if "land" in ds and "slice" in ds["land"].dims:
+        land = ds["land"].isel(slice=0).astype(bool)
+        if bool(land.any()):
+            area = area.where(land)
+    return float(np.sqrt(float(area.mean())))
 
 
 def _make_out(out: Path) -> None:

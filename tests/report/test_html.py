@@ -173,3 +173,13 @@ def test_methods_paragraph_states_what_was_done():
     assert "calibration mask given in the configuration" in text
     assert "4 slices besides the observed baseline, from 2 models" in text
     assert "suitable in every slice of the series" in text
+
+
+def test_resolution_note_follows_the_cell_size():
+    # a 0.1-degree cell is ~11 km at the equator, a 1-degree cell ~111 km (R = 6371 km)
+    from timeslice.narrative import resolution_note
+
+    assert "fine grain" in resolution_note(5.0)
+    assert "intermediate grain" in resolution_note(11.1)
+    assert "coarse grain" in resolution_note(111.0)
+    assert "Soberón & Nakamura 2009" in resolution_note(111.0)
