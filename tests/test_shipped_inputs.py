@@ -258,3 +258,16 @@ def test_kelvin_slice_labelled_celsius_stops(shipped, tmp_path):
     res = CliRunner().invoke(app, ["harmonise", str(p), "--out", str(tmp_path / "o")])
     assert res.exit_code == 2
     assert "6ka" in res.stderr and "look like Kelvin" in res.stderr, res.stderr
+
+
+def test_lists_of_files_and_globs(shipped, tmp_path):
+    # a list of globs, one per variable, is the same file set as the {variable} pattern
+    p = _cfg(shipped, tmp_path, replace=(
+        'alder = "../shipped/{model}/{variable}_Amon_{model}_historical_*.nc"',
+        'alder = ["../shipped/alder/tasmin_Amon_alder_historical_*.nc", '
+        '"../shipped/alder/tasmax_Amon_alder_historical_*.nc", '
+        '"../shipped/alder/pr_Amon_alder_historical_*.nc"]'))
+    listed = load_config(p).check_files()["climate.models.alder"]
+    patterned = load_config(shipped[2]).check_files()["climate.models.alder"]
+    assert [f.path for f in listed] == [f.path for f in patterned] and len(listed) == 9
+    assert {f.variable for f in listed} == {None}  # identified from the files themselves
