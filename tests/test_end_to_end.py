@@ -111,7 +111,7 @@ def test_rerun_uses_cache(demo_run):
     assert man["cache"]["computed"] == 0
     # a run from the cache writes the same layers, with the same types, as a fresh one
     with open_series(out / "series.nc") as ds:
-        assert ds["suitable"].dtype == np.int8 and ds["mod"].dtype == np.int16
+        assert ds["suitable"].dtype == np.int8 and ds["most_dissimilar"].dtype == np.int16
 
 
 def test_occurrences_without_coordinates(demo_run, tmp_path):
@@ -276,7 +276,7 @@ def test_local_cluster_matches_threads(demo_run, tmp_path):
                                       "--workers", "2"])
     assert result.exit_code == 0, result.output
     with open_series(out / "series.nc") as a, open_series(tmp_path / "w" / "series.nc") as b:
-        for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2",
+        for name in ("suitability", "suitable", "mess", "most_dissimilar", "nt1", "nt2",
                      "stability_all_slices"):
             assert a[name].values.tobytes() == b[name].values.tobytes(), name
 

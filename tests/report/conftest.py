@@ -66,7 +66,7 @@ def make_series(n_slices: int = 4, nlat: int = 12, nlon: int = 16, seed: int = 7
             "suitability": (dims3, suit, {"units": "1", "long_name": "climatic suitability"}),
             "suitable": (dims3, suitable),
             "mess": (dims3, mess, {"units": "1"}),
-            "mod": (dims3, mod, {
+            "most_dissimilar": (dims3, mod, {
                 "flag_values": np.array([0, 1, 2], dtype="int16"),
                 "flag_meanings": "bio1 bio12 bio6",
                 "long_name": "most dissimilar variable"}),

@@ -61,7 +61,7 @@ def test_default_exports_known_layers(series_ds, tmp_path):
     files = export(series_ds, tmp_path)
     stems = {p.stem for p in files}
     assert {"stability", "elevation", "refugium", "calibration_area"} <= stems
-    for layer in ("suitability", "mess", "nt1", "nt2", "mod", "change"):
+    for layer in ("suitability", "mess", "nt1", "nt2", "most_dissimilar", "change"):
         assert f"{layer}_baseline" in stems
     assert not list(tmp_path.glob("*.part"))
 

@@ -77,8 +77,8 @@ def test_cf_attributes_and_encoding(series_ds, tmp_path):
         assert nc.variables["crs"].inverse_flattening == 298.257223563
         assert nc.variables["lat"].bounds == "lat_bnds"
         assert nc.variables["lon"].bounds == "lon_bnds"
-        for name in ("suitability", "suitable", "mess", "mod", "nt1", "nt2", "change", "land",
-                     "elevation", "calibration_area", "stability", "refugium"):
+        for name in ("suitability", "suitable", "mess", "most_dissimilar", "nt1", "nt2", "change",
+                     "land", "elevation", "calibration_area", "stability", "refugium"):
             v = nc.variables[name]
             assert v.grid_mapping == "crs", name
             assert hasattr(v, "units") and hasattr(v, "long_name"), name
@@ -94,7 +94,7 @@ def test_cf_attributes_and_encoding(series_ds, tmp_path):
         chg = nc.variables["change"]
         assert chg.flag_meanings == "not_land absent gain loss stable"
         assert chg.flag_values.dtype == np.int8
-        mod = nc.variables["mod"]
+        mod = nc.variables["most_dissimilar"]
         assert mod.flag_values.dtype == np.int16
         # the fixture marks not-land with -1, which becomes a named flag
         assert mod.flag_meanings == "no_data bio1 bio12 bio6"

@@ -102,7 +102,7 @@ def test_stage_layers_write_cf_clean_netcdf(stage_series, tmp_path):
     for name in ("suitable", "change"):
         np.testing.assert_array_equal(back[name].values, series[name].values)
         assert back[name].dtype == series[name].dtype
-    np.testing.assert_array_equal(back["mod"].values, series["mod"].values)
+    np.testing.assert_array_equal(back["most_dissimilar"].values, series["most_dissimilar"].values)
     if "reachable" in series:
         np.testing.assert_array_equal(back["reachable"].values, series["reachable"].values)
 

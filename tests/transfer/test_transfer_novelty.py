@@ -51,7 +51,7 @@ def test_mess_univariate_worked_cases(ref, cases):
     expected = np.array([c[1] for c in cases])
     out = mess(pd.DataFrame({"x": ref}), _target(p[:, None], ["x"]))
     np.testing.assert_allclose(out["mess"].values, expected, rtol=1e-6, atol=1e-5)
-    assert (out["mod"].values == 0).all()
+    assert (out["most_dissimilar"].values == 0).all()
 
 
 def test_mess_multivariate_min_and_first_on_ties():
@@ -61,9 +61,9 @@ def test_mess_multivariate_min_and_first_on_ties():
     out = mess(ref, _target(p, ["a", "b"]))
     # S from the worked cases above: (40, 80), (60, 60), (20, -10), (-10, -50)
     np.testing.assert_allclose(out["mess"].values, [40, 60, -10, -50], atol=1e-5)
-    np.testing.assert_array_equal(out["mod"].values, [0, 0, 1, 1])
-    assert out["mod"].attrs["flag_meanings"] == "a b"
-    np.testing.assert_array_equal(out["mod"].attrs["flag_values"], [0, 1])
+    np.testing.assert_array_equal(out["most_dissimilar"].values, [0, 0, 1, 1])
+    assert out["most_dissimilar"].attrs["flag_meanings"] == "a b"
+    np.testing.assert_array_equal(out["most_dissimilar"].attrs["flag_values"], [0, 1])
 
 
 def _mess_direct(ref: np.ndarray, p: np.ndarray) -> tuple[float, int]:
@@ -132,11 +132,12 @@ def test_mess_grid_attrs_nan_and_dask(reference_df, slice_factory, no_compute):
     ds = slice_factory(shift=0.5, scale=1.5)
     eager = mess(reference_df, ds)
     assert eager["mess"].dims == ("lat", "lon") and eager["mess"].dtype == np.float32
-    assert eager["mod"].dtype == np.int16 and eager["mod"].encoding["_FillValue"] == -1
+    assert eager["most_dissimilar"].dtype == np.int16
+    assert eager["most_dissimilar"].encoding["_FillValue"] == -1
     sea = ~ds["land"].values
     assert np.isnan(eager["mess"].values[sea]).all()
-    assert (eager["mod"].values[sea] == -1).all()
-    for v in ("mess", "mod"):
+    assert (eager["most_dissimilar"].values[sea] == -1).all()
+    for v in ("mess", "most_dissimilar"):
         for key in ("units", "long_name", "description", "reference_set"):
             assert key in eager[v].attrs
     with no_compute():

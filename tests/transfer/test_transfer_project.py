@@ -72,14 +72,15 @@ def test_project_slice_layers(fitted_logistic, reference_df, slice_factory, no_c
             fitted_logistic, ds, variables=VARS, reference=reference_df, threshold=0.4,
             chunks={"lat": 5, "lon": 6},
         )
-    assert set(out.data_vars) == {"suitability", "suitable", "mess", "mod", "nt1", "nt2"}
+    assert set(out.data_vars) == {"suitability", "suitable", "mess", "most_dissimilar", "nt1",
+                                  "nt2"}
     out = out.compute()
     suit = out["suitability"].values
     land = ds["land"].values
     np.testing.assert_array_equal(out["suitable"].values[~land], -1)
     np.testing.assert_array_equal(out["suitable"].values[land], (suit[land] >= 0.4).astype(np.int8))
     assert out["suitable"].dtype == np.int8 and out["suitable"].encoding["_FillValue"] == -1
-    xr.testing.assert_allclose(out[["mess", "mod"]], mess(reference_df[VARS], ds))
+    xr.testing.assert_allclose(out[["mess", "most_dissimilar"]], mess(reference_df[VARS], ds))
     xr.testing.assert_allclose(out[["nt1", "nt2"]], exdet(reference_df[VARS], ds))
     assert out.attrs["reference_set"] == "background sample within the calibration area"
     assert out.attrs["slice_label"] == "test" and out.attrs["year"] == 1990.0
@@ -199,11 +200,11 @@ def test_netcdf_round_trip(fitted_logistic, reference_df, slice_factory, tmp_pat
     with atomic_path(path) as tmp:
         out.to_netcdf(tmp, engine="netcdf4")
     with xr.open_dataset(path, mask_and_scale=False) as back:
-        assert back["suitable"].dtype == np.int8 and back["mod"].dtype == np.int16
+        assert back["suitable"].dtype == np.int8 and back["most_dissimilar"].dtype == np.int16
         np.testing.assert_array_equal(back["suitable"].values, out["suitable"].values)
-        np.testing.assert_array_equal(back["mod"].values, out["mod"].values)
-        np.testing.assert_array_equal(back["mod"].attrs["flag_values"], [0, 1, 2])
-        assert back["mod"].attrs["flag_meanings"] == "bio1 bio5 bio12"
+        np.testing.assert_array_equal(back["most_dissimilar"].values, out["most_dissimilar"].values)
+        np.testing.assert_array_equal(back["most_dissimilar"].attrs["flag_values"], [0, 1, 2])
+        assert back["most_dissimilar"].attrs["flag_meanings"] == "bio1 bio5 bio12"
         assert back["suitable"].attrs["_FillValue"] == -1
         for v in ("suitability", "mess", "nt1", "nt2", "clamp_effect"):
             np.testing.assert_array_equal(back[v].values, out[v].values)
@@ -219,7 +220,8 @@ def test_all_sea_chunk(fitted_logistic, reference_df, slice_factory):
     out = project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
                         threshold=0.5, clamp=True, chunks={"lat": 5}).compute()
     assert np.isnan(out["suitability"].values[:5]).all()
-    assert (out["suitable"].values[:5] == -1).all() and (out["mod"].values[:5] == -1).all()
+    assert (out["suitable"].values[:5] == -1).all()
+    assert (out["most_dissimilar"].values[:5] == -1).all()
     for v in ("mess", "nt1", "nt2", "clamp_effect"):
         assert np.isnan(out[v].values[:5]).all()
     assert np.isfinite(out["suitability"].values[5:][ds["land"].values[5:]]).all()

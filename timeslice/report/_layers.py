@@ -33,7 +33,7 @@ LAYERS: dict[str, dict[str, Any]] = {
         "description": "MESS (Elith, Kearney & Phillips 2010): negative values mean at least "
         "one variable lies outside the reference range (novel climate)",
     },
-    "mod": {
+    "most_dissimilar": {
         "units": "1",
         "long_name": "most dissimilar variable",
         "description": "variable with the lowest univariate similarity in MESS",
@@ -165,7 +165,7 @@ SLICE_COORDS = ("year", "period", "model", "scenario")
 
 #: Layers whose -1 means "not land" (or "no prediction") by the stage contracts.
 NOT_LAND_FLAG = {"suitable": "not_land", "change": "not_land", "reachable": "not_land",
-                 "mod": "no_data"}
+                 "most_dissimilar": "no_data"}
 
 #: Attributes a mask may inherit from the field it was derived from that would mislabel it.
 INHERITED_NOISE = ("standard_name", "positive", "source_units", "source_variable",

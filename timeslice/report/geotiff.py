@@ -18,7 +18,7 @@ from timeslice.report._layers import LAYERS, flag_pairs, slice_labels
 __all__ = ["export", "export_file"]
 
 _DEFAULT_VARIABLES = (
-    "suitability", "suitable", "mess", "mod", "nt1", "nt2", "change",
+    "suitability", "suitable", "mess", "most_dissimilar", "nt1", "nt2", "change",
     "stability", "refugium", "calibration_area", "elevation",
 )
 _SAFE = re.compile(r"[^A-Za-z0-9._-]+")

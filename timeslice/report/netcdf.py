@@ -348,4 +348,7 @@ def open_series(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
             attrs = {k: v for k, v in ds[name].attrs.items()
                      if k not in ("flag_values", "flag_meanings")}
             ds[name] = (ds[name] == 1).assign_attrs(attrs)
+    if "mod" in ds.data_vars and "most_dissimilar" not in ds.data_vars:
+        # files written before the layer got its self-explaining name
+        ds = ds.rename({"mod": "most_dissimilar"})
     return ds

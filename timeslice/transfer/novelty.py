@@ -28,8 +28,8 @@ __all__ = ["ReferenceSet", "combined", "exdet", "mess", "reference_table"]
 #: Text written into output attributes to say what the reference set is.
 REFERENCE_DESCRIPTION = "background sample within the calibration area"
 
-#: Integer written into ``mod`` where a target cell has a missing predictor.
-MOD_FILL = np.int16(-1)
+#: Integer written into ``most_dissimilar`` where a target cell has a missing predictor.
+DISSIMILAR_FILL = np.int16(-1)
 
 
 class ReferenceSet:
@@ -314,7 +314,7 @@ def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray
     -------
     mess : numpy.ndarray, shape (...), float64
         NaN where any variable of the point is not finite.
-    mod : numpy.ndarray, shape (...), int16
+    most_dissimilar : numpy.ndarray, shape (...), int16
         Index of the variable with the smallest similarity (first on ties); -1 where ``mess``
         is NaN.
 
@@ -331,21 +331,21 @@ def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray
         raise ValueError(f"values have {values.shape[-1]} variables, reference has {k}")
     flat = values.reshape(-1, k)
     good, valid = _valid_columns([flat[:, i] for i in range(k)])
-    mess_v, mod_v = _mess_columns(_CountTable(ref_sorted), good)
+    mess_v, dissimilar_v = _mess_columns(_CountTable(ref_sorted), good)
     out_shape = values.shape[:-1]
     return (
         _scatter(mess_v, valid, np.nan).reshape(out_shape),
-        _scatter(mod_v, valid, MOD_FILL).reshape(out_shape),
+        _scatter(dissimilar_v, valid, DISSIMILAR_FILL).reshape(out_shape),
     )
 
 
 def _mess_block(*blocks: np.ndarray, table: _CountTable) -> tuple[np.ndarray, np.ndarray]:
     shape = np.shape(blocks[0])
     good, valid = _valid_columns(blocks)
-    mess_v, mod_v = _mess_columns(table, good)
+    mess_v, dissimilar_v = _mess_columns(table, good)
     return (
         _scatter(mess_v.astype(np.float32), valid, np.float32(np.nan)).reshape(shape),
-        _scatter(mod_v, valid, MOD_FILL).reshape(shape),
+        _scatter(dissimilar_v, valid, DISSIMILAR_FILL).reshape(shape),
     )
 
 
@@ -374,15 +374,15 @@ def mess(
     target : xarray.Dataset
         The same variables on any dims, typically ``(lat, lon)``; numpy or dask backed.
     variables : sequence of str, optional
-        Variables to compare, in this order (it fixes the codes of ``mod``). Default: every
-        variable of `reference`.
+        Variables to compare, in this order (it fixes the codes of ``most_dissimilar``).
+        Default: every variable of `reference`.
 
     Returns
     -------
     xarray.Dataset
         ``mess`` (float32, [1]): the smallest similarity over variables; negative where at least
-        one variable lies outside the reference range. ``mod`` (int16): index of the most
-        dissimilar variable, with CF ``flag_values``/``flag_meanings`` naming the variables and
+        one variable lies outside the reference range. ``most_dissimilar`` (int16): index of
+        the most dissimilar variable, with CF ``flag_values``/``flag_meanings`` naming the variables and
         -1 (``_FillValue``) where a predictor is missing. NaN in any predictor gives NaN.
 
     Notes
@@ -411,7 +411,7 @@ def mess(
     ref = reference_table(reference, variables=variables)
     arrays = _target_arrays(target, ref.variables, "target")
     table = _count_table_cached(np.sort(ref.values, axis=0))
-    mess_da, mod_da = xr.apply_ufunc(
+    mess_da, dissimilar_da = xr.apply_ufunc(
         _mess_block,
         *arrays,
         kwargs={"table": table},
@@ -420,8 +420,9 @@ def mess(
         output_dtypes=[np.float32, np.int16],
         keep_attrs=False,
     )
-    _set_mess_attrs(mess_da, mod_da, ref)
-    out = xr.Dataset({"mess": mess_da.rename("mess"), "mod": mod_da.rename("mod")})
+    _set_mess_attrs(mess_da, dissimilar_da, ref)
+    out = xr.Dataset({"mess": mess_da.rename("mess"),
+                      "most_dissimilar": dissimilar_da.rename("most_dissimilar")})
     out.attrs = {
         "reference_set": REFERENCE_DESCRIPTION,
         "variables": " ".join(ref.variables),
@@ -430,7 +431,7 @@ def mess(
     return out
 
 
-def _set_mess_attrs(mess_da: xr.DataArray, mod_da: xr.DataArray, ref: ReferenceSet) -> None:
+def _set_mess_attrs(mess_da: xr.DataArray, dissimilar_da: xr.DataArray, ref: ReferenceSet) -> None:
     """CF attributes of the MESS layers (in place)."""
     names = " ".join(_flag_name(v) for v in ref.variables)
     mess_da.attrs = {
@@ -444,7 +445,7 @@ def _set_mess_attrs(mess_da: xr.DataArray, mod_da: xr.DataArray, ref: ReferenceS
         "reference_set": REFERENCE_DESCRIPTION,
         "reference_points": ref.n_points,
     }
-    mod_da.attrs = {
+    dissimilar_da.attrs = {
         "units": "1",
         "long_name": "most dissimilar variable",
         "description": (
@@ -455,7 +456,7 @@ def _set_mess_attrs(mess_da: xr.DataArray, mod_da: xr.DataArray, ref: ReferenceS
         "flag_meanings": names,
         "reference_set": REFERENCE_DESCRIPTION,
     }
-    mod_da.encoding["_FillValue"] = MOD_FILL
+    dissimilar_da.encoding["_FillValue"] = DISSIMILAR_FILL
 
 
 def _flag_name(v: str) -> str:

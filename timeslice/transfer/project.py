@@ -22,7 +22,7 @@ import xarray as xr
 
 from timeslice.errors import ConfigError, DataError
 from timeslice.transfer.novelty import (
-    MOD_FILL,
+    DISSIMILAR_FILL,
     REFERENCE_DESCRIPTION,
     ReferenceSet,
     _CountTable,
@@ -169,8 +169,8 @@ def _slice_block(
     """Every per-slice layer of one chunk from one pass over its predictors.
 
     `blocks` are the predictors (reference order), then the land mask if `with_land`.
-    Returns suitability, suitable, MESS, mod, NT1, NT2 and, when `lo` is given, the clamping
-    effect. The predictors are stacked once; the estimator gets them in its fitted order.
+    Returns suitability, suitable, MESS, most_dissimilar, NT1, NT2 and, when `lo` is given, the
+    clamping effect. The predictors are stacked once; the estimator gets them in its fitted order.
     """
     land = None
     if with_land:
@@ -192,7 +192,7 @@ def _slice_block(
             # Only cells with a predictor outside the range can differ; predict those twice.
             delta[outside] = suit[outside] - _predict_rows(x[outside], **predict)
         extra = (_scatter(delta, valid, nan32).reshape(shape),)
-    mess_v, mod_v = _mess_columns(table, good)
+    mess_v, dissimilar_v = _mess_columns(table, good)
     nt1, nt2 = _exdet_columns(exdet_params, good)
     suitable = _scatter((suit >= threshold).astype(np.int8), valid, SUITABLE_FILL).reshape(shape)
     if land is not None:
@@ -201,7 +201,7 @@ def _slice_block(
         _scatter(suit, valid, nan32).reshape(shape),
         suitable,
         _scatter(mess_v.astype(np.float32), valid, nan32).reshape(shape),
-        _scatter(mod_v, valid, MOD_FILL).reshape(shape),
+        _scatter(dissimilar_v, valid, DISSIMILAR_FILL).reshape(shape),
         _scatter(nt1.astype(np.float32), valid, nan32).reshape(shape),
         _scatter(nt2.astype(np.float32), valid, nan32).reshape(shape),
         *extra,
@@ -437,9 +437,9 @@ def project_slice(
     -------
     xarray.Dataset
         ``suitability`` (float32), ``suitable`` (int8: 1 suitable, 0 not, -1 not land or no
-        prediction), ``mess`` (float32), ``mod`` (int16 flags), ``nt1``, ``nt2`` (float32) and,
-        with `clamp`, ``clamp_effect`` (float32, clamped − unclamped suitability). Lazy if the
-        input is dask backed or `chunks` is given.
+        prediction), ``mess`` (float32), ``most_dissimilar`` (int16 flags), ``nt1``, ``nt2``
+        (float32) and, with `clamp`, ``clamp_effect`` (float32, clamped − unclamped
+        suitability). Lazy if the input is dask backed or `chunks` is given.
     """
     if isinstance(threshold, bool) or not isinstance(threshold, (int, float, np.floating)):
         raise ConfigError(f"`threshold` must be a number in [0, 1], got {threshold!r}")
@@ -494,10 +494,10 @@ def project_slice(
         + ([np.float32] if clamp else []),
         keep_attrs=False,
     )
-    suit, suitable, mess_da, mod_da, nt1, nt2 = (r.rename(k) for r, k in zip(
-        results, ("suitability", "suitable", "mess", "mod", "nt1", "nt2")))
+    suit, suitable, mess_da, dissimilar_da, nt1, nt2 = (r.rename(k) for r, k in zip(
+        results, ("suitability", "suitable", "mess", "most_dissimilar", "nt1", "nt2")))
     suit.attrs = _suitability_attrs(model, columns, clamp)
-    _set_mess_attrs(mess_da, mod_da, ref)
+    _set_mess_attrs(mess_da, dissimilar_da, ref)
     _set_exdet_attrs(nt1, nt2, ref)
     delta = None
     if clamp:
@@ -524,7 +524,8 @@ def project_slice(
     suitable.encoding["_FillValue"] = SUITABLE_FILL
 
     layers = {
-        "suitability": suit, "suitable": suitable, "mess": mess_da, "mod": mod_da,
+        "suitability": suit, "suitable": suitable, "mess": mess_da,
+        "most_dissimilar": dissimilar_da,
         "nt1": nt1, "nt2": nt2,
     }
     if delta is not None:
