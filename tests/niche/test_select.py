@@ -60,11 +60,23 @@ def test_screen_errors(rng):
     X = _frame(rng)
     with pytest.raises(ConfigError, match="priority names 'bio99'"):
         screen(X, priority=["bio99"])
-    X2 = X.assign(flat=3.0)
-    with pytest.raises(DataError, match="predictor 'flat' is constant"):
-        screen(X2)
+    with pytest.raises(DataError, match="every candidate predictor is .near-.constant"):
+        screen(pd.DataFrame({"flat": np.full(50, 3.0), "flat2": 7.0 + 1e-7 * rng.random(50)}))
     X3 = X.assign(gone=np.nan)
     with pytest.raises(DataError, match="predictor 'gone' is missing everywhere"):
         screen(X3)
     with pytest.raises(ConfigError, match="screen_max_r"):
         screen(X, max_abs_r=1.5)
+
+
+def test_near_constant_predictor_is_dropped_with_its_reason(rng):
+    # a predictor constant to 1e-6 would put every future cell outside its calibration range;
+    # it is dropped, the others are screened as before (same result as without it)
+    X = _frame(rng)
+    kept0, _ = screen(X)
+    for extra in (np.full(len(X), 3.0), 5.0 + 1e-6 * rng.random(len(X))):
+        kept, table = screen(X.assign(flat=extra))
+        assert kept == kept0
+        row = table.set_index("variable").loc["flat"]
+        assert not row["kept"] and row["reason"].startswith("near-constant")
+        assert list(table["variable"]) == [*X.columns, "flat"]

@@ -68,8 +68,11 @@ def test_fit_niche_bad_names(world):
 def test_fit_niche_constant_predictor(world):
     ds, rec, _ = world
     ds2 = ds.assign(bio4=ds["bio4"].where(ds["bio4"].isnull(), 5.0))
-    with pytest.raises(DataError, match="predictor 'bio4' is constant"):
-        fit_niche(rec, ds2, n_background=300)
+    fit = fit_niche(rec, ds2, n_background=300)
+    # dropped by the screening, with its reason, instead of flagging every slice as novel
+    row = fit.screening.set_index("variable").loc["bio4"]
+    assert not row["kept"] and "near-constant" in row["reason"]
+    assert "bio4" not in fit.variables
 
 
 def test_save_load_roundtrip(fitted, tmp_path, world):

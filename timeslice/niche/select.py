@@ -38,6 +38,12 @@ def vif(X: pd.DataFrame | np.ndarray) -> np.ndarray:
     return out
 
 
+#: A predictor whose range over the calibration area is at most this fraction of its largest
+#: magnitude (or of 1, whichever is larger) is dropped as near-constant (our choice: far below
+#: any real bioclimatic gradient, far above float32 rounding of a constant).
+NEAR_CONSTANT_RELATIVE = 1e-5
+
+
 def screen(
     X: pd.DataFrame,
     *,
@@ -70,7 +76,9 @@ def screen(
     Raises
     ------
     DataError
-        A predictor is constant or entirely missing (the message names it).
+        A predictor is entirely missing, or every predictor is (near-)constant (the message
+        names them). A single (near-)constant predictor is dropped with its reason in the
+        table (:data:`NEAR_CONSTANT_RELATIVE`).
     ConfigError
         `priority` names a column that is not in `X`, or a limit is out of range.
 
@@ -98,15 +106,32 @@ def screen(
             f"predictors ({', '.join(names)})"
         )
     A = X.to_numpy(dtype=float)
+    flat: dict[str, str] = {}
     for j, name in enumerate(names):
         col = A[:, j]
         fin = col[np.isfinite(col)]
         if fin.size == 0:
             raise DataError(f"predictor {name!r} is missing everywhere in the calibration area; drop it from the variables")
-        if np.ptp(fin) == 0:
+        spread = float(np.ptp(fin))
+        if spread <= NEAR_CONSTANT_RELATIVE * max(1.0, float(np.max(np.abs(fin)))):
+            flat[name] = f"near-constant in the calibration area (range {spread:.3g})"
+    if flat:
+        # a predictor that hardly varies carries no information, and any tiny change in a
+        # slice puts it outside its calibration range: every cell would look novel
+        if len(flat) == len(names):
             raise DataError(
-                f"predictor {name!r} is constant ({fin[0]:g}) in the calibration area; drop it from the variables"
-            )
+                f"every candidate predictor is (near-)constant in the calibration area "
+                f"({', '.join(flat)}); widen the calibration area or choose other variables")
+        live = [n for n in names if n not in flat]
+        kept, table = screen(X[live], max_abs_r=max_abs_r, max_vif=max_vif,
+                             priority=[q for q in priority if q in live])
+        extra = pd.DataFrame({"variable": list(flat), "kept": False, "reason": list(flat.values()),
+                              "max_abs_r": np.nan, "vif": np.nan})
+        out = pd.concat([table, extra], ignore_index=True).set_index("variable").loc[names]
+        out = out.reset_index()
+        out.attrs.update(table.attrs)
+        out.attrs["priority"] = priority
+        return kept, out
     A = A[np.all(np.isfinite(A), axis=1)]
     if A.shape[0] < 3:
         raise DataError("screen: fewer than 3 background rows have every predictor; check the predictors")

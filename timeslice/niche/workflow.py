@@ -354,8 +354,7 @@ def fit_niche(
         fin = col[np.isfinite(col)]
         if fin.size == 0:
             raise DataError(f"predictor {v!r} is missing everywhere in the calibration area; drop it or fix the baseline")
-        if np.ptp(fin) == 0:
-            raise DataError(f"predictor {v!r} is constant ({fin[0]:g}) in the calibration area; drop it from the variables")
+        # a (near-)constant predictor is dropped by the screening, with its reason
     ok_p = np.all(np.isfinite(pres[variables].to_numpy(dtype=float)), axis=1)
     ok_b = np.all(np.isfinite(back[variables].to_numpy(dtype=float)), axis=1)
     pres, back = pres[ok_p].reset_index(drop=True), back[ok_b].reset_index(drop=True)
