@@ -128,7 +128,11 @@ def grid_problem(ds: xr.Dataset, *, source: str) -> str | None:
     from timeslice.grid import find_lonlat
 
     try:
-        find_lonlat(ds, source=source)
+        names = find_lonlat(ds, source=source)
+        # a dimension named x/lat without a coordinate variable has no positions: its
+        # indices 0, 1, 2 ... must not be taken for degrees
+        if any(n not in ds.variables for n in names):
+            raise DataError(source)
     except DataError:
         dims = ", ".join(f"{k}={v}" for k, v in ds.sizes.items()) or "none"
         return (f"{source}: no latitude/longitude coordinates found (dimensions {dims}); give "
@@ -593,8 +597,11 @@ def open_climate(
         if len(group) > 1:
             da, fsrc = _join_in_time(group)
         da.attrs["source_file"] = fsrc
-        conv = _convert(da, ds, canon, name, period=period, scale=scale, source=fsrc, log=log,
-                        declared_units=_units_for(units, canon))
+        try:
+            conv = _convert(da, ds, canon, name, period=period, scale=scale, source=fsrc,
+                            log=log, declared_units=_units_for(units, canon))
+        except (OSError, RuntimeError) as err:  # the data past a readable header
+            raise _damaged(fsrc, err) from err
         conv.attrs["source_file"] = fsrc
         items_all.append((canon, conv, fsrc))
     for canon, da, fsrc in items_all:
@@ -695,11 +702,21 @@ def open_climate(
     return out
 
 
+def _damaged(source: str, err: BaseException) -> InputFileError:
+    return InputFileError(
+        f"{source}: the header reads but the data cannot be read ({type(err).__name__}: "
+        f"{shorten(str(err).splitlines()[0] if str(err) else '', 80)}); the file is damaged or "
+        "incomplete: copy or download it again")
+
+
 def _check_filled(ds: xr.Dataset, source: str) -> None:
     """Refuse a field without one valid value, and an ice fraction outside 0..1 after its unit
     conversion, naming the file (checked where it is read, so no later stage misreads it)."""
     for canon, da in ds.data_vars.items():
-        values = np.asarray(da.values, dtype=float)
+        try:
+            values = np.asarray(da.values, dtype=float)
+        except (OSError, RuntimeError) as err:  # the data past a readable header
+            raise _damaged(da.attrs.get("source_file", source), err) from err
         shown = da.attrs.get("source_variable", canon)
         name = f"{canon!r}" if shown == canon else f"{canon!r} ({shown!r})"
         if not np.isfinite(values).any():
