@@ -66,20 +66,39 @@ ELEVATION_RANGE = (-11500.0, 9000.0)
 _TEMPERATURE = ("tasmin", "tasmax", "tas")
 
 
+def _parts(da: xr.DataArray):
+    """`da` one step of its leading dimension at a time (a month of a fine baseline, not the
+    whole 12-month stack), so the check holds one field in memory, whatever the grid size."""
+    if da.ndim < 3:
+        yield {}, da
+        return
+    dim = da.dims[0]
+    for i in range(da.sizes[dim]):
+        yield {dim: i}, da.isel({dim: i})
+
+
 def _extremes(da: xr.DataArray) -> tuple[float, float]:
-    values = np.asarray(da.values, dtype=float)
-    if not np.isfinite(values).any():
+    lo, hi = np.inf, -np.inf
+    for _, part in _parts(da):
+        values = np.asarray(part.values, dtype=float)
+        if np.isfinite(values).any():
+            lo, hi = min(lo, float(np.nanmin(values))), max(hi, float(np.nanmax(values)))
+    if not np.isfinite(lo):
         return float("nan"), float("nan")
-    return float(np.nanmin(values)), float(np.nanmax(values))
+    return lo, hi
 
 
 def _where(da: xr.DataArray, value: float) -> str:
     """' at lat .., lon .. (month m)' of the first cell holding `value`."""
-    arr = np.asarray(da.values, dtype=float)
-    idx = np.argwhere(arr == value)
-    if not idx.size:
+    idx = None
+    for sel, part in _parts(da):
+        hit = np.argwhere(np.asarray(part.values, dtype=float) == value)
+        if hit.size:
+            idx = [*sel.values(), *hit[0]]
+            break
+    if idx is None:
         return ""
-    pos = dict(zip(da.dims, idx[0]))
+    pos = dict(zip(da.dims, idx))
     parts = []
     if "lat" in pos:
         parts.append(f"lat {float(da['lat'][pos['lat']]):.2f}")
@@ -87,6 +106,8 @@ def _where(da: xr.DataArray, value: float) -> str:
         parts.append(f"lon {float(da['lon'][pos['lon']]):.2f}")
     if "month" in pos and "month" in da.coords:
         parts.append(f"month {int(da['month'][pos['month']])}")
+    elif "month" in da.coords and da["month"].ndim == 0:  # one month of a stack
+        parts.append(f"month {int(da['month'])}")
     return f" at {', '.join(parts)}" if parts else ""
 
 
@@ -195,10 +216,14 @@ def check_fields(ds: xr.Dataset, *, source: str) -> None:
                 "m-2 s-1) labelled as a total: set units = \"kg m-2 s-1\" for this input"
             )
     if "tasmin" in ds and "tasmax" in ds and ds["tasmin"].shape == ds["tasmax"].shape:
-        diff = ds["tasmin"] - ds["tasmax"]
-        lo, hi = _extremes(diff)
+        hi, n, diff = -np.inf, 0, None
+        for sel, tmin in _parts(ds["tasmin"]):  # one month of each at a time
+            d = tmin - ds["tasmax"].isel(sel)
+            dmax = float(d.max()) if bool(d.notnull().any()) else -np.inf
+            n += int((d > TASMIN_TASMAX_TOLERANCE).sum())
+            if dmax > hi:
+                hi, diff = dmax, d
         if np.isfinite(hi) and hi > TASMIN_TASMAX_TOLERANCE:
-            n = int((diff > TASMIN_TASMAX_TOLERANCE).sum())
             raise DataError(
                 f"{_label(ds['tasmin'], 'tasmin', source)}: tasmin exceeds tasmax by up to "
                 f"{hi:.3g} degC in {n} cell-months{_where(diff, hi)}; likely cause: the two "
