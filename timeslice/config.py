@@ -327,6 +327,11 @@ class SpeciesConfig(_Section):
     taxon: str | int | list[str | int] | None = None
     taxon_field: Literal["auto", "scientific_name", "accepted_name", "taxon_key"] = "auto"
     fold_subspecies: bool = False
+    #: CSV of sampled populations (lon, lat, a diversity measure) to test the refugium map
+    #: against: stability and distance to the nearest refugium vs diversity
+    diversity: Path | None = None
+    #: the diversity column of `diversity` (default: its only numeric column besides lon/lat)
+    diversity_column: str | None = None
 
 
 class NicheConfig(_Section):
@@ -426,6 +431,8 @@ class SeriesConfig(_Section):
 class OutputConfig(_Section):
     maps: bool = True
     geotiff: bool = False
+    #: GeoJSON outlines of the refugium patches and of the suitable area per slice in vector/
+    vector: bool = True
     report: bool = True
     #: map projection: "lonlat" (plain latitude-longitude), "equal_area" (Lambert azimuthal
     #: equal-area centred on the region) or "polar" (the same centred on the nearer pole)
@@ -483,6 +490,7 @@ class Config(_Section):
         for key, path in (
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
+            ("species.diversity", self.species.diversity),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
         ):
@@ -502,6 +510,7 @@ class Config(_Section):
         for key, path in (
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
+            ("species.diversity", self.species.diversity),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
         ):
@@ -680,7 +689,10 @@ class SliceSpec(BaseModel):
 
 
 def _resolve(base: Path | None, p: str | Path) -> Path:
-    p = Path(p).expanduser()
+    try:
+        p = Path(p).expanduser()
+    except RuntimeError:  # "~name" of no known user: kept as written, then "not found"
+        p = Path(p)
     if base is not None and not p.is_absolute():
         p = (base.parent / p).resolve()
     return p
@@ -853,6 +865,8 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
     cfg.species.occurrences = _resolve(base, cfg.species.occurrences)
     if cfg.species.dated_records is not None:
         cfg.species.dated_records = _resolve(base, cfg.species.dated_records)
+    if cfg.species.diversity is not None:
+        cfg.species.diversity = _resolve(base, cfg.species.diversity)
     for key in ("calibration_mask", "background_file"):
         value = getattr(cfg.niche, key)
         if value is not None:

@@ -410,12 +410,22 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
                 if str(sc) == "past"]
         window = list(dict.fromkeys(past)) + [_reference(cfg)] if past else None
     with _about(cfg.species.dated_records if records is not None else None):
-        return analyse_series(
+        result = analyse_series(
             stack, reference=_reference(cfg), window=window, rate=ser.dispersal_rate,
             rate_key="series.dispersal_rate", through=ser.movement_through,
             neighbours=ser.graph_neighbours, factors=ser.partition_factors, records=records,
             records_source=source, max_offset_years=ser.hindcast_max_offset_years,
         )
+    if cfg.species.diversity is not None:
+        from timeslice.series.genetics import read_diversity_table, stability_vs_diversity
+
+        with _about(cfg.species.diversity):
+            sites = read_diversity_table(cfg.species.diversity,
+                                         column=cfg.species.diversity_column)
+            table = stability_vs_diversity(result.series, sites)
+        result.tables["diversity"] = table
+        result.tables["diversity_sites"] = table.attrs["sites"]
+    return result
 
 
 def _dated_fossils(cfg: Config) -> pd.DataFrame:

@@ -227,6 +227,8 @@ TABLE_TITLES = {
     "series_agreement": "Agreement across climate models",
     "series_partition": "Sources of uncertainty (variance shares)",
     "series_hindcast": "Hindcast: dated records against past slices",
+    "series_diversity": "Refugium hypothesis against genetic diversity (Dutilleul's modified t-test)",
+    "series_diversity_sites": "Sampled populations: diversity, stability and distance to the nearest refugium",
     "response": "Response curves",
     "thresholds": "Thresholds",
     "hindcast": "Hindcast against dated records",
@@ -312,11 +314,33 @@ def _refugia_card(series, layer: str = "refugium", *,
     label = f"Refugia (suitable in all {n} slices)" if n else "Refugia"
     if not ref.any():
         return (label, "0 km²", "no cell is suitable in every slice")
-    lat = series["lat"].values[ref.any(axis=1)]
-    lon = series["lon"].values[ref.any(axis=0)]
-    return (label, f"{area:,.0f} km²",
-            f"within {_deg(lat.min(), 'N', 'S')} to {_deg(lat.max(), 'N', 'S')}, "
-            f"{_deg(lon.min(), 'E', 'W')} to {_deg(lon.max(), 'E', 'W')}")
+    return (label, f"{area:,.0f} km²", patch_summary(series, layer))
+
+
+def patch_summary(series, layer: str = "refugium", *, shown: int = 3) -> str:
+    """The refugium's patches named, largest first: "3 patches: R1 2,100 km² at 45.0° N
+    24.3° W, 420-709 m; ...", and how many chains outside the window keep each whole."""
+    from timeslice.series.patches import refugium_patches
+
+    _, table = refugium_patches(series, layer=layer)
+    if table.empty:
+        return "no cell is suitable in every slice"
+    parts = []
+    for r in table.head(shown).itertuples(index=False):
+        text = (f"{r.name} {r.area_km2:,.0f} km² at {_deg(r.centroid_lat, 'N', 'S')} "
+                f"{_deg(r.centroid_lon, 'E', 'W')}")
+        if np.isfinite(r.elevation_min_m):
+            text += f", {r.elevation_min_m:,.0f}-{r.elevation_max_m:,.0f} m"
+        if r.chains:
+            text += f", kept whole by {r.chains_keeping_whole}/{r.chains} chains"
+        parts.append(text)
+    rest = table.iloc[shown:]
+    more = (f"; {len(rest)} smaller ({rest['area_km2'].sum():,.0f} km² together)"
+            if len(rest) else "")
+    n = len(table)
+    chains = (" (a chain: one climate model under one scenario, beyond the refugium's slices)"
+              if int(table["chains"].iloc[0]) else "")
+    return f"{n} patch{'es' if n > 1 else ''}: " + "; ".join(parts) + more + chains
 
 
 def _deg(value: float, pos: str, neg: str) -> str:
