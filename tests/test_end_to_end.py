@@ -343,3 +343,33 @@ def test_incomplete_run_is_refused_by_commands_that_read_it(demo_run, tmp_path):
                  ["rerun", str(work / "manifest.json")]):
         res = CliRunner().invoke(app, args)
         assert res.exit_code == 2 and "did not finish" in res.stderr, (args, res.output)
+
+
+def test_refugium_hypothesis_against_invented_genetic_diversity(demo_run, tmp_path):
+    import shutil
+
+    out, data, _ = demo_run
+    rng = np.random.default_rng(7)
+    with open_series(out / "series.nc") as ds:
+        stab = ds["stability_window"].load()
+    la, lo = np.meshgrid(stab["lat"].values, stab["lon"].values, indexing="ij")
+    land = np.isfinite(stab.values) & (stab.values > 0)
+    pick = rng.choice(np.flatnonzero(land), 25, replace=False)
+    s = stab.values.ravel()[pick]
+    # invented populations whose diversity rises with stability
+    pd.DataFrame({"site": [f"pop{i}" for i in range(25)], "lon": lo.ravel()[pick],
+                  "lat": la.ravel()[pick], "hd": 0.1 + 0.6 * s + rng.normal(0, 0.03, 25)}
+                 ).to_csv(data / "populations.csv", index=False)
+    cfg = data / "genetics.toml"
+    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
+        "maps = true", "maps = false").replace(
+        'dated_records = "./dated_records.csv"',
+        'dated_records = "./dated_records.csv"\ndiversity = "./populations.csv"'))
+    fresh = tmp_path / "g"
+    shutil.copytree(out / ".cache", fresh / ".cache")
+    res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
+    assert res.exit_code == 0, res.output
+    t = pd.read_csv(fresh / "tables" / "series_diversity.csv").set_index("predictor")
+    assert t.loc["stability", "r"] > 0.8 and t.loc["stability", "n"] == 25
+    assert 2 < t.loc["stability", "n_effective"] <= 25
+    assert "genetic diversity" in (fresh / "report.html").read_text(encoding="utf-8")
