@@ -474,6 +474,7 @@ def report_stage(
     tables = {
         "inputs": inputs["inputs"],
         "slice_land": inputs["slice_land"],
+        "environment": inputs.get("environment"),
         "cleaning": fit.cleaning,
         "screening": fit.screening,
         "evaluation": fit.evaluation,
@@ -497,6 +498,19 @@ def report_stage(
     headline: list[tuple[str, Path]] = []
     series = series.load()  # every map reads every layer: compute once
     refuge = "refugium_window" if "refugium_window" in series else "refugium_all_slices"
+    from timeslice.report.derived import derived_tables
+
+    # refugium patches, threshold sensitivity and threshold-free change
+    extra, patches = derived_tables(series, fit=fit, reference=_reference(cfg),
+                                    threshold_value=cfg.niche.threshold_value, refugium=refuge)
+    for name, df in extra.items():
+        R.write_csv(df, out / "tables" / f"{name}.csv")
+    tables.update(extra)
+    if cfg.output.vector:
+        from timeslice.report.vector import write_vectors
+
+        write_vectors(series, out / "vector", patches=patches)
+        paths["vector"] = out / "vector"
     if cfg.output.maps:
         maps = out / "maps"
         proj = cfg.output.projection
@@ -571,7 +585,9 @@ def report_stage(
             species=cfg.species.name,
             summary=summary,
             tables={k: v for k, v in tables.items()
-                    if v is not None and k not in ("response", "series_summary")},
+                    if v is not None and k not in ("response", "series_summary",
+                                                   "threshold_sensitivity",
+                                                   "suitability_change")},
             figures=figures,
             methods=methods_paragraph(
                 species=cfg.species.name, fit_params=fit.params,
@@ -634,6 +650,10 @@ def run(
         with _timed(t, "transfer"):
             stack = transfer_stage(cfg, fit, [baseline, *slices], cache, fit_key=fit_key,
                                    progress=progress)
+            from timeslice.transfer.espace import environment_table
+
+            # each transfer seen in environmental space (availability, analog fraction)
+            inputs["environment"] = environment_table(fit, [baseline, *slices])
         with _timed(t, "summarise"):
             analysis = summarise_stage(cfg, stack)
         series, summary = analysis.series, analysis.tables["summary"].copy()
@@ -681,7 +701,7 @@ def run(
 #: there that the current run did not write is left over from an earlier run and is removed
 #: when the run completes, so the folder always holds one run.
 RUN_FILES = ("series.nc", "ensemble.nc", "summary.csv", "report.html")
-RUN_FOLDERS = ("maps", "plots", "tables", "geotiff")
+RUN_FOLDERS = ("maps", "plots", "tables", "geotiff", "vector")
 
 
 def _run_outputs(out: Path) -> list[Path]:

@@ -227,6 +227,11 @@ TABLE_TITLES = {
     "series_agreement": "Agreement across climate models",
     "series_partition": "Sources of uncertainty (variance shares)",
     "series_hindcast": "Hindcast: dated records against past slices",
+    "refugium_patches": "Refugium patches, largest first (area, centroid, elevation, analog "
+                        "climate, model-scenario chains keeping each)",
+    "threshold_summary": "Threshold sensitivity: change in suitable area (median over models) "
+                         "under each threshold rule, beside threshold-free changes",
+    "environment": "Each slice in environmental space: share of the niche's climates available (environmental availability) and share of land in the calibration climate (analog fraction)",
     "series_diversity": "Refugium hypothesis against genetic diversity (Dutilleul's modified t-test)",
     "series_diversity_sites": "Sampled populations: diversity, stability and distance to the nearest refugium",
     "response": "Response curves",
