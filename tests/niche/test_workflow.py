@@ -14,7 +14,22 @@ from timeslice.niche import persist
 @pytest.fixture(scope="module")
 def fitted(world):
     ds, rec, _ = world
-    return fit_niche(rec, ds, n_background=1500, buffer_km=150, cv_block_km=100, cv_folds=4, seed=1)
+    return fit_niche(rec, ds, n_background=1500, buffer_km=150, cv_block_km=100, cv_folds=4, seed=1,
+                     algorithm="ellipsoid", threshold_rule="p10")
+
+
+def test_fit_niche_defaults_are_the_config_defaults():
+    # one source of defaults: the Python API and a config-driven run fit the same model
+    import inspect
+
+    from timeslice.config import NicheConfig
+
+    sig = inspect.signature(fit_niche).parameters
+    cfg = NicheConfig()
+    for api, key in (("algorithm", "algorithm"), ("threshold_rule", "threshold"),
+                     ("buffer_km", "buffer_km"), ("n_background", "n_background"),
+                     ("cv_block_km", "cv_block_km"), ("cv_folds", "cv_folds")):
+        assert sig[api].default == getattr(cfg, key), api
 
 
 def test_fit_niche_outputs(fitted, world):
