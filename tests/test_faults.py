@@ -54,7 +54,7 @@ MAX_LINE = MAX_ERROR_LINE
 
 TALLY: Counter = Counter()
 
-FAST = settings(max_examples=25, deadline=None, derandomize=True,
+FAST = settings(max_examples=50, deadline=None, derandomize=True,
                 suppress_health_check=[HealthCheck.function_scoped_fixture,
                                        HealthCheck.too_slow])
 SLOW = settings(max_examples=300, deadline=None, derandomize=True,
@@ -184,7 +184,7 @@ _TYPO = st.tuples(st.sampled_from([p for p in _PATHS if isinstance(p[-1], str)])
 def _config_case(world: Path, mutations, typo, part: str) -> None:
     data = _BASE
     refuse = False
-    names = ["run.toml"]
+    names = ["run.toml", str(world)]  # the config, or an input file it names
     for path, value in mutations:
         if len(path) > 1 and not isinstance(_dig(data, path[:-1]), (dict, list)):
             continue
@@ -555,12 +555,14 @@ def test_ice_in_percent_beyond_100_names_the_ice_file(tmp_path):
         open_climate(tmp_path / "ice_500.nc")
     _clean_line(str(info.value), ["ice_500.nc"])
     assert "500" in str(info.value) and "0..100 %" in str(info.value)
+    _count("named", "clean error")
 
 
 def test_all_missing_elevation_is_refused_where_it_is_read(tmp_path):
     _field("elevation", np.nan, "m").to_netcdf(tmp_path / "dem.nc")
     with pytest.raises(TimesliceError, match=r"dem\.nc: 'elevation' has no valid value"):
         open_climate(tmp_path / "dem.nc")
+    _count("named", "clean error")
 
 
 def test_required_variable_present_but_unusable_says_why(tmp_path):
@@ -570,6 +572,7 @@ def test_required_variable_present_but_unusable_says_why(tmp_path):
                      aliases={"tasmin": ["tasmax"]})
     msg = str(info.value)
     assert "'tasmax' is read as 'tasmin'" in msg and "is missing (found" not in msg, msg
+    _count("named", "clean error")
 
 
 def test_eleven_months_is_an_incomplete_year_not_a_period_outside_the_file(tmp_path):
@@ -580,6 +583,7 @@ def test_eleven_months_is_an_incomplete_year_not_a_period_outside_the_file(tmp_p
         msg = str(info.value)
         assert "only 11 monthly steps" in msg and "missing months [12]" in msg, msg
         assert "outside the file's time range" not in msg
+        _count("named", "clean error")
 
 
 # --------------------------------------------------------------------------- writing faults
@@ -602,6 +606,7 @@ def test_full_disk_in_the_stage_cache_is_one_line_and_leaves_no_entry(tmp_path, 
     assert "stage cache" in msg and "free disk space" in msg, msg
     assert not list((tmp_path / ".cache").rglob("*.nc")) and not list(
         (tmp_path / ".cache").rglob("*.part"))
+    _count("writing", "clean error")
 
 
 def test_damaged_cache_entry_is_computed_again(tmp_path):
@@ -616,6 +621,7 @@ def test_damaged_cache_entry_is_computed_again(tmp_path):
         again = cache.dataset("transfer", "k", lambda: ds)
     np.testing.assert_array_equal(again["a"].values, [1.0, 2.0])
     assert xr.open_dataset(entry)["a"].values.tolist() == [1.0, 2.0]
+    _count("writing", "accepted")
 
 
 def test_out_that_cannot_be_created(world, tmp_path):
@@ -625,6 +631,7 @@ def test_out_that_cannot_be_created(world, tmp_path):
     result = CliRunner().invoke(app, ["run", str(cfg_path), "--out", str(blocker / "sub")])
     assert result.exit_code == 2
     _clean_line(result.output.strip(), ["--out"])
+    _count("writing", "clean error")
 
 
 def test_export_into_a_read_only_run_folder(tmp_path, monkeypatch):
@@ -636,6 +643,7 @@ def test_export_into_a_read_only_run_folder(tmp_path, monkeypatch):
     assert result.exit_code == 2, result.output
     _clean_line(result.output.strip(), [str(run)])
     assert "not writable" in result.output and not (run / "geotiff").exists()
+    _count("writing", "clean error")
 
 
 def test_an_os_error_on_a_named_file_is_one_line(tmp_path, monkeypatch):
@@ -650,6 +658,7 @@ def test_an_os_error_on_a_named_file_is_one_line(tmp_path, monkeypatch):
     assert result.exit_code == 2
     _clean_line(result.output.strip(), ["geotiff"])
     assert "Read-only file system" in result.output
+    _count("writing", "clean error")
 
 
 def test_labels_reach_figures_as_plain_text(tmp_path):
@@ -672,6 +681,7 @@ def test_labels_reach_figures_as_plain_text(tmp_path):
     assert (tmp_path / "plain.png").stat().st_size > 0
     assert ax.title.get_text() == label and not ax.title.get_parse_math()
     plt.close(fig)
+    _count("writing", "accepted")
 
 
 # ---------------------------------------------------------------------------------- one run

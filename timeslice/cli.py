@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import errno
 import functools
 import os
 import sys
@@ -65,7 +66,10 @@ def _os_failure(err: OSError) -> TimesliceError | None:
     where no stage expected it), or None for anything else."""
     if err.filename is None:
         return None
-    return write_failure(err.filename, err)
+    if err.errno in (errno.ENOSPC, errno.EDQUOT, errno.EROFS):  # only writes meet these
+        return write_failure(err.filename, err)
+    return InputFileError(f"{err.filename}: {err.strerror or err}; check that it exists and "
+                          "that you may read and write there, then run again")
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):

@@ -288,6 +288,13 @@ class SliceConfig(_Section):
     ice: ClimateInput | None = None
     models: list[str] | None = None
 
+    @field_validator("file")
+    @classmethod
+    def _files(cls, v):
+        if isinstance(v, list) and not v:
+            raise ValueError("the list of files is empty; give at least one path")
+        return v
+
     def options(self) -> ClimateInput | None:
         """This slice's own file options, or None."""
         if not (self.units or self.scale or self.aliases or self.variables):

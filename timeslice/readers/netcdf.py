@@ -644,7 +644,8 @@ def open_climate(
             )
     if not out_vars:
         raise DataError(
-            f"{src}: no climate variable recognised (found {sorted(set(found_names)) or 'none'}); "
+            f"{src}: no climate variable recognised (found "
+            f"{shorten(', '.join(sorted(set(found_names))), 120) or 'none'}); "
             "map them with `aliases`, e.g. tasmin = 'tn'"
         )
     for canon in require or ():

@@ -350,9 +350,10 @@ def read_dated_records(
         bad = np.flatnonzero(np.isnan(values))
         if bad.size:
             line = int(df["__line__"].iloc[bad[0]])
+            shown = _clip([repr(df[found[canon]].iloc[bad[0]])], 1)
             raise InputFileError(
                 f"{src}: line {line}: column {found[canon]!r} is not a number "
-                f"({df[found[canon]].iloc[bad[0]]!r}); {bad.size} such line(s); fix or remove them"
+                f"({shown}); {bad.size} such line(s); fix or remove them"
             )
         out[canon] = values
     bad_range = (out["lat"] < -90) | (out["lat"] > 90) | (out["lon"] < -180) | (out["lon"] > 360)
