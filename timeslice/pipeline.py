@@ -798,6 +798,7 @@ def _make_out(out: Path) -> None:
 def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
                   progress: Progress = _quiet) -> dict[str, Path]:
     """Harmonise every slice and write one CF NetCDF per slice plus the input table."""
+    from timeslice.io import file_stem
     from timeslice.report import write_csv, write_series
 
     out = Path(out)
@@ -808,7 +809,7 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
     for ds in [baseline, *slices]:
         label = str(ds.attrs["slice_label"])
         paths[label] = write_series(
-            ds, out / "harmonised" / f"{label}.nc",
+            ds, out / "harmonised" / f"{file_stem(label)}.nc",  # never a path of its own
             history=f"timeslice {__version__} harmonise", title=f"harmonised slice {label}",
         )
     paths["inputs"] = write_csv(tables["inputs"], out / "tables" / "inputs.csv")
