@@ -373,3 +373,40 @@ def test_refugium_hypothesis_against_invented_genetic_diversity(demo_run, tmp_pa
     assert t.loc["stability", "r"] > 0.8 and t.loc["stability", "n"] == 25
     assert 2 < t.loc["stability", "n_effective"] <= 25
     assert "genetic diversity" in (fresh / "report.html").read_text(encoding="utf-8")
+
+
+def test_zonal_summary_of_invented_protected_areas(demo_run, tmp_path):
+    import shutil
+
+    shapely = pytest.importorskip("shapely")
+    out, data, _ = demo_run
+    with open_series(out / "series.nc") as ds:
+        lat, lon = ds["lat"].values, ds["lon"].values
+        suitable = ds["suitable"].sel(slice="baseline").load()
+    # an invented reserve over the middle of the island and one at sea
+    mid = shapely.box(float(lon.mean()) - 2, float(lat.mean()) - 2,
+                      float(lon.mean()) + 2, float(lat.mean()) + 2)
+    sea = shapely.box(float(lon.min()), float(lat.min()), float(lon.min()) + 0.5,
+                      float(lat.min()) + 0.5)
+    feats = [{"type": "Feature", "properties": {"name": n},
+              "geometry": shapely.geometry.mapping(g)} for n, g in (("core", mid), ("bay", sea))]
+    (data / "reserves.geojson").write_text(json.dumps({"type": "FeatureCollection",
+                                                       "features": feats}))
+    cfg = data / "zones.toml"
+    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
+        "maps = true", "maps = false").replace(
+        'dispersal_rate = "500 km/kyr"',
+        'dispersal_rate = "500 km/kyr"\nzones = "./reserves.geojson"'))
+    fresh = tmp_path / "z"
+    shutil.copytree(out / ".cache", fresh / ".cache")
+    res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
+    assert res.exit_code == 0, res.output
+    t = pd.read_csv(fresh / "tables" / "series_zones.csv").set_index(["zone", "slice"])
+    # the reserve's cells lie wholly inside it (its edges fall on cell edges at 0.5 degree):
+    # the suitable area equals the sum of the suitable cells' areas inside the box
+    area = cell_area(suitable)
+    inside = ((suitable["lat"] > mid.bounds[1]) & (suitable["lat"] < mid.bounds[3])
+              & (suitable["lon"] > mid.bounds[0]) & (suitable["lon"] < mid.bounds[2]))
+    expected = float(area.where(inside & (suitable == 1)).sum())
+    assert t.loc[("core", "baseline"), "suitable_km2"] == pytest.approx(expected, rel=1e-9)
+    assert t.loc[("bay", "baseline"), "suitable_km2"] == 0

@@ -433,6 +433,11 @@ class SeriesConfig(_Section):
     graph_neighbours: Literal[8, 16] = 8
     partition_factors: list[str] | None = None
     hindcast_max_offset_years: float | None = Field(None, gt=0)
+    #: GeoJSON polygons (protected areas, regions) to summarise suitable area, change,
+    #: refugia and novelty in, per zone and slice
+    zones: Path | None = None
+    #: the feature property naming each zone (default `name`, else the feature number)
+    zones_name_field: str | None = None
 
 
 class OutputConfig(_Section):
@@ -498,6 +503,7 @@ class Config(_Section):
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
             ("species.diversity", self.species.diversity),
+            ("series.zones", self.series.zones),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
         ):
@@ -518,6 +524,7 @@ class Config(_Section):
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
             ("species.diversity", self.species.diversity),
+            ("series.zones", self.series.zones),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
         ):
@@ -874,6 +881,8 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
         cfg.species.dated_records = _resolve(base, cfg.species.dated_records)
     if cfg.species.diversity is not None:
         cfg.species.diversity = _resolve(base, cfg.species.diversity)
+    if cfg.series.zones is not None:
+        cfg.series.zones = _resolve(base, cfg.series.zones)
     for key in ("calibration_mask", "background_file"):
         value = getattr(cfg.niche, key)
         if value is not None:

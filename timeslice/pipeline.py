@@ -425,6 +425,12 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             table = stability_vs_diversity(result.series, sites)
         result.tables["diversity"] = table
         result.tables["diversity_sites"] = table.attrs["sites"]
+    if ser.zones is not None:
+        from timeslice.series.zonal import read_zones, zonal_table
+
+        with _about(ser.zones):
+            result.tables["zones"] = zonal_table(
+                result.series, read_zones(ser.zones, name_field=ser.zones_name_field))
     return result
 
 
@@ -517,7 +523,8 @@ def report_stage(
         R.slice_maps(series, maps, projection=proj)
         stab = R.stability_map(
             series, maps / "stability.png", refugium=refuge, projection=proj,
-            variable="stability_window" if "stability_window" in series else "stability_all_slices")
+            variable="stability_window" if "stability_window" in series else "stability_all_slices",
+            patches=patches[1] if patches is not None else None)
         change = R.change_map(series, maps / "panel_change.png", projection=proj)
         headline = [("Stability (fraction of slices suitable) with refugia outlined", stab),
                     ("Gain, loss and stable range against the reference slice", change)]
@@ -525,11 +532,30 @@ def report_stage(
                         "climate, MESS < 0)", R.series_panel(series, maps / "panel_suitability.png",
                                                              projection=proj)))
         figures.append(("Novel climate: MESS per slice (negative = outside the calibration "
-                        "range)", R.novelty_map(series, maps / "panel_mess.png", projection=proj)))
+                        "range)", R.novelty_map(series, maps / "panel_mess.png", projection=proj,
+                                                columns="model")))
         figures.append(("Novel climate by ExDet: outside the univariate range (NT1 < 0) or a "
                         "novel combination (NT2 > 1)",
                         R.novelty_map(series, maps / "panel_exdet.png", variable="exdet",
-                                      projection=proj)))
+                                      projection=proj, columns="model")))
+        if "most_dissimilar" in series:
+            figures.append(("Most dissimilar variable: the predictor that sets MESS; where it "
+                            "is hatched (novel climate) this predictor lies outside the "
+                            "calibration range",
+                            R.most_dissimilar_map(series, maps / "panel_most_dissimilar.png",
+                                                  projection=proj)))
+        ens = analysis.ensemble if analysis is not None else None
+        if ens is not None and "agreement" in ens:
+            figures.append(("Agreement of the climate models per scenario and period: the "
+                            "share of models in which the cell is suitable, majority "
+                            "consensus outlined, dotted where the models disagree",
+                            R.agreement_map(ens, maps / "panel_agreement.png",
+                                            projection=proj)))
+        if ens is not None and "dominant" in ens:
+            figures.append(("Dominant source of uncertainty per cell (largest share of the "
+                            "suitability variance, factorial ANOVA over the ensemble)",
+                            R.dominant_source_map(ens, maps / "panel_dominant_source.png",
+                                                  projection=proj)))
         if "reachable_limited" in series:
             future = [str(x) for x, sc in zip(series["slice"].values, series["scenario"].values)
                       if str(sc) not in ("past", "baseline")]
@@ -556,8 +582,20 @@ def report_stage(
     if fit.response is not None:
         figures.append(("Response curves (shaded: calibration range; outside it the model "
                         "extrapolates)", R.response_curves(fit.response, plots / "response.png")))
+    if fit.importance is not None and fit.importance["importance_mean"].notna().any():
+        figures.append(("Permutation importance of the predictors",
+                        R.importance_bars(fit.importance, plots / "importance.png")))
+    if "threshold_sensitivity" in extra:
+        figures.append(("Change in suitable area under each threshold rule (median and range "
+                        "over models): how much the headline hangs on the threshold",
+                        R.threshold_plot(extra["threshold_sensitivity"],
+                                         plots / "threshold_sensitivity.png",
+                                         reference=_reference(cfg))))
     if cfg.output.geotiff:
         R.export(series, out / "geotiff")
+        if analysis is not None and analysis.ensemble is not None:
+            # agreement, consensus, spread and variance shares per scenario x period
+            R.export(analysis.ensemble, out / "geotiff" / "ensemble")
         paths["geotiff"] = out / "geotiff"
     from timeslice.niche.evaluate import weak_model_message
 
