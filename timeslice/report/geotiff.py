@@ -118,7 +118,7 @@ def export(
         first = [v for v in _DEFAULT_VARIABLES if v in ds.data_vars]
         rest = sorted(str(v) for v in ds.data_vars
                       if str(v) not in first and {"lat", "lon"} <= set(ds[v].dims)
-                      and len(ds[v].dims) <= 3 and not str(v).endswith(("_bnds", "_bounds")))
+                      and len(ds[v].dims) <= 4 and not str(v).endswith(("_bnds", "_bounds")))
         names = first + rest
     else:
         names = list(variables)
@@ -144,10 +144,10 @@ def export(
     for name in names:
         da = ds[name]
         extra = [d for d in da.dims if d not in ("lat", "lon")]
-        if set(da.dims) - set(extra) != {"lat", "lon"} or len(extra) > 1:
+        if set(da.dims) - set(extra) != {"lat", "lon"} or len(extra) > 2:
             raise DataError(
                 f"geotiff.export: layer {name!r} has dims {da.dims}; expected (lat, lon) "
-                "with at most one more dimension such as slice"
+                "with at most two more dimensions such as slice (or period and source)"
             )
         da = da.transpose(*extra, "lat", "lon")
         kind = da.dtype
@@ -159,7 +159,10 @@ def export(
             out_dtype, nodata = "float32", float("nan")
         spec = LAYERS.get(str(name), {})
         desc = str(da.attrs.get("long_name", spec.get("long_name", name)))
-        tags = {"units": str(da.attrs.get("units", spec.get("units", "1")))}
+        tags = {"units": str(da.attrs.get("units", spec.get("units", "1"))),
+                "long_name": desc}
+        if da.attrs.get("description", spec.get("description")):
+            tags["description"] = str(da.attrs.get("description", spec.get("description")))
         for key in ("reference_slice", "slices"):  # what a change or window layer is against
             if da.attrs.get(key):
                 tags[key] = str(da.attrs[key])
@@ -168,17 +171,27 @@ def export(
             tags["flag_values"] = " ".join(str(v) for v, _ in pairs)
             tags["flag_meanings"] = " ".join(m for _, m in pairs)
         if extra:
-            dim = extra[0]
-            labels = (slice_labels(ds) if dim == "slice" else
-                      ds[dim].values if dim in ds.coords else np.arange(da.sizes[dim]))
-            for i, label in enumerate(labels):
-                path = out / f"{_safe(name)}_{_safe(label)}.tif"
-                t = dict(tags, slice=str(label))
-                for key in ("year", "period", "model", "scenario"):
-                    if key in ds.coords and ds[key].dims == (dim,):
-                        t[key] = str(ds[key].values[i])
+            import itertools
+
+            def labels_of(dim):
+                return [str(v) for v in (slice_labels(ds) if dim == "slice" else
+                        ds[dim].values if dim in ds.coords else np.arange(da.sizes[dim]))]
+
+            axes = [list(enumerate(labels_of(d))) for d in extra]
+            for combo in itertools.product(*axes):
+                label = " ".join(lab for _, lab in combo)
+                path = out / ("_".join([_safe(name), *(_safe(lab) for _, lab in combo)])
+                              + ".tif")
+                t = dict(tags, slice=label)
+                for dim, (i, lab) in zip(extra, combo):
+                    if dim != "slice":
+                        t[dim] = lab  # e.g. the group, or the variance share's source
+                    for key in ("year", "period", "model", "scenario"):
+                        if key in ds.coords and ds[key].dims == (dim,):
+                            t[key] = str(ds[key].values[i])
                 # one slice in memory at a time (lazy layers are computed slice by slice)
-                band = np.asarray(da.isel({dim: i}).values).astype(out_dtype)
+                band = np.asarray(da.isel({d: i for d, (i, _) in zip(extra, combo)})
+                                  .values).astype(out_dtype)
                 _write_one(band[::-1].copy(), path, transform=transform, nodata=nodata,
                            description=f"{desc} ({label})", tags=t, driver=driver)
                 written.append(path)

@@ -341,11 +341,11 @@ def patch_summary(series, layer: str = "refugium", *, shown: int = 3) -> str:
             text += f", kept whole by {r.chains_keeping_whole}/{r.chains} chains"
         parts.append(text)
     rest = table.iloc[shown:]
-    more = (f"; {len(rest)} smaller ({rest['area_km2'].sum():,.0f} km² together)"
+    more = (f"; {len(rest)} smaller, {rest['area_km2'].sum():,.0f} km² together"
             if len(rest) else "")
     n = len(table)
-    chains = (" (a chain: one climate model under one scenario, beyond the refugium's slices)"
-              if int(table["chains"].iloc[0]) else "")
+    chains = (". A chain is one climate model under one scenario, beyond the refugium's "
+              "slices" if int(table["chains"].iloc[0]) else "")
     return f"{n} patch{'es' if n > 1 else ''}: " + "; ".join(parts) + more + chains
 
 

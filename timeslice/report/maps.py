@@ -31,15 +31,19 @@ from matplotlib.patches import Patch
 from timeslice.errors import DataError
 from timeslice.grid import AUTHALIC_RADIUS_KM, grid_edges, haversine_km
 from timeslice.report._output import file_stem, output_path, save_figure
-from timeslice.report._layers import LAYERS, slice_labels, slice_title
+from timeslice.report._layers import LAYERS, flag_pairs, slice_labels, slice_title
 
 __all__ = [
     "CHANGE_COLOURS",
     "EXDET_COLOURS",
     "FIXED_RANGES",
+    "FLAG_COLOURS",
     "PROJECTIONS",
     "REACH_COLOURS",
+    "agreement_map",
     "change_map",
+    "dominant_source_map",
+    "most_dissimilar_map",
     "novelty_map",
     "reach_map",
     "series_panel",
@@ -71,6 +75,14 @@ REACH_COLOURS: dict[int, tuple[str, str]] = {
     2: ("suitable and reached", "#0072B2"),
 }
 _CATEGORICAL = {"change": CHANGE_COLOURS, "exdet": EXDET_COLOURS, "reach": REACH_COLOURS}
+#: Colours of categorical layers whose classes are named by their CF flags (the most
+#: dissimilar variable, the dominant source of uncertainty), in flag order: the Okabe & Ito
+#: (2008) set again (from memory), grey last; more classes than colours repeat them.
+FLAG_COLOURS = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00",
+                "#CC79A7", "#999999")
+#: Layers drawn as classes named by their own flag_values / flag_meanings.
+_FLAG_LAYERS = ("most_dissimilar", "dominant")
+_DISAGREE_HATCH = "...."
 
 _CONTINUOUS = {
     "suitability": ("viridis", "climatic suitability (0-1)"),
@@ -78,6 +90,7 @@ _CONTINUOUS = {
     "mess": ("PuOr", "MESS (< 0: novel climate)"),
     "nt1": ("cividis", "NT1 (< 0: outside the reference range)"),
     "nt2": ("cividis", "NT2 (> 1: novel combination)"),
+    "agreement": ("viridis", "share of climate models in which the cell is suitable"),
 }
 _NOVEL_HATCH = "////"
 _REACH_LAYER = "reachable"
@@ -414,7 +427,11 @@ FIXED_RANGES: dict[str, tuple[float, float]] = {
 }
 
 
-def _norm(name: str, values: np.ndarray):
+def _norm(name: str, values: np.ndarray, ds: xr.Dataset | None = None):
+    if name == "agreement" and ds is not None and "n_models" in ds.coords:
+        # k of n models: one colour per count, the colour bar in steps
+        n = max(1, int(np.max(ds["n_models"].values)))
+        return BoundaryNorm(np.linspace(-0.5 / n, 1 + 0.5 / n, n + 2), 256)
     if name in FIXED_RANGES:
         lo, hi = FIXED_RANGES[name]
         if name == "mess":
@@ -431,8 +448,20 @@ def _extend(name: str) -> str:
     return {"mess": "both", "nt1": "min", "nt2": "max"}.get(name, "neither")
 
 
-def _categorical_style(name: str = "change"):
-    colours = _CATEGORICAL[name]
+def _flag_colours(ds: xr.Dataset, name: str) -> dict[int, tuple[str, str]]:
+    """Classes of a flag layer (values >= 0; negative flags mean no data): code -> (label,
+    colour), labels from ``flag_meanings`` ("model_x_scenario" drawn as "model × scenario")."""
+    pairs = [(v, m) for v, m in flag_pairs(ds[name]) if v >= 0]
+    return {v: (m.replace("_x_", " × ").replace("_", " "), FLAG_COLOURS[k % len(FLAG_COLOURS)])
+            for k, (v, m) in enumerate(pairs)}
+
+
+def _is_categorical(name: str, ds: xr.Dataset | None = None) -> bool:
+    return name in _CATEGORICAL or (name in _FLAG_LAYERS and ds is not None and name in ds)
+
+
+def _categorical_style(name: str = "change", ds: xr.Dataset | None = None):
+    colours = _CATEGORICAL[name] if name in _CATEGORICAL else _flag_colours(ds, name)
     codes = sorted(colours)
     cmap = ListedColormap([colours[c][1] for c in codes])
     norm = BoundaryNorm([c - 0.5 for c in codes] + [codes[-1] + 0.5], cmap.N)
@@ -478,13 +507,13 @@ def _draw(ax, fr: MapFrame, ds, name: str, i: int | None, norm=None):
     """Draw layer `name` for slice `i`; return the mappable (None for none)."""
     values = _layer(ds, name, i)
     lon, lat = ds["lon"].values, ds["lat"].values
-    if name in _CATEGORICAL:
-        cmap, cnorm, _ = _categorical_style(name)
+    if _is_categorical(name, ds):
+        cmap, cnorm, _ = _categorical_style(name, ds)
         v = np.where(values >= 0, values, np.nan).astype(float)
         return _raster(ax, fr, lon, lat, v, cmap=cmap, norm=cnorm)
     cmap, _ = _CONTINUOUS.get(name, ("cividis", name))
     v = values.astype(float)
-    return _raster(ax, fr, lon, lat, v, cmap=cmap, norm=norm or _norm(name, v))
+    return _raster(ax, fr, lon, lat, v, cmap=cmap, norm=norm or _norm(name, v, ds))
 
 
 def _decorate(ax, fr: MapFrame, ds, i, name: str, *, scale_bar: bool = True) -> list:
@@ -498,7 +527,9 @@ def _decorate(ax, fr: MapFrame, ds, i, name: str, *, scale_bar: bool = True) -> 
     ice = _layer(ds, "ice", i)
     if ice is not None and np.any(ice.astype(bool)):
         handles.append(Patch(facecolor=_ICE_COLOUR, edgecolor="0.5", label="ice sheet"))
-    if name in ("suitability", "mess", "nt1", "nt2", "change", "reach"):
+    if name == "agreement":
+        handles += _agreement_overlays(ax, ds, i, fr)
+    if name in ("suitability", "mess", "nt1", "nt2", "change", "reach", "most_dissimilar"):
         if _hatch_novel(ax, ds, i, fr):
             handles.append(Patch(facecolor="none", edgecolor="0.2", hatch=_NOVEL_HATCH,
                                  label="novel climate (MESS < 0)"))
@@ -552,8 +583,8 @@ def _single(ds: xr.Dataset, name: str, i: int | None, path: Path, *, title: str,
     ax, fr = _axes(fig, 111, ds, i, projection=projection)
     mappable = _draw(ax, fr, ds, name, i)
     handles = _decorate(ax, fr, ds, i, name)
-    if name in _CATEGORICAL:
-        handles = _categorical_style(name)[2] + handles
+    if _is_categorical(name, ds):
+        handles = _categorical_style(name, ds)[2] + handles
     else:
         fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03, extend=_extend(name),
                      label=_CONTINUOUS.get(name, ("", LAYERS.get(name, {}).get("long_name",
@@ -623,41 +654,94 @@ def slice_maps(
     return paths
 
 
+def _grid_places(ds: xr.Dataset, idx: list[int], columns: str
+                 ) -> tuple[dict[int, tuple[int, int]], list[str], list[str]]:
+    """Panel (row, column) of every slice: columns are the values of slice coordinate
+    `columns` (e.g. the climate model), rows the other slice metadata (scenario, period), both
+    in order of first appearance; also the row and column labels."""
+    keys = [k for k in ("scenario", "period", "model") if k != columns and k in ds.coords
+            and ds[k].dims == ("slice",)]
+
+    def row_of(i: int) -> str:
+        return " ".join(str(ds[k].values[i]) for k in keys) if keys else slice_labels(ds)[i]
+
+    rows = list(dict.fromkeys(row_of(i) for i in idx))
+    cols = list(dict.fromkeys(str(ds[columns].values[i]) for i in idx))
+    places: dict[int, tuple[int, int]] = {}
+    taken: set[tuple[int, int]] = set()
+    for i in idx:
+        r = rows.index(row_of(i))
+        c = cols.index(str(ds[columns].values[i]))
+        if (r, c) in taken:  # two slices share row and column: the grid cannot hold them
+            return {}, rows, cols
+        taken.add((r, c))
+        places[i] = (r, c)
+    # every row starts at the left (the baseline's one panel, the past's periods): full rows
+    # keep their columns aligned, shorter rows leave no gap at the left
+    for r in range(len(rows)):
+        mine = sorted((c, i) for i, (rr, c) in places.items() if rr == r)
+        for k, (_, i) in enumerate(mine):
+            places[i] = (r, k)
+    return places, rows, cols
+
+
 def _panel(ds: xr.Dataset, name: str, idx: list[int], path: str | os.PathLike, *,
            ncols: int | None, dpi: int, suptitle: str,
-           projection: Projection = "lonlat") -> Path:
+           projection: Projection = "lonlat", columns: str | None = None) -> Path:
     if not idx:
         raise DataError(f"maps: no slices to draw for {name!r}")
+    places: dict[int, tuple[int, int]] = {}
+    if columns is not None and columns in ds.coords and ds[columns].dims == ("slice",):
+        places, _, cols = _grid_places(ds, idx, columns)
     n = len(idx)
-    ncols = ncols or min(n, 3)
-    nrows = math.ceil(n / ncols)
+    if places:
+        ncols = max(c for _, c in places.values()) + 1
+        nrows = max(r for r, _ in places.values()) + 1
+    else:
+        ncols = ncols or min(n, 3)
+        nrows = math.ceil(n / ncols)
+        places = {i: (k // ncols, k % ncols) for k, i in enumerate(idx)}
     w, h = _map_size(ds, width=3.4, projection=projection)
     fig = Figure(figsize=(w * ncols + 0.8, (h - 0.6) * nrows + 0.8), layout="constrained")
     gs = fig.add_gridspec(nrows, ncols)
-    if name in _CATEGORICAL:
+    if _is_categorical(name, ds):
         norm = None
     else:
         # One colour scale for all panels, from the values of every panel drawn.
         allv = np.concatenate([_layer(ds, name, i).astype(float).ravel() for i in idx])
-        norm = _norm(name, allv)
+        norm = _norm(name, allv, ds)
     handles: list = []
     mappable = None
     for k, i in enumerate(idx):
-        ax, fr = _axes(fig, gs[k // ncols, k % ncols], ds, i, labels=True,
-                       projection=projection)
+        r, c = places[i]
+        ax, fr = _axes(fig, gs[r, c], ds, i, labels=True, projection=projection)
         mappable = _draw(ax, fr, ds, name, i, norm=norm)
         h_ = _decorate(ax, fr, ds, i, name, scale_bar=(k == 0))
         if len(h_) > len(handles):
             handles = h_
-        ax.set_title(slice_title(ds, i), fontsize=8)
-    if name in _CATEGORICAL:
-        handles = _categorical_style(name)[2] + handles
+        ax.set_title(_short_title(ds, i, columns) if columns else slice_title(ds, i),
+                     fontsize=8)
+    if _is_categorical(name, ds):
+        handles = _categorical_style(name, ds)[2] + handles
     else:
-        fig.colorbar(mappable, ax=fig.axes, shrink=0.6, extend=_extend(name),
-                     label=_CONTINUOUS.get(name, ("", name))[1])
+        bar = fig.colorbar(mappable, ax=fig.axes, shrink=0.6, extend=_extend(name),
+                           label=_CONTINUOUS.get(name, ("", name))[1])
+        if name == "agreement" and "n_models" in ds.coords:
+            m = max(1, int(np.max(ds["n_models"].values)))
+            bar.set_ticks(np.arange(m + 1) / m, labels=[f"{k} of {m}" for k in range(m + 1)])
     _legend(fig, handles, loc="outside lower center", ncols=min(4, len(handles)))
     fig.suptitle(suptitle, fontsize=10)
     return _save(fig, Path(path), dpi=dpi)
+
+
+def _short_title(ds: xr.Dataset, i: int, columns: str | None) -> str:
+    """Panel title in a grid: scenario and period, then the column's value (the model)."""
+    parts = [str(ds[k].values[i]) for k in ("scenario", "period")
+             if k in ds.coords and ds[k].dims == ("slice",) and k != columns]
+    head = " ".join(parts) or slice_labels(ds)[i]
+    if columns and columns in ds.coords and ds[columns].dims == ("slice",):
+        return f"{head} · {ds[columns].values[i]}"
+    return head
 
 
 def series_panel(
@@ -714,12 +798,14 @@ def novelty_map(
     ncols: int | None = None,
     dpi: int = 110,
     projection: Projection = "lonlat",
+    columns: str | None = None,
 ) -> Path:
     """Novel climate across the slices, one panel per slice.
 
     `variable` is "mess" (default; MESS < 0 hatched), "nt1", "nt2", or "exdet": the ExDet
     classes analog / novel combination (NT2 > 1) / outside a univariate range (NT1 < 0), in
-    the colours of :data:`EXDET_COLOURS`.
+    the colours of :data:`EXDET_COLOURS`. With ``columns="model"`` the panels form a grid:
+    one column per climate model, one row per scenario and period, short titles.
     """
     if variable not in ("mess", "nt1", "nt2", "exdet"):
         raise DataError("novelty_map: `variable` must be 'mess', 'nt1', 'nt2' or 'exdet', got "
@@ -728,7 +814,7 @@ def novelty_map(
     title = ("ExDet classes (Mesgaran et al. 2014)" if variable == "exdet"
              else _CONTINUOUS[variable][1])
     return _panel(ds, variable, _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
-                  suptitle=f"Climate novelty: {title}", projection=projection)
+                  suptitle=f"Climate novelty: {title}", projection=projection, columns=columns)
 
 
 def stability_map(
@@ -739,6 +825,7 @@ def stability_map(
     refugium: str | None = "refugium",
     dpi: int = 110,
     projection: Projection = "lonlat",
+    patches=None,
 ) -> Path:
     """Stability (fraction of slices suitable) with refugia (suitable in every slice) outlined.
 
@@ -751,6 +838,9 @@ def stability_map(
     variable, refugium : str
         Layer names, e.g. ``"stability_past"`` / ``"refugium_past"`` for a named window;
         `refugium` None draws no outline.
+    patches : pandas.DataFrame, optional
+        The refugium's patch table (:func:`timeslice.series.patches.patch_table`): the five
+        largest patches are named on the map beside their centroids (R1 the largest).
     """
     from matplotlib.lines import Line2D
 
@@ -772,6 +862,18 @@ def stability_map(
         handles.append(Line2D([], [], color="#D55E00", linewidth=1.6,
                               label=f"refugium (suitable in all {nref} slices)" if nref
                               else "refugium (suitable in every slice)"))
+    if patches is not None and len(patches):
+        from timeslice.grid import wrap_lon
+
+        from matplotlib import patheffects
+
+        step = float(np.median(np.diff(ds["lon"].values))) if ds.sizes["lon"] > 1 else 0.0
+        halo = [patheffects.withStroke(linewidth=2, foreground="white")]
+        for r in patches.head(5).itertuples(index=False):
+            # beside the patch, not on it, so the outline stays visible
+            ax.text(fr.x(wrap_lon(r.centroid_lon, west=fr.west)) + 1.5 * step, r.centroid_lat,
+                    r.name, transform=fr.data, fontsize=7, fontweight="bold",
+                    color="#D55E00", ha="left", va="center", zorder=8, path_effects=halo)
     fig.colorbar(mappable, ax=ax, shrink=0.8, pad=0.03, label=_CONTINUOUS["stability"][1])
     _legend(ax, handles, loc="upper right")
     window = str(ds[variable].attrs.get("slices", "")).split()
@@ -802,3 +904,124 @@ def reach_map(
     what = f" ({movement} movement)" if movement else ""
     return _panel(ds, "reach", _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
                   suptitle=f"Suitable and reachable{what}", projection=projection)
+
+
+def most_dissimilar_map(
+    ds: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    slices: Sequence[str] | None = None,
+    dpi: int = 110,
+    projection: Projection = "lonlat",
+    columns: str | None = "model",
+) -> Path:
+    """The most dissimilar variable per slice (the predictor that sets MESS), novel climate
+    hatched.
+
+    Where MESS < 0 this is the predictor that lies outside the reference range: the variable
+    to look at when deciding how far to trust the projection there. Classes are named by the
+    layer's ``flag_meanings``; colours :data:`FLAG_COLOURS`. The panels form a grid with one
+    column per value of `columns` (default the climate model).
+    """
+    _check(ds, "most_dissimilar")
+    return _panel(ds, "most_dissimilar", _slice_indices(ds, slices), path, ncols=None,
+                  dpi=dpi, suptitle="Most dissimilar variable (the predictor that sets MESS; "
+                  "hatched: novel climate, MESS < 0)", projection=projection, columns=columns)
+
+
+def _as_panels(ens: xr.Dataset, dim: str, names: Sequence[str],
+               land: xr.DataArray | None) -> xr.Dataset:
+    """Ensemble layers on `dim` as a pseudo-series on ``slice`` (the panels), with a land
+    mask for the coastline: `land` when given, else where the first layer has a value."""
+    out = ens[list(names)].rename({dim: "slice"})
+    labels = [str(v) for v in ens[dim].values]
+    out = out.assign_coords(slice=("slice", labels))
+    if land is not None:
+        out["land"] = land.astype(bool).reset_coords(drop=True)
+    else:
+        out["land"] = np.isfinite(out[names[0]].astype(float))
+    return out
+
+
+def _agreement_overlays(ax, ds: xr.Dataset, i, fr: MapFrame) -> list:
+    """Majority outline and hatching where the models disagree (some, not all, suitable)."""
+    from matplotlib.lines import Line2D
+
+    handles: list = []
+    a = _layer(ds, "agreement", i)
+    split = np.where(np.isfinite(a), (a > 0) & (a < 1), False).astype(float)
+    if np.any(split):
+        ax.contourf(fr.x(ds["lon"].values), ds["lat"].values, split, levels=[0.5, 1.5],
+                    colors="none", hatches=[_DISAGREE_HATCH], transform=fr.data, zorder=4)
+        handles.append(Patch(facecolor="none", edgecolor="0.2", hatch=_DISAGREE_HATCH,
+                             label="models disagree (some, not all, suitable)"))
+    cons = _layer(ds, "consensus", i)
+    if cons is not None and np.any(cons == 1):
+        _outline(ax, ds, cons == 1, fr, colors="#D55E00", linewidths=1.2)
+        handles.append(Line2D([], [], color="#D55E00", linewidth=1.2,
+                              label="majority consensus: suitable in more than half"))
+    return handles
+
+
+def agreement_map(
+    ensemble: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    land: xr.DataArray | None = None,
+    dpi: int = 110,
+    projection: Projection = "lonlat",
+) -> Path:
+    """Model agreement per scenario and period: the share of climate models in which the cell
+    is suitable (one colour per count of models), the majority consensus outlined, and
+    hatching where the models disagree.
+
+    Parameters
+    ----------
+    ensemble : xarray.Dataset
+        From :func:`timeslice.series.ensemble.agreement` (``agreement``, ``consensus`` on
+        ``group``, with ``scenario``, ``period`` and ``n_models``).
+    path : path-like
+        PNG file.
+    land : xarray.DataArray, optional
+        Land mask (lat, lon) for the coastline; default: where any model has land.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    if not isinstance(ensemble, xr.Dataset) or "agreement" not in ensemble:
+        raise DataError("agreement_map: `ensemble` must be the Dataset of "
+                        "timeslice.series.ensemble.agreement (with `agreement`)")
+    names = [v for v in ("agreement", "consensus") if v in ensemble]
+    ds = _as_panels(ensemble, "group", names, land)
+    idx = list(range(ds.sizes["slice"]))
+    n = int(np.max(ensemble["n_models"].values)) if "n_models" in ensemble.coords else 0
+    return _panel(ds, "agreement", idx, path, ncols=None, dpi=dpi, projection=projection,
+                  columns="scenario" if "scenario" in ds.coords else None,
+                  suptitle=f"Agreement of {n} climate models on suitable climate" if n
+                  else "Agreement of climate models on suitable climate")
+
+
+def dominant_source_map(
+    ensemble: xr.Dataset,
+    path: str | os.PathLike,
+    *,
+    land: xr.DataArray | None = None,
+    dpi: int = 110,
+    projection: Projection = "lonlat",
+) -> Path:
+    """The dominant source of uncertainty per cell and period: the factor (or interaction)
+    with the largest share of the suitability variance (``dominant`` of
+    :func:`timeslice.series.ensemble.partition`), one panel per future period."""
+    if not isinstance(ensemble, xr.Dataset) or "dominant" not in ensemble:
+        raise DataError("dominant_source_map: `ensemble` has no `dominant` layer; it needs "
+                        "the variance partitioning (two factors with two or more levels)")
+    dim = [d for d in ensemble["dominant"].dims if d not in ("lat", "lon")]
+    da = ensemble["dominant"] if dim else ensemble["dominant"].expand_dims(partition_period=1)
+    dim = dim[0] if dim else "partition_period"
+    ds = _as_panels(da.to_dataset(name="dominant"), dim, ["dominant"], land)
+    ds["dominant"].attrs = dict(ensemble["dominant"].attrs)
+    idx = list(range(ds.sizes["slice"]))
+    return _panel(ds, "dominant", idx, path, ncols=None, dpi=dpi, projection=projection,
+                  suptitle="Dominant source of uncertainty in suitability (largest variance "
+                  "share)")

@@ -18,8 +18,10 @@ __all__ = [
     "area_through_time",
     "centroid_track",
     "gain_loss_bars",
+    "importance_bars",
     "response_curves",
     "shift_plot",
+    "threshold_plot",
 ]
 
 #: Colour per scenario label, taken in order from the Okabe & Ito (2008) colour-blind-safe
@@ -399,4 +401,88 @@ def response_curves(df: pd.DataFrame, path: str | os.PathLike, *, ncols: int = 3
         if k == 0:
             ax.legend(fontsize=6)
     fig.suptitle(title, fontsize=9)
+    return _save(fig, path, dpi)
+
+
+def importance_bars(importance: pd.DataFrame, path: str | os.PathLike, *,
+                    dpi: int = 110) -> Path:
+    """Permutation importance of each predictor as horizontal bars, largest on top, with
+    ±1 SD over the repeats as error bars.
+
+    Parameters
+    ----------
+    importance : pandas.DataFrame
+        ``variable, importance_mean, importance_sd`` (the fit's ``importance`` table: the drop
+        in training AUC when the predictor is shuffled).
+    path : path-like
+        PNG file.
+    """
+    _need(importance, ("variable", "importance_mean"), "importance_bars")
+    df = importance.dropna(subset=["importance_mean"])
+    if df.empty:
+        raise DataError("importance_bars: no importance values (importance_repeats = 0?)")
+    df = df.sort_values("importance_mean", ascending=False).reset_index(drop=True)
+    y = np.arange(len(df))
+    sd = df["importance_sd"].to_numpy(float) if "importance_sd" in df else None
+    fig = Figure(figsize=(6.0, 1.1 + 0.35 * len(df)), layout="constrained")
+    ax = fig.add_subplot(111)
+    ax.barh(y, df["importance_mean"].to_numpy(float), xerr=sd, color="#0072B2",
+            error_kw={"ecolor": "0.3", "capsize": 3, "linewidth": 0.8})
+    ax.set_yticks(y, [str(v) for v in df["variable"]], fontsize=8)
+    ax.invert_yaxis()
+    ax.axvline(0, color="black", linewidth=0.8)
+    ax.set_xlabel("drop in training AUC when the predictor is shuffled (±1 SD over repeats)")
+    ax.set_title("Permutation importance of the predictors", fontsize=10)
+    ax.grid(axis="x", alpha=0.3)
+    return _save(fig, path, dpi)
+
+
+def threshold_plot(thresholds: pd.DataFrame, path: str | os.PathLike, *,
+                   reference: str, dpi: int = 110) -> Path:
+    """Change in suitable area (%) per scenario and period under every threshold rule, median
+    over models as a marker and the model range as a line, rules side by side.
+
+    Parameters
+    ----------
+    thresholds : pandas.DataFrame
+        :func:`timeslice.series.thresholds.threshold_table`.
+    path : path-like
+        PNG file.
+    reference : str
+        Label of the reference slice (left out).
+    """
+    _need(thresholds, ("rule", "threshold", "slice", "scenario", "period", "change_pct"),
+          "threshold_plot")
+    df = thresholds[thresholds["slice"].astype(str) != str(reference)]
+    if df.empty:
+        raise DataError("threshold_plot: no slice besides the reference")
+    groups = list(dict.fromkeys(zip(df["scenario"].astype(str), df["period"].astype(str))))
+    rules = list(dict.fromkeys(df["rule"]))
+    fig = Figure(figsize=(7.5, 1.2 + 0.45 * len(groups)), layout="constrained")
+    ax = fig.add_subplot(111)
+    step = 0.8 / max(1, len(rules))
+    colours = ("#000000", "#0072B2", "#D55E00", "#009E73", "#CC79A7")
+    for k, rule in enumerate(rules):
+        sub = df[df["rule"] == rule]
+        t = float(sub["threshold"].iloc[0])
+        run = " (run)" if "rule_of_run" in sub and bool(sub["rule_of_run"].iloc[0]) else ""
+        for j, (scen, per) in enumerate(groups):
+            g = sub[(sub["scenario"].astype(str) == scen) & (sub["period"].astype(str) == per)]
+            v = g["change_pct"].to_numpy(float)
+            v = v[np.isfinite(v)]
+            if not v.size:
+                continue
+            yy = j - 0.4 + step * (k + 0.5)
+            ax.plot([v.min(), v.max()], [yy, yy], color=colours[k % len(colours)],
+                    linewidth=1.2)
+            ax.plot([np.median(v)], [yy], marker="o", color=colours[k % len(colours)],
+                    markersize=4, label=f"{rule}{run}, t = {t:.3g}" if j == 0 else None)
+    ax.set_yticks(np.arange(len(groups)), [f"{s}, {p}" for s, p in groups], fontsize=8)
+    ax.invert_yaxis()
+    ax.axvline(0, color="black", linewidth=0.8)
+    ax.set_xlabel("change in suitable area against the reference (%): median (dot) and range "
+                  "over models")
+    ax.set_title("How much the change depends on the threshold rule", fontsize=10)
+    ax.grid(axis="x", alpha=0.3)
+    ax.legend(fontsize=7, loc="best")
     return _save(fig, path, dpi)
