@@ -618,6 +618,16 @@ def report_stage(
                 "one row per slice": "summary.csv",
                 **({"model agreement and variance shares": "ensemble.nc"}
                    if "ensemble" in paths else {}),
+                **({"refugium patches (GeoJSON, one feature per patch)":
+                    "vector/refugium_patches.geojson",
+                    "suitable area per slice (GeoJSON)": "vector/suitable.geojson"}
+                   if "vector" in paths else {}),
+                **({"refugium patches, one row each": "tables/refugium_patches.csv"}
+                   if "refugium_patches" in extra else {}),
+                **({"suitable area under every threshold rule":
+                    "tables/threshold_sensitivity.csv",
+                    "threshold-free change of suitability": "tables/suitability_change.csv"}
+                   if "threshold_sensitivity" in extra else {}),
                 "run manifest": "manifest.json",
             },
             species=cfg.species.name,
