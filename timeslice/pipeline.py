@@ -50,6 +50,10 @@ class RunResult:
     cache_misses: list[str] = field(default_factory=list)
     #: the headline numbers (:func:`timeslice.series.key_results`), as in the report
     key_results: pd.DataFrame | None = None
+    #: the fitted niche (:class:`timeslice.niche.workflow.NicheFit`)
+    fit: Any = None
+    #: the series results (:class:`timeslice.series.analysis.SeriesResult`)
+    analysis: Any = None
 
 
 @contextlib.contextmanager
@@ -716,6 +720,7 @@ def run(
         from timeslice.series.analysis import key_results
 
         result.key_results = key_results(analysis)
+        result.fit, result.analysis = fit, analysis
     # the warnings were collected for the report; show them to the user too, once each
     for w in {str(w.message): w for w in caught}.values():
         warnings.showwarning(w.message, w.category, w.filename, w.lineno)
