@@ -22,6 +22,7 @@ SECTIONS = {
     "[niche]": C.NicheConfig,
     "[transfer]": C.TransferConfig,
     "[series]": C.SeriesConfig,
+    "[biotic]": C.BioticConfig,
     "[output]": C.OutputConfig,
 }
 

@@ -410,3 +410,74 @@ def test_zonal_summary_of_invented_protected_areas(demo_run, tmp_path):
     expected = float(area.where(inside & (suitable == 1)).sum())
     assert t.loc[("core", "baseline"), "suitable_km2"] == pytest.approx(expected, rel=1e-9)
     assert t.loc[("bay", "baseline"), "suitable_km2"] == 0
+
+
+def test_refugium_patches_threshold_tables_and_vectors(demo_run):
+    """The practitioner's tables of a run: refugium patches, threshold sensitivity and the
+    GeoJSON outlines, traced back to the raster layers."""
+    import shapely
+    from pyproj import Geod
+    from shapely.geometry import shape
+
+    out, _, _ = demo_run
+    summary = pd.read_csv(out / "summary.csv")
+    thr = pd.read_csv(out / "tables" / "threshold_sensitivity.csv")
+    # the run's own rule gives the run's own suitable area in every slice
+    own = thr[thr["rule_of_run"]].merge(summary, on="slice", suffixes=("", "_run"))
+    assert len(own) == len(summary)
+    np.testing.assert_allclose(own["suitable_area_km2"], own["suitable_area_km2_run"],
+                               rtol=1e-9)
+    assert {"p10", "mtp", "max_sss"} <= set(thr["rule"])
+    assert (out / "tables" / "threshold_summary.csv").is_file()
+    patches = pd.read_csv(out / "tables" / "refugium_patches.csv")
+    # authalic sphere of WGS 84, R = 6371.0072 km (Snyder 1987, p. 16)
+    geod = Geod(a=6371007.2, b=6371007.2)
+    with open_series(out / "series.nc") as ds:
+        area = cell_area(ds).values
+        layer = "refugium_window" if "refugium_window" in ds else "refugium_all_slices"
+        np.testing.assert_allclose(patches["area_km2"].sum(),
+                                   area[ds[layer].values.astype(bool)].sum(), rtol=1e-9)
+        doc = json.loads((out / "vector" / "suitable.geojson").read_text())
+        for i, f in enumerate(doc["features"]):
+            raster = area[ds["suitable"].values[i] == 1].sum()
+            if f["geometry"] is None:
+                assert raster == 0
+                continue
+            a, _ = geod.geometry_area_perimeter(shapely.segmentize(shape(f["geometry"]), 0.01))
+            assert abs(a) / 1e6 == pytest.approx(raster, rel=1e-5)
+    assert (out / "vector" / "refugium_patches.geojson").is_file()
+
+
+def test_biotic_limits_from_invented_partner_layer(demo_run, tmp_path):
+    import shutil
+
+    out, data, _ = demo_run
+    with open_series(out / "series.nc") as ds:
+        grid = ds[["suitable"]].isel(slice=0).load()
+    lat2 = np.broadcast_to(grid["lat"].values[:, None], (grid.sizes["lat"], grid.sizes["lon"]))
+    # an invented host plant present only south of the island's middle latitude, every slice
+    cut = float(np.median(grid["lat"].values))
+    host = xr.Dataset({"host": (("lat", "lon"), (lat2 < cut).astype("f4"),
+                                {"units": "1"})},
+                      coords={"lat": ("lat", grid["lat"].values, {"units": "degrees_north"}),
+                              "lon": ("lon", grid["lon"].values, {"units": "degrees_east"})})
+    host.to_netcdf(data / "host.nc")
+    cfg = data / "biotic.toml"
+    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
+        "maps = true", "maps = false").replace("[output]", '[biotic]\npartner = "./host.nc"\n\n[output]'))
+    fresh = tmp_path / "b"
+    shutil.copytree(out / ".cache", fresh / ".cache")
+    res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
+    assert res.exit_code == 0, res.output
+    t = pd.read_csv(fresh / "tables" / "series_biotic.csv").set_index("slice")
+    with open_series(fresh / "series.nc") as ds, open_series(out / "series.nc") as ref:
+        # the abiotic layer is untouched; the constrained one is it south of the cut only
+        np.testing.assert_array_equal(ds["suitable"].values, ref["suitable"].values)
+        south = ds["lat"] < cut
+        expect = xr.where(ds["suitable"] == 1, (south & (ds["suitable"] == 1)).astype("i1"),
+                          ds["suitable"])
+        np.testing.assert_array_equal(ds["suitable_biotic"].values, expect.values)
+        area = cell_area(ds)
+        b0 = float(area.where(ds["suitable_biotic"].sel(slice="baseline") == 1).sum())
+    assert t.loc["baseline", "suitable_biotic_km2"] == pytest.approx(b0, rel=1e-9)
+    assert 0 < t.loc["baseline", "removed_by_biotic_share"] < 1

@@ -16,9 +16,10 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from timeslice.errors import ConfigError, InputFileError
+from timeslice.errors import ConfigError, InputFileError, TimesliceError
 
 __all__ = [
+    "BioticConfig",
     "ClimateConfig",
     "ClimateInput",
     "Config",
@@ -440,6 +441,37 @@ class SeriesConfig(_Section):
     zones_name_field: str | None = None
 
 
+class BioticConfig(_Section):
+    """Biotic limits: a required partner and a competitor, per slice (optional)."""
+
+    #: presence (0/1) or suitability (0..1) of a required partner (host, pollinator,
+    #: mutualist); a path, or a pattern with {label} for one file per slice label
+    partner: str | None = None
+    #: presence or suitability of a competitor or excluder; path or {label} pattern
+    competitor: str | None = None
+    partner_threshold: float = Field(0.5, ge=0.0)
+    competitor_threshold: float = Field(0.5, ge=0.0)
+    #: "exclude" (not suitable where the competitor is present) or a factor in [0, 1) that
+    #: multiplies suitability there before the model's threshold is applied again
+    competitor_effect: Literal["exclude"] | float = "exclude"
+
+    @field_validator("competitor_effect")
+    @classmethod
+    def _effect(cls, v):
+        if not isinstance(v, str) and not 0.0 <= float(v) < 1.0:
+            raise ValueError("`competitor_effect` is \"exclude\" or a factor in [0, 1)")
+        return v
+
+    def files(self, labels: list[str]) -> dict[str, dict[str, Path]]:
+        """``{"partner"|"competitor": {slice label: file}}`` for the layers given."""
+        out: dict[str, dict[str, Path]] = {}
+        for role in ("partner", "competitor"):
+            pat = getattr(self, role)
+            if pat is not None:
+                out[role] = {lab: Path(pat.replace("{label}", lab)) for lab in labels}
+        return out
+
+
 class OutputConfig(_Section):
     maps: bool = True
     geotiff: bool = False
@@ -460,6 +492,7 @@ class Config(_Section):
     niche: NicheConfig = Field(default_factory=NicheConfig)
     transfer: TransferConfig = Field(default_factory=TransferConfig)
     series: SeriesConfig = Field(default_factory=SeriesConfig)
+    biotic: BioticConfig = Field(default_factory=BioticConfig)
     output: OutputConfig = Field(default_factory=OutputConfig)
 
     #: path of the TOML file this came from (not a key)
@@ -520,6 +553,13 @@ class Config(_Section):
         from timeslice.readers.filesets import check_file_set
 
         files = self.input_files()
+        labels = [self.climate.baseline_label, *[s.label for s in self.slice_specs()]]
+        for role, per in self.biotic.files(labels).items():
+            for lab, path in per.items():
+                if not path.is_file():
+                    raise InputFileError(
+                        f"{self.source}: biotic.{role}: {str(path)!r} (slice {lab!r}) not found; "
+                        "give one file per slice label ({label} in the pattern) or one file")
         for key, path in (
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
@@ -542,8 +582,15 @@ class Config(_Section):
             inputs = {key: inp for key, inp, _, _ in self.climate_inputs()}
             for key, inp in inputs.items():
                 pats = inp.patterns()
-                check_file_set(files[key], key=f"{self.source}: {key}" if self.source else key,
-                               pattern=pats[0] if len(pats) == 1 else None)
+                try:
+                    check_file_set(files[key], key=f"{self.source}: {key}" if self.source
+                                   else key, pattern=pats[0] if len(pats) == 1 else None)
+                except TimesliceError as err:
+                    if key in str(err):
+                        raise
+                    # a refusal of the file's format names the file; say which key gave it
+                    prefix = f"{self.source}: {key}" if self.source else key
+                    raise type(err)(f"{prefix}: {err}") from err
         return files
 
     def _spec(self, i: int, s: SliceConfig, m: str) -> SliceSpec:
@@ -820,6 +867,7 @@ _SECTIONS: dict[str, type[BaseModel]] = {
     "niche": NicheConfig,
     "transfer": TransferConfig,
     "series": SeriesConfig,
+    "biotic": BioticConfig,
     "output": OutputConfig,
 }
 
@@ -883,6 +931,13 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
         cfg.species.diversity = _resolve(base, cfg.species.diversity)
     if cfg.series.zones is not None:
         cfg.series.zones = _resolve(base, cfg.series.zones)
+    for role in ("partner", "competitor"):
+        pat = getattr(cfg.biotic, role)
+        if pat is not None:
+            from timeslice.readers.filesets import check_pattern
+
+            check_pattern(pat, key=f"{source}: biotic.{role}", allowed=("label",))
+            setattr(cfg.biotic, role, str(_resolve(base, pat)))
     for key in ("calibration_mask", "background_file"):
         value = getattr(cfg.niche, key)
         if value is not None:

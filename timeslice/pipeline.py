@@ -429,6 +429,8 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             table = stability_vs_diversity(result.series, sites)
         result.tables["diversity"] = table
         result.tables["diversity_sites"] = table.attrs["sites"]
+    if cfg.biotic.partner is not None or cfg.biotic.competitor is not None:
+        _apply_biotic(cfg, stack, result, window=window)
     if ser.zones is not None:
         from timeslice.series.zonal import read_zones, zonal_table
 
@@ -436,6 +438,42 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             result.tables["zones"] = zonal_table(
                 result.series, read_zones(ser.zones, name_field=ser.zones_name_field))
     return result
+
+
+def _apply_biotic(cfg: Config, stack: xr.Dataset, result, *, window) -> None:
+    """Partner/competitor layers per slice onto the grid; the biotically constrained layers,
+    table and refugium join the series beside the abiotic ones (which stay unchanged)."""
+    from timeslice.harmonise.regrid import regrid
+    from timeslice.readers.layers import open_layer
+    from timeslice.series.biotic import biotic_layers, biotic_table
+
+    b = cfg.biotic
+    labels = [str(x) for x in stack["slice"].values]
+    layers: dict[str, xr.DataArray] = {}
+    for role, per in b.files(labels).items():
+        fields, opened = [], {}
+        for lab in labels:
+            path = per[lab]
+            if path not in opened:
+                with _about(path):
+                    opened[path] = regrid(open_layer(path, what=f"biotic.{role}"), stack,
+                                          source=str(path))
+            fields.append(opened[path].assign_coords(lat=stack["lat"], lon=stack["lon"]))
+        layers[role] = xr.concat(fields, dim="slice").assign_coords(slice=stack["slice"])
+    # the model's threshold travels with the `suitable` layer (transfer.project_slice)
+    threshold = stack["suitable"].attrs.get("threshold")
+    threshold = float(threshold) if threshold is not None else None
+    out = biotic_layers(stack, partner=layers.get("partner"), competitor=layers.get("competitor"),
+                        partner_threshold=b.partner_threshold,
+                        competitor_threshold=b.competitor_threshold,
+                        competitor_effect=b.competitor_effect, threshold=threshold)
+    table, ref = biotic_table(stack, out, reference=_reference(cfg), window=window)
+    series = result.series.assign({k: v for k, v in out.data_vars.items()})
+    if ref is not None:
+        series["refugium_window_biotic"] = ref.drop_vars(
+            [c for c in ref.coords if c not in ("lat", "lon")])
+    result.series = series
+    result.tables["biotic"] = table
 
 
 def _dated_fossils(cfg: Config) -> pd.DataFrame:
