@@ -613,6 +613,7 @@ def report_stage(
         paths["maps"] = maps
     plots = out / "plots"
     figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
+    figures.extend(inputs.get("extra_figures", []))
     figures.append(("Gain and loss per slice", R.gain_loss_bars(summary, plots / "gain_loss.png")))
     figures.append(("Range-centroid track", R.centroid_track(
         summary, plots / "centroid_track.png", land=series["land"].isel(slice=0),
@@ -744,6 +745,17 @@ def run(
 
             # each transfer seen in environmental space (availability, analog fraction)
             inputs["environment"] = environment_table(fit, [baseline, *slices])
+            if cfg.output.report:
+                from timeslice.report.espace import environment_panels
+
+                # the figure is drawn here, where the slices' predictors are at hand
+                inputs["extra_figures"] = [(
+                    "Each slice in environmental space (first two principal components of the "
+                    "calibration climate; loadings on the axes): background grey, presences "
+                    "black, the slice's land climate blue, suitable green, outside the "
+                    "calibration range red",
+                    environment_panels(fit, [baseline, *slices], stack,
+                                       out / "plots" / "environment.png", seed=cfg.run.seed))]
         with _timed(t, "summarise"):
             analysis = summarise_stage(cfg, stack)
         series, summary = analysis.series, analysis.tables["summary"].copy()
@@ -849,7 +861,7 @@ def _require_complete(out: Path, what: str) -> None:
         return
     try:
         status = _json.loads(path.read_text(encoding="utf-8")).get("status", "complete")
-    except (ValueError, OSError):
+    except (ValueError, OSError, AttributeError):  # not a manifest: read_manifest says so
         return
     if status != "complete":
         raise DataError(

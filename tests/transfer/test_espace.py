@@ -50,3 +50,18 @@ def test_blocks_do_not_change_the_answer(rng):
     b = slice_environment(ds, block_rows=1000, **kw)
     assert a == pytest.approx(b)
     assert 0 < a["environmental_availability"] <= 1 and 0 < a["analog_fraction"] <= 1
+
+
+def test_principal_axes_match_scikit_learn(rng):
+    # the leading axes of the standardised background: sklearn.decomposition.PCA as reference
+    from sklearn.decomposition import PCA
+
+    from timeslice.report.espace import principal_axes
+
+    X = rng.normal(size=(500, 3)) @ np.array([[2.0, 0.5, 0.0], [0.0, 1.0, 0.3], [0.0, 0.0, 0.2]])
+    df = pd.DataFrame(X, columns=["a", "b", "c"])
+    mean, sd, axes, explained = principal_axes(df, ["a", "b", "c"])
+    ref = PCA(n_components=2).fit((X - X.mean(0)) / X.std(0))
+    for j in range(2):
+        assert abs(float(axes[:, j] @ ref.components_[j])) == pytest.approx(1.0, abs=1e-9)
+    np.testing.assert_allclose(explained, ref.explained_variance_ratio_, rtol=1e-9)
