@@ -1,7 +1,8 @@
 """Virtual-species truth benchmark (run by hand): does the tool recover a niche that is known?
 
     python bench/truth.py [--resolution 0.1] [--worlds demo,narrow,...] [--docs]
-                          [--algorithm spline] [--threshold max_sss] [--variables bio10,bio12]
+                          [--algorithm spline] [--threshold equal_ss] [--variables bio10,bio12]
+                          [--buffer-km 250] [--background random|target_group]
 
 Every world is the invented island of :mod:`timeslice.demo` (its landscape, its observed baseline
 and its three invented climate models' slices at 21 ka, 6 ka and two future periods under two
@@ -175,6 +176,42 @@ def sample_records(sp: Species, base: xr.Dataset, path: Path) -> Path:
     return path
 
 
+def sample_target_group(sp: Species, base: xr.Dataset, path: Path) -> Path:
+    """Records of the demo's invented related species drawn with this world's sampling effort.
+
+    A target-group background (Phillips et al. 2009, Ecol. Appl. 19:181): other species of the
+    same invented genus (:data:`timeslice.demo.TARGET_GROUP`) recorded by the same observers, so
+    that their records share the focal records' bias (and survey region) but not its niche.
+    """
+    from timeslice.demo import NICHE, TARGET_GROUP
+
+    rng = np.random.default_rng([sp.seed, 2])
+    b10 = base["bio10"].values.astype(float)
+    b12 = base["bio12"].values.astype(float)
+    effort = _effort(sp, base)
+    lat, lon = base["lat"].values, base["lon"].values
+    res = float(abs(lat[1] - lat[0]))
+    frames = []
+    for name, q in TARGET_GROUP.items():
+        p = np.exp(-0.5 * ((b10 - q["bio10_optimum_degC"]) / q["bio10_sd_degC"]) ** 2) / (
+            1.0 + np.exp(-(b12 - q["bio12_midpoint_mm"]) / NICHE["bio12_scale_mm"]))
+        w = np.nan_to_num(p) * effort
+        idx = rng.choice(w.size, size=int(q["n"]), replace=True, p=w.ravel() / w.sum())
+        iy, ix = np.unravel_index(idx, w.shape)
+        n = idx.size
+        frames.append(pd.DataFrame({
+            "scientificName": name,
+            "decimalLatitude": np.round(lat[iy] + rng.uniform(-0.45, 0.45, n) * res, 5),
+            "decimalLongitude": np.round(lon[ix] + rng.uniform(-0.45, 0.45, n) * res, 5),
+            "occurrenceStatus": "present", "basisOfRecord": "HumanObservation",
+        }))
+    df = pd.concat(frames, ignore_index=True)
+    df.insert(0, "occurrenceID", [f"urn:truth-bench:tg:{sp.seed}:{k:05d}" for k in range(len(df))])
+    path.parent.mkdir(parents=True, exist_ok=True)
+    df.to_csv(path, index=False)
+    return path
+
+
 # ---------------------------------------------------------------------------------------------
 # the invented climate, prepared by the tool
 # ---------------------------------------------------------------------------------------------
@@ -266,8 +303,15 @@ def sign_agrees(true_pp: float, est_pp: float, *, tol: float = SIGN_TOLERANCE_PP
 # ---------------------------------------------------------------------------------------------
 
 
-def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
-    """Fit and transfer the tool for one world; return per-slice rows and the refugium score."""
+def run_world(prep: Prepared, key: str, *, niche: dict | None = None,
+              background: str = "config") -> dict:
+    """Fit and transfer the tool for one world; return per-slice rows and the refugium score.
+
+    `background` is ``"config"`` (the demo configuration's choice: with a ``background_file``
+    every world gets a target-group file drawn with its own effort, the demo world the
+    configured file), ``"random"`` (cells by area) or ``"target_group"`` (as ``"config"`` with a
+    file, generated for the demo world too).
+    """
     from timeslice.grid import cell_area
     from timeslice.pipeline import _dataset_key, fit_stage, transfer_stage
     from timeslice.series.stability import refugium
@@ -278,7 +322,15 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
         occ = cfg.species.occurrences
     else:
         occ = sample_records(sp, prep.baseline, prep.workdir / "records" / f"{key}.csv")
-    ncfg = cfg.niche.model_copy(update=dict(niche or {}))
+    upd = dict(niche or {})
+    if background == "random":
+        upd["background_file"] = None
+    elif background == "target_group" or (background == "config"
+                                           and cfg.niche.background_file is not None):
+        if not (sp.sampling == "demo" and cfg.niche.background_file is not None):
+            upd["background_file"] = sample_target_group(
+                sp, prep.baseline, prep.workdir / "records" / f"{key}_target_group.csv")
+    ncfg = cfg.niche.model_copy(update=upd)
     cfg = cfg.model_copy(update={
         "species": cfg.species.model_copy(update={"occurrences": occ, "name": sp.name}),
         "niche": ncfg,
@@ -360,6 +412,12 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None) -> dict:
                 "cv_auc": float(ev["auc"]), "cv_tss": float(ev["tss"]),
                 "n_records": int(fit.params["n_records_used"])},
         "maps": {"true": true, "est": est, "lat": prep.baseline["lat"].values,
+                 "suitability": [np.nan_to_num(np.asarray(stack["suitability"].isel(slice=i).values,
+                                                          float)) for i in range(len(prepared))],
+                 "p": [np.nan_to_num(true_probability(sp, ds["bio10"].values.astype(float),
+                                                      ds["bio12"].values.astype(float)))
+                       for ds in prepared],
+                 "threshold": float(fit.threshold), "area": area,
                  "land": [np.asarray(ds["land"].values, bool) for ds in prepared],
                  "lon": prep.baseline["lon"].values},
     }
@@ -592,6 +650,11 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--threshold", default=None)
     ap.add_argument("--variables", default=None)
     ap.add_argument("--priority", default=None)
+    ap.add_argument("--buffer-km", type=float, default=None)
+    ap.add_argument("--n-background", type=int, default=None)
+    ap.add_argument("--background", default="config", choices=["config", "random", "target_group"],
+                    help="config: as the demo configuration; random: cells by area; "
+                         "target_group: related species' records with each world's effort")
     ap.add_argument("--work", default="/tmp/timeslice_truth_bench")
     ap.add_argument("--docs", action="store_true", help="write docs/truth.md and docs/truth.png")
     a = ap.parse_args(argv)
@@ -608,11 +671,15 @@ def main(argv: list[str] | None = None) -> int:
     if a.variables:
         niche["variables"] = a.variables.split(",")
         niche["priority"] = None
+    if a.buffer_km:
+        niche["buffer_km"] = a.buffer_km
+    if a.n_background:
+        niche["n_background"] = a.n_background
     if a.priority:
         niche["priority"] = None if a.priority == "none" else a.priority.split(",")
     results, all_rows, refugia, fits, cpu = {}, [], {}, {}, {}
     for key in a.worlds.split(","):
-        res = run_world(prep, key, niche=niche)
+        res = run_world(prep, key, niche=niche, background=a.background)
         results[key], refugia[key], fits[key], cpu[key] = (res, res["refugium"], res["fit"],
                                                           res["cpu_s"])
         all_rows.append(res["rows"])
@@ -649,7 +716,12 @@ def main(argv: list[str] | None = None) -> int:
                     "threshold": niche.get("threshold", n.threshold),
                     "candidate variables": ", ".join(niche.get("variables") or n.variables or ["bio1..bio19"]),
                     "priority": ", ".join(niche.get("priority", n.priority) or []) or "none",
-                    "buffer_km": n.buffer_km, "n_background": n.n_background}
+                    "buffer_km": niche.get("buffer_km", n.buffer_km),
+                    "n_background": niche.get("n_background", n.n_background),
+                    "background": {"random": "random cells by area",
+                                   "target_group": "target-group records (each world's effort)",
+                                   }.get(a.background, "target-group file" if n.background_file
+                                         else "random cells by area")}
         text = markdown(rows, refugia, fits, settings, harm, cpu)
         doc = ROOT / "docs" / "truth.md"
         old = doc.read_text() if doc.is_file() else f"{BEGIN}\n{END}\n"

@@ -113,7 +113,7 @@ def test_between_slice_takes_interpolated_sea_level(tmp_path):
      r"series.dispersal_rate.*no unit"),
     ('algorithm = "envelope"', 'algorithm = "envelop"',
      r"niche.algorithm = 'envelop'.*did you mean 'envelope'\?"),
-    ('threshold = "max_sss"', 'threshold = "fixed"', r"threshold_value in \(0, 1\)"),
+    ('threshold = "equal_ss"', 'threshold = "fixed"', r"threshold_value in \(0, 1\)"),
     ('seed = 20261201', 'seed = -1', r"run.seed"),
     ('seed = 20261201', 'seed = 4294967296', r"run.seed"),
 ])

@@ -366,7 +366,7 @@ class NicheConfig(_Section):
     background_file: Path | None = None
     min_records: int = Field(10, ge=1)
     importance_repeats: int = Field(5, ge=0, le=1000)
-    threshold: str = "max_sss"  # chosen by the truth benchmark (docs/truth.md)
+    threshold: str = "equal_ss"  # chosen by the truth benchmark (docs/truth.md)
     threshold_value: float | None = None
 
     @field_validator("thin")

@@ -38,6 +38,7 @@ _THRESHOLDS = {
     "p10": "the 10th-percentile training presence (Pearson et al. 2007, J. Biogeogr. 34:102)",
     "mtp": "the minimum training presence (Pearson et al. 2007, J. Biogeogr. 34:102)",
     "max_sss": "maximum sensitivity + specificity (Liu et al. 2005, Ecography 28:385)",
+    "equal_ss": "equal sensitivity and specificity (Liu et al. 2005, Ecography 28:385)",
     "fixed": "a fixed value",
 }
 

@@ -31,7 +31,7 @@ __all__ = [
 ]
 
 #: Threshold rules accepted by :func:`threshold`.
-THRESHOLD_RULES = ("fixed", "max_sss", "mtp", "p10")
+THRESHOLD_RULES = ("equal_ss", "fixed", "max_sss", "mtp", "p10")
 
 #: Mean spatial-CV AUC below which a model is reported as weak: Swets (1988, Science 240:1285)
 #: calls 0.5-0.7 "low accuracy" (band limits from memory).
@@ -192,7 +192,7 @@ def threshold(
     scores_presence,
     scores_background=None,
     *,
-    rule: Literal["p10", "mtp", "max_sss", "fixed"] = "p10",
+    rule: Literal["p10", "mtp", "max_sss", "equal_ss", "fixed"] = "p10",
     value: float | None = None,
 ) -> float:
     """Binarisation threshold from training scores.
@@ -202,14 +202,16 @@ def threshold(
     scores_presence : array-like
         Training presence scores.
     scores_background : array-like, optional
-        Training background scores (needed by ``max_sss``).
-    rule : {"p10", "mtp", "max_sss", "fixed"}
+        Training background scores (needed by ``max_sss`` and ``equal_ss``).
+    rule : {"p10", "mtp", "max_sss", "equal_ss", "fixed"}
         ``mtp`` minimum training presence (Pearson et al. 2007); ``p10`` the 10th-percentile
         training presence, ``numpy.quantile(scores, 0.1, method="higher")``: the
         :math:`(\\lceil 0.1(n-1) \\rceil + 1)`-th smallest of :math:`n` scores, so about 10 % of
         training presences (:math:`\\lceil 0.1(n-1) \\rceil` of them) fall below it; ``max_sss`` the threshold maximising
         sensitivity + specificity over the candidate values (every distinct score), lowest on
-        ties (Liu et al. 2005, 2013); ``fixed`` the given `value`.
+        ties (Liu et al. 2005, 2013); ``equal_ss`` the candidate value where sensitivity and
+        specificity are closest to equal, the lowest of the closest (Cantor et al. 1999;
+        Liu et al. 2005, "Sens=Spec"); ``fixed`` the given `value`.
     value : float, optional
         The threshold for ``fixed``, in [0, 1].
 
@@ -223,6 +225,9 @@ def threshold(
     distributions from small numbers of occurrence records. J. Biogeogr. 34:102-117.
     Liu, C., Berry, P. M., Dawson, T. P., & Pearson, R. G. (2005). Selecting thresholds of
     occurrence in the prediction of species distributions. Ecography 28:385-393.
+    Cantor, S. B., Sun, C. C., Tortolero-Luna, G., Richards-Kortum, R., & Follen, M. (1999). A
+    comparison of C/B ratios from studies using receiver operating characteristic curve
+    analysis. J. Clin. Epidemiol. 52:885-892.
     Liu, C., White, M., & Newell, G. (2013). Selecting thresholds for the prediction of species
     occurrence with presence-only data. J. Biogeogr. 40:778-789.
     """
@@ -240,12 +245,16 @@ def threshold(
     if rule == "p10":
         return float(np.quantile(p, 0.1, method="higher"))
     if scores_background is None:
-        raise ConfigError("threshold rule 'max_sss' needs background scores (`scores_background`)")
+        raise ConfigError(f"threshold rule {rule!r} needs background scores (`scores_background`)")
     b = _scores(scores_background, "scores_background")
     cand = np.unique(np.concatenate([p, b]))
     ps, bs = np.sort(p), np.sort(b)
     sens = 1.0 - np.searchsorted(ps, cand, side="left") / p.size  # share >= t
     spec = np.searchsorted(bs, cand, side="left") / b.size  # share < t
+    if rule == "equal_ss":
+        # sensitivity falls and specificity rises with t: the closest crossing, lowest on ties
+        gap = np.abs(sens - spec)
+        return float(cand[np.flatnonzero(gap <= gap.min() + 1e-12)[0]])
     total = sens + spec
     best = np.flatnonzero(total >= total.max() - 1e-12)[0]  # lowest t on ties
     return float(cand[best])

@@ -201,7 +201,7 @@ def fit_niche(
     cv_block_km: float = 100.0,
     cv_folds: int = 5,
     cv_scheme: str = "random",
-    threshold_rule: str = "max_sss",
+    threshold_rule: str = "equal_ss",
     threshold_value: float | None = None,
     min_records: int = MIN_RECORDS,
     importance_repeats: int = 5,

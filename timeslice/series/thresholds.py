@@ -54,7 +54,7 @@ def rule_thresholds(fit, *, value: float | None = None) -> dict[str, float]:
     Returns
     -------
     dict of str to float
-        ``p10``, ``mtp``, ``max_sss`` (and ``fixed``), each from
+        ``p10``, ``mtp``, ``max_sss``, ``equal_ss`` (and ``fixed``), each from
         :func:`timeslice.niche.evaluate.threshold` on the scores of
         :func:`timeslice.niche.evaluate.training_scores` (the rows the fit was made on, in the
         fit's order: presences, then background), exactly as the fit chose its own.
@@ -66,7 +66,8 @@ def rule_thresholds(fit, *, value: float | None = None) -> dict[str, float]:
     s = nev.training_scores(fit.model, X)
     n_pres = len(fit.presence)
     pres, back = s[:n_pres], s[n_pres:]
-    out = {rule: nev.threshold(pres, back, rule=rule) for rule in ("p10", "mtp", "max_sss")}
+    out = {rule: nev.threshold(pres, back, rule=rule)
+           for rule in ("p10", "mtp", "max_sss", "equal_ss")}
     if value is not None:
         out["fixed"] = nev.threshold(pres, back, rule="fixed", value=value)
     return out
@@ -120,7 +121,9 @@ def threshold_table(
         Columns :data:`THRESHOLD_COLUMNS`, one row per rule and slice: the suitable area
         :math:`A_t = \\sum_{c:\\,s_c \\ge t} a_c` over land cells (cell areas :math:`a_c` on the
         authalic sphere), its change against the reference :math:`A_t - A_{ref}` in km² and
-        in % of :math:`A_{ref}` (NaN when :math:`A_{ref}` is 0), gain and loss.
+        in % of :math:`A_{ref}` (NaN when :math:`A_{ref}` is 0), gain and loss. Suitability
+        and threshold are compared in the layer's precision (float32 in a run), so a cell
+        scoring exactly the threshold stays suitable, as in the run's ``suitable`` layer.
     """
     check_stack(stack, required=("suitability",))
     check_label(stack, reference)
@@ -135,9 +138,14 @@ def threshold_table(
     area = cell_area(stack).values
     s, _ = _land_values(stack)
     rows = []
+    # compared in the layer's own precision: a threshold is a training score, and the cells
+    # scoring exactly that value (float64 in the fit) are rounded to float32 in the layer; in
+    # float64 they would fall just below their own threshold
+    dtype = stack["suitability"].dtype if stack["suitability"].dtype.kind == "f" else np.float64
+    s = s.astype(dtype)
     for rule, t in thresholds.items():
         with np.errstate(invalid="ignore"):
-            on = np.isfinite(s) & (s >= float(t))
+            on = np.isfinite(s) & (s >= np.asarray(t, dtype=dtype))
         a_ref = float(area[on[ref_i]].sum())
         for i, label in enumerate(labels):
             a = float(area[on[i]].sum())
