@@ -826,3 +826,13 @@ def test_killed_then_resumed_run_gives_byte_identical_files(world, tmp_path):
         assert a == b, f"{name} differs after a resume"
     _whole(out)
     _count("runs", "accepted")
+
+
+@pytest.mark.parametrize("text", ['{"inputs": {}, "config": ', '{"inputs": [], "config": {}}',
+                                  '{"inputs": {}, "config": []}', "[]", "\x00\x01"])
+def test_damaged_manifest_is_refused_in_one_line(tmp_path, text):
+    (tmp_path / "manifest.json").write_text(text, encoding="utf-8")
+    result = CliRunner().invoke(app, ["rerun", str(tmp_path / "manifest.json")])
+    assert result.exit_code == 2, result.output
+    _clean_line(result.output.strip(), ["manifest.json"])
+    _count("writing", "clean error")

@@ -645,7 +645,7 @@ def open_climate(
     if not out_vars:
         raise DataError(
             f"{src}: no climate variable recognised (found "
-            f"{shorten(', '.join(sorted(set(found_names))), 120) or 'none'}); "
+            f"{shorten(str(sorted(set(found_names))), 120) if found_names else 'none'}); "
             "map them with `aliases`, e.g. tasmin = 'tn'"
         )
     for canon in require or ():
@@ -659,7 +659,7 @@ def open_climate(
                 )
             raise DataError(
                 f"{src}: required variable {canon!r} is missing (found "
-                f"{shorten(', '.join(sorted(set(found_names))), 120)}); add it or map it with "
+                f"{shorten(str(sorted(set(found_names))), 120)}); add it or map it with "
                 "`aliases`"
             )
     grids = {k: (v["lat"].size, v["lon"].size) for k, v in out_vars.items()}

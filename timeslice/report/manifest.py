@@ -152,6 +152,10 @@ def read_manifest(path: str | os.PathLike, *, verify: bool = True) -> dict[str, 
         raise InputFileError(f"{p}: not a JSON manifest ({err}); give the manifest.json of a run") from err
     if not isinstance(data, dict) or "inputs" not in data:
         raise InputFileError(f"{p}: no `inputs` field; this is not a timeslice manifest")
+    for key, kind in (("inputs", dict), ("config", dict)):
+        if key in data and not isinstance(data[key], kind):
+            raise InputFileError(f"{p}: `{key}` is a {type(data[key]).__name__}, not a table; "
+                                 "the manifest was edited or damaged: rerun from the config")
     if verify:
         for name, rec in data["inputs"].items():
             want = rec.get("sha256") if isinstance(rec, dict) else rec
