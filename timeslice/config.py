@@ -242,7 +242,9 @@ class ClimateConfig(_Section):
     ratio_quantile: float = Field(0.98, gt=0.5, le=1.0)
     present_sea_level: float = 0.0
     ice_threshold: float = Field(0.5, ge=0.0, le=1.0)
-    lapse_rate: float = Field(0.0065, ge=0.0)
+    #: K m-1; at most the dry-adiabatic rate g / c_p = 9.8 K km-1 (the limit the harmonise
+    #: stage also applies), checked here so it is refused before any work
+    lapse_rate: float = Field(0.0065, ge=0.0, le=0.0098)
 
     @field_validator("baseline_period")
     @classmethod
