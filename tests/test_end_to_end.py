@@ -437,6 +437,11 @@ def test_refugium_patches_threshold_tables_and_vectors(demo_run):
         layer = "refugium_window" if "refugium_window" in ds else "refugium_all_slices"
         np.testing.assert_allclose(patches["area_km2"].sum(),
                                    area[ds[layer].values.astype(bool)].sum(), rtol=1e-9)
+        # the patches as a layer: patch k's cells add up to row k's area
+        lab = ds["refugium_patch"].values
+        assert ds["refugium_patch"].attrs["units"] == "1"
+        for r in patches.itertuples(index=False):
+            np.testing.assert_allclose(area[lab == r.patch].sum(), r.area_km2, rtol=1e-9)
         doc = json.loads((out / "vector" / "suitable.geojson").read_text())
         for i, f in enumerate(doc["features"]):
             raster = area[ds["suitable"].values[i] == 1].sum()

@@ -514,6 +514,10 @@ def report_stage(
     paths: dict[str, Path] = {}
     title = f"{cfg.run.name}"
     history = f"timeslice {__version__} run of {cfg.source.name if cfg.source else 'config'}"
+    from timeslice.series.patches import label_patches, refugium_layer
+
+    if refugium_layer(series) is not None:  # the refugium's patches as a layer (R1 largest)
+        series = series.assign(refugium_patch=label_patches(series[refugium_layer(series)]))
     paths["series"] = R.write_series(series, out / "series.nc", history=history, title=title)
     paths["summary"] = R.write_csv(summary, out / "summary.csv")
     if analysis is not None and analysis.ensemble is not None:

@@ -149,6 +149,12 @@ LAYERS: dict[str, dict[str, Any]] = {
         "bool_flags": "not_refugium refugium",
         "description": "as refugium_window, and in analog climate in every slice of the window",
     },
+    "refugium_patch": {
+        "units": "1",
+        "long_name": "connected patch of the refugium",
+        "description": "8-connected patches of the report's refugium layer numbered by "
+        "decreasing area (1 the largest, named R1); 0 outside; see tables/refugium_patches.csv",
+    },
     "static_stability": {
         "units": "1",
         "long_name": "static stability (sum of log suitability)",
