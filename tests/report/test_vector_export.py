@@ -93,3 +93,21 @@ def test_patch_features_match_the_patch_table(series_ds, tmp_path):
         assert props["area_km2"] == pytest.approx(row.area_km2, rel=1e-12)
         assert _sphere_km2(geom) == pytest.approx(row.area_km2, rel=1e-5)
     assert len(paths) == 2
+
+
+def test_patch_across_the_seam_of_a_global_grid(tmp_path):
+    g = make_grid(lon_min=-180.0, lon_max=180.0, lat_min=-90.0, lat_max=90.0, resolution=10.0)
+    m = np.zeros((g.sizes["lat"], g.sizes["lon"]), dtype=bool)
+    m[12:14, :2] = True
+    m[12:14, -2:] = True  # one patch around 180°
+    da = xr.DataArray(m, dims=("lat", "lon"), coords={"lat": g.lat, "lon": g.lon})
+    series = xr.Dataset({"refugium_window": da,
+                         "suitable": da.astype("int8").expand_dims(slice=["s0"])})
+    patches = refugium_patches(series)
+    assert len(patches[1]) == 1
+    write_vectors(series, tmp_path, patches=patches)
+    _, feats = _read(tmp_path / "refugium_patches.geojson")
+    geom = feats[0][0]
+    # one feature, two parts meeting at the antimeridian (RFC 7946 section 3.1.9)
+    assert len(feats) == 1 and geom.geom_type == "MultiPolygon" and len(geom.geoms) == 2
+    assert _sphere_km2(geom) == pytest.approx(patches[1]["area_km2"].iloc[0], rel=1e-6)
