@@ -63,6 +63,21 @@ def _antimeridian(geom):
     return unary_union(parts)
 
 
+def _geometries(values: np.ndarray, da: xr.DataArray) -> dict[int, object]:
+    """Every positive value of an integer (lat, lon) array as one merged geometry, from one
+    polygonize pass over the grid (not one per value)."""
+    from rasterio import features
+    from shapely import unary_union
+    from shapely.geometry import shape
+
+    data = np.ascontiguousarray(values[::-1]).astype(np.int32)
+    parts: dict[int, list] = {}
+    for g, v in features.shapes(data, mask=data > 0, connectivity=4,
+                                transform=_transform(da)):
+        parts.setdefault(int(v), []).append(shape(g))
+    return {v: _antimeridian(unary_union(ps)) for v, ps in parts.items()}
+
+
 def mask_geometry(mask: xr.DataArray):
     """The cells of a boolean (lat, lon) mask as one shapely (Multi)Polygon in degrees.
 
@@ -77,19 +92,12 @@ def mask_geometry(mask: xr.DataArray):
         A Polygon or MultiPolygon (empty when the mask is empty); holes where the mask has
         them.
     """
-    from rasterio import features
-    from shapely import unary_union
-    from shapely.geometry import Polygon, shape
+    from shapely.geometry import Polygon
 
     m = mask.transpose("lat", "lon")
     arr = np.asarray(m.values)
     b = arr.astype(bool) if arr.dtype == bool else (np.nan_to_num(arr.astype(float)) > 0.5)
-    data = b[::-1].astype(np.uint8).copy()
-    polys = [shape(g) for g, v in features.shapes(data, mask=data.astype(bool),
-                                                   connectivity=4, transform=_transform(m))
-             if v == 1]
-    geom = unary_union(polys) if polys else Polygon()
-    return _antimeridian(geom)
+    return _geometries(b.astype(np.int32), m).get(1, Polygon())
 
 
 def _plain(value: Any) -> Any:
@@ -116,11 +124,12 @@ def _feature(geom, properties: dict[str, Any]) -> dict[str, Any]:
 def patch_features(labels: xr.DataArray, table: pd.DataFrame) -> list[dict[str, Any]]:
     """GeoJSON features of the refugium patches: one (Multi)Polygon per patch, largest first,
     with the row of :func:`timeslice.series.patches.patch_table` as its properties."""
-    feats = []
-    for rec in table.to_dict(orient="records"):
-        geom = mask_geometry(labels == int(rec["patch"]))
-        feats.append(_feature(geom, rec))
-    return feats
+    from shapely.geometry import Polygon
+
+    lab = labels.transpose("lat", "lon")
+    geoms = _geometries(np.asarray(lab.values), lab)
+    return [_feature(geoms.get(int(rec["patch"]), Polygon()), rec)
+            for rec in table.to_dict(orient="records")]
 
 
 def suitable_features(series: xr.Dataset, *, variable: str = "suitable") -> list[dict[str, Any]]:

@@ -66,9 +66,12 @@ def _label_kernel(mask: np.ndarray, area: np.ndarray, wrap: bool) -> np.ndarray:
                         parent[max(a, b)] = min(a, b)
     roots = np.array([find(i) for i in range(n + 1)])
     merged = roots[raw]
-    ids = np.unique(merged[merged > 0])
-    sizes = np.array([area[merged == i].sum() for i in ids])
-    first = np.array([np.flatnonzero((merged == i).ravel())[0] for i in ids])
+    flat = merged.ravel()
+    # one pass over the grid, whatever the number of patches
+    ids, first = np.unique(flat, return_index=True)
+    keep = ids > 0
+    ids, first = ids[keep], first[keep]
+    sizes = np.bincount(flat, weights=area.ravel(), minlength=int(ids.max()) + 1)[ids]
     order = np.lexsort((first, -sizes))  # largest first; ties by position (deterministic)
     relabel = np.zeros(merged.max() + 1, dtype=np.int32)
     relabel[ids[order]] = np.arange(1, ids.size + 1, dtype=np.int32)
@@ -190,13 +193,23 @@ def patch_table(
                   else [str(i) for i in range(kp.shape[0])])
     rows = []
     west = float(labels["lon"].values[0]) - 180.0 if labels.sizes["lon"] else -180.0
+    # the cells of every patch from one sort (not one pass over the grid per patch)
+    flat = lab.ravel()
+    inside = np.flatnonzero(flat > 0)
+    inside = inside[np.argsort(flat[inside], kind="stable")]
+    counts = np.bincount(flat[inside], minlength=int(lab.max(initial=0)) + 1)
+    bounds = np.concatenate([[0], np.cumsum(counts[1:])])
+    area, lat2, lon2 = area.ravel(), lat2.ravel(), lon2.ravel()
+    elev = elev.ravel() if elev is not None else None
+    ana = ana.ravel() if ana is not None else None
+    kp = kp.reshape(kp.shape[0], -1) if kp is not None else None
     for p in range(1, int(lab.max(initial=0)) + 1):
-        cells = lab == p
+        cells = inside[bounds[p - 1]:bounds[p]]
         w = area[cells]
         clat, clon = _centroid(lat2[cells], lon2[cells], w)
         lons = wrap_lon(lon2[cells], west=west)
         row = {
-            "patch": p, "name": f"R{p}", "area_km2": float(w.sum()), "n_cells": int(cells.sum()),
+            "patch": p, "name": f"R{p}", "area_km2": float(w.sum()), "n_cells": int(cells.size),
             "centroid_lat": clat, "centroid_lon": float(wrap_lon(clon)),
             "lat_min": float(lat2[cells].min()), "lat_max": float(lat2[cells].max()),
             "lon_min": float(wrap_lon(lons.min())), "lon_max": float(wrap_lon(lons.max())),
