@@ -58,7 +58,7 @@ def test_missing_config_file(tmp_path):
 
 
 def test_bad_value_names_key(tmp_path):
-    text = render_demo_config(".").replace("buffer_km = 250.0", "buffer_km = -5")
+    text = render_demo_config(".").replace("buffer_km = 200.0", "buffer_km = -5")
     with pytest.raises(ConfigError, match=r"niche.buffer_km"):
         load_config(_write(tmp_path, text))
 
@@ -113,7 +113,7 @@ def test_between_slice_takes_interpolated_sea_level(tmp_path):
      r"series.dispersal_rate.*no unit"),
     ('algorithm = "envelope"', 'algorithm = "envelop"',
      r"niche.algorithm = 'envelop'.*did you mean 'envelope'\?"),
-    ('threshold = "equal_ss"', 'threshold = "fixed"', r"threshold_value in \(0, 1\)"),
+    ('threshold = "max_sss"', 'threshold = "fixed"', r"threshold_value in \(0, 1\)"),
     ('seed = 20261201', 'seed = -1', r"run.seed"),
     ('seed = 20261201', 'seed = 4294967296', r"run.seed"),
 ])

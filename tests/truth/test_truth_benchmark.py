@@ -95,7 +95,7 @@ def test_default_threshold_rule_means_what_the_truth_means(bench, island_21ka):
     # demo's 21 ka change came out near zero or positive: docs/truth.md)
     from timeslice.config import NicheConfig
 
-    assert island_21ka.cfg.niche.threshold == NicheConfig().threshold == "equal_ss"
+    assert island_21ka.cfg.niche.threshold == NicheConfig().threshold == "max_sss"
     res = bench.run_world(island_21ka, "demo")
     rows = res["rows"][res["rows"]["scenario"] == "past"]
     err = (rows["perfect_change_pct"] - rows["true_change_pct"]).abs()
@@ -123,7 +123,7 @@ def test_perfect_model_meets_the_goals_under_the_default_rule(bench, island_all)
 
         return bench.goals(pd.concat(rows, ignore_index=True), refs)
 
-    g = scores("equal_ss")
+    g = scores("max_sss")
     assert g["perfect_sign_agrees"] >= 0.95 * g["n_slices"]
     assert g["perfect_median_abs_error_pp"] < bench.GOAL_MEDIAN_ABS_ERROR_PP
     old = scores("p10")
