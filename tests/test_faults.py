@@ -836,3 +836,61 @@ def test_damaged_manifest_is_refused_in_one_line(tmp_path, text):
     assert result.exit_code == 2, result.output
     _clean_line(result.output.strip(), ["manifest.json"])
     _count("writing", "clean error")
+
+
+# ------------------------------------------------------------- slow: whole runs, hypothesis
+
+#: Keys a run reads after the config check, with values a user might write: plausible, odd or
+#: wrong in ways only the data can tell.
+_RUN_VALUES = {
+    ("niche", "buffer_km"): st.sampled_from([1.0, 50.0, 5000.0]),
+    ("niche", "n_background"): st.sampled_from([1, 50, 100000]),
+    ("niche", "min_records"): st.sampled_from([1, 400, 100000]),
+    ("niche", "cv_folds"): st.sampled_from([2, 30, 500]),
+    ("niche", "cv_block_km"): st.sampled_from([1.0, 2000.0]),
+    ("niche", "thin"): st.sampled_from(["none", 5.0, 500.0]),
+    ("niche", "threshold"): st.sampled_from(["p10", "mtp", "max_sss"]),
+    ("niche", "calibration"): st.sampled_from(["buffer", "hull_buffer"]),
+    ("niche", "screen_max_r"): st.sampled_from([0.01, 1.0]),
+    ("niche", "uncertainty_max_m"): st.sampled_from([1.0, 1e7]),
+    ("niche", "years"): st.sampled_from([[1000, 1100], [1900, 2100]]),
+    ("transfer", "clamp"): st.booleans(),
+    ("series", "graph_neighbours"): st.sampled_from([8, 16]),
+    ("series", "movement_through"): st.sampled_from(["land", "suitable", "any"]),
+    ("series", "dispersal_rate"): st.sampled_from(["0 km/kyr", "1e9 km/kyr", "5 m/yr"]),
+    ("slices", 0, "sea_level"): st.sampled_from([-5000.0, 0.0, 300.0]),
+    ("climate", "ice_threshold"): st.sampled_from([0.0, 1.0]),
+    ("climate", "pr_floor"): st.sampled_from([0.0, 1000.0]),
+    ("climate", "lapse_rate"): st.sampled_from([0.0, 0.5]),
+}
+
+
+@pytest.mark.slow
+@settings(max_examples=12, deadline=None, derandomize=True,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(changes=st.lists(st.sampled_from(sorted(_RUN_VALUES, key=str)), min_size=1, max_size=3,
+                        unique=True).flatmap(
+    lambda keys: st.tuples(*[st.tuples(st.just(k), _RUN_VALUES[k]) for k in keys])))
+def test_whole_runs_exit_0_with_a_whole_folder_or_2_with_one_line(world, tmp_path_factory,
+                                                                  changes):
+    data = demo_mapping(slices=("21ka", "6ka"))
+    for path, value in changes:
+        data = mutated(data, path, value)
+    cfg = write_config(world, data, "hyp_run.toml")
+    out = tmp_path_factory.mktemp("hyp_run")
+    result = CliRunner().invoke(app, ["run", str(cfg), "--out", str(out)])
+    if result.exception is not None and not isinstance(result.exception, SystemExit):
+        _count("runs", "traceback")
+        raise AssertionError(f"traceback for {changes}") from result.exception
+    if result.exit_code == 0:
+        _whole(out)
+        _count("runs", "accepted")
+        return
+    assert result.exit_code == 2, result.output
+    line = result.output.strip().splitlines()[-1]
+    _clean_line(line, ["hyp_run.toml", str(world)])
+    assert not list(out.rglob("*.part"))
+    manifest = out / "manifest.json"
+    if manifest.is_file():
+        assert json.loads(manifest.read_text())["status"] == "incomplete"
+    _count("runs", "clean error")
