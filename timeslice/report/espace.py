@@ -54,8 +54,8 @@ def _label(axes, explained, variables, j) -> str:
 
 
 def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
-                       path: str | os.PathLike, *, max_points: int = 4000, seed: int = 0,
-                       dpi: int = 110) -> Path:
+                       path: str | os.PathLike, *, max_points: int = 1500, seed: int = 0,
+                       dpi: int = 100) -> Path:
     """Write the small-multiple environmental-space figure of every slice as PNG.
 
     Parameters
@@ -88,9 +88,16 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
     n = len(slices)
     ncols = min(4, n)
     nrows = int(np.ceil(n / ncols))
-    fig = Figure(figsize=(3.0 * ncols, 2.7 * nrows + 0.6), layout="constrained")
+    # a fixed layout (no constrained-layout solve over many panels): the figure is drawn once
+    height = 2.7 * nrows + 0.9
+    fig = Figure(figsize=(3.0 * ncols, height))
     grid = fig.subplots(nrows, ncols, squeeze=False, sharex=True, sharey=True)
-    B, P = project(bg[np.all(np.isfinite(bg), axis=1)]), project(pr[np.all(np.isfinite(pr), axis=1)])
+    fig.subplots_adjust(left=0.09 if ncols > 2 else 0.16, right=0.98, top=1 - 0.3 / height,
+                        bottom=0.95 / height, wspace=0.08, hspace=0.22)
+    bg_ok = bg[np.all(np.isfinite(bg), axis=1)]
+    if len(bg_ok) > max_points:
+        bg_ok = bg_ok[rng.choice(len(bg_ok), max_points, replace=False)]
+    B, P = project(bg_ok), project(pr[np.all(np.isfinite(pr), axis=1)])
     labels = [str(s) for s in stack["slice"].values]
     for k, ds in enumerate(slices):
         ax = grid[k // ncols][k % ncols]
@@ -114,13 +121,15 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
         ax.tick_params(labelsize=7)
     for k in range(n, nrows * ncols):
         grid[k // ncols][k % ncols].set_visible(False)
-    for ax in grid[-1]:
-        ax.set_xlabel(_label(axes, explained, variables, 0), fontsize=7)
+    for c in range(ncols):  # the lowest panel of each column carries the axis label
+        r = max(k // ncols for k in range(n) if k % ncols == c) if c < n else 0
+        grid[r][c].xaxis.set_tick_params(labelbottom=True)
+        grid[r][c].set_xlabel(_label(axes, explained, variables, 0), fontsize=7)
     for row in grid:
         row[0].set_ylabel(_label(axes, explained, variables, 1), fontsize=7)
     handles, names = grid[0][0].get_legend_handles_labels()
-    fig.legend(handles, names, loc="outside lower center", ncols=5, fontsize=7, markerscale=4,
-               frameon=False)
+    fig.legend(handles, names, loc="lower center", bbox_to_anchor=(0.5, 0.0), ncols=5,
+               fontsize=7, markerscale=4, frameon=False)
     target = Path(path)
     with output_path(target) as tmp:
         save_figure(fig, tmp, dpi=dpi)
