@@ -486,3 +486,27 @@ def test_biotic_limits_from_invented_partner_layer(demo_run, tmp_path):
         b0 = float(area.where(ds["suitable_biotic"].sel(slice="baseline") == 1).sum())
     assert t.loc["baseline", "suitable_biotic_km2"] == pytest.approx(b0, rel=1e-9)
     assert 0 < t.loc["baseline", "removed_by_biotic_share"] < 1
+
+
+def test_fit_once_transfer_many(demo_run, tmp_path):
+    import shutil
+
+    out, data, _ = demo_run
+    cfg = data / "demo.toml"
+    fitted = tmp_path / "f"
+    shutil.copytree(out / ".cache", fitted / ".cache")
+    assert CliRunner().invoke(app, ["fit", str(cfg), "--out", str(fitted)]).exit_code == 0
+    assert (fitted / "model.pkl").is_file()
+    cfg2 = data / "from_model.toml"
+    cfg2.write_text(cfg.read_text().replace("[niche]\n", f'[niche]\nmodel = "{fitted / "model.pkl"}"\n'))
+    again = tmp_path / "t"
+    shutil.copytree(out / ".cache", again / ".cache")
+    res = CliRunner().invoke(app, ["run", str(cfg2), "--out", str(again)])
+    assert res.exit_code == 0, res.output
+    # the same fitted model transferred again gives the same series
+    pd.testing.assert_frame_equal(pd.read_csv(out / "summary.csv"), pd.read_csv(again / "summary.csv"))
+    # a model whose predictors the baseline lacks is refused in one line
+    bad = data / "bad_model.toml"
+    bad.write_text(cfg2.read_text().replace(str(fitted / "model.pkl"), str(data / "nope.pkl")))
+    res = CliRunner().invoke(app, ["run", str(bad), "--out", str(tmp_path / "x")])
+    assert res.exit_code == 2 and "niche.model" in res.stderr

@@ -345,6 +345,9 @@ class SpeciesConfig(_Section):
 
 
 class NicheConfig(_Section):
+    #: a fitted model written by `timeslice fit` (model.pkl): transfer it without refitting;
+    #: the other [niche] keys are then not used
+    model: Path | None = None
     algorithm: str = "envelope"  # chosen by the truth benchmark (docs/truth.md)
     params: dict[str, Any] = Field(default_factory=dict)
     variables: list[str] | None = None
@@ -569,6 +572,7 @@ class Config(_Section):
             ("series.zones", self.series.zones),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
+            ("niche.model", self.niche.model),
         ):
             if path is not None and not Path(path).exists():
                 raise InputFileError(
@@ -940,7 +944,7 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
 
             check_pattern(pat, key=f"{source}: biotic.{role}", allowed=("label",))
             setattr(cfg.biotic, role, str(_resolve(base, pat)))
-    for key in ("calibration_mask", "background_file"):
+    for key in ("calibration_mask", "background_file", "model"):
         value = getattr(cfg.niche, key)
         if value is not None:
             setattr(cfg.niche, key, _resolve(base, value))

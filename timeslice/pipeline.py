@@ -289,6 +289,8 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
     from timeslice.readers import read_occurrences
 
     n = cfg.niche
+    if n.model is not None:
+        return _fitted_model(n.model, baseline), content_key("fit-file", file_digest(n.model))
     key = content_key(
         "fit", base_key, file_digest(cfg.species.occurrences), cfg.species.model_dump(mode="json"),
         n.model_dump(mode="json"), cfg.run.seed,
@@ -316,6 +318,31 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
             )
 
     return cache.obj("fit", key, compute), key
+
+
+def _fitted_model(path: Path, baseline: xr.Dataset):
+    """A model fitted earlier (`timeslice fit`), checked against this run's baseline: every
+    predictor present, and in the same units (the baseline's values must overlap the model's
+    calibration range, or the predictors were computed differently)."""
+    from timeslice.niche.persist import load_model
+
+    fit = load_model(path)
+    missing = [v for v in fit.variables if v not in baseline]
+    if missing:
+        raise DataError(f"niche.model = {str(path)!r}: the model uses {missing}, which the "
+                        "baseline does not have; refit the model on this baseline")
+    for v in fit.variables:
+        bg = fit.background[v].to_numpy(float)
+        lo, hi = float(np.nanmin(bg)), float(np.nanmax(bg))
+        here = baseline[v].where(baseline["land"].astype(bool)) if "land" in baseline else baseline[v]
+        med = float(here.median())
+        width = max(hi - lo, 1e-9)
+        if not lo - width <= med <= hi + width:
+            raise DataError(
+                f"niche.model = {str(path)!r}: predictor {v!r} of this baseline (median "
+                f"{med:.4g}) lies far outside the model's calibration range ({lo:.4g}..{hi:.4g}); "
+                "the baseline's units or scale differ from the one the model was fitted on")
+    return fit
 
 
 # ----------------------------------------------------------------------------- transfer
