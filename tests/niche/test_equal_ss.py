@@ -44,3 +44,17 @@ def test_equal_ss_needs_background():
     with pytest.raises(ConfigError, match="'equal_ss' needs background"):
         ev.threshold(PRES, rule="equal_ss")
     assert "equal_ss" in ev.THRESHOLD_RULES
+
+
+def test_equal_ss_on_a_flat_curve_is_the_pooled_median_and_stable(rng):
+    # a model that does not separate presences from background (both scores from one
+    # distribution, AUC 0.5): sens + spec is flat (about 1 at every t), so max_sss may land
+    # anywhere, while sens = spec holds at the common median (P(S >= t) = P(S < t) there; by
+    # definition). Over resamples equal_ss stays near the median, max_sss wanders.
+    eq, mx = [], []
+    for _ in range(40):
+        p, b = rng.uniform(0, 1, 300), rng.uniform(0, 1, 3000)
+        eq.append(ev.threshold(p, b, rule="equal_ss"))
+        mx.append(ev.threshold(p, b, rule="max_sss"))
+    assert np.median(eq) == pytest.approx(0.5, abs=0.03)
+    assert np.std(eq) < 0.5 * np.std(mx)
