@@ -510,3 +510,32 @@ def test_fit_once_transfer_many(demo_run, tmp_path):
     bad.write_text(cfg2.read_text().replace(str(fitted / "model.pkl"), str(data / "nope.pkl")))
     res = CliRunner().invoke(app, ["run", str(bad), "--out", str(tmp_path / "x")])
     assert res.exit_code == 2 and "niche.model" in res.stderr
+
+
+def test_refugium_hypotheses_side_by_side(demo_run, tmp_path):
+    import shutil
+
+    out, data, _ = demo_run
+    cfg = data / "hyp.toml"
+    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
+        "maps = true", "maps = false").replace(
+        'dispersal_rate = "500 km/kyr"',
+        'dispersal_rate = "500 km/kyr"\nhypotheses = { lgm_only = ["21 ka BP"], '
+        'glacial_to_present = ["21 ka BP", "6 ka BP", "1981-2010"] }'))
+    fresh = tmp_path / "h"
+    shutil.copytree(out / ".cache", fresh / ".cache")
+    res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
+    assert res.exit_code == 0, res.output
+    t = pd.read_csv(fresh / "tables" / "series_hypotheses.csv").set_index("hypothesis")
+    # the narrower window (one slice) has the larger refugium
+    assert t.loc["lgm_only", "refugium_km2"] >= t.loc["glacial_to_present", "refugium_km2"]
+    assert t["n_records"].min() > 0 and (t["hits"] <= t["n_records"]).all()
+    with open_series(fresh / "series.nc") as ds:
+        assert "refugium_glacial_to_present" in ds and "stability_lgm_only" in ds
+        # the glacial-to-present hypothesis is the run's own refugium window
+        np.testing.assert_array_equal(ds["refugium_glacial_to_present"].values,
+                                      ds["refugium_window"].values)
+    bad = data / "hyp_bad.toml"
+    bad.write_text(cfg.read_text().replace('lgm_only = ["21 ka BP"]', 'lgm_only = ["21 ka"]'))
+    res = CliRunner().invoke(app, ["run", str(bad), "--out", str(tmp_path / "x")])
+    assert res.exit_code == 2 and "series.hypotheses.lgm_only" in res.stderr

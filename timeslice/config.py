@@ -439,6 +439,9 @@ class SeriesConfig(_Section):
     graph_neighbours: Literal[8, 16] = 8
     partition_factors: list[str] | None = None
     hindcast_max_offset_years: float | None = Field(None, gt=0)
+    #: named refugium hypotheses: name -> slice labels or periods of its window, each scored
+    #: against the dated records and the genetic diversity table side by side
+    hypotheses: dict[str, list[str]] = Field(default_factory=dict)
     #: GeoJSON polygons (protected areas, regions) to summarise suitable area, change,
     #: refugia and novelty in, per zone and slice
     zones: Path | None = None
@@ -823,6 +826,15 @@ def _check_references(cfg: Config, source: str) -> None:
             if w not in labels and w not in periods:
                 raise ConfigError(
                     f"{source}: series.refugium_window names {w!r}, which is neither a slice "
+                    f"label nor a period{_suggest(w, list(dict.fromkeys(periods + labels)), 'slice')}")
+    for hname, hwin in ser.hypotheses.items():
+        if not re.fullmatch(r"[A-Za-z0-9_]+", hname):
+            raise ConfigError(f"{source}: series.hypotheses.{hname}: name hypotheses with letters, "
+                              "digits and underscores (they name output layers)")
+        for w in hwin:
+            if w not in labels and w not in periods:
+                raise ConfigError(
+                    f"{source}: series.hypotheses.{hname} names {w!r}, which is neither a slice "
                     f"label nor a period{_suggest(w, list(dict.fromkeys(periods + labels)), 'slice')}")
     if ser.dispersal_rate is not None:
         from timeslice.series.dispersal import parse_rate

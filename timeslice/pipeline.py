@@ -447,6 +447,7 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             neighbours=ser.graph_neighbours, factors=ser.partition_factors, records=records,
             records_source=source, max_offset_years=ser.hindcast_max_offset_years,
         )
+    sites = None
     if cfg.species.diversity is not None:
         from timeslice.series.genetics import read_diversity_table, stability_vs_diversity
 
@@ -456,6 +457,12 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             table = stability_vs_diversity(result.series, sites)
         result.tables["diversity"] = table
         result.tables["diversity_sites"] = table.attrs["sites"]
+    if ser.hypotheses:
+        from timeslice.series.hypotheses import compare_hypotheses
+
+        table, layers = compare_hypotheses(stack, ser.hypotheses, records=records, sites=sites)
+        result.tables["hypotheses"] = table
+        result.series = result.series.assign(dict(layers.data_vars))
     if cfg.biotic.partner is not None or cfg.biotic.competitor is not None:
         _apply_biotic(cfg, stack, result, window=window)
     if ser.zones is not None:

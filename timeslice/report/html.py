@@ -233,6 +233,7 @@ TABLE_TITLES = {
                          "under each threshold rule, beside threshold-free changes",
     "environment": "Each slice in environmental space: share of the niche's climates available (environmental availability) and share of land in the calibration climate (analog fraction)",
     "series_biotic": "Biotic limits: suitable area with and without the required partner and the competitor, and the share they remove",
+    "series_hypotheses": "Refugium hypotheses side by side: refugium area, dated records inside it (binomial test) and stability against genetic diversity (modified t-test)",
     "series_zones": "Zones (your polygons): suitable area, gain, loss, refugium and novel climate per zone and slice",
     "series_diversity": "Refugium hypothesis against genetic diversity (Dutilleul's modified t-test)",
     "series_diversity_sites": "Sampled populations: diversity, stability and distance to the nearest refugium",
