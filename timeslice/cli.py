@@ -81,7 +81,8 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
 
 
 def _guard(func):
-    """Turn any TimesliceError into one line on stderr and exit code 2."""
+    """Turn any TimesliceError, and an OS error on a named file, into one line on stderr and
+    exit code 2 (other exceptions are bugs and keep their traceback)."""
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
