@@ -666,7 +666,8 @@ def report_stage(
     if fit.importance is not None and fit.importance["importance_mean"].notna().any():
         figures.append(("Permutation importance of the predictors",
                         R.importance_bars(fit.importance, plots / "importance.png")))
-    if "threshold_sensitivity" in extra:
+    if "threshold_sensitivity" in extra and (
+            extra["threshold_sensitivity"]["slice"] != _reference(cfg)).any():
         figures.append(("Change in suitable area under each threshold rule (median and range "
                         "over models): how much the headline hangs on the threshold",
                         R.threshold_plot(extra["threshold_sensitivity"],
