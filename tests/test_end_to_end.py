@@ -539,3 +539,42 @@ def test_refugium_hypotheses_side_by_side(demo_run, tmp_path):
     bad.write_text(cfg.read_text().replace('lgm_only = ["21 ka BP"]', 'lgm_only = ["21 ka"]'))
     res = CliRunner().invoke(app, ["run", str(bad), "--out", str(tmp_path / "x")])
     assert res.exit_code == 2 and "series.hypotheses.lgm_only" in res.stderr
+
+
+def test_two_species_run_equals_two_one_species_runs(demo_run, tmp_path):
+    import shutil
+
+    out, data, _ = demo_run
+    text = _one_model_config(render_demo_config(".")).replace("maps = true", "maps = false")
+    head, sep, tail = text.partition("[species]")
+    species_block, _, rest = tail.partition("\n[niche]")
+    two = (head + "[[species]]" + species_block
+           + '\n[[species]]' + species_block.replace('name = "Nivalia demonstrata"',
+                                                     'name = "Nivalia altera"')
+           + 'niche = { threshold = "mtp" }\n'
+           + "\n[niche]" + rest)
+    cfg = data / "two.toml"
+    cfg.write_text(two)
+    multi = tmp_path / "multi"
+    shutil.copytree(out / ".cache", multi / ".cache")
+    res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(multi)])
+    assert res.exit_code == 0, res.output
+    a = multi / "species" / "Nivalia_demonstrata"
+    b = multi / "species" / "Nivalia_altera"
+    # species A is the demo run as it is; species B the same with its own threshold rule
+    pd.testing.assert_frame_equal(pd.read_csv(a / "summary.csv"), pd.read_csv(out / "summary.csv"))
+    single_b = data / "single_b.toml"
+    single_b.write_text(text.replace("[niche]\n", '[niche]\nthreshold = "mtp"\n', 1)
+                        .replace('threshold = "equal_ss"\n', "").replace('threshold = "max_sss"\n', ""))
+    ob = tmp_path / "b"
+    shutil.copytree(out / ".cache", ob / ".cache")
+    assert CliRunner().invoke(app, ["run", str(single_b), "--out", str(ob)]).exit_code == 0
+    pd.testing.assert_frame_equal(pd.read_csv(b / "summary.csv"), pd.read_csv(ob / "summary.csv"))
+    # richness is the sum of the two species' suitable layers
+    with open_series(multi / "assemblage.nc") as asm, open_series(a / "series.nc") as sa, \
+            open_series(b / "series.nc") as sb:
+        expect = (sa["suitable"] == 1).astype(int) + (sb["suitable"] == 1).astype(int)
+        np.testing.assert_array_equal(asm["richness"].values, expect.values)
+    t = pd.read_csv(multi / "tables" / "assemblage.csv")
+    assert (t["max_richness"] <= 2).all() and (t["area_all_species_km2"] <= t["area_any_species_km2"]).all()
+    assert json.loads((multi / "manifest.json").read_text())["status"] == "complete"

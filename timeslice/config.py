@@ -342,6 +342,8 @@ class SpeciesConfig(_Section):
     diversity: Path | None = None
     #: the diversity column of `diversity` (default: its only numeric column besides lon/lat)
     diversity_column: str | None = None
+    #: [niche] keys for this species only, when several species share one run
+    niche: dict[str, Any] = Field(default_factory=dict)
 
 
 class NicheConfig(_Section):
@@ -496,7 +498,8 @@ class Config(_Section):
     grid: GridConfig | None = None
     climate: ClimateConfig
     slices: list[SliceConfig] = Field(default_factory=list)
-    species: SpeciesConfig
+    #: one species, or several (`[[species]]`) over the same harmonised slices
+    species: SpeciesConfig | list[SpeciesConfig]
     niche: NicheConfig = Field(default_factory=NicheConfig)
     transfer: TransferConfig = Field(default_factory=TransferConfig)
     series: SeriesConfig = Field(default_factory=SeriesConfig)
@@ -505,6 +508,28 @@ class Config(_Section):
 
     #: path of the TOML file this came from (not a key)
     source: Path | None = Field(default=None, exclude=True)
+
+    @property
+    def multi_species(self) -> bool:
+        """True when the config lists several species (``[[species]]``)."""
+        return isinstance(self.species, list)
+
+    def species_configs(self) -> list[Config]:
+        """One config per species (the shared climate, series and output settings, that
+        species' records and its own `niche` keys laid over `[niche]`)."""
+        if not self.multi_species:
+            return [self]
+        out = []
+        for i, sp in enumerate(self.species):
+            try:
+                niche = NicheConfig.model_validate({**self.niche.model_dump(), **sp.niche})
+            except ValidationError as err:
+                raise ConfigError(_format_error(err, f"{self.source}: species[{i}].niche")) from err
+            sub = self.model_copy(update={"species": sp.model_copy(update={"niche": {}}),
+                                          "niche": niche})
+            sub.source = self.source
+            out.append(sub)
+        return out
 
     def climate_inputs(self) -> list[tuple[str, ClimateInput, str, str | None]]:
         """Every climate input of the run as ``(config key, input, role, model)``."""
@@ -540,6 +565,15 @@ class Config(_Section):
         for key, inp, role, model in self.climate_inputs():
             files[key] = inp.expand(key=f"{self.source}: {key}" if self.source else key,
                                     role=role, model=model)
+        if self.multi_species:
+            for i, sub in enumerate(self.species_configs()):
+                sp = sub.species
+                for key, path in (("occurrences", sp.occurrences),
+                                  ("dated_records", sp.dated_records),
+                                  ("diversity", sp.diversity)):
+                    if path is not None:
+                        files[f"species[{i}].{key}"] = [InputFile(Path(path))]
+            return files
         for key, path in (
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
@@ -560,6 +594,9 @@ class Config(_Section):
         """
         from timeslice.readers.filesets import check_file_set
 
+        if self.multi_species:
+            for sub in self.species_configs():
+                sub.check_files(headers=False)
         files = self.input_files()
         labels = [self.climate.baseline_label, *[s.label for s in self.slice_specs()]]
         for role, per in self.biotic.files(labels).items():
@@ -568,10 +605,12 @@ class Config(_Section):
                     raise InputFileError(
                         f"{self.source}: biotic.{role}: {str(path)!r} (slice {lab!r}) not found; "
                         "give one file per slice label ({label} in the pattern) or one file")
-        for key, path in (
+        species = [] if self.multi_species else [
             ("species.occurrences", self.species.occurrences),
             ("species.dated_records", self.species.dated_records),
-            ("species.diversity", self.species.diversity),
+            ("species.diversity", self.species.diversity)]
+        for key, path in (
+            *species,
             ("series.zones", self.series.zones),
             ("niche.calibration_mask", self.niche.calibration_mask),
             ("niche.background_file", self.niche.background_file),
@@ -768,6 +807,11 @@ def _resolve(base: Path | None, p: str | Path) -> Path:
     return p
 
 
+def _slug(name: str) -> str:
+    """Folder name of a species: letters, digits, dots, dashes and underscores."""
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", str(name)).strip("._") or "species"
+
+
 def _resolve_input(base: Path | None, inp: ClimateInput) -> ClimateInput:
     pats = [str(_resolve(base, p)) for p in inp.patterns()]
     return inp.model_copy(update={"files": pats if isinstance(inp.files, list) else pats[0]})
@@ -942,11 +986,21 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
                       else [str(_resolve(base, f)) for f in s.file])
     _check_patterns(cfg, str(source))
     _check_references(cfg, str(source))
-    cfg.species.occurrences = _resolve(base, cfg.species.occurrences)
-    if cfg.species.dated_records is not None:
-        cfg.species.dated_records = _resolve(base, cfg.species.dated_records)
-    if cfg.species.diversity is not None:
-        cfg.species.diversity = _resolve(base, cfg.species.diversity)
+    for sp in (cfg.species if cfg.multi_species else [cfg.species]):
+        sp.occurrences = _resolve(base, sp.occurrences)
+        if sp.dated_records is not None:
+            sp.dated_records = _resolve(base, sp.dated_records)
+        if sp.diversity is not None:
+            sp.diversity = _resolve(base, sp.diversity)
+    if cfg.multi_species:
+        names = [sp.name for sp in cfg.species]
+        slugs = [_slug(n) for n in names]
+        dup = sorted({n for n, g in zip(names, slugs) if slugs.count(g) > 1})
+        if len(names) < 2 or dup:
+            raise ConfigError(f"{source}: [[species]] needs at least two species with distinct "
+                              f"names (their output folders), got {names}")
+        for i, sub in enumerate(cfg.species_configs()):
+            _check_references(sub, f"{source}: species[{i}]")
     if cfg.series.zones is not None:
         cfg.series.zones = _resolve(base, cfg.series.zones)
     for role in ("partner", "competitor"):

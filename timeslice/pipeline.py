@@ -746,26 +746,33 @@ def run(
     force: bool = False,
     progress: Progress = _quiet,
     command: list[str] | None = None,
+    cache_dir: str | os.PathLike | None = None,
 ) -> RunResult:
     """Run every stage of `cfg` and write the outputs into `out`.
 
     Parameters
     ----------
     cfg : Config
-        Validated configuration (:func:`timeslice.config.load_config`).
+        Validated configuration (:func:`timeslice.config.load_config`). With several species
+        (``[[species]]``) each is run into ``out/species/NAME`` over the same harmonised
+        slices, and the assemblage is summarised in ``out`` (:func:`run_assemblage`).
     out : path
         Output folder; created if needed. Finished stages are cached in ``out/.cache``.
     force : bool
         Recompute every stage even if a cached result exists.
+    cache_dir : path, optional
+        Stage cache folder (default ``out/.cache``); species of one run share one.
     """
     from timeslice.report import write_manifest
 
+    if cfg.multi_species:
+        return run_assemblage(cfg, out, force=force, progress=progress, command=command)
     out = Path(out)
     # every input is expanded and its headers checked before the output folder is touched
     input_files = cfg.check_files()
     _make_out(out)
     started = _begin_run(out, cfg, command)
-    cache = StageCache(out / ".cache", force=force)
+    cache = StageCache(Path(cache_dir) if cache_dir is not None else out / ".cache", force=force)
     result = RunResult(out=out)
     t = result.timings
     from timeslice.transfer.scheduler import scheduler
@@ -842,8 +849,8 @@ def run(
 #: What a run writes in its folder (files, and folders whose every file is an output). A file
 #: there that the current run did not write is left over from an earlier run and is removed
 #: when the run completes, so the folder always holds one run.
-RUN_FILES = ("series.nc", "ensemble.nc", "summary.csv", "report.html")
-RUN_FOLDERS = ("maps", "plots", "tables", "geotiff", "vector")
+RUN_FILES = ("series.nc", "ensemble.nc", "summary.csv", "report.html", "assemblage.nc")
+RUN_FOLDERS = ("maps", "plots", "tables", "geotiff", "vector", "species")
 
 
 def _run_outputs(out: Path) -> list[Path]:
@@ -920,6 +927,78 @@ def _cell_km(ds: xr.Dataset) -> float:
         if bool(land.any()):
             area = area.where(land)
     return float(np.sqrt(float(area.mean())))
+
+
+def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
+                   progress: Progress = _quiet, command: list[str] | None = None) -> RunResult:
+    """Several species over the same slices: each species run into ``out/species/NAME`` (the
+    climate is harmonised once: every species reads the shared stage cache), then the
+    assemblage: predicted richness per cell and slice, its change against the reference and
+    the refugia the species share (``assemblage.nc``, ``tables/assemblage.csv``).
+
+    Species are run one after another and only the running richness sum is kept between them,
+    so peak memory does not grow with the number of species.
+    """
+    from timeslice.config import _slug
+    from timeslice.grid import cell_area
+    from timeslice.report import open_series, write_csv, write_manifest, write_series
+
+    out = Path(out)
+    input_files = cfg.check_files()
+    _make_out(out)
+    started = _begin_run(out, cfg, command)
+    result = RunResult(out=out)
+    richness = shared = None
+    names = []
+    for sub in cfg.species_configs():
+        name = sub.species.name
+        names.append(name)
+        res = run(sub, out / "species" / _slug(name), force=force, progress=progress,
+                  command=command, cache_dir=out / ".cache")
+        result.paths[f"species {name}"] = res.out
+        with open_series(res.out / "series.nc") as ds:
+            suit = (ds["suitable"] == 1).astype("int16").load()
+            refuge = next((v for v in ("refugium_window", "refugium_all_slices") if v in ds), None)
+            ref = ds[refuge].astype("int16").load() if refuge else None
+            coords = ds[["suitable"]].drop_vars("suitable").load()
+        richness = suit if richness is None else richness + suit
+        if ref is not None:
+            shared = ref if shared is None else shared + ref
+    reference = cfg.climate.baseline_label if cfg.series.reference == "baseline" else cfg.series.reference
+    land = richness.isel(slice=0) >= 0
+    layers = xr.Dataset(coords=coords.coords)
+    layers["richness"] = richness.assign_attrs(
+        units="1", long_name="predicted richness (number of species climatically suitable)")
+    layers["richness_change"] = (richness - richness.sel(slice=reference)).astype("int16").assign_attrs(
+        units="1", long_name=f"change in predicted richness against {reference}")
+    if shared is not None:
+        layers["shared_refugia"] = shared.assign_attrs(
+            units="1", long_name="number of species whose refugium the cell is")
+    result.paths["assemblage"] = write_series(
+        layers, out / "assemblage.nc", history=f"timeslice {__version__} assemblage",
+        title=f"{cfg.run.name}: assemblage of {len(names)} species")
+    area = cell_area(layers)
+    rows = []
+    for label in layers["slice"].values:
+        r = layers["richness"].sel(slice=label)
+        rows.append({"slice": str(label),
+                     "mean_richness": float((r * area).sum() / area.where(land).sum()),
+                     "max_richness": int(r.max()),
+                     "area_all_species_km2": float(area.where(r == len(names)).sum()),
+                     "area_any_species_km2": float(area.where(r >= 1).sum())})
+    table = pd.DataFrame(rows)
+    if shared is not None:
+        table.attrs["shared_refugia_km2"] = float(area.where(layers["shared_refugia"] == len(names)).sum())
+    result.paths["assemblage_table"] = write_csv(table, out / "tables" / "assemblage.csv")
+    written, removed = _finish_run(out, started)
+    result.paths["manifest"] = write_manifest(
+        {"status": "complete", "files": written, "removed_stale": removed,
+         "config": cfg.model_dump(mode="json"), "config_path": str(cfg.source),
+         "inputs": sorted({str(f.path) for fs in input_files.values() for f in fs}),
+         "seed": cfg.run.seed, "command": command or sys.argv, "species": names},
+        out / "manifest.json")
+    result.summary = table
+    return result
 
 
 def _make_out(out: Path) -> None:
