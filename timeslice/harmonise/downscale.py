@@ -10,7 +10,7 @@ import xarray as xr
 from timeslice.errors import DataError
 from timeslice.harmonise.regrid import regrid
 
-__all__ = ["anomalies", "delta", "enforce_min_le_max"]
+__all__ = ["anomalies", "delta"]
 
 _VARS = ("tasmin", "tasmax", "pr")
 
@@ -110,21 +110,6 @@ def anomalies(
     }
     out["pr"] = r
     return out
-
-
-def enforce_min_le_max(tasmin: xr.DataArray, tasmax: xr.DataArray):
-    """Where tasmin > tasmax set both to their midpoint; return (tasmin, tasmax, n_fixed).
-
-    The midpoint keeps the monthly mean temperature (Tmax + Tmin)/2 and sets the diurnal
-    range of that month to zero; `n_fixed` (a 0-d DataArray, lazy for dask input) counts the
-    (cell, month) pairs touched.
-    """
-    bad = tasmin > tasmax
-    mid = 0.5 * (tasmin + tasmax)
-    n = bad.sum()
-    new_min = xr.where(bad, mid, tasmin, keep_attrs=True)
-    new_max = xr.where(bad, mid, tasmax, keep_attrs=True)
-    return new_min, new_max, n
 
 
 def _blocked_fields(anom: xr.Dataset, fb: xr.Dataset, rows: int):
