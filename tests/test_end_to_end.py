@@ -27,6 +27,25 @@ def _one_model_config(text: str) -> str:
     return "\n".join(l for l in text.splitlines() if not l.startswith(("birch =", "cedar =")))
 
 
+def _with_cache(out, target):
+    """A fresh output folder that starts from the module run's stage cache (no refitting)."""
+    import shutil
+
+    shutil.copytree(out / ".cache", target / ".cache")
+    return target
+
+
+def _variant(data, name: str, *replacements: tuple[str, str]):
+    """The module's one-model demo config (no maps) with text replaced, written as NAME.toml."""
+    text = _one_model_config(render_demo_config(".")).replace("maps = true", "maps = false")
+    for old, new in replacements:
+        assert old in text, old
+        text = text.replace(old, new)
+    path = data / f"{name}.toml"
+    path.write_text(text)
+    return path
+
+
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("e2e")
@@ -228,8 +247,7 @@ def test_summarise_from_finished_run(demo_run, tmp_path):
     cfg = data / "ref21.toml"
     cfg.write_text(_one_model_config(render_demo_config(".")).replace(
         "maps = true", "maps = false").replace('reference = "baseline"', 'reference = "alder_21ka"'))
-    fresh = tmp_path / "fresh"
-    shutil.copytree(out / ".cache", fresh / ".cache")
+    fresh = _with_cache(out, tmp_path / "fresh")
     assert CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)]).exit_code == 0
     for name in ["summary.csv", *sorted(p.relative_to(work).as_posix()
                                         for p in (work / "tables").glob("*.csv"))]:
@@ -360,13 +378,10 @@ def test_refugium_hypothesis_against_invented_genetic_diversity(demo_run, tmp_pa
     pd.DataFrame({"site": [f"pop{i}" for i in range(25)], "lon": lo.ravel()[pick],
                   "lat": la.ravel()[pick], "hd": 0.1 + 0.6 * s + rng.normal(0, 0.03, 25)}
                  ).to_csv(data / "populations.csv", index=False)
-    cfg = data / "genetics.toml"
-    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
-        "maps = true", "maps = false").replace(
-        'dated_records = "./dated_records.csv"',
-        'dated_records = "./dated_records.csv"\ndiversity = "./populations.csv"'))
-    fresh = tmp_path / "g"
-    shutil.copytree(out / ".cache", fresh / ".cache")
+    cfg = _variant(data, "genetics", ('dated_records = "./dated_records.csv"',
+                                      'dated_records = "./dated_records.csv"\n'
+                                      'diversity = "./populations.csv"'))
+    fresh = _with_cache(out, tmp_path / "g")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
     assert res.exit_code == 0, res.output
     t = pd.read_csv(fresh / "tables" / "series_diversity.csv").set_index("predictor")
@@ -392,13 +407,9 @@ def test_zonal_summary_of_invented_protected_areas(demo_run, tmp_path):
               "geometry": shapely.geometry.mapping(g)} for n, g in (("core", mid), ("bay", sea))]
     (data / "reserves.geojson").write_text(json.dumps({"type": "FeatureCollection",
                                                        "features": feats}))
-    cfg = data / "zones.toml"
-    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
-        "maps = true", "maps = false").replace(
-        'dispersal_rate = "500 km/kyr"',
-        'dispersal_rate = "500 km/kyr"\nzones = "./reserves.geojson"'))
-    fresh = tmp_path / "z"
-    shutil.copytree(out / ".cache", fresh / ".cache")
+    cfg = _variant(data, "zones", ('dispersal_rate = "500 km/kyr"',
+                                   'dispersal_rate = "500 km/kyr"\nzones = "./reserves.geojson"'))
+    fresh = _with_cache(out, tmp_path / "z")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
     assert res.exit_code == 0, res.output
     t = pd.read_csv(fresh / "tables" / "series_zones.csv").set_index(["zone", "slice"])
@@ -467,11 +478,8 @@ def test_biotic_limits_from_invented_partner_layer(demo_run, tmp_path):
                       coords={"lat": ("lat", grid["lat"].values, {"units": "degrees_north"}),
                               "lon": ("lon", grid["lon"].values, {"units": "degrees_east"})})
     host.to_netcdf(data / "host.nc")
-    cfg = data / "biotic.toml"
-    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
-        "maps = true", "maps = false").replace("[output]", '[biotic]\npartner = "./host.nc"\n\n[output]'))
-    fresh = tmp_path / "b"
-    shutil.copytree(out / ".cache", fresh / ".cache")
+    cfg = _variant(data, "biotic", ("[output]", '[biotic]\npartner = "./host.nc"\n\n[output]'))
+    fresh = _with_cache(out, tmp_path / "b")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
     assert res.exit_code == 0, res.output
     t = pd.read_csv(fresh / "tables" / "series_biotic.csv").set_index("slice")
@@ -493,14 +501,12 @@ def test_fit_once_transfer_many(demo_run, tmp_path):
 
     out, data, _ = demo_run
     cfg = data / "demo.toml"
-    fitted = tmp_path / "f"
-    shutil.copytree(out / ".cache", fitted / ".cache")
+    fitted = _with_cache(out, tmp_path / "f")
     assert CliRunner().invoke(app, ["fit", str(cfg), "--out", str(fitted)]).exit_code == 0
     assert (fitted / "model.pkl").is_file()
     cfg2 = data / "from_model.toml"
     cfg2.write_text(cfg.read_text().replace("[niche]\n", f'[niche]\nmodel = "{fitted / "model.pkl"}"\n'))
-    again = tmp_path / "t"
-    shutil.copytree(out / ".cache", again / ".cache")
+    again = _with_cache(out, tmp_path / "t")
     res = CliRunner().invoke(app, ["run", str(cfg2), "--out", str(again)])
     assert res.exit_code == 0, res.output
     # the same fitted model transferred again gives the same series
@@ -516,14 +522,10 @@ def test_refugium_hypotheses_side_by_side(demo_run, tmp_path):
     import shutil
 
     out, data, _ = demo_run
-    cfg = data / "hyp.toml"
-    cfg.write_text(_one_model_config(render_demo_config(".")).replace(
-        "maps = true", "maps = false").replace(
-        'dispersal_rate = "500 km/kyr"',
-        'dispersal_rate = "500 km/kyr"\nhypotheses = { lgm_only = ["21 ka BP"], '
-        'glacial_to_present = ["21 ka BP", "6 ka BP", "1981-2010"] }'))
-    fresh = tmp_path / "h"
-    shutil.copytree(out / ".cache", fresh / ".cache")
+    cfg = _variant(data, "hyp", ('dispersal_rate = "500 km/kyr"',
+                                 'dispersal_rate = "500 km/kyr"\nhypotheses = { lgm_only = ["21 ka BP"], '
+                                 'glacial_to_present = ["21 ka BP", "6 ka BP", "1981-2010"] }'))
+    fresh = _with_cache(out, tmp_path / "h")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
     assert res.exit_code == 0, res.output
     t = pd.read_csv(fresh / "tables" / "series_hypotheses.csv").set_index("hypothesis")
@@ -555,8 +557,7 @@ def test_two_species_run_equals_two_one_species_runs(demo_run, tmp_path):
            + "\n[niche]" + rest)
     cfg = data / "two.toml"
     cfg.write_text(two)
-    multi = tmp_path / "multi"
-    shutil.copytree(out / ".cache", multi / ".cache")
+    multi = _with_cache(out, tmp_path / "multi")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(multi)])
     assert res.exit_code == 0, res.output
     a = multi / "species" / "Nivalia_demonstrata"
@@ -566,8 +567,7 @@ def test_two_species_run_equals_two_one_species_runs(demo_run, tmp_path):
     single_b = data / "single_b.toml"
     single_b.write_text(text.replace("[niche]\n", '[niche]\nthreshold = "mtp"\n', 1)
                         .replace('threshold = "equal_ss"\n', "").replace('threshold = "max_sss"\n', ""))
-    ob = tmp_path / "b"
-    shutil.copytree(out / ".cache", ob / ".cache")
+    ob = _with_cache(out, tmp_path / "b")
     assert CliRunner().invoke(app, ["run", str(single_b), "--out", str(ob)]).exit_code == 0
     pd.testing.assert_frame_equal(pd.read_csv(b / "summary.csv"), pd.read_csv(ob / "summary.csv"))
     # richness is the sum of the two species' suitable layers
