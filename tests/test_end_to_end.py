@@ -578,3 +578,16 @@ def test_two_species_run_equals_two_one_species_runs(demo_run, tmp_path):
     t = pd.read_csv(multi / "tables" / "assemblage.csv")
     assert (t["max_richness"] <= 2).all() and (t["area_all_species_km2"] <= t["area_any_species_km2"]).all()
     assert json.loads((multi / "manifest.json").read_text())["status"] == "complete"
+
+
+def test_rerun_of_a_manifest_without_config_is_one_line(demo_run, tmp_path):
+    import shutil
+
+    out, _, _ = demo_run
+    work = tmp_path / "copy"
+    shutil.copytree(out, work)
+    m = json.loads((work / "manifest.json").read_text())
+    del m["config"]
+    (work / "manifest.json").write_text(json.dumps(m))
+    res = CliRunner().invoke(app, ["rerun", str(work / "manifest.json")])
+    assert res.exit_code == 2 and "no configuration table" in res.stderr

@@ -1148,6 +1148,9 @@ def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
 
     _require_complete(Path(manifest).resolve().parent, "timeslice rerun")
     info = read_manifest(manifest, verify=True)
+    if not isinstance(info.get("config"), dict):
+        raise InputFileError(f"{manifest}: the manifest holds no configuration table, so the run "
+                             "cannot be repeated from it; start a new run from the config file")
     cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
     target = Path(out) if out is not None else Path(manifest).resolve().parent
     return run(cfg, target, force=True, progress=progress,
