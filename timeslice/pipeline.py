@@ -652,6 +652,15 @@ def report_stage(
     plots = out / "plots"
     figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
     figures.extend(inputs.get("extra_figures", []))
+    env = inputs.get("environment")
+    if env is not None and len(env) > 1:
+        for col, words in (("environmental_availability", "share of the niche's climates "
+                            "still found on the slice's land"),
+                           ("analog_fraction", "share of the slice's land in the calibration "
+                            "climate")):
+            figures.append((f"Through time: {words}", R.area_through_time(
+                env, plots / f"{col}.png", column=col, ylabel=col.replace("_", " "),
+                title=words[0].upper() + words[1:])))
     figures.append(("Gain and loss per slice", R.gain_loss_bars(summary, plots / "gain_loss.png")))
     figures.append(("Range-centroid track", R.centroid_track(
         summary, plots / "centroid_track.png", land=series["land"].isel(slice=0),

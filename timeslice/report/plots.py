@@ -135,8 +135,11 @@ def _chains(df: pd.DataFrame, kind: str, value: str):
         yield str(scen), str(model), x[order], g[value].to_numpy(float)[order]
 
 
-def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110) -> Path:
-    """Suitable area through time per scenario: median across models, min-max band, members.
+def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110,
+                      column: str = "suitable_area_km2", ylabel: str = "suitable area (km²)",
+                      title: str = "Climatically suitable area through time") -> Path:
+    """Suitable area (or another per-slice `column`) through time per scenario: median across
+    models, min-max band, members.
 
     Every chain starts at the baseline slice. Past slices (scenario "past" or before
     :data:`PAST_BEFORE_YEAR`) go on a left panel in ka BP, future ones on a right panel in
@@ -153,7 +156,7 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
     -------
     pathlib.Path
     """
-    _need(summary, ("year", "model", "scenario", "suitable_area_km2"), "area_through_time")
+    _need(summary, ("year", "model", "scenario", column), "area_through_time")
     df = summary.copy()
     df["scenario"] = df["scenario"].astype(str)
     colours = _colours(df["scenario"])
@@ -162,17 +165,17 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
     for ax, kind in row:
         rows = _rows_for(df, kind)
         base = rows[rows["scenario"] == "baseline"]
-        for scen, _model, x, y in _chains(df, kind, "suitable_area_km2"):
+        for scen, _model, x, y in _chains(df, kind, column):
             ax.plot(x, y, color=colours[scen], alpha=0.35, linewidth=0.8, marker=".",
                     markersize=3)
         others = rows[rows["scenario"] != "baseline"]
         for scen, g in others.groupby("scenario", sort=True):
-            stats = g.assign(_x=_x(g, kind)).groupby("_x")["suitable_area_km2"].agg(
+            stats = g.assign(_x=_x(g, kind)).groupby("_x")[column].agg(
                 ["median", "min", "max"])
             x = stats.index.to_numpy(float)
             med, lo, hi = (stats[k].to_numpy(float) for k in ("median", "min", "max"))
             if len(base):
-                bx, ba = _x(base, kind)[0], float(base["suitable_area_km2"].iloc[0])
+                bx, ba = _x(base, kind)[0], float(base[column].iloc[0])
                 x, med, lo, hi = np.r_[bx, x], np.r_[ba, med], np.r_[ba, lo], np.r_[ba, hi]
                 order = np.argsort(x)
                 x, med, lo, hi = x[order], med[order], lo[order], hi[order]
@@ -182,15 +185,16 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
                     label=f"{scen}: median and range of {n_models} model"
                           f"{'s' if n_models != 1 else ''}")
         if len(base):
-            ax.plot(_x(base, kind), base["suitable_area_km2"], marker="o", color="black",
+            ax.plot(_x(base, kind), base[column], marker="o", color="black",
                     linestyle="none", label="baseline")
         _label_time(ax, kind)
         ax.grid(alpha=0.3)
         ax.legend(fontsize=7)
     ax0 = row[0][0]
-    ax0.set_ylabel("suitable area (km²)")
-    _thousands(ax0)
-    fig.suptitle("Climatically suitable area through time", fontsize=11)
+    ax0.set_ylabel(ylabel)
+    if column.endswith("_km2"):
+        _thousands(ax0)
+    fig.suptitle(title, fontsize=11)
     return _save(fig, path, dpi)
 
 
