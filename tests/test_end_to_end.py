@@ -35,9 +35,21 @@ def _with_cache(out, target):
     return target
 
 
+def _without_extras(text: str) -> str:
+    """The demo config without its invented partner, populations, hypotheses and reserves (for
+    tests that bring their own)."""
+    import re
+
+    text = re.sub(r"\n\[biotic\]\n(?:[^\n\[]*\n)*", "\n", text)
+    return "\n".join(l for l in text.splitlines()
+                     if not l.startswith(("diversity = ", "zones = ", "hypotheses = ")))
+
+
 def _variant(data, name: str, *replacements: tuple[str, str]):
-    """The module's one-model demo config (no maps) with text replaced, written as NAME.toml."""
-    text = _one_model_config(render_demo_config(".")).replace("maps = true", "maps = false")
+    """The module's one-model demo config (no maps, without the demo's own biotic, genetic,
+    hypothesis and zone inputs) with text replaced, written as NAME.toml."""
+    text = _without_extras(_one_model_config(render_demo_config(".")).replace(
+        "maps = true", "maps = false"))
     for old, new in replacements:
         assert old in text, old
         text = text.replace(old, new)
@@ -377,10 +389,10 @@ def test_refugium_hypothesis_against_invented_genetic_diversity(demo_run, tmp_pa
     # invented populations whose diversity rises with stability
     pd.DataFrame({"site": [f"pop{i}" for i in range(25)], "lon": lo.ravel()[pick],
                   "lat": la.ravel()[pick], "hd": 0.1 + 0.6 * s + rng.normal(0, 0.03, 25)}
-                 ).to_csv(data / "populations.csv", index=False)
+                 ).to_csv(data / "test_populations.csv", index=False)
     cfg = _variant(data, "genetics", ('dated_records = "./dated_records.csv"',
                                       'dated_records = "./dated_records.csv"\n'
-                                      'diversity = "./populations.csv"'))
+                                      'diversity = "./test_populations.csv"'))
     fresh = _with_cache(out, tmp_path / "g")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
     assert res.exit_code == 0, res.output
@@ -405,10 +417,10 @@ def test_zonal_summary_of_invented_protected_areas(demo_run, tmp_path):
                       float(lat.min()) + 0.5)
     feats = [{"type": "Feature", "properties": {"name": n},
               "geometry": shapely.geometry.mapping(g)} for n, g in (("core", mid), ("bay", sea))]
-    (data / "reserves.geojson").write_text(json.dumps({"type": "FeatureCollection",
+    (data / "test_reserves.geojson").write_text(json.dumps({"type": "FeatureCollection",
                                                        "features": feats}))
     cfg = _variant(data, "zones", ('dispersal_rate = "500 km/kyr"',
-                                   'dispersal_rate = "500 km/kyr"\nzones = "./reserves.geojson"'))
+                                   'dispersal_rate = "500 km/kyr"\nzones = "./test_reserves.geojson"'))
     fresh = _with_cache(out, tmp_path / "z")
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(fresh)])
     assert res.exit_code == 0, res.output
@@ -591,3 +603,22 @@ def test_rerun_of_a_manifest_without_config_is_one_line(demo_run, tmp_path):
     (work / "manifest.json").write_text(json.dumps(m))
     res = CliRunner().invoke(app, ["rerun", str(work / "manifest.json")])
     assert res.exit_code == 2 and "no configuration table" in res.stderr
+
+
+def test_demo_exercises_the_parts_beyond_the_climate_niche(demo_run):
+    # the shipped demo config carries an invented host plant, invented populations, refugium
+    # hypotheses and invented reserves: each gives its table
+    out, data, _ = demo_run
+    for name in ("environment", "series_biotic", "series_diversity", "series_hypotheses",
+                 "series_zones"):
+        assert (out / "tables" / f"{name}.csv").is_file(), name
+    with xr.open_dataset(data / "host_plant.nc") as host, open_series(out / "series.nc") as ds:
+        # the host file is on the baseline grid: the constraint is plain cell-by-cell
+        present = (host["host_presence"].values >= 0.5)
+        s = ds["suitable"].values
+        expect = np.where(s == 1, (present[None] & (s == 1)).astype("i1"), s)
+        np.testing.assert_array_equal(ds["suitable_biotic"].values, expect)
+    zones = pd.read_csv(out / "tables" / "series_zones.csv")
+    assert set(zones["zone"]) == {"Highland Reserve", "Southwest Coast Reserve"}
+    env = pd.read_csv(out / "tables" / "environment.csv").set_index("slice")
+    assert env.loc["baseline", "environmental_availability"] == 1.0  # the niche's own climate

@@ -15,6 +15,9 @@ the same files bit for bit (no timestamps are written). :func:`generate` writes
 - ``models/<model>/<slice>.nc``: raw model output on a 1 degree grid (K, kg m-2 s-1,
   longitudes 0..360, ``cedar`` with descending latitude, calendars noleap / 360_day);
 - ``occurrences.csv`` (Darwin Core columns), ``dated_records.csv``;
+- ``host_plant.nc``, ``populations.csv``, ``reserves.geojson``: an invented host plant the
+  species needs, invented sampled populations with a haplotype diversity, two invented
+  reserves (for the biotic, genetic and zonal parts of a run);
 - ``truth.json``: the niche parameters, the true niche area and what was put in.
 """
 
@@ -839,6 +842,10 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
     _write_text(_rows_to_csv(dated, ["record_id", "lon", "lat", "age_bp", "age_sd", "material"]),
                 paths["dated_records"])
 
+    # invented partner, sampled populations and reserves: their own stream of random numbers,
+    # so the other files stay the same
+    paths.update(_write_extras(w, out, seed, prob=prob, prob21=prob21))
+
     if target_group:
         # its own stream of random numbers, so the other files stay the same
         tg_rows = _target_group(np.random.default_rng([int(seed), 2]), w)
@@ -1043,6 +1050,60 @@ def _write_baseline(w: _World, path: Path, seed: int) -> Path:
                                           note="values over sea are missing on purpose"))
     _write_nc(base, path, {v: _float_enc() for v in ("tasmin", "tasmax", "pr")})  # quantised
     return path
+
+
+#: The invented host plant of the demo (a required partner): present on land below this
+#: elevation, m (invented).
+HOST_MAX_ELEVATION_M = 1400.0
+
+
+def _write_extras(w: _World, out: Path, seed: int, *, prob: np.ndarray,
+                  prob21: np.ndarray) -> dict[str, Path]:
+    """Invented data for the tests beyond the climate niche: a host plant the species needs
+    (``host_plant.nc``), sampled populations with a haplotype diversity that rises where the
+    niche was suitable both at 21 ka and today (``populations.csv``), and two reserves
+    (``reserves.geojson``). All invented."""
+    rng = np.random.default_rng([int(seed), 3])
+    paths: dict[str, Path] = {}
+    coords, bnds = _coord_vars(w.lon, w.lat, res=w.res)
+    host = np.where(w.land, (w.z < HOST_MAX_ELEVATION_M).astype("float32"), np.nan)
+    ds = xr.Dataset(
+        {"host_presence": (("lat", "lon"), host.astype("float32"), {
+            "units": "1", "long_name": "presence of the invented host plant Hospes fictus",
+            "description": f"invented: present on land below {HOST_MAX_ELEVATION_M:g} m, the "
+                           "same in every slice"}), **bnds},
+        coords=coords, attrs=_global_attrs(seed))
+    paths["host_plant"] = out / "host_plant.nc"
+    _write_nc(ds, paths["host_plant"], {"host_presence": _float_enc()})
+    # populations: 24 sites where the species occurs today (p >= 0.2), diversity from the
+    # invented history (stable since 21 ka: higher)
+    lat2, lon2 = np.meshgrid(w.lat, w.lon, indexing="ij")
+    cand = np.flatnonzero((w.land & (prob >= 0.2)).ravel())
+    pick = np.sort(rng.choice(cand, min(24, cand.size), replace=False))
+    stable = np.minimum(prob, prob21).ravel()[pick]
+    hd = np.clip(0.15 + 0.6 * stable + rng.normal(0.0, 0.04, pick.size), 0.0, 1.0)
+    rows = [{"population": f"P{i + 1:02d}", "lon": round(float(lon2.ravel()[j]), 4),
+             "lat": round(float(lat2.ravel()[j]), 4), "haplotype_diversity": round(float(h), 3)}
+            for i, (j, h) in enumerate(zip(pick, hd))]
+    paths["populations"] = out / "populations.csv"
+    _write_text(_rows_to_csv(rows, ["population", "lon", "lat", "haplotype_diversity"]),
+                paths["populations"])
+    # reserves: boxes on whole half degrees (edges on cell edges at any demo resolution)
+    zmax = np.unravel_index(np.argmax(np.where(w.land, w.z, -np.inf)), w.z.shape)
+    cx, cy = np.floor(w.lon[zmax[1]] * 2) / 2, np.floor(w.lat[zmax[0]] * 2) / 2
+    land_lat = w.lat[w.land.any(axis=1)]
+    land_lon = w.lon[w.land.any(axis=0)]
+    sx, sy = np.ceil(land_lon.min() * 2) / 2, np.ceil(land_lat.min() * 2) / 2
+    boxes = {"Highland Reserve": (cx - 1.0, cy - 1.0, cx + 1.0, cy + 1.0),
+             "Southwest Coast Reserve": (sx, sy, sx + 1.5, sy + 1.0)}
+    feats = [{"type": "Feature", "properties": {"name": name},
+              "geometry": {"type": "Polygon", "coordinates": [[
+                  [x0, y0], [x1, y0], [x1, y1], [x0, y1], [x0, y0]]]}}
+             for name, (x0, y0, x1, y1) in boxes.items()]
+    paths["reserves"] = out / "reserves.geojson"
+    _write_text(json.dumps({"type": "FeatureCollection", "name": "invented reserves",
+                            "features": _jsonable(feats)}, indent=1) + "\n", paths["reserves"])
+    return paths
 
 
 def _write_ice(p: dict, path: Path, seed: int) -> Path:

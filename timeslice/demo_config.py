@@ -81,6 +81,8 @@ sea_level = 0.8
 name = "Nivalia demonstrata"
 occurrences = "{data}/occurrences.csv"
 dated_records = "{data}/dated_records.csv"
+# invented sampled populations: is diversity higher where the refugia are?
+diversity = "{data}/populations.csv"
 
 [niche]
 # defaults chosen by the truth benchmark (docs/truth.md): with the maximum sensitivity +
@@ -112,6 +114,14 @@ reference = "baseline"
 # refugia: suitable at 21 ka, 6 ka and today in every model
 refugium_window = ["21 ka BP", "6 ka BP", "1981-2010"]
 dispersal_rate = "500 km/kyr"
+# refugium hypotheses compared side by side against the dated records and the populations
+hypotheses = {{ glacial_only = ["21 ka BP"], glacial_to_present = ["21 ka BP", "6 ka BP", "1981-2010"] }}
+# invented reserves: suitable area, change and refugia inside each
+zones = "{data}/reserves.geojson"
+
+[biotic]
+# the invented host plant the species needs (the climatic layers stay unchanged)
+partner = "{data}/host_plant.nc"
 
 [output]
 maps = true
