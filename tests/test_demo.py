@@ -43,7 +43,8 @@ def _tavg_annual(base: xr.Dataset) -> xr.DataArray:
 
 def test_pinned_files_are_written(demo_dir):
     out, paths = demo_dir
-    expected = {"baseline", "dem", "ice_21ka", "occurrences", "dated_records", "truth"}
+    expected = {"baseline", "dem", "ice_21ka", "occurrences", "dated_records", "truth",
+                "host_plant", "populations", "reserves"}
     expected |= {f"{m}/{s}" for m in MODELS for s in SLICES}
     assert set(paths) == expected
     for key in ("baseline.nc", "dem.nc", "ice_21ka.nc", "occurrences.csv", "dated_records.csv",
