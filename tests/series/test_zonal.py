@@ -82,9 +82,27 @@ def test_zonal_table_and_reader(tmp_path):
     assert t.loc[("middle", "a"), "suitable_km2"] == pytest.approx(area[:, 1].sum())
     assert t.loc[("middle", "a"), "refugium_share"] == pytest.approx(0.5, rel=1e-9)
     (tmp_path / "zones.gpkg").write_text("x")
-    with pytest.raises(InputFileError, match="convert the file first"):
+    with pytest.raises(InputFileError, match="zones.gpkg"):
         read_zones(tmp_path / "zones.gpkg")
     path.write_text(json.dumps({"type": "FeatureCollection", "features": features,
                                 "crs": {"type": "name", "properties": {"name": "EPSG:3035"}}}))
     with pytest.raises(DataError, match="EPSG:3035"):
         read_zones(path)
+
+
+def test_geopackage_and_shapefile_read_like_geojson(tmp_path):
+    # written with pyogrio (GDAL) and read back: the same zones as the GeoJSON
+    pyogrio = pytest.importorskip("pyogrio")
+    boxes = {"west": shapely.box(0, 40, 2, 44), "east": shapely.box(2, 40, 4, 44)}
+    for name in ("zones.gpkg", "zones.shp"):
+        pyogrio.raw.write(tmp_path / name, geometry=shapely.to_wkb(list(boxes.values())),
+                          field_data=[np.array(list(boxes), dtype=object)], fields=["name"],
+                          geometry_type="Polygon", crs="EPSG:4326")
+        zones = dict(read_zones(tmp_path / name))
+        assert set(zones) == {"west", "east"}
+        assert zones["west"].equals(boxes["west"])
+    pyogrio.raw.write(tmp_path / "lambert.gpkg", geometry=shapely.to_wkb([boxes["west"]]),
+                      field_data=[np.array(["w"], dtype=object)], fields=["name"],
+                      geometry_type="Polygon", crs="EPSG:3035")
+    with pytest.raises(DataError, match="EPSG:3035"):
+        read_zones(tmp_path / "lambert.gpkg")

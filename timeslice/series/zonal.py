@@ -40,10 +40,8 @@ def read_zones(path: str | os.PathLike, *, name_field: str | None = None) -> lis
     p = Path(path)
     if not p.is_file():
         raise InputFileError(f"{p}: zones file not found; check series.zones")
-    if p.suffix.lower() in (".gpkg", ".shp", ".kml", ".gml"):
-        raise InputFileError(
-            f"{p}: timeslice reads zones from GeoJSON; convert the file first, e.g. "
-            f"`ogr2ogr -f GeoJSON -t_srs EPSG:4326 {p.stem}.geojson {p.name}`")
+    if p.suffix.lower() in (".gpkg", ".shp", ".kml", ".gml", ".fgb"):
+        return _read_with_gdal(p, name_field=name_field)
     try:
         data = json.loads(p.read_text(encoding="utf-8"))
     except (json.JSONDecodeError, UnicodeDecodeError) as err:
@@ -74,6 +72,45 @@ def read_zones(path: str | os.PathLike, *, name_field: str | None = None) -> lis
     if dup:
         raise DataError(f"{p}: zone names repeat ({dup[:5]}); give series.zones_name_field "
                         "with a unique property")
+    return out
+
+
+def _read_with_gdal(p: Path, *, name_field: str | None) -> list[tuple[str, object]]:
+    """GeoPackage, shapefile and other GDAL vector formats through pyogrio (optional)."""
+    try:
+        import pyogrio
+    except ImportError as err:
+        raise InputFileError(
+            f"{p}: reading {p.suffix} zones needs the optional package pyogrio (pip install "
+            f"pyogrio), or convert the file to GeoJSON: `ogr2ogr -f GeoJSON -t_srs EPSG:4326 "
+            f"{p.stem}.geojson {p.name}`") from err
+    import shapely
+
+    try:
+        meta = pyogrio.read_info(p)
+        arrays = pyogrio.raw.read(p)
+    except Exception as err:  # GDAL's own error types
+        raise InputFileError(f"{p}: cannot be read as a vector file ({type(err).__name__}); "
+                             "give a GeoPackage, shapefile or GeoJSON of polygons") from err
+    crs = str(meta.get("crs") or "")
+    if crs and crs.upper() not in {c.upper() for c in _LONLAT_CRS}:
+        raise DataError(f"{p}: the polygons are in {crs!r}; give them in longitude/latitude "
+                        f"(EPSG:4326), e.g. `ogr2ogr -t_srs EPSG:4326 out.gpkg {p.name}`")
+    _meta, _fids, geometry, fields = arrays
+    names = list(_meta.get("fields", []))
+    geoms = shapely.from_wkb(geometry)
+    key = name_field or ("name" if "name" in names else None)
+    if name_field and name_field not in names:
+        raise DataError(f"{p}: no field {name_field!r} (has {names[:10]})")
+    labels = ([str(v) for v in fields[names.index(key)]] if key
+              else [str(i + 1) for i in range(len(geoms))])
+    out = []
+    for i, (label, g) in enumerate(zip(labels, geoms)):
+        if g is None or g.geom_type not in ("Polygon", "MultiPolygon"):
+            raise DataError(f"{p}: feature {i + 1} is not a polygon")
+        out.append((label, g if g.is_valid else g.buffer(0)))
+    if len({n for n, _ in out}) != len(out):
+        raise DataError(f"{p}: zone names repeat; give series.zones_name_field with a unique field")
     return out
 
 
