@@ -652,6 +652,16 @@ def report_stage(
     plots = out / "plots"
     figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
     figures.extend(inputs.get("extra_figures", []))
+    div_sites = analysis.tables.get("diversity_sites") if analysis is not None else None
+    if div_sites is not None and "stability" in div_sites:
+        from timeslice.report.plots import diversity_plot
+
+        layer = analysis.tables["diversity"]["layer"].iloc[0] if len(analysis.tables["diversity"]) else None
+        if layer in series:
+            figures.append(("Sampled populations: genetic diversity against stability, and the "
+                            "sites on the stability map",
+                            diversity_plot(div_sites, analysis.tables["diversity"],
+                                           series[layer], plots / "diversity.png")))
     env = inputs.get("environment")
     if env is not None and len(env) > 1:
         for col, words in (("environmental_availability", "share of the niche's climates "

@@ -250,3 +250,18 @@ def test_novelty_colour_ranges_are_fixed_across_runs():
     b = maps._norm("mess", np.array([-300.0, 90.0]))
     assert (a.vmin, a.vcenter, a.vmax) == (b.vmin, b.vcenter, b.vmax) == (-50.0, 0.0, 50.0)
     assert maps._norm("nt2", np.array([0.1])).vmax == maps._norm("nt2", np.array([9.0])).vmax
+
+
+def test_diversity_plot_draws(tmp_path):
+    import xarray as xr
+
+    from timeslice.report.plots import diversity_plot
+
+    stab = xr.DataArray(np.linspace(0, 1, 20).reshape(4, 5), dims=("lat", "lon"),
+                        coords={"lat": np.arange(4.0), "lon": np.arange(5.0)})
+    sites = pd.DataFrame({"lon": [0.0, 2.0, 4.0], "lat": [0.0, 1.0, 3.0],
+                          "diversity": [0.2, 0.4, 0.7], "stability": [0.0, 0.3, 0.9]})
+    table = pd.DataFrame({"predictor": ["stability"], "r": [0.99], "p_value": [0.05],
+                          "n_effective": [3.0]})
+    path = diversity_plot(sites, table, stab, tmp_path / "d.png", dpi=40)
+    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -490,3 +490,47 @@ def threshold_plot(thresholds: pd.DataFrame, path: str | os.PathLike, *,
     ax.grid(axis="x", alpha=0.3)
     ax.legend(fontsize=7, loc="best")
     return _save(fig, path, dpi)
+
+
+def diversity_plot(sites: pd.DataFrame, table: pd.DataFrame, stability,
+                   path: str | os.PathLike, *, dpi: int = 110) -> Path:
+    """Sampled populations against the refugium hypothesis: diversity against stability
+    (with Pearson r and Dutilleul's modified-t p-value) and the sites on the stability map.
+
+    Parameters
+    ----------
+    sites : pandas.DataFrame
+        Per site ``lon``, ``lat``, ``diversity``, ``stability`` (the diversity-sites table).
+    table : pandas.DataFrame
+        The diversity test table (``predictor``, ``r``, ``p_value``, ``n_effective``).
+    stability : xarray.DataArray
+        The stability layer the sites were read from, ``(lat, lon)``.
+    path : path-like
+        PNG file.
+    """
+    _need(sites, ("lon", "lat", "diversity", "stability"), "diversity_plot")
+    fig = Figure(figsize=(9.0, 3.8))
+    ax1, ax2 = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1, 1.25]})
+    fig.subplots_adjust(left=0.08, right=0.95, bottom=0.15, top=0.86, wspace=0.3)
+    ax1.scatter(sites["stability"], sites["diversity"], s=14, c="k")
+    row = table.set_index("predictor").loc["stability"] if "stability" in set(table["predictor"]) else None
+    if row is not None:
+        ax1.set_title(f"r = {row['r']:.2f}, p = {row['p_value']:.3g} "
+                      f"(modified t, effective n {row['n_effective']:.1f})", fontsize=8)
+    ax1.set_xlabel("stability at the site (share of the window's slices suitable)", fontsize=8)
+    ax1.set_ylabel("genetic diversity", fontsize=8)
+    ax1.grid(alpha=0.3)
+    lon, lat = stability["lon"].values, stability["lat"].values
+    mesh = ax2.pcolormesh(lon, lat, np.asarray(stability.transpose("lat", "lon").values),
+                          cmap="viridis", vmin=0, vmax=1, shading="nearest")
+    ax2.scatter(sites["lon"], sites["lat"], s=18, c=sites["diversity"], cmap="magma",
+                edgecolors="white", linewidths=0.6)
+    ax2.set_aspect(1.0 / max(np.cos(np.deg2rad(float(np.mean(lat)))), 0.1))
+    ax2.set_title("sites (colour: diversity) over stability", fontsize=8)
+    ax2.tick_params(labelsize=7)
+    from matplotlib.ticker import MaxNLocator
+
+    ax2.xaxis.set_major_locator(MaxNLocator(5))
+    fig.colorbar(mesh, ax=ax2, shrink=0.8, label="stability")
+    fig.suptitle("Refugium hypothesis against genetic diversity", fontsize=10)
+    return _save(fig, path, dpi)
