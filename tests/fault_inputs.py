@@ -33,6 +33,8 @@ def demo_mapping(*, models: tuple[str, ...] = ("alder",), slices: tuple[str, ...
                 for s in data["slices"]} | {data["climate"]["baseline_period"]}
         data["series"]["refugium_window"] = [w for w in data["series"]["refugium_window"]
                                              if w in kept]
+        hyp = {k: [w for w in v if w in kept] for k, v in data["series"].get("hypotheses", {}).items()}
+        data["series"]["hypotheses"] = {k: v for k, v in hyp.items() if v}
     data["output"]["maps"] = maps
     data["output"]["report"] = report
     return data
