@@ -506,7 +506,9 @@ def test_unwritable_output_folder(tmp_path):
     ro.mkdir()
     ro.chmod(0o500)
     try:
-        with pytest.raises(ConfigError, match="not writable"):
+        from timeslice.errors import InputFileError
+
+        with pytest.raises(InputFileError, match="not writable"):
             demo.generate(ro, resolution=0.5)
     finally:
         ro.chmod(0o700)

@@ -808,18 +808,9 @@ def generate(out_dir: str | os.PathLike, *, seed: int = DEFAULT_SEED,
         raise ConfigError(f"demo `seed` must be an integer, got {seed!r}")
     k = _check_resolution(resolution)
     res = MODEL_RESOLUTION / k
-    out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise ConfigError(f"demo output folder {str(out)!r} is a file; give a folder path")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
-        raise ConfigError(
-            f"cannot create the demo output folder {str(out)!r} ({err.strerror}); "
-            "choose a writable folder"
-        ) from None
-    if not os.access(out, os.W_OK):
-        raise ConfigError(f"demo output folder {str(out)!r} is not writable; choose another")
+    from timeslice.io import writable_folder
+
+    out = writable_folder(out_dir, what="demo output folder")
     rng = np.random.default_rng(seed)
     p = _landscape_params(rng)
     w = _World(p, res, k)

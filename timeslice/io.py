@@ -10,7 +10,7 @@ import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
-__all__ = ["atomic_path", "file_stem"]
+__all__ = ["atomic_path", "file_stem", "writable_folder"]
 
 
 @contextlib.contextmanager
@@ -57,3 +57,28 @@ def file_stem(text: str) -> str:
     stem = _NOT_IN_NAMES.sub("_", str(text)).strip("_") or "unnamed"
     # "." and ".." are folders, not names
     return stem if stem.strip(".") else "unnamed"
+
+
+def writable_folder(path: str | os.PathLike, *, what: str = "--out") -> Path:
+    """Create `path` if needed and check it is a writable folder; one-line error naming `what`.
+
+    Raises
+    ------
+    timeslice.errors.InputFileError
+        The path is a file, cannot be created, or is not writable.
+    """
+    from timeslice.errors import InputFileError
+
+    out = Path(path)
+    if out.exists() and not out.is_dir():
+        raise InputFileError(f"{what} {str(out)!r} is a file; give a folder path")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise InputFileError(
+            f"{what} {str(out)!r}: cannot create the folder ({err.strerror or err}); choose a "
+            "writable folder") from err
+    if not os.access(out, os.W_OK):
+        raise InputFileError(f"{what} {str(out)!r}: the folder is not writable; choose another")
+    return out
+

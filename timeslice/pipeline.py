@@ -1021,15 +1021,9 @@ def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
 
 
 def _make_out(out: Path) -> None:
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
-        raise InputFileError(
-            f"--out {str(out)!r}: cannot create the output folder ({err.strerror or err}); "
-            "choose a writable folder"
-        ) from err
-    if not os.access(out, os.W_OK):
-        raise InputFileError(f"--out {str(out)!r}: the folder is not writable; choose another")
+    from timeslice.io import writable_folder
+
+    writable_folder(out, what="--out")
 
 
 # ----------------------------------------------------------------------------- single stages
