@@ -27,7 +27,7 @@ import xarray as xr
 from timeslice import __version__
 from timeslice.cache import StageCache, content_key, file_digest
 from timeslice.config import Config, SliceSpec
-from timeslice.errors import DataError, InputFileError, TimesliceError, TimesliceWarning
+from timeslice.errors import ConfigError, DataError, InputFileError, TimesliceError, TimesliceWarning
 
 __all__ = ["RunResult", "fit_stage", "harmonise_stage", "run", "summarise_stage", "transfer_stage"]
 
@@ -1057,6 +1057,11 @@ def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict
     from timeslice.report import response_curves, write_csv
 
     out = Path(out)
+    if cfg.multi_species:
+        raise ConfigError(
+            f"{cfg.source}: `timeslice fit` fits one species; this config lists "
+            f"{len(cfg.species)} ([[species]]): run `timeslice run` (each species gets its "
+            "model in species/NAME), or keep one [species] table for `fit`")
     cfg.check_files()
     cache = StageCache(out / ".cache", force=force)
     cfg_base = cfg.model_copy(update={"slices": []})
