@@ -622,3 +622,15 @@ def test_demo_exercises_the_parts_beyond_the_climate_niche(demo_run):
     assert set(zones["zone"]) == {"Highland Reserve", "Southwest Coast Reserve"}
     env = pd.read_csv(out / "tables" / "environment.csv").set_index("slice")
     assert env.loc["baseline", "environmental_availability"] == 1.0  # the niche's own climate
+
+
+def test_export_chosen_layers_to_another_folder(demo_run, tmp_path):
+    out, _, _ = demo_run
+    target = tmp_path / "tifs"
+    res = CliRunner().invoke(app, ["export", str(out), "--layers", "refugium_window, suitability",
+                                   "--out", str(target)])
+    assert res.exit_code == 0, res.output
+    names = sorted(p.name for p in target.glob("*.tif"))
+    assert names and all(n.startswith(("refugium_window", "suitability_")) for n in names)
+    bad = CliRunner().invoke(app, ["export", str(out), "--layers", "nope", "--out", str(target)])
+    assert bad.exit_code == 2 and "nope" in bad.stderr

@@ -275,17 +275,28 @@ def summarise(
 def export(
     run_dir: Annotated[Path, typer.Argument(help="Output folder of a finished run.")],
     format: Annotated[str, typer.Option("--format", help="Export format: geotiff.")] = "geotiff",
+    layers: Annotated[
+        Optional[str], typer.Option("--layers", help="Comma-separated layers (default: every layer on the grid).")
+    ] = None,
+    out: Annotated[
+        Optional[Path], typer.Option("--out", "-o", help="Folder for the GeoTIFFs (default: RUN_DIR/geotiff).")
+    ] = None,
 ) -> None:
     """Export the layers of a finished run (one GeoTIFF per layer and slice)."""
     from timeslice.pipeline import run_export
 
+    chosen = [x.strip() for x in layers.split(",") if x.strip()] if layers else None
+    if out is not None:
+        paths = run_export(run_dir, fmt=format, variables=chosen, target=out)
+        typer.echo(f"{len(paths)} files in {Path(out).resolve()}")
+        return
     if (run_dir / "series.nc").is_file() and not os.access(run_dir, os.W_OK):
         # refused before any layer is read: export writes into the run folder
         raise InputFileError(
             f"{run_dir}: the run folder is not writable and `timeslice export` writes its "
             "GeoTIFFs into it (geotiff/); copy the run folder somewhere writable and export the "
             "copy")
-    paths = run_export(run_dir, fmt=format)
+    paths = run_export(run_dir, fmt=format, variables=chosen)
     typer.echo(f"{len(paths)} files in {Path(run_dir).resolve() / 'geotiff'}")
 
 

@@ -1139,8 +1139,10 @@ def run_summarise(
 
 
 def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
-               variables: list[str] | None = None) -> list[Path]:
-    """Export the layers of a finished run's ``series.nc`` (GeoTIFF)."""
+               variables: list[str] | None = None,
+               target: str | os.PathLike | None = None) -> list[Path]:
+    """Export the layers of a finished run's ``series.nc`` (GeoTIFF) into `target`
+    (default ``out/geotiff``); `variables` chooses layers (default every layer on the grid)."""
     from timeslice.report.geotiff import export_file
 
     out = Path(out)
@@ -1150,11 +1152,12 @@ def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
     if not path.is_file():
         raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
     _require_complete(out, "timeslice export")
-    written = export_file(path, out / "geotiff", variables=variables)
+    folder = Path(target) if target is not None else out / "geotiff"
+    written = export_file(path, folder, variables=variables)
     ensemble = out / "ensemble.nc"
     if ensemble.is_file() and variables is None:
         # agreement, consensus and variance shares across models, beside the series layers
-        written += export_file(ensemble, out / "geotiff" / "ensemble")
+        written += export_file(ensemble, folder / "ensemble")
     return written
 
 
