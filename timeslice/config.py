@@ -892,11 +892,11 @@ def _check_references(cfg: Config, source: str) -> None:
             raise ConfigError(f"{source}: series.partition_factors names {f!r}"
                               f"{_suggest(f, ['algorithm', 'model', 'scenario'], 'factor')}")
     from timeslice.niche.evaluate import THRESHOLD_RULES
-    from timeslice.niche.models import MODEL_NAMES
+    from timeslice.niche.registry import names as algorithm_names
 
-    if n.algorithm not in MODEL_NAMES:
+    if n.algorithm not in algorithm_names():
         raise ConfigError(f"{source}: niche.algorithm = {n.algorithm!r} is not an algorithm"
-                          f"{_suggest(n.algorithm, MODEL_NAMES, 'algorithm')}")
+                          f"{_suggest(n.algorithm, algorithm_names(), 'algorithm')}")
     if n.params:
         from timeslice.niche.models import make_model
 

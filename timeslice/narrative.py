@@ -14,26 +14,6 @@ import pandas as pd
 
 __all__ = ["findings", "methods_paragraph", "resolution_note"]
 
-_ALGORITHMS = {
-    "envelope": "a percentile envelope (Nix 1986; Busby 1991)",
-    "ellipsoid": (
-        "a Mahalanobis ellipsoid around the presence centroid, suitability = 1 − χ² CDF of the "
-        "squared distance (Farber & Kadmon 2003, Ecol. Model. 160:115)"
-    ),
-    "point_process": (
-        "a lasso-penalised Poisson point-process model fitted as heavily weighted logistic "
-        "regression (Warton & Shepherd 2010; Fithian & Hastie 2013; Renner & Warton 2013); its "
-        "output is a relative suitability exp(η − η_max) capped at 1, not a probability of "
-        "presence"
-    ),
-    "spline": "a penalised regression-spline GLM of presence against background",
-    "forest": "a random forest with down-sampled background (Valavi et al. 2021)",
-    "ensemble": (
-        "a weighted mean of several algorithms, weights from their cross-validated scores (a "
-        "relative suitability, not a probability)"
-    ),
-}
-
 _THRESHOLDS = {
     "p10": "the 10th-percentile training presence (Pearson et al. 2007, J. Biogeogr. 34:102)",
     "mtp": "the minimum training presence (Pearson et al. 2007, J. Biogeogr. 34:102)",
@@ -63,7 +43,9 @@ def methods_paragraph(
     slice).
     """
     p = dict(fit_params)
-    algo = _ALGORITHMS.get(str(p.get("algorithm")), str(p.get("algorithm")))
+    from timeslice.niche.registry import methods_text
+
+    algo = methods_text(str(p.get("algorithm")))
     rule = _THRESHOLDS.get(str(p.get("threshold_rule")), str(p.get("threshold_rule")))
     variables = ", ".join(p.get("variables", []))
     thin = p.get("thin")

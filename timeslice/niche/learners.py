@@ -21,7 +21,7 @@ from sklearn.utils.validation import check_is_fitted
 
 from timeslice.niche.models import _NicheBase
 
-__all__ = ["ForestNiche", "EnsembleNiche", "LEARNERS", "PointProcessNiche", "SplineNiche"]
+__all__ = ["EnsembleNiche", "ForestNiche", "PointProcessNiche", "SplineNiche"]
 
 _FEATURE_KINDS = ("linear", "quadratic", "hinge", "interaction")
 _SK_NEW_PENALTY = tuple(int(p) for p in sklearn.__version__.split(".")[:2]) >= (1, 8)
@@ -615,10 +615,3 @@ class EnsembleNiche(_NicheBase):
         )
 
 
-#: Name -> class of every estimator defined here (``make_model`` adds them).
-LEARNERS: dict[str, type] = {
-    "ensemble": EnsembleNiche,
-    "forest": ForestNiche,
-    "point_process": PointProcessNiche,
-    "spline": SplineNiche,
-}

@@ -285,18 +285,17 @@ class EnvelopeNiche(_NicheBase):
 
 
 def _registry() -> dict[str, type]:
-    """Algorithm name -> estimator class (the flexible learners live in `learners`)."""
-    reg: dict[str, type] = {"ellipsoid": EllipsoidNiche, "envelope": EnvelopeNiche}
-    try:
-        from timeslice.niche import learners
-    except ImportError:  # pragma: no cover - learners not available yet
-        return reg
-    reg.update(learners.LEARNERS)
-    return reg
+    """Algorithm name -> estimator class, from :mod:`timeslice.niche.registry`."""
+    from timeslice.niche.registry import estimator_class, names
+
+    return {n: estimator_class(n) for n in names()}
 
 
-#: Algorithm names accepted by :func:`make_model`.
-MODEL_NAMES: tuple[str, ...] = ("ellipsoid", "ensemble", "envelope", "forest", "point_process", "spline")
+#: Algorithm names accepted by :func:`make_model` at import time (the registry,
+#: :func:`timeslice.niche.registry.names`, is the source).
+from timeslice.niche.registry import names as _names  # noqa: E402
+
+MODEL_NAMES: tuple[str, ...] = _names()
 
 
 def make_model(name: str, **params: Any):
