@@ -634,3 +634,15 @@ def test_export_chosen_layers_to_another_folder(demo_run, tmp_path):
     assert names and all(n.startswith(("refugium_window", "suitability_")) for n in names)
     bad = CliRunner().invoke(app, ["export", str(out), "--layers", "nope", "--out", str(target)])
     assert bad.exit_code == 2 and "nope" in bad.stderr
+
+
+def test_summarise_into_another_folder_leaves_the_run(demo_run, tmp_path):
+    out, _, _ = demo_run
+    before = (out / "summary.csv").read_bytes()
+    other = tmp_path / "ref21"
+    res = CliRunner().invoke(app, ["summarise", str(out), "--reference", "alder_21ka",
+                                   "--out", str(other)])
+    assert res.exit_code == 0, res.output
+    assert (out / "summary.csv").read_bytes() == before
+    df = pd.read_csv(other / "summary.csv")
+    assert df.loc[df["slice"] == "alder_21ka", "gain_km2"].iloc[0] == 0

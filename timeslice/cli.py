@@ -258,6 +258,10 @@ def summarise(
     dated_records: Annotated[
         Optional[Path], typer.Option("--dated-records", help="CSV of dated records for the hindcast check.")
     ] = None,
+    out: Annotated[
+        Optional[Path], typer.Option("--out", "-o", help="Write into this folder instead, leaving the run as it is.")
+    ] = None,
+    verbose: VerboseOpt = 0,
 ) -> None:
     """Recompute change, stability, refugia, movement and ensembles of a finished run with
     other series options, and refresh its tables, maps, plots, report and manifest (harmonised
@@ -266,8 +270,8 @@ def summarise(
 
     with _progress(True) as progress:
         result = run_summarise(run_dir, reference=reference, rate=rate, window=window or None,
-                               dated_records=dated_records, progress=progress)
-    _report_done(result, 0)
+                               dated_records=dated_records, progress=progress, target=out)
+    _report_done(result, verbose)
 
 
 @app.command()

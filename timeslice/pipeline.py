@@ -1085,8 +1085,10 @@ def run_summarise(
     window: list[str] | None = None,
     dated_records: str | os.PathLike | None = None,
     progress: Progress = _quiet,
+    target: str | os.PathLike | None = None,
 ) -> RunResult:
-    """Summarise a finished run again with other series options, and refresh every output.
+    """Summarise a finished run again with other series options, and refresh every output
+    (in the run's folder, or in `target` with the run's cache, leaving the run as it is).
 
     The run's own configuration (from its manifest) is taken with the given series options laid
     over it, and the run is repeated: harmonising, fitting and transferring come from the stage
@@ -1135,6 +1137,10 @@ def run_summarise(
             command += [flag, str(value)]
     for w in window or []:
         command += ["--window", str(w)]
+    if target is not None:
+        # a second folder with the new options; the run's own folder stays as it is
+        return run(cfg, Path(target), progress=progress, command=command + ["--out", str(target)],
+                   cache_dir=out / ".cache")
     return run(cfg, out, progress=progress, command=command)
 
 
