@@ -116,25 +116,11 @@ def _cell_index(grid: xr.Dataset | xr.DataArray, lon, lat) -> tuple[np.ndarray, 
 # ---------------------------------------------------------------------------------------------
 # cleaning
 # ---------------------------------------------------------------------------------------------
-#: Reasons that are always rows of the cleaning table, in test order (the rows a plain lon/lat
-#: table gets). :data:`RECORD_REASONS` gives the full order.
-CLEANING_REASONS = (
-    "unparseable coordinates",
-    "out-of-range coordinates",
-    "zero coordinates (0, 0)",
-    "exact duplicate",
-    "outside grid",
-    "on water or ice",
-    "uncertainty above limit",
-    "status absent",
-    "year outside window",
-)
-
 #: Every reason a record is dropped, in the order they are tested (a record counts once, under
-#: the first reason that applies). The record rules that are not in :data:`CLEANING_REASONS`
-#: are rows only when the records carry what they judge (a basis, establishment, country or
-#: locality column; the reader's ``coords_missing``; the aggregator's ``flags``) or when they
-#: are asked for (a taxon choice; ``centroid_min_records``).
+#: the first reason that applies). The record rules in :data:`CONDITIONAL_REASONS` are rows
+#: only when the records carry what they judge (a basis, establishment, country or locality
+#: column; the reader's ``coords_missing``; the aggregator's ``flags``) or when they are asked
+#: for (a taxon choice; ``centroid_min_records``).
 RECORD_REASONS = (
     "other taxon",
     "fossil specimen",
@@ -152,6 +138,16 @@ RECORD_REASONS = (
     "status absent",
     "year outside window",
 )
+
+#: The record rules that are rows only when they apply (see :data:`RECORD_REASONS`).
+CONDITIONAL_REASONS = frozenset({
+    "other taxon", "fossil specimen", "living specimen (captive or cultivated)",
+    "no coordinates", "aggregator flag: invalid coordinates", "centroid-like repeated coordinates",
+})
+
+#: Reasons that are always rows of the cleaning table, in test order (the rows a plain lon/lat
+#: table gets).
+CLEANING_REASONS = tuple(r for r in RECORD_REASONS if r not in CONDITIONAL_REASONS)
 
 _ABSENT = {"absent", "absence", "0", "false", "not detected"}
 
