@@ -505,6 +505,8 @@ def test_biotic_limits_from_invented_partner_layer(demo_run, tmp_path):
         area = cell_area(ds)
         b0 = float(area.where(ds["suitable_biotic"].sel(slice="baseline") == 1).sum())
     assert t.loc["baseline", "suitable_biotic_km2"] == pytest.approx(b0, rel=1e-9)
+    assert str((data / "host.nc").resolve()) in json.loads(
+        (fresh / "manifest.json").read_text())["inputs"]
     assert 0 < t.loc["baseline", "removed_by_biotic_share"] < 1
 
 
@@ -523,6 +525,9 @@ def test_fit_once_transfer_many(demo_run, tmp_path):
     assert res.exit_code == 0, res.output
     # the same fitted model transferred again gives the same series
     pd.testing.assert_frame_equal(pd.read_csv(out / "summary.csv"), pd.read_csv(again / "summary.csv"))
+    # the model file is an input: hashed in the manifest, so a rerun checks it
+    inputs = json.loads((again / "manifest.json").read_text())["inputs"]
+    assert str((fitted / "model.pkl").resolve()) in inputs
     # a model whose predictors the baseline lacks is refused in one line
     bad = data / "bad_model.toml"
     bad.write_text(cfg2.read_text().replace(str(fitted / "model.pkl"), str(data / "nope.pkl")))

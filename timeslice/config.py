@@ -565,26 +565,29 @@ class Config(_Section):
         for key, inp, role, model in self.climate_inputs():
             files[key] = inp.expand(key=f"{self.source}: {key}" if self.source else key,
                                     role=role, model=model)
-        if self.multi_species:
-            for i, sub in enumerate(self.species_configs()):
-                sp = sub.species
-                for key, path in (("occurrences", sp.occurrences),
-                                  ("dated_records", sp.dated_records),
-                                  ("diversity", sp.diversity)):
-                    if path is not None:
-                        files[f"species[{i}].{key}"] = [InputFile(Path(path))]
-            return files
-        for key, path in (
-            ("species.occurrences", self.species.occurrences),
-            ("species.dated_records", self.species.dated_records),
-            ("species.diversity", self.species.diversity),
-            ("series.zones", self.series.zones),
-            ("niche.calibration_mask", self.niche.calibration_mask),
-            ("niche.background_file", self.niche.background_file),
-        ):
-            if path is not None:
-                files[key] = [InputFile(Path(path))]
+        for key, path in self.single_files():
+            files[key] = [InputFile(path)]
+        labels = [self.climate.baseline_label, *[s.label for s in self.slice_specs()]]
+        for role, per in self.biotic.files(labels).items():
+            files[f"biotic.{role}"] = sorted({InputFile(p) for p in per.values()})
         return files
+
+    def single_files(self) -> list[tuple[str, Path]]:
+        """Config key and path of every one-file input: each species' records, dated records
+        and diversity table, the calibration mask, background file and fitted model (per
+        species when `[[species]]` gives them), and the zones."""
+        subs = self.species_configs() if self.multi_species else [self]
+        out: list[tuple[str, Path | None]] = []
+        for i, sub in enumerate(subs):
+            sp, n = sub.species, sub.niche
+            pre, npre = ((f"species[{i}].", f"species[{i}].niche.") if self.multi_species
+                         else ("species.", "niche."))
+            out += [(pre + "occurrences", sp.occurrences), (pre + "dated_records", sp.dated_records),
+                    (pre + "diversity", sp.diversity),
+                    (npre + "calibration_mask", n.calibration_mask),
+                    (npre + "background_file", n.background_file), (npre + "model", n.model)]
+        out.append(("series.zones", self.series.zones))
+        return [(k, Path(p)) for k, p in out if p is not None]
 
     def check_files(self, *, headers: bool = True) -> dict[str, list]:
         """Refuse, before any work, an input that is missing, unreadable, unsupported or whose
@@ -594,9 +597,6 @@ class Config(_Section):
         """
         from timeslice.readers.filesets import check_file_set
 
-        if self.multi_species:
-            for sub in self.species_configs():
-                sub.check_files(headers=False)
         files = self.input_files()
         labels = [self.climate.baseline_label, *[s.label for s in self.slice_specs()]]
         for role, per in self.biotic.files(labels).items():
@@ -605,23 +605,13 @@ class Config(_Section):
                     raise InputFileError(
                         f"{self.source}: biotic.{role}: {str(path)!r} (slice {lab!r}) not found; "
                         "give one file per slice label ({label} in the pattern) or one file")
-        species = [] if self.multi_species else [
-            ("species.occurrences", self.species.occurrences),
-            ("species.dated_records", self.species.dated_records),
-            ("species.diversity", self.species.diversity)]
-        for key, path in (
-            *species,
-            ("series.zones", self.series.zones),
-            ("niche.calibration_mask", self.niche.calibration_mask),
-            ("niche.background_file", self.niche.background_file),
-            ("niche.model", self.niche.model),
-        ):
-            if path is not None and not Path(path).exists():
+        for key, path in self.single_files():
+            if not path.exists():
                 raise InputFileError(
                     f"{self.source}: {key} = {str(path)!r}: file not found; fix the path "
                     "(relative paths are read from the config file's folder)"
                 )
-            if path is not None and Path(path).is_dir():
+            if path.is_dir():
                 raise InputFileError(
                     f"{self.source}: {key} = {str(path)!r} is a folder; give the file in it "
                     "(a CSV, tab-separated text, .gz or .zip of records, or a raster for a mask)"
