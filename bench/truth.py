@@ -313,7 +313,7 @@ def run_world(prep: Prepared, key: str, *, niche: dict | None = None,
     file, generated for the demo world too).
     """
     from timeslice.grid import cell_area
-    from timeslice.pipeline import _dataset_key, fit_stage, transfer_stage
+    from timeslice.pipeline import dataset_key as _dataset_key, fit_stage, transfer_stage
     from timeslice.series.stability import refugium
 
     sp = WORLDS[key]

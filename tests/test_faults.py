@@ -648,7 +648,7 @@ def test_export_into_a_read_only_run_folder(tmp_path, monkeypatch):
 
 def test_an_os_error_on_a_named_file_is_one_line(tmp_path, monkeypatch):
     """A read-only disk met where no stage expected it (here: making the export folder)."""
-    import timeslice.pipeline as pipeline
+    import timeslice.commands as pipeline
 
     def read_only(out, *, fmt="geotiff", variables=None):
         raise OSError(errno.EROFS, "Read-only file system", str(Path(out) / "geotiff"))

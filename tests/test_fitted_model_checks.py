@@ -10,7 +10,7 @@ import xarray as xr
 from timeslice.errors import DataError
 from timeslice.niche.persist import save_model
 from timeslice.niche.workflow import NicheFit
-from timeslice.pipeline import _fitted_model
+from timeslice.pipeline import fitted_model as _fitted_model
 
 
 def _fit():

@@ -38,7 +38,7 @@ def run(config, out, *, force: bool = False):
     from pathlib import Path
 
     from timeslice.config import Config, load_config as _load, parse_config
-    from timeslice.pipeline import run as _run
+    from timeslice.commands import run as _run
 
     if isinstance(config, Config):
         cfg = config

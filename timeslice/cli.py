@@ -151,7 +151,7 @@ def _apply_overrides(cfg, scheduler, workers, chunks):
 
 
 def _report_done(result, verbose: int) -> None:
-    from timeslice.narrative import findings
+    from timeslice.report.narrative import findings
 
     # the headline numbers, from the same key-results rows as the report's cards
     for line in findings(getattr(result, "key_results", None)):
@@ -177,7 +177,7 @@ def run(
 ) -> None:
     """Run every stage of CONFIG: harmonise, fit, transfer, summarise, report."""
     from timeslice.config import load_config
-    from timeslice.pipeline import run as run_pipeline
+    from timeslice.commands import run as run_pipeline
 
     cfg = _apply_overrides(load_config(config), scheduler, workers, chunks)
     with _progress(True) as progress:
@@ -199,7 +199,7 @@ def demo(
     from timeslice.config import load_config
     from timeslice.demo import generate
     from timeslice.demo_config import write_config
-    from timeslice.pipeline import run as run_pipeline
+    from timeslice.commands import run as run_pipeline
 
     data = Path(out) / "demo_data"
     typer.echo(f"generating the invented demo scenario in {data} ...")
@@ -220,7 +220,7 @@ def harmonise(
 ) -> None:
     """Put every slice on the common grid and variable set; one NetCDF per slice."""
     from timeslice.config import load_config
-    from timeslice.pipeline import run_harmonise
+    from timeslice.commands import run_harmonise
 
     with _progress(True) as progress:
         paths = run_harmonise(load_config(config), out, force=force, progress=progress)
@@ -236,7 +236,7 @@ def fit(
 ) -> None:
     """Clean the records and fit the niche on the baseline; write the model and its evaluation."""
     from timeslice.config import load_config
-    from timeslice.pipeline import run_fit
+    from timeslice.commands import run_fit
 
     paths = run_fit(load_config(config), out, force=force)
     for name, path in paths.items():
@@ -266,7 +266,7 @@ def summarise(
     """Recompute change, stability, refugia, movement and ensembles of a finished run with
     other series options, and refresh its tables, maps, plots, report and manifest (harmonised
     slices, the fit and the transfers come from the run's cache)."""
-    from timeslice.pipeline import run_summarise
+    from timeslice.commands import run_summarise
 
     with _progress(True) as progress:
         result = run_summarise(run_dir, reference=reference, rate=rate, window=window or None,
@@ -287,7 +287,7 @@ def export(
     ] = None,
 ) -> None:
     """Export the layers of a finished run (one GeoTIFF per layer and slice)."""
-    from timeslice.pipeline import run_export
+    from timeslice.commands import run_export
 
     chosen = [x.strip() for x in layers.split(",") if x.strip()] if layers else None
     if out is not None:
@@ -312,7 +312,7 @@ def rerun(
     verbose: VerboseOpt = 0,
 ) -> None:
     """Repeat a run from its manifest (refused if an input file changed)."""
-    from timeslice.pipeline import rerun as rerun_pipeline
+    from timeslice.commands import rerun as rerun_pipeline
 
     with _progress(True) as progress:
         result = rerun_pipeline(manifest, out, progress=progress)

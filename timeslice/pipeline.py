@@ -29,7 +29,8 @@ from timeslice.cache import StageCache, content_key, file_digest
 from timeslice.config import Config, SliceSpec
 from timeslice.errors import ConfigError, DataError, InputFileError, TimesliceError, TimesliceWarning
 
-__all__ = ["RunResult", "fit_stage", "harmonise_stage", "run", "summarise_stage", "transfer_stage"]
+__all__ = ["RunResult", "dataset_key", "fit_stage", "fitted_model", "harmonise_stage", "report_options", "run",
+           "summarise_stage", "transfer_stage"]
 
 Progress = Callable[[str, int, int], None]
 
@@ -290,7 +291,7 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
 
     n = cfg.niche
     if n.model is not None:
-        return _fitted_model(n.model, baseline), content_key("fit-file", file_digest(n.model))
+        return fitted_model(n.model, baseline), content_key("fit-file", file_digest(n.model))
     key = content_key(
         "fit", base_key, file_digest(cfg.species.occurrences), cfg.species.model_dump(mode="json"),
         n.model_dump(mode="json"), cfg.run.seed,
@@ -320,7 +321,7 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
     return cache.obj("fit", key, compute), key
 
 
-def _fitted_model(path: Path, baseline: xr.Dataset):
+def fitted_model(path: Path, baseline: xr.Dataset):
     """A model fitted earlier (`timeslice fit`), checked against this run's baseline: every
     predictor present, and in the same units (the baseline's values must overlap the model's
     calibration range, or the predictors were computed differently)."""
@@ -364,7 +365,7 @@ def transfer_stage(
     reference = fit.background[variables]
     tc = cfg.transfer
     chunks = "auto" if tc.chunks == "auto" else {"lat": tc.chunks, "lon": tc.chunks}
-    keys = [content_key("transfer", fit_key, _dataset_key(ds), tc.model_dump()) for ds in slices]
+    keys = [content_key("transfer", fit_key, dataset_key(ds), tc.model_dump()) for ds in slices]
     results: list[xr.Dataset | None] = [cache.load("transfer", k) for k in keys]
     todo = [i for i, r in enumerate(results) if r is None]
     progress("transfer", len(slices) - len(todo), len(slices))
@@ -399,7 +400,7 @@ def transfer_stage(
     return stack
 
 
-def _dataset_key(ds: xr.Dataset) -> str:
+def dataset_key(ds: xr.Dataset) -> str:
     import hashlib
 
     h = hashlib.sha256()
@@ -527,232 +528,29 @@ def _reference(cfg: Config) -> str:
     return cfg.climate.baseline_label if ref == "baseline" else ref
 
 
-# ----------------------------------------------------------------------------- report
+def report_options(cfg: Config):
+    """The settings of the report stage, read from the config.
 
+    Parameters
+    ----------
+    cfg : Config
+        The run's configuration.
 
-def report_stage(
-    cfg: Config,
-    *,
-    series: xr.Dataset,
-    summary: pd.DataFrame,
-    fit,
-    inputs: dict[str, pd.DataFrame],
-    out: Path,
-    warnings_seen: list[str],
-    analysis=None,
-) -> dict[str, Path]:
-    """Write the NetCDF, tables, maps, plots and HTML report of a finished run."""
-    from timeslice import report as R
-    from timeslice.narrative import findings, methods_paragraph
+    Returns
+    -------
+    timeslice.report.assemble.ReportOptions
+    """
+    from timeslice.report.assemble import ReportOptions
 
-    paths: dict[str, Path] = {}
-    title = f"{cfg.run.name}"
-    history = f"timeslice {__version__} run of {cfg.source.name if cfg.source else 'config'}"
-    from timeslice.series.patches import label_patches, refugium_layer
-
-    if refugium_layer(series) is not None:  # the refugium's patches as a layer (R1 largest)
-        series = series.assign(refugium_patch=label_patches(series[refugium_layer(series)]))
-    paths["series"] = R.write_series(series, out / "series.nc", history=history, title=title)
-    paths["summary"] = R.write_csv(summary, out / "summary.csv")
-    if analysis is not None and analysis.ensemble is not None:
-        paths["ensemble"] = R.write_series(analysis.ensemble, out / "ensemble.nc",
-                                           history=history, title=f"{title}: model ensemble")
-    tables = {
-        "inputs": inputs["inputs"],
-        "slice_land": inputs["slice_land"],
-        "environment": inputs.get("environment"),
-        "cleaning": fit.cleaning,
-        "screening": fit.screening,
-        "evaluation": fit.evaluation,
-        "response": fit.response,
-        "importance": fit.importance,
-    }
-    results = None
-    if analysis is not None:
-        from timeslice.series.analysis import key_results
-
-        results = key_results(analysis)
-        tables["key_results"] = results
-        for name, df in analysis.tables.items():
-            if name != "summary":
-                tables[f"series_{name}"] = df
-    for name, df in tables.items():
-        if df is not None:
-            R.write_csv(df, out / "tables" / f"{name}.csv")
-    paths["tables"] = out / "tables"
-    figures: list[tuple[str, Path]] = []
-    headline: list[tuple[str, Path]] = []
-    series = series.load()  # every map reads every layer: compute once
-    refuge = "refugium_window" if "refugium_window" in series else "refugium_all_slices"
-    from timeslice.report.derived import derived_tables
-
-    # refugium patches, threshold sensitivity and threshold-free change
-    extra, patches = derived_tables(series, fit=fit, reference=_reference(cfg),
-                                    threshold_value=cfg.niche.threshold_value, refugium=refuge)
-    for name, df in extra.items():
-        R.write_csv(df, out / "tables" / f"{name}.csv")
-    tables.update(extra)
-    if cfg.output.vector:
-        from timeslice.report.vector import write_vectors
-
-        write_vectors(series, out / "vector", patches=patches)
-        paths["vector"] = out / "vector"
-    if cfg.output.maps:
-        maps = out / "maps"
-        proj = cfg.output.projection
-        R.slice_maps(series, maps, projection=proj)
-        stab = R.stability_map(
-            series, maps / "stability.png", refugium=refuge, projection=proj,
-            variable="stability_window" if "stability_window" in series else "stability_all_slices",
-            patches=patches[1] if patches is not None else None)
-        change = R.change_map(series, maps / "panel_change.png", projection=proj)
-        headline = [("Stability (fraction of slices suitable) with refugia outlined", stab),
-                    ("Gain, loss and stable range against the reference slice", change)]
-        figures.append(("Suitability in every slice (shared colour scale; hatched: novel "
-                        "climate, MESS < 0)", R.series_panel(series, maps / "panel_suitability.png",
-                                                             projection=proj)))
-        figures.append(("Novel climate: MESS per slice (negative = outside the calibration "
-                        "range)", R.novelty_map(series, maps / "panel_mess.png", projection=proj,
-                                                columns="model")))
-        figures.append(("Novel climate by ExDet: outside the univariate range (NT1 < 0) or a "
-                        "novel combination (NT2 > 1)",
-                        R.novelty_map(series, maps / "panel_exdet.png", variable="exdet",
-                                      projection=proj, columns="model")))
-        if "most_dissimilar" in series:
-            figures.append(("Most dissimilar variable: the predictor that sets MESS; where it "
-                            "is hatched (novel climate) this predictor lies outside the "
-                            "calibration range",
-                            R.most_dissimilar_map(series, maps / "panel_most_dissimilar.png",
-                                                  projection=proj)))
-        ens = analysis.ensemble if analysis is not None else None
-        if ens is not None and "agreement" in ens:
-            figures.append(("Agreement of the climate models per scenario and period: the "
-                            "share of models in which the cell is suitable, majority "
-                            "consensus outlined, dotted where the models disagree",
-                            R.agreement_map(ens, maps / "panel_agreement.png",
-                                            projection=proj)))
-        if ens is not None and "dominant" in ens:
-            figures.append(("Dominant source of uncertainty per cell (largest share of the "
-                            "suitability variance, factorial ANOVA over the ensemble)",
-                            R.dominant_source_map(ens, maps / "panel_dominant_source.png",
-                                                  projection=proj)))
-        if "reachable_limited" in series:
-            future = [str(x) for x, sc in zip(series["slice"].values, series["scenario"].values)
-                      if str(sc) not in ("past", "baseline")]
-            if future:
-                last = max(float(series["year"].sel(slice=x)) for x in future)
-                pick = [x for x in future if float(series["year"].sel(slice=x)) == last]
-                figures.append((
-                    f"Suitable and reachable under limited movement "
-                    f"({cfg.series.dispersal_rate or 'no rate: as occupied'}) at the last period",
-                    R.reach_map(series.assign(reachable=series["reachable_limited"]),
-                                maps / "panel_reach.png", slices=pick, projection=proj),
-                ))
-        paths["maps"] = maps
-    plots = out / "plots"
-    figures.append(("Suitable area through time", R.area_through_time(summary, plots / "area.png")))
-    figures.extend(inputs.get("extra_figures", []))
-    div_sites = analysis.tables.get("diversity_sites") if analysis is not None else None
-    if div_sites is not None and "stability" in div_sites:
-        from timeslice.report.plots import diversity_plot
-
-        layer = analysis.tables["diversity"]["layer"].iloc[0] if len(analysis.tables["diversity"]) else None
-        if layer in series:
-            figures.append(("Sampled populations: genetic diversity against stability, and the "
-                            "sites on the stability map",
-                            diversity_plot(div_sites, analysis.tables["diversity"],
-                                           series[layer], plots / "diversity.png")))
-    env = inputs.get("environment")
-    if env is not None and len(env) > 1:
-        for col, words in (("environmental_availability", "share of the niche's climates "
-                            "still found on the slice's land"),
-                           ("analog_fraction", "share of the slice's land in the calibration "
-                            "climate")):
-            figures.append((f"Through time: {words}", R.area_through_time(
-                env, plots / f"{col}.png", column=col, ylabel=col.replace("_", " "),
-                title=words[0].upper() + words[1:])))
-    figures.append(("Gain and loss per slice", R.gain_loss_bars(summary, plots / "gain_loss.png")))
-    figures.append(("Range-centroid track", R.centroid_track(
-        summary, plots / "centroid_track.png", land=series["land"].isel(slice=0),
-        projection=cfg.output.projection)))
-    detail = analysis.tables.get("detail") if analysis is not None else None
-    if detail is not None and "lat_q50" in detail:
-        figures.append(("Latitude and elevation of the suitable range (median, 10-90 % band)",
-                        R.shift_plot(detail, plots / "shifts.png")))
-    if fit.response is not None:
-        figures.append(("Response curves (shaded: calibration range; outside it the model "
-                        "extrapolates)", R.response_curves(fit.response, plots / "response.png")))
-    if fit.importance is not None and fit.importance["importance_mean"].notna().any():
-        figures.append(("Permutation importance of the predictors",
-                        R.importance_bars(fit.importance, plots / "importance.png")))
-    if "threshold_sensitivity" in extra and (
-            extra["threshold_sensitivity"]["slice"] != _reference(cfg)).any():
-        figures.append(("Change in suitable area under each threshold rule (median and range "
-                        "over models): how much the headline hangs on the threshold",
-                        R.threshold_plot(extra["threshold_sensitivity"],
-                                         plots / "threshold_sensitivity.png",
-                                         reference=_reference(cfg))))
-    if cfg.output.geotiff:
-        R.export(series, out / "geotiff")
-        if analysis is not None and analysis.ensemble is not None:
-            # agreement, consensus, spread and variance shares per scenario x period
-            R.export(analysis.ensemble, out / "geotiff" / "ensemble")
-        paths["geotiff"] = out / "geotiff"
-    from timeslice.niche.evaluate import weak_model_message
-
-    # checked on every run (the fit may come from the cache): a red card and a line on stderr
-    weak = weak_model_message(fit.evaluation)
-    if weak:
-        warnings.warn(weak, TimesliceWarning, stacklevel=2)
-        warnings_seen = [*warnings_seen, weak]
-    if cfg.output.report:
-        models = sorted({str(m) for m in series["model"].values} - {"observed"})
-        scenarios = sorted({str(m) for m in series["scenario"].values} - {"baseline"})
-        ref_label = cfg.climate.baseline_label if cfg.series.reference == "baseline" else cfg.series.reference
-        ctx = R.ReportContext(
-            title=title,
-            headline_figures=headline,
-            key_numbers=R.key_numbers(results if results is not None else summary,
-                                      series=series, refugium=refuge),
-            outputs={
-                "all layers, CF NetCDF": "series.nc",
-                "one row per slice": "summary.csv",
-                **({"model agreement and variance shares": "ensemble.nc"}
-                   if "ensemble" in paths else {}),
-                **({"refugium patches (GeoJSON, one feature per patch)":
-                    "vector/refugium_patches.geojson",
-                    "suitable area per slice (GeoJSON)": "vector/suitable.geojson"}
-                   if "vector" in paths else {}),
-                **({"refugium patches, one row each": "tables/refugium_patches.csv"}
-                   if "refugium_patches" in extra else {}),
-                **({"suitable area under every threshold rule":
-                    "tables/threshold_sensitivity.csv",
-                    "threshold-free change of suitability": "tables/suitability_change.csv"}
-                   if "threshold_sensitivity" in extra else {}),
-                "run manifest": "manifest.json",
-            },
-            species=cfg.species.name,
-            summary=summary,
-            tables={k: v for k, v in tables.items()
-                    if v is not None and k not in ("response", "series_summary",
-                                                   "threshold_sensitivity",
-                                                   "suitability_change")},
-            figures=figures,
-            methods=methods_paragraph(
-                species=cfg.species.name, fit_params=fit.params,
-                n_slices=int((series["scenario"].values.astype(str) != "baseline").sum()),
-                models=models, scenarios=[x for x in scenarios if x != "past"] or scenarios,
-                reference=ref_label, clamp=cfg.transfer.clamp, evaluation=fit.evaluation,
-                window=getattr(analysis, "window", None) if analysis is not None else None,
-                cell_km=_cell_km(series),
-            ),
-            run_info={"config": str(cfg.source), "seed": cfg.run.seed, "version": __version__,
-                      "warnings": "; ".join(warnings_seen) or "none"},
-            highlights=findings(results) if results is not None else [],
-            alerts=[weak] if weak else [],
-        )
-        paths["report"] = R.write_report(ctx, out / "report.html")
-    return paths
+    return ReportOptions(
+        title=cfg.run.name,
+        history=f"timeslice {__version__} run of {cfg.source.name if cfg.source else 'config'}",
+        species=cfg.species.name, reference=_reference(cfg),
+        threshold_value=cfg.niche.threshold_value, maps=cfg.output.maps,
+        vector=cfg.output.vector, geotiff=cfg.output.geotiff, report=cfg.output.report,
+        projection=cfg.output.projection, dispersal_rate=cfg.series.dispersal_rate,
+        clamp=cfg.transfer.clamp, config_path=str(cfg.source), seed=cfg.run.seed,
+        version=__version__)
 
 
 # ----------------------------------------------------------------------------- run
@@ -767,30 +565,42 @@ def run(
     command: list[str] | None = None,
     cache_dir: str | os.PathLike | None = None,
 ) -> RunResult:
-    """Run every stage of `cfg` and write the outputs into `out`.
+    """Run every stage of `cfg` (one species) and write the outputs into `out`.
+
+    Several species (``[[species]]``) are run by :func:`timeslice.commands.run`, which calls
+    this once per species and then summarises the assemblage.
 
     Parameters
     ----------
     cfg : Config
-        Validated configuration (:func:`timeslice.config.load_config`). With several species
-        (``[[species]]``) each is run into ``out/species/NAME`` over the same harmonised
-        slices, and the assemblage is summarised in ``out`` (:func:`run_assemblage`).
+        Validated configuration (:func:`timeslice.config.load_config`), one species.
     out : path
         Output folder; created if needed. Finished stages are cached in ``out/.cache``.
     force : bool
         Recompute every stage even if a cached result exists.
+    progress : callable, optional
+        ``progress(stage, done, total)`` as the stages advance.
+    command : list of str, optional
+        The command line recorded in the manifest (default ``sys.argv``).
     cache_dir : path, optional
         Stage cache folder (default ``out/.cache``); species of one run share one.
+
+    Returns
+    -------
+    RunResult
+        Output paths, tables, the fit, the series analysis and the timings.
     """
     from timeslice.report import write_manifest
+    from timeslice.runfolder import begin_run, finish_run, make_out
 
     if cfg.multi_species:
-        return run_assemblage(cfg, out, force=force, progress=progress, command=command)
+        raise ConfigError(f"{cfg.source}: several species ([[species]]): run them with "
+                          "timeslice.commands.run, which runs each and the assemblage")
     out = Path(out)
     # every input is expanded and its headers checked before the output folder is touched
     input_files = cfg.check_files()
-    _make_out(out)
-    started = _begin_run(out, cfg, command)
+    make_out(out)
+    started = begin_run(out, cfg.model_dump(mode="json"), str(cfg.source), cfg.run.seed, command)
     cache = StageCache(Path(cache_dir) if cache_dir is not None else out / ".cache", force=force)
     result = RunResult(out=out)
     t = result.timings
@@ -802,7 +612,7 @@ def run(
         with _timed(t, "harmonise"):
             baseline, slices, inputs = harmonise_stage(cfg, cache, progress=progress)
         with _timed(t, "fit"):
-            fit, fit_key = fit_stage(cfg, baseline, cache, base_key=_dataset_key(baseline))
+            fit, fit_key = fit_stage(cfg, baseline, cache, base_key=dataset_key(baseline))
         with _timed(t, "transfer"):
             stack = transfer_stage(cfg, fit, [baseline, *slices], cache, fit_key=fit_key,
                                    progress=progress)
@@ -828,9 +638,12 @@ def run(
             periods = dict(zip(series["slice"].values, series["period"].values))
             summary.insert(4, "period", [str(periods.get(x, "")) for x in summary["slice"]])
         with _timed(t, "report"):
-            result.paths = report_stage(
-                cfg, series=series, summary=summary, fit=fit, inputs=inputs, out=out,
-                warnings_seen=[str(w.message) for w in caught], analysis=analysis,
+            from timeslice.report.assemble import write_outputs
+
+            result.paths = write_outputs(
+                report_options(cfg), series=series, summary=summary, fit=fit, inputs=inputs,
+                out=out, warnings_seen=[str(w.message) for w in caught], analysis=analysis,
+                progress=progress,
             )
         from timeslice.series.analysis import key_results
 
@@ -840,7 +653,7 @@ def run(
     for w in {str(w.message): w for w in caught}.values():
         warnings.showwarning(w.message, w.category, w.filename, w.lineno)
     inputs_used = {str(f.path) for fs in input_files.values() for f in fs}
-    written, removed = _finish_run(out, started)
+    written, removed = finish_run(out, started)
     result.paths["manifest"] = write_manifest(
         {
             "status": "complete",
@@ -865,320 +678,3 @@ def run(
     return result
 
 
-#: What a run writes in its folder (files, and folders whose every file is an output). A file
-#: there that the current run did not write is left over from an earlier run and is removed
-#: when the run completes, so the folder always holds one run.
-RUN_FILES = ("series.nc", "ensemble.nc", "summary.csv", "report.html", "assemblage.nc")
-RUN_FOLDERS = ("maps", "plots", "tables", "geotiff", "vector", "species")
-
-
-def _run_outputs(out: Path) -> list[Path]:
-    files = [out / f for f in RUN_FILES if (out / f).is_file()]
-    for d in RUN_FOLDERS:
-        if (out / d).is_dir():
-            files += sorted(p for p in (out / d).rglob("*") if p.is_file())
-    return files
-
-
-def _begin_run(out: Path, cfg: Config, command) -> int:
-    """Mark the folder as holding an unfinished run; remove temporary files a killed run left.
-
-    Returns the start time (ns) that tells this run's outputs from older ones.
-    """
-    from timeslice.report import write_manifest
-
-    for tmp in out.rglob(".*.part"):
-        with contextlib.suppress(OSError):
-            tmp.unlink()
-    started = time.time_ns()
-    write_manifest({"status": "incomplete", "config": cfg.model_dump(mode="json"),
-                    "config_path": str(cfg.source), "inputs": [], "seed": cfg.run.seed,
-                    "command": command or sys.argv}, out / "manifest.json")
-    return started
-
-
-def _finish_run(out: Path, started: int) -> tuple[list[str], list[str]]:
-    """(files this run wrote, stale files of earlier runs removed), as paths relative to `out`."""
-    written, removed = [], []
-    for p in _run_outputs(out):
-        rel = p.relative_to(out).as_posix()
-        if p.stat().st_mtime_ns >= started:
-            written.append(rel)
-        else:
-            with contextlib.suppress(OSError):
-                p.unlink()
-                removed.append(rel)
-    for d in RUN_FOLDERS:  # folders emptied by the clean-up go too
-        for sub in sorted((out / d).rglob("*"), reverse=True) if (out / d).is_dir() else []:
-            if sub.is_dir() and not any(sub.iterdir()):
-                sub.rmdir()
-        if (out / d).is_dir() and not any((out / d).iterdir()):
-            (out / d).rmdir()
-    return sorted(written), sorted(removed)
-
-
-def _require_complete(out: Path, what: str) -> None:
-    """Refuse to read a run whose manifest says it did not finish."""
-    import json as _json
-
-    path = out / "manifest.json"
-    if not path.is_file():
-        return
-    try:
-        status = _json.loads(path.read_text(encoding="utf-8")).get("status", "complete")
-    except (ValueError, OSError, AttributeError):  # not a manifest: read_manifest says so
-        return
-    if status != "complete":
-        raise DataError(
-            f"{out}: the run in this folder did not finish (manifest.json says {status!r}), so "
-            f"its outputs may be of two runs; finish it with `timeslice run CONFIG --out {out}` "
-            f"(finished stages are reused) before `{what}`"
-        )
-
-
-def _cell_km(ds: xr.Dataset) -> float:
-    """Typical cell size, km: the square root of the mean land cell area (authalic sphere)."""
-    from timeslice.grid import cell_area
-
-    area = cell_area(ds)
-    if "land" in ds and "slice" in ds["land"].dims:
-        land = ds["land"].isel(slice=0).astype(bool)
-        if bool(land.any()):
-            area = area.where(land)
-    return float(np.sqrt(float(area.mean())))
-
-
-def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
-                   progress: Progress = _quiet, command: list[str] | None = None) -> RunResult:
-    """Several species over the same slices: each species run into ``out/species/NAME`` (the
-    climate is harmonised once: every species reads the shared stage cache), then the
-    assemblage: predicted richness per cell and slice, its change against the reference and
-    the refugia the species share (``assemblage.nc``, ``tables/assemblage.csv``).
-
-    Species are run one after another and only the running richness sum is kept between them,
-    so peak memory does not grow with the number of species.
-    """
-    from timeslice.config import _slug
-    from timeslice.grid import cell_area
-    from timeslice.report import open_series, write_csv, write_manifest, write_series
-
-    out = Path(out)
-    input_files = cfg.check_files()
-    _make_out(out)
-    started = _begin_run(out, cfg, command)
-    result = RunResult(out=out)
-    richness = shared = None
-    names = []
-    for sub in cfg.species_configs():
-        name = sub.species.name
-        names.append(name)
-        res = run(sub, out / "species" / _slug(name), force=force, progress=progress,
-                  command=command, cache_dir=out / ".cache")
-        result.paths[f"species {name}"] = res.out
-        with open_series(res.out / "series.nc") as ds:
-            suit = (ds["suitable"] == 1).astype("int16").load()
-            refuge = next((v for v in ("refugium_window", "refugium_all_slices") if v in ds), None)
-            ref = ds[refuge].astype("int16").load() if refuge else None
-            coords = ds[["suitable"]].drop_vars("suitable").load()
-        richness = suit if richness is None else richness + suit
-        if ref is not None:
-            shared = ref if shared is None else shared + ref
-    reference = cfg.climate.baseline_label if cfg.series.reference == "baseline" else cfg.series.reference
-    land = richness.isel(slice=0) >= 0
-    layers = xr.Dataset(coords=coords.coords)
-    layers["richness"] = richness.assign_attrs(
-        units="1", long_name="predicted richness (number of species climatically suitable)")
-    layers["richness_change"] = (richness - richness.sel(slice=reference)).astype("int16").assign_attrs(
-        units="1", long_name=f"change in predicted richness against {reference}")
-    if shared is not None:
-        layers["shared_refugia"] = shared.assign_attrs(
-            units="1", long_name="number of species whose refugium the cell is")
-    result.paths["assemblage"] = write_series(
-        layers, out / "assemblage.nc", history=f"timeslice {__version__} assemblage",
-        title=f"{cfg.run.name}: assemblage of {len(names)} species")
-    area = cell_area(layers)
-    rows = []
-    for label in layers["slice"].values:
-        r = layers["richness"].sel(slice=label)
-        rows.append({"slice": str(label),
-                     "mean_richness": float((r * area).sum() / area.where(land).sum()),
-                     "max_richness": int(r.max()),
-                     "area_all_species_km2": float(area.where(r == len(names)).sum()),
-                     "area_any_species_km2": float(area.where(r >= 1).sum())})
-    table = pd.DataFrame(rows)
-    if shared is not None:
-        table.attrs["shared_refugia_km2"] = float(area.where(layers["shared_refugia"] == len(names)).sum())
-    result.paths["assemblage_table"] = write_csv(table, out / "tables" / "assemblage.csv")
-    written, removed = _finish_run(out, started)
-    result.paths["manifest"] = write_manifest(
-        {"status": "complete", "files": written, "removed_stale": removed,
-         "config": cfg.model_dump(mode="json"), "config_path": str(cfg.source),
-         "inputs": sorted({str(f.path) for fs in input_files.values() for f in fs}),
-         "seed": cfg.run.seed, "command": command or sys.argv, "species": names},
-        out / "manifest.json")
-    result.summary = table
-    return result
-
-
-def _make_out(out: Path) -> None:
-    from timeslice.io import writable_folder
-
-    writable_folder(out, what="--out")
-
-
-# ----------------------------------------------------------------------------- single stages
-
-
-def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
-                  progress: Progress = _quiet) -> dict[str, Path]:
-    """Harmonise every slice and write one CF NetCDF per slice plus the input table."""
-    from timeslice.io import file_stem
-    from timeslice.report import write_csv, write_series
-
-    out = Path(out)
-    cfg.check_files()
-    cache = StageCache(out / ".cache", force=force)
-    baseline, slices, tables = harmonise_stage(cfg, cache, progress=progress)
-    paths: dict[str, Path] = {}
-    for ds in [baseline, *slices]:
-        label = str(ds.attrs["slice_label"])
-        paths[label] = write_series(
-            ds, out / "harmonised" / f"{file_stem(label)}.nc",  # never a path of its own
-            history=f"timeslice {__version__} harmonise", title=f"harmonised slice {label}",
-        )
-    paths["inputs"] = write_csv(tables["inputs"], out / "tables" / "inputs.csv")
-    paths["slice_land"] = write_csv(tables["slice_land"], out / "tables" / "slice_land.csv")
-    return paths
-
-
-def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict[str, Path]:
-    """Fit the niche on the harmonised baseline; write the model, tables and response curves."""
-    from timeslice.niche.persist import save_model
-    from timeslice.report import response_curves, write_csv
-
-    out = Path(out)
-    if cfg.multi_species:
-        raise ConfigError(
-            f"{cfg.source}: `timeslice fit` fits one species; this config lists "
-            f"{len(cfg.species)} ([[species]]): run `timeslice run` (each species gets its "
-            "model in species/NAME), or keep one [species] table for `fit`")
-    cfg.check_files()
-    cache = StageCache(out / ".cache", force=force)
-    cfg_base = cfg.model_copy(update={"slices": []})
-    baseline, _, _ = harmonise_stage(cfg_base, cache)
-    fit, _ = fit_stage(cfg, baseline, cache, base_key=_dataset_key(baseline))
-    paths = {"model": save_model(fit, out / "model.pkl")}
-    for name in ("cleaning", "screening", "evaluation", "response", "importance"):
-        df = getattr(fit, name, None)
-        if df is not None:
-            paths[name] = write_csv(df, out / "tables" / f"{name}.csv")
-    if fit.response is not None:
-        paths["response_plot"] = response_curves(fit.response, out / "plots" / "response.png")
-    return paths
-
-
-def run_summarise(
-    out: str | os.PathLike,
-    *,
-    reference: str | None = None,
-    rate: str | None = None,
-    window: list[str] | None = None,
-    dated_records: str | os.PathLike | None = None,
-    progress: Progress = _quiet,
-    target: str | os.PathLike | None = None,
-) -> RunResult:
-    """Summarise a finished run again with other series options, and refresh every output
-    (in the run's folder, or in `target` with the run's cache, leaving the run as it is).
-
-    The run's own configuration (from its manifest) is taken with the given series options laid
-    over it, and the run is repeated: harmonising, fitting and transferring come from the stage
-    cache of `out` (nothing is refitted), while the series summaries, ``series.nc``,
-    ``summary.csv``, ``ensemble.nc``, tables, maps, plots, the report and the manifest are
-    written anew. So ``summarise`` and ``run`` give the same numbers for the same options, by
-    construction: there is one code path.
-
-    Parameters
-    ----------
-    out : path
-        Output folder of a finished run (holding ``manifest.json``).
-    reference, rate, window, dated_records : optional
-        New values of ``series.reference``, ``series.dispersal_rate``,
-        ``series.refugium_window`` and ``species.dated_records``; None keeps the run's own.
-    """
-    from timeslice.config import SeriesConfig, parse_config
-    from timeslice.report import read_manifest
-
-    out = Path(out)
-    manifest = out / "manifest.json"
-    if not manifest.is_file():
-        raise DataError(f"{out}: no manifest.json; run `timeslice run CONFIG --out {out}` first")
-    _require_complete(out, "timeslice summarise")
-    info = read_manifest(manifest, verify=False)
-    cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
-    updates: dict[str, Any] = {}
-    for key, value in (("reference", reference), ("dispersal_rate", rate),
-                       ("refugium_window", window)):
-        if value is not None:
-            updates[key] = value
-    data = {**cfg.series.model_dump(), **updates}
-    try:
-        cfg.series = SeriesConfig.model_validate(data)
-    except Exception as err:  # pydantic's ValidationError
-        raise DataError(f"summarise: {str(err).splitlines()[-1].strip()}") from err
-    if dated_records is not None:
-        cfg.species.dated_records = Path(dated_records).resolve()
-    from timeslice.config import _check_references
-
-    _check_references(cfg, "summarise")
-    command = ["timeslice", "summarise", str(out)]
-    for flag, value in (("--reference", reference), ("--rate", rate),
-                        ("--dated-records", dated_records)):
-        if value is not None:
-            command += [flag, str(value)]
-    for w in window or []:
-        command += ["--window", str(w)]
-    if target is not None:
-        # a second folder with the new options; the run's own folder stays as it is
-        return run(cfg, Path(target), progress=progress, command=command + ["--out", str(target)],
-                   cache_dir=out / ".cache")
-    return run(cfg, out, progress=progress, command=command)
-
-
-def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
-               variables: list[str] | None = None,
-               target: str | os.PathLike | None = None) -> list[Path]:
-    """Export the layers of a finished run's ``series.nc`` (GeoTIFF) into `target`
-    (default ``out/geotiff``); `variables` chooses layers (default every layer on the grid)."""
-    from timeslice.report.geotiff import export_file
-
-    out = Path(out)
-    if fmt != "geotiff":
-        raise DataError(f"--format must be 'geotiff', got {fmt!r}")
-    path = out / "series.nc"
-    if not path.is_file():
-        raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
-    _require_complete(out, "timeslice export")
-    folder = Path(target) if target is not None else out / "geotiff"
-    written = export_file(path, folder, variables=variables)
-    ensemble = out / "ensemble.nc"
-    if ensemble.is_file() and variables is None:
-        # agreement, consensus and variance shares across models, beside the series layers
-        written += export_file(ensemble, folder / "ensemble")
-    return written
-
-
-def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
-          progress: Progress = _quiet) -> RunResult:
-    """Repeat the run recorded in `manifest` (inputs must still have their recorded hashes)."""
-    from timeslice.config import parse_config
-    from timeslice.report import read_manifest
-
-    _require_complete(Path(manifest).resolve().parent, "timeslice rerun")
-    info = read_manifest(manifest, verify=True)
-    if not isinstance(info.get("config"), dict):
-        raise InputFileError(f"{manifest}: the manifest holds no configuration table, so the run "
-                             "cannot be repeated from it; start a new run from the config file")
-    cfg = parse_config(info["config"], source=info.get("config_path") or "<config>")
-    target = Path(out) if out is not None else Path(manifest).resolve().parent
-    return run(cfg, target, force=True, progress=progress,
-               command=["timeslice", "rerun", str(manifest)])

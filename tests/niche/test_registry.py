@@ -21,7 +21,7 @@ def throwaway():
 def test_a_registered_algorithm_is_known_everywhere(throwaway, tmp_path):
     from timeslice.config import load_config
     from timeslice.demo_config import render_demo_config
-    from timeslice.narrative import methods_paragraph
+    from timeslice.report.narrative import methods_paragraph
 
     assert "box_test" in registry.names()
     assert isinstance(make_model("box_test"), EnvelopeNiche)

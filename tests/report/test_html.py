@@ -153,7 +153,7 @@ def test_output_links_are_local(summary_df, tmp_path):
 
 
 def test_methods_paragraph_states_what_was_done():
-    from timeslice.narrative import methods_paragraph
+    from timeslice.report.narrative import methods_paragraph
 
     params = {"algorithm": "ellipsoid", "threshold_rule": "p10", "threshold": 0.2,
               "variables": ["bio1", "bio12"], "thin": "cell", "buffer_km": 250.0,
@@ -177,7 +177,7 @@ def test_methods_paragraph_states_what_was_done():
 
 def test_resolution_note_follows_the_cell_size():
     # a 0.1-degree cell is ~11 km at the equator, a 1-degree cell ~111 km (R = 6371 km)
-    from timeslice.narrative import resolution_note
+    from timeslice.report.narrative import resolution_note
 
     assert "fine grain" in resolution_note(5.0)
     assert "intermediate grain" in resolution_note(11.1)
