@@ -19,7 +19,9 @@ from sklearn.preprocessing import SplineTransformer
 from sklearn.tree import DecisionTreeClassifier
 from sklearn.utils.validation import check_is_fitted
 
-from timeslice.niche.models import _NicheBase
+from timeslice.niche.base import NicheBase
+from timeslice.niche.evaluate import auc, training_scores
+from timeslice.niche.registry import make_model
 
 __all__ = ["EnsembleNiche", "ForestNiche", "PointProcessNiche", "SplineNiche"]
 
@@ -64,8 +66,6 @@ def _inner_folds(y: np.ndarray, groups, n_folds: int, rng) -> list[tuple[np.ndar
 
 
 def _auc(s: np.ndarray, y: np.ndarray) -> float:
-    from timeslice.niche.evaluate import auc
-
     return auc(s[y == 1], s[y == 0])
 
 
@@ -131,7 +131,7 @@ class _FeatureMap:
         return np.hstack(cols) if cols else Z
 
 
-class PointProcessNiche(_NicheBase):
+class PointProcessNiche(NicheBase):
     """Lasso-penalised Poisson point-process niche, fitted as weighted logistic regression.
 
     Parameters
@@ -222,7 +222,7 @@ class PointProcessNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None, groups=None):
         """Fit; `groups` (fold labels, e.g. spatial blocks) drive the penalty search."""
-        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self.validate_fit(X, y, sample_weight)
         kinds = tuple(self.features)
         bad = [k for k in kinds if k not in _FEATURE_KINDS]
         if bad or not kinds:
@@ -291,7 +291,7 @@ class PointProcessNiche(_NicheBase):
 
     def linear_predictor(self, X) -> np.ndarray:
         """:math:`\\eta(x) = \\beta^\\top f(x)` (log relative intensity, without the intercept)."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         return self.features_.transform(X) @ self.coef_
 
     def predict_proba(self, X) -> np.ndarray:
@@ -299,10 +299,10 @@ class PointProcessNiche(_NicheBase):
         eta = self.linear_predictor(X)
         with np.errstate(over="ignore"):
             s = np.exp(np.minimum(eta - self.eta_max_, 0.0))
-        return self._two_columns(s)
+        return self.two_columns(s)
 
 
-class SplineNiche(_NicheBase):
+class SplineNiche(NicheBase):
     """Additive penalised regression-spline model (a GLM on B-spline bases).
 
     Parameters
@@ -347,7 +347,7 @@ class SplineNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None):
         """Fit the spline bases and the penalised logistic regression."""
-        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self.validate_fit(X, y, sample_weight)
         if self.extrapolation not in ("constant", "linear"):
             raise ValueError(f"`extrapolation` must be 'constant' or 'linear', got {self.extrapolation!r}")
         n1, n0 = sw[presence].sum(), sw[~presence].sum()
@@ -368,12 +368,12 @@ class SplineNiche(_NicheBase):
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - S, S]."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         B = self.spline_.transform((X - self.mean_) / self.sd_)
-        return self._two_columns(self.model_.predict_proba(B)[:, 1])
+        return self.two_columns(self.model_.predict_proba(B)[:, 1])
 
 
-class ForestNiche(_NicheBase):
+class ForestNiche(NicheBase):
     """Random forest on balanced, down-sampled bootstrap samples.
 
     Parameters
@@ -414,7 +414,7 @@ class ForestNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None):
         """Grow the trees."""
-        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self.validate_fit(X, y, sample_weight)
         if int(self.n_estimators) < 1:
             raise ValueError(f"`n_estimators` must be >= 1, got {self.n_estimators}")
         rng = np.random.default_rng(self.random_state)
@@ -459,16 +459,16 @@ class ForestNiche(_NicheBase):
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - S, S]."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         X32 = np.ascontiguousarray(X, dtype=np.float32)
         s = np.zeros(X.shape[0])
         for tree in self.estimators_:
             p = tree.predict_proba(X32, check_input=False)
             s += p[:, 1]
-        return self._two_columns(s / len(self.estimators_))
+        return self.two_columns(s / len(self.estimators_))
 
 
-class EnsembleNiche(_NicheBase):
+class EnsembleNiche(NicheBase):
     """Weighted mean of member niche models, weighted by their cross-validated AUC.
 
     Parameters
@@ -526,8 +526,6 @@ class EnsembleNiche(_NicheBase):
         self.random_state = random_state
 
     def _build(self):
-        from timeslice.niche.models import make_model
-
         params = dict(self.member_params or {})
         names = list(self.members)
         if not names:
@@ -544,7 +542,7 @@ class EnsembleNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None, groups=None):
         """Score every member by held-out AUC, then refit each on all data."""
-        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self.validate_fit(X, y, sample_weight)
         yy = presence.astype(int)
         rng = np.random.default_rng(self.random_state)
         proto = self._build()
@@ -578,8 +576,6 @@ class EnsembleNiche(_NicheBase):
         self.cv_auc_ = aucs
         self.weights_ = weights
         # training scores for thresholds: out-of-bag where a member has them
-        from timeslice.niche.evaluate import training_scores
-
         self.oob_suitability_ = sum(
             w * training_scores(e, X) for (_, e), w in zip(self.members_, weights)
         )
@@ -587,12 +583,12 @@ class EnsembleNiche(_NicheBase):
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - S, S]."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         s = np.zeros(X.shape[0])
         for (_, e), w in zip(self.members_, self.weights_):
             if w > 0:
                 s += w * e.predict_proba(X)[:, 1]
-        return self._two_columns(s)
+        return self.two_columns(s)
 
     def fitted_summary(self) -> dict:
         """Plain summary of the fit for reports: members, their held-out AUC and weights."""

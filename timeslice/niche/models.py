@@ -7,16 +7,10 @@ numpy-only; gridded prediction is :func:`timeslice.transfer.project.project`.
 
 from __future__ import annotations
 
-import difflib
-from typing import Any
-
 import numpy as np
-from scipy import stats
-from sklearn.base import BaseEstimator, ClassifierMixin
-from sklearn.utils.multiclass import check_classification_targets
-from sklearn.utils.validation import _check_sample_weight, check_is_fitted, validate_data
 
-from timeslice.errors import ConfigError
+from timeslice.niche.base import NicheBase
+from timeslice.niche.registry import make_model, names
 
 __all__ = [
     "EllipsoidNiche",
@@ -26,55 +20,7 @@ __all__ = [
 ]
 
 
-class _NicheBase(ClassifierMixin, BaseEstimator):
-    """Shared validation for presence/background classifiers."""
-
-    def __sklearn_tags__(self):
-        tags = super().__sklearn_tags__()
-        tags.classifier_tags.multi_class = False
-        tags.classifier_tags.poor_score = True
-        return tags
-
-    def _validate_fit(self, X, y, sample_weight):
-        X, y = validate_data(self, X, y, dtype=np.float64, ensure_min_samples=2)
-        check_classification_targets(y)
-        classes = np.unique(y)
-        if classes.size > 2:
-            raise ValueError(
-                "Only binary classification is supported: "
-                f"{type(self).__name__} is a presence/background classifier; y has "
-                f"{classes.size} classes, expected 2 (1 = presence, 0 = background)"
-            )
-        if classes.size < 2:
-            raise ValueError(
-                f"{type(self).__name__} needs presence and background rows; y has only the class "
-                f"{classes.tolist()}"
-            )
-        self.classes_ = classes
-        presence = y == classes[-1]
-        sw = _check_sample_weight(sample_weight, X, dtype=np.float64)
-        return X, presence, sw
-
-    def _validate_predict(self, X):
-        check_is_fitted(self)
-        return validate_data(self, X, dtype=np.float64, reset=False)
-
-    def suitability(self, X) -> np.ndarray:
-        """Suitability in [0, 1] of each row (the presence column of :meth:`predict_proba`)."""
-        return self.predict_proba(X)[:, 1]
-
-    def predict(self, X) -> np.ndarray:
-        """Class with the larger probability (presence when suitability >= 0.5)."""
-        proba = self.predict_proba(X)
-        return self.classes_[(proba[:, 1] >= 0.5).astype(int)]
-
-    @staticmethod
-    def _two_columns(s: np.ndarray) -> np.ndarray:
-        s = np.clip(s, 0.0, 1.0)
-        return np.column_stack([1.0 - s, s])
-
-
-class EllipsoidNiche(_NicheBase):
+class EllipsoidNiche(NicheBase):
     """Ellipsoid (Mahalanobis) niche: suitability from distance to the presence centroid.
 
     Parameters
@@ -118,7 +64,7 @@ class EllipsoidNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None):
         """Fit the centroid and covariance of the presence rows of `X`."""
-        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self.validate_fit(X, y, sample_weight)
         P = X[presence]
         w = sw[presence]
         if P.shape[0] < 2 or w.sum() <= 0:
@@ -137,7 +83,7 @@ class EllipsoidNiche(_NicheBase):
 
     def mahalanobis2(self, X) -> np.ndarray:
         """Squared Mahalanobis distance of each row to the presence centroid."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         # precision = L L^T (pinv is symmetric positive semi-definite; eigh handles rank loss):
         # D^2 = |(x - mu) L|^2, one matrix product instead of a three-operand einsum
         w, v = np.linalg.eigh(self.precision_)
@@ -148,7 +94,7 @@ class EllipsoidNiche(_NicheBase):
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - suitability, suitability]."""
         d2 = self.mahalanobis2(X)
-        return self._two_columns(chi2_sf(d2, self.n_features_in_))
+        return self.two_columns(chi2_sf(d2, self.n_features_in_))
 
 
 def chi2_sf(x: np.ndarray, k: int) -> np.ndarray:
@@ -184,7 +130,7 @@ def chi2_sf(x: np.ndarray, k: int) -> np.ndarray:
     return np.where(np.isnan(x), np.nan, np.clip(out, 0.0, 1.0))
 
 
-class EnvelopeNiche(_NicheBase):
+class EnvelopeNiche(NicheBase):
     """Percentile-envelope niche with a graded suitability.
 
     Parameters
@@ -231,7 +177,7 @@ class EnvelopeNiche(_NicheBase):
 
     def fit(self, X, y, sample_weight=None):
         """Fit the per-predictor presence distributions."""
-        X, presence, sw = self._validate_fit(X, y, sample_weight)
+        X, presence, sw = self.validate_fit(X, y, sample_weight)
         if not (0.0 <= float(self.percentile) < 50.0):
             raise ValueError(f"`percentile` must be in [0, 50), got {self.percentile}")
         keep = presence & (sw > 0)
@@ -272,65 +218,18 @@ class EnvelopeNiche(_NicheBase):
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - suitability, suitability]."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         score = np.ones(X.shape[0])
         for j in range(len(self.sorted_)):
             score = np.minimum(score, self._score(j, X[:, j]))
-        return self._two_columns(score)
+        return self.two_columns(score)
 
     def in_envelope(self, X) -> np.ndarray:
         """True where every predictor lies inside the percentile box."""
-        X = self._validate_predict(X)
+        X = self.validate_predict(X)
         return np.all((X >= self.lower_) & (X <= self.upper_), axis=1)
-
-
-def _registry() -> dict[str, type]:
-    """Algorithm name -> estimator class, from :mod:`timeslice.niche.registry`."""
-    from timeslice.niche.registry import estimator_class, names
-
-    return {n: estimator_class(n) for n in names()}
 
 
 #: Algorithm names accepted by :func:`make_model` at import time (the registry,
 #: :func:`timeslice.niche.registry.names`, is the source).
-from timeslice.niche.registry import names as _names  # noqa: E402
-
-MODEL_NAMES: tuple[str, ...] = _names()
-
-
-def make_model(name: str, **params: Any):
-    """Build a niche estimator by name.
-
-    Parameters
-    ----------
-    name : str
-        One of :data:`MODEL_NAMES`.
-    **params
-        Hyperparameters of that estimator.
-
-    Raises
-    ------
-    ConfigError
-        Unknown name (the closest valid name is suggested) or unknown parameter.
-    """
-    registry = _registry()
-    key = str(name).strip().lower().replace("-", "_")
-    if key not in registry:
-        close = difflib.get_close_matches(key, list(registry), n=1, cutoff=0.5)
-        hint = f"did you mean {close[0]!r}? " if close else ""
-        raise ConfigError(
-            f"unknown algorithm {name!r}; {hint}choose one of {', '.join(sorted(registry))}"
-        )
-    cls = registry[key]
-    valid = cls().get_params(deep=False)
-    unknown = [p for p in params if p not in valid]
-    if unknown:
-        close = difflib.get_close_matches(unknown[0], list(valid), n=1)
-        hint = f"; did you mean {close[0]!r}?" if close else ""
-        raise ConfigError(
-            f"algorithm {key!r} has no parameter {unknown[0]!r} (valid: {', '.join(sorted(valid))}){hint}"
-        )
-    try:
-        return cls(**params)
-    except TypeError as err:  # pragma: no cover - guarded above
-        raise ConfigError(f"algorithm {key!r}: {err}") from err
+MODEL_NAMES: tuple[str, ...] = names()

@@ -1,6 +1,6 @@
 """The niche-algorithm registry: every list of algorithm names is derived from here.
 
-Config validation, :func:`timeslice.niche.models.make_model`, the methods paragraph of the report
+Config validation, :func:`make_model`, the methods paragraph of the report
 and the docs check all read :data:`ALGORITHMS`. Adding an algorithm is one
 :func:`register` call (or one entry below) with its estimator class and the clause the methods
 paragraph prints; nothing else needs to know.
@@ -12,9 +12,13 @@ none of them (no import cycle between the estimator modules).
 from __future__ import annotations
 
 import dataclasses
+import difflib
 import importlib
+from typing import Any
 
-__all__ = ["ALGORITHMS", "Algorithm", "estimator_class", "methods_text", "names", "register"]
+from timeslice.errors import ConfigError
+
+__all__ = ["ALGORITHMS", "Algorithm", "estimator_class", "make_model", "methods_text", "names", "register"]
 
 
 @dataclasses.dataclass(frozen=True)
@@ -46,6 +50,48 @@ def estimator_class(name: str) -> type:
     """The estimator class of a registered algorithm (imported on first use)."""
     module, _, cls = ALGORITHMS[name].estimator.partition(":")
     return getattr(importlib.import_module(module), cls)
+
+
+def make_model(name: str, **params: Any):
+    """Build a niche estimator by name.
+
+    Parameters
+    ----------
+    name : str
+        A registered algorithm name (:func:`names`; case and ``-``/``_`` are not significant).
+    **params
+        Hyperparameters of that estimator.
+
+    Returns
+    -------
+    estimator
+        An unfitted estimator of the algorithm.
+
+    Raises
+    ------
+    ConfigError
+        Unknown name (the closest valid name is suggested) or unknown parameter.
+    """
+    key = str(name).strip().lower().replace("-", "_")
+    if key not in ALGORITHMS:
+        close = difflib.get_close_matches(key, list(ALGORITHMS), n=1, cutoff=0.5)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        raise ConfigError(
+            f"unknown algorithm {name!r}; {hint}choose one of {', '.join(names())}"
+        )
+    cls = estimator_class(key)
+    valid = cls().get_params(deep=False)
+    unknown = [p for p in params if p not in valid]
+    if unknown:
+        close = difflib.get_close_matches(unknown[0], list(valid), n=1)
+        hint = f"; did you mean {close[0]!r}?" if close else ""
+        raise ConfigError(
+            f"algorithm {key!r} has no parameter {unknown[0]!r} (valid: {', '.join(sorted(valid))}){hint}"
+        )
+    try:
+        return cls(**params)
+    except TypeError as err:  # pragma: no cover - guarded above
+        raise ConfigError(f"algorithm {key!r}: {err}") from err
 
 
 def methods_text(name: str) -> str:
