@@ -193,7 +193,7 @@ def _check_units(source, key: str, inp: ClimateInput | None) -> None:
     """Refuse at config load a declared unit that cannot describe its variable."""
     if inp is None:
         return
-    from timeslice.harmonise.units import (
+    from timeslice.units import (
         parse_units,
         precipitation_conversion,
         temperature_conversion,

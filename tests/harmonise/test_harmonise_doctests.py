@@ -7,7 +7,7 @@ import importlib
 
 import pytest
 
-MODULES = ["units", "regrid", "interpolate"]  # timeslice.harmonise.<name>
+MODULES = ["regrid", "interpolate"]  # timeslice.harmonise.<name>; units: tests/readers/test_units.py
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -9,7 +9,7 @@ import pytest
 import xarray as xr
 
 from timeslice.errors import DataError, InputFileError
-from timeslice.harmonise.units import (
+from timeslice.units import (
     days_in_month,
     precipitation_conversion,
     temperature_conversion,
@@ -267,18 +267,6 @@ def test_variables_disagreeing_on_grid(tmp_path, model_file):
     b.to_netcdf(tmp_path / "pr_only.nc")
     with pytest.raises(DataError, match="disagree on the grid"):
         open_climate([tmp_path / "tmin_only.nc", tmp_path / "pr_only.nc"])
-
-
-def test_fast_unit_table_agrees_with_pint():
-    # the shortcut table must give exactly what pint (through cf_xarray.units) gives
-    from timeslice.harmonise import units as u
-
-    for text, expected in u._TEMPERATURE_TABLE.items():
-        got = temperature_conversion(text, use_table=False)
-        assert got == pytest.approx(expected, rel=1e-12, abs=1e-12), text
-    for text, (kind, factor) in u._PRECIPITATION_TABLE.items():
-        k, f = precipitation_conversion(text, use_table=False)
-        assert k == kind and f == pytest.approx(factor, rel=1e-12), text
 
 
 def test_months_since_time_axis(tmp_path):

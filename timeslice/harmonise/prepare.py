@@ -21,7 +21,7 @@ __all__ = ["prepare_slice", "write_prepared"]
 
 def _load(obj, what: str, require=None) -> xr.Dataset:
     if isinstance(obj, (str, os.PathLike)):
-        from timeslice.readers.netcdf import open_climate
+        from timeslice.readers import open_climate
 
         return open_climate(obj, require=require)
     if isinstance(obj, xr.DataArray):

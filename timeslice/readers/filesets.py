@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from timeslice.errors import ConfigError, InputFileError, shorten
+from timeslice.readers.registry import format_names, get_reader, readers
 
 __all__ = [
     "InputFile",
@@ -28,8 +29,10 @@ __all__ = [
     "check_pattern",
     "expand_files",
     "file_set_digest",
+    "input_files",
     "sniff_format",
     "substitute_model",
+    "unsupported_message",
 ]
 
 #: Placeholders a climate path may hold: ``{model}`` (slice files, one per model),
@@ -148,6 +151,53 @@ def expand_files(
     return sorted(found.values())
 
 
+def input_files(path) -> list[InputFile]:
+    """Files of one climate input as given to the reader: a path, a glob, a list of them, or
+    :class:`InputFile` entries (already expanded by :func:`expand_files`).
+
+    Parameters
+    ----------
+    path : str, path-like, InputFile or sequence of them
+
+    Returns
+    -------
+    list of InputFile
+        In the order given (globs sorted).
+
+    Raises
+    ------
+    InputFileError
+        A path is missing or a folder, or a glob matches nothing.
+    """
+    if isinstance(path, InputFile):
+        return [path]
+    if isinstance(path, (str, os.PathLike)):
+        items = [path]
+    elif isinstance(path, Sequence):
+        items = list(path)
+    else:
+        raise InputFileError(f"climate input {path!r}: expected a path, a glob or a list of paths")
+    out: list[InputFile] = []
+    for item in items:
+        if isinstance(item, InputFile):
+            out.append(item)
+            continue
+        text = os.fspath(item)
+        if any(ch in text for ch in _GLOB_CHARS):
+            found = sorted(_glob.glob(text))
+            if not found:
+                raise InputFileError(f"{text}: the pattern matches no file; check the path")
+            out.extend(InputFile(Path(f)) for f in found)
+        else:
+            p = Path(text)
+            if p.is_dir():
+                raise InputFileError(f"{text}: is a folder; give the files in it (e.g. '{text}/*.nc')")
+            if not p.is_file():
+                raise InputFileError(f"{text}: file not found; check the path in the config")
+            out.append(InputFile(p))
+    return out
+
+
 def _what(f: InputFile) -> str:
     parts = [f.variable or "", f"month {f.month}" if f.month else ""]
     return " ".join(p for p in parts if p) or "the whole file"
@@ -194,30 +244,34 @@ def file_set_digest(files: Iterable[InputFile | str | os.PathLike]) -> str:
 
 # ----------------------------------------------------------------------------- formats
 
-_MAGIC: tuple[tuple[bytes, str], ...] = (
-    (b"CDF\x01", "netcdf"),
-    (b"CDF\x02", "netcdf"),
-    (b"CDF\x05", "netcdf"),
-    (b"\x89HDF\r\n\x1a\n", "netcdf"),
-    (b"II*\x00", "raster"),
-    (b"MM\x00*", "raster"),
-    (b"II+\x00", "raster"),
-    (b"MM\x00+", "raster"),
-    (b"GRIB", "grib"),
-)
-_SUFFIX = {
-    ".nc": "netcdf", ".nc4": "netcdf", ".cdf": "netcdf", ".netcdf": "netcdf", ".h5": "netcdf",
-    ".tif": "raster", ".tiff": "raster", ".gtiff": "raster", ".asc": "raster",
-    ".grb": "grib", ".grib": "grib", ".grb2": "grib", ".grib2": "grib",
-}
+#: Formats recognised only to be refused with a way to convert them (GRIB editions 1 and 2
+#: start with "GRIB"); the readable formats and their magic numbers are the reader registry's.
+_UNSUPPORTED_MAGIC: tuple[tuple[bytes, str], ...] = ((b"GRIB", "grib"),)
+_UNSUPPORTED_SUFFIX = {".grb": "grib", ".grib": "grib", ".grb2": "grib", ".grib2": "grib"}
 
 
 def sniff_format(path: str | os.PathLike) -> str:
-    """``"netcdf"``, ``"raster"``, ``"grib"`` or ``"unknown"`` from the first bytes (then suffix).
+    """The format key of a file, from its first bytes (then its suffix).
 
-    The magic numbers are those of the formats' own specifications: NetCDF classic/64-bit
-    ("CDF" + version byte), HDF5 (netCDF-4), TIFF and BigTIFF (byte order + 42 or 43), GRIB
-    editions 1 and 2 ("GRIB"). ESRI ASCII grids start with the text ``ncols``.
+    The keys are those of the reader registry (:mod:`timeslice.readers.registry`:
+    ``"netcdf"``, ``"raster"`` and any registered format), or ``"grib"`` (recognised, refused)
+    or ``"unknown"``. The first bytes are compared with each registered format's magic numbers
+    (those of the formats' own specifications), then its sniffing function (ESRI ASCII grids
+    start with the text ``ncols``); the suffix decides only when the bytes say nothing.
+
+    Parameters
+    ----------
+    path : path-like
+
+    Returns
+    -------
+    str
+        The format key.
+
+    Raises
+    ------
+    InputFileError
+        The file cannot be read.
     """
     p = Path(path)
     try:
@@ -225,18 +279,38 @@ def sniff_format(path: str | os.PathLike) -> str:
             head = fh.read(512)
     except OSError as err:
         raise InputFileError(f"{p}: cannot be read ({err.strerror or err}); check the file") from err
-    for magic, kind in _MAGIC:
+    known = readers()
+    for reader in known:
+        if any(head.startswith(magic) for magic in reader.magic):
+            return reader.key
+    for magic, kind in _UNSUPPORTED_MAGIC:
         if head.startswith(magic):
             return kind
-    if head.lstrip().lower().startswith(b"ncols"):
-        return "raster"
+    for reader in known:
+        if reader.sniff is not None and reader.sniff(head):
+            return reader.key
     if b"GRIB" in head[:128]:  # GRIB messages behind a small header (WMO bulletin)
         return "grib"
-    return _SUFFIX.get(p.suffix.lower(), "unknown")
+    suffix = p.suffix.lower()
+    for reader in known:
+        if suffix in reader.suffixes:
+            return reader.key
+    return _UNSUPPORTED_SUFFIX.get(suffix, "unknown")
 
 
 def unsupported_message(path: Path, kind: str) -> str | None:
-    """The one-line refusal for a file format timeslice does not read, else None."""
+    """The one-line refusal for a file format timeslice does not read, else None.
+
+    Parameters
+    ----------
+    path : pathlib.Path
+    kind : str
+        Its format key (:func:`sniff_format`).
+
+    Returns
+    -------
+    str or None
+    """
     if kind == "grib":
         return (
             f"{path}: this is a GRIB file, which timeslice does not read; convert it to "
@@ -244,54 +318,10 @@ def unsupported_message(path: Path, kind: str) -> str | None:
         )
     if kind == "unknown":
         return (
-            f"{path}: not a NetCDF, GeoTIFF or ESRI ASCII grid (unrecognised first bytes); "
+            f"{path}: not a {format_names()} (unrecognised first bytes); "
             "give climate data in one of those formats"
         )
     return None
-
-
-def _netcdf_grid(path: Path):
-    """(lat centres, lon centres) from a NetCDF file's header, or a refusal."""
-    import xarray as xr
-
-    from timeslice.readers.netcdf import grid_problem
-
-    try:
-        with xr.open_dataset(path, decode_times=False, decode_cf=False, cache=False) as ds:
-            problem = grid_problem(ds, source=str(path))
-            if problem:
-                raise InputFileError(problem)
-            from timeslice.grid import find_lonlat
-
-            lon, lat = find_lonlat(ds, source=str(path))
-            return ds[lat].values, ds[lon].values
-    except InputFileError:
-        raise
-    except Exception as err:  # netCDF-C raises OSError/RuntimeError with HDF details
-        first = str(err).splitlines()[0] if str(err) else type(err).__name__
-        raise InputFileError(
-            f"{path}: cannot be read as NetCDF ({shorten(first, 100)}); the file may be damaged "
-            "or incomplete: download or copy it again"
-        ) from err
-
-
-def _raster_grid(path: Path):
-    import numpy as np
-    import rasterio
-
-    try:
-        with rasterio.open(path) as src:
-            b = src.bounds
-            dy, dx = (b.top - b.bottom) / src.height, (b.right - b.left) / src.width
-            # cell centres, as in a NetCDF file's coordinates
-            lat = b.bottom + dy * (np.arange(src.height) + 0.5)
-            lon = b.left + dx * (np.arange(src.width) + 0.5)
-            return lat, lon
-    except rasterio.errors.RasterioError as err:
-        raise InputFileError(
-            f"{path}: cannot be read as a GeoTIFF or ESRI ASCII grid "
-            f"({shorten(str(err), 100)}); the file may be damaged: copy it again"
-        ) from err
 
 
 def _signature(lat, lon) -> tuple:
@@ -313,8 +343,26 @@ def _describe(sig: tuple) -> str:
 def check_file_set(files: Sequence[InputFile], *, key: str, pattern: str | None = None) -> None:
     """Refuse an input whose files are unreadable, unsupported or on different grids.
 
-    Reads only headers (coordinates), so it is cheap enough to run at config load for every
-    input of a run.
+    Reads only headers (coordinates), through each format's reader
+    (:meth:`~timeslice.readers.registry.Reader.header_grid`), so it is cheap enough to run at
+    config load for every input of a run.
+
+    Parameters
+    ----------
+    files : sequence of InputFile
+    key : str
+        Config key named in messages.
+    pattern : str, optional
+        The path pattern the files came from, shown in messages.
+
+    Returns
+    -------
+    None
+
+    Raises
+    ------
+    InputFileError
+        A file is unreadable or unsupported, or the files are on different grids.
     """
     grids: dict[tuple, list[Path]] = {}
     for f in files:
@@ -322,7 +370,7 @@ def check_file_set(files: Sequence[InputFile], *, key: str, pattern: str | None 
         msg = unsupported_message(f.path, kind)
         if msg:
             raise InputFileError(msg)
-        lat, lon = _netcdf_grid(f.path) if kind == "netcdf" else _raster_grid(f.path)
+        lat, lon = get_reader(kind).header_grid(f.path)
         grids.setdefault(_signature(lat, lon), []).append(f.path)
     if len(grids) > 1:
         shown = "; ".join(

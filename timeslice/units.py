@@ -1,4 +1,8 @@
-"""Unit parsing and conversion to the canonical units (degC, mm month-1).
+"""Unit parsing and conversion to the canonical units (degC, mm month-1, m, fraction).
+
+The one place units are known: the readers convert every field with it, the config checks
+declared units with it before any file is read, and the harmonise stage uses its calendar month
+lengths.
 
 Units strings are parsed with pint through the CF-aware registry of ``cf_xarray.units``,
 after replacing spellings real files use that the registry does not know
@@ -17,9 +21,15 @@ import numpy as np
 from timeslice.errors import DataError
 
 __all__ = [
+    "FRACTION_UNITS",
+    "PERCENT_UNITS",
+    "PRECIPITATION_TABLE",
     "SECONDS_PER_DAY",
+    "TEMPERATURE_TABLE",
     "WATER_DENSITY",
     "days_in_month",
+    "fraction_factor",
+    "length_factor",
     "parse_units",
     "precipitation_conversion",
     "temperature_conversion",
@@ -79,7 +89,24 @@ def _clean(text: str) -> str:
 def parse_units(text: str, *, variable: str = "variable", source: str = "input"):
     """Parse a CF units string into a pint Unit, accepting common non-CF spellings.
 
-    Raises :class:`DataError` naming `variable` and `source` for an unknown string.
+    Parameters
+    ----------
+    text : str
+        The units attribute (``"K"``, ``"degrees_C"``, ``"kg m-2 s-1"``, ``"mm/mon"``...).
+    variable : str
+        Variable named in messages.
+    source : str
+        File (or config key) named in messages.
+
+    Returns
+    -------
+    pint.Unit
+        The unit in the CF-aware registry of ``cf_xarray.units``.
+
+    Raises
+    ------
+    DataError
+        `text` is empty or not a unit, naming `variable` and `source`.
     """
     if text is None or str(text).strip() == "":
         raise DataError(
@@ -97,13 +124,14 @@ def parse_units(text: str, *, variable: str = "variable", source: str = "input")
         ) from err
 
 
-# The commonest spellings, so a run need not build the pint registry (about a second) for
-# them; tests check every entry against pint (tests/readers/test_netcdf.py).
-_TEMPERATURE_TABLE: dict[str, tuple[float, float]] = {
+#: The commonest spellings, so a run need not build the pint registry (about a second) for
+#: them; tests check every entry against pint (tests/readers/test_units.py).
+TEMPERATURE_TABLE: dict[str, tuple[float, float]] = {
     "K": (-273.15, 1.0),
     "degC": (0.0, 1.0),
 }
-_PRECIPITATION_TABLE: dict[str, tuple[str, float]] = {
+#: As :data:`TEMPERATURE_TABLE`, for precipitation.
+PRECIPITATION_TABLE: dict[str, tuple[str, float]] = {
     "kg m-2 s-1": ("per_second", 1.0),
     "mm s-1": ("per_second", 1.0),
     "mm day-1": ("per_second", 1.0 / 86400.0),
@@ -118,7 +146,24 @@ def temperature_conversion(
 ) -> tuple[float, float]:
     """``(offset, factor)`` such that ``degC = offset + factor * value``.
 
-    Raises :class:`DataError` if the units are not a temperature.
+    Parameters
+    ----------
+    text : str
+        Units of the stored values.
+    variable, source : str
+        Named in messages.
+    use_table : bool, default True
+        Look the commonest spellings up in :data:`TEMPERATURE_TABLE` instead of pint.
+
+    Returns
+    -------
+    offset, factor : float
+        The linear map to degC.
+
+    Raises
+    ------
+    DataError
+        The units are not a temperature.
 
     Examples
     --------
@@ -128,8 +173,8 @@ def temperature_conversion(
     >>> round(off + fac * 212.0, 9)
     100.0
     """
-    if use_table and text is not None and _clean(text) in _TEMPERATURE_TABLE:
-        return _TEMPERATURE_TABLE[_clean(text)]
+    if use_table and text is not None and _clean(text) in TEMPERATURE_TABLE:
+        return TEMPERATURE_TABLE[_clean(text)]
     ureg = _registry()
     unit = parse_units(text, variable=variable, source=source)
     if unit.dimensionality != ureg.kelvin.dimensionality:
@@ -146,6 +191,15 @@ def precipitation_conversion(
     text: str, *, variable: str = "pr", source: str = "input", use_table: bool = True
 ) -> tuple[Literal["per_month", "per_second"], float]:
     """Classify a precipitation unit and give its scale factor.
+
+    Parameters
+    ----------
+    text : str
+        Units of the stored values.
+    variable, source : str
+        Named in messages.
+    use_table : bool, default True
+        Look the commonest spellings up in :data:`PRECIPITATION_TABLE` instead of pint.
 
     Returns
     -------
@@ -167,8 +221,8 @@ def precipitation_conversion(
     >>> precipitation_conversion("cm/month", use_table=False)
     ('per_month', 10.0)
     """
-    if use_table and text is not None and _clean(text) in _PRECIPITATION_TABLE:
-        return _PRECIPITATION_TABLE[_clean(text)]  # type: ignore[return-value]
+    if use_table and text is not None and _clean(text) in PRECIPITATION_TABLE:
+        return PRECIPITATION_TABLE[_clean(text)]  # type: ignore[return-value]
     ureg = _registry()
     unit = parse_units(text, variable=variable, source=source)
     q = ureg.Quantity(1.0, unit)
@@ -199,6 +253,8 @@ def days_in_month(calendar: str, year: int | None = None, *, source: str = "inpu
         A year for a real monthly series. Without it (a 12-step climatology) the calendar's
         non-leap month lengths are used (February 28) except in all_leap/366_day (29) and
         360_day (30 for every month).
+    source : str
+        File named in messages.
 
     Returns
     -------
@@ -224,3 +280,77 @@ def days_in_month(calendar: str, year: int | None = None, *, source: str = "inpu
         stop = cftime.datetime(y + (m == 12), m % 12 + 1, 1, calendar=cal)
         out[m - 1] = (stop - start).days
     return out
+
+
+#: Units strings read as a fraction 0..1 and as percent (land-ice cover).
+FRACTION_UNITS = frozenset({"1", "", "fraction", "0-1"})
+PERCENT_UNITS = frozenset({"%", "percent"})
+
+
+def length_factor(text: str | None, *, variable: str = "elevation", source: str = "input") -> float:
+    """Factor from a length unit to metres (no units: metres).
+
+    Parameters
+    ----------
+    text : str or None
+        Units of the stored values.
+    variable, source : str
+        Named in messages.
+
+    Returns
+    -------
+    float
+        ``metres = factor * value``.
+
+    Raises
+    ------
+    DataError
+        The units are not a length.
+
+    Examples
+    --------
+    >>> length_factor("km")
+    1000.0
+    """
+    ureg = _registry()
+    unit = parse_units(text or "m", variable=variable, source=source)
+    if unit.dimensionality != ureg.m.dimensionality:
+        raise DataError(
+            f"{source}: variable {variable!r} has units {text!r}, not a length; expected m"
+        )
+    return float(ureg.Quantity(1.0, unit).to("m").magnitude)
+
+
+def fraction_factor(text: str | None, *, variable: str = "ice", source: str = "input") -> float:
+    """Factor from a fraction or percent unit to a fraction 0..1 (no units: a fraction).
+
+    Parameters
+    ----------
+    text : str or None
+        Units of the stored values: one of :data:`FRACTION_UNITS` or :data:`PERCENT_UNITS`.
+    variable, source : str
+        Named in messages.
+
+    Returns
+    -------
+    float
+        0.01 for percent, else 1.0.
+
+    Raises
+    ------
+    DataError
+        The units are neither a fraction nor percent.
+
+    Examples
+    --------
+    >>> fraction_factor("%"), fraction_factor("1")
+    (0.01, 1.0)
+    """
+    value = str(text or "1").strip()
+    if value in PERCENT_UNITS:
+        return 0.01
+    if value not in FRACTION_UNITS:
+        raise DataError(
+            f"{source}: variable {variable!r} has units {text!r}; expected '%' or '1' (fraction)"
+        )
+    return 1.0
