@@ -32,6 +32,11 @@ def file_digest(path: str | os.PathLike) -> str:
     """SHA-256 of a file (or of every file a glob pattern matches), memoised by size and mtime.
 
     Raises :class:`InputFileError` naming the path when it is missing, a folder or unreadable.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        A file, or a glob pattern (every file it matches, in sorted order).
     """
     p = Path(path)
     if any(ch in str(p) for ch in "*?["):
@@ -59,13 +64,27 @@ def file_digest(path: str | os.PathLike) -> str:
 
 
 def content_key(*parts: Any) -> str:
-    """Stable SHA-256 of JSON-serialisable parts plus the package version."""
+    """Stable SHA-256 of JSON-serialisable parts plus the package version.
+
+    Parameters
+    ----------
+    *parts : JSON-serialisable
+        What the stage result depends on (input digests, config values).
+    """
     blob = json.dumps([__version__, *parts], sort_keys=True, default=str)
     return hashlib.sha256(blob.encode()).hexdigest()[:24]
 
 
 class StageCache:
-    """Cache of finished stage outputs below `root` (``None`` disables caching)."""
+    """Cache of finished stage outputs below `root` (``None`` disables caching).
+
+    Parameters
+    ----------
+    root : str, os.PathLike or None
+        Cache folder (``OUT/.cache``); None disables caching.
+    force : bool
+        Recompute every entry (and overwrite it) instead of reusing it.
+    """
 
     def __init__(self, root: str | os.PathLike | None, *, force: bool = False):
         self.root = None if root is None else Path(root)

@@ -85,10 +85,24 @@ def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
 
     Species are run one after another and only the running richness sum is kept between them,
     so peak memory does not grow with the number of species.
+
+    Parameters
+    ----------
+    cfg : Config
+        Validated configuration with several ``[[species]]``.
+    out : str or os.PathLike
+        Output folder.
+    force : bool
+        Recompute every stage.
+    progress : callable, optional
+        ``progress(stage, done, total)``.
+    command : list of str, optional
+        Command line recorded in the manifests.
     """
-    from timeslice.config import _slug
+    from timeslice.config import slug
     from timeslice.grid import cell_area
-    from timeslice.report import open_series, write_csv, write_manifest, write_series
+    from timeslice.report import write_csv, write_manifest, write_series
+    from timeslice.report.zarr_store import open_store
 
     out = Path(out)
     input_files = cfg.check_files()
@@ -100,10 +114,10 @@ def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
     for sub in cfg.species_configs():
         name = sub.species.name
         names.append(name)
-        res = run_species(sub, out / "species" / _slug(name), force=force, progress=progress,
+        res = run_species(sub, out / "species" / slug(name), force=force, progress=progress,
                   command=command, cache_dir=out / ".cache")
         result.paths[f"species {name}"] = res.out
-        with open_series(res.out / "series.nc") as ds:
+        with open_store(res.out) as ds:  # series.nc or series.zarr
             suit = (ds["suitable"] == 1).astype("int16").load()
             refuge = next((v for v in ("refugium_window", "refugium_all_slices") if v in ds), None)
             ref = ds[refuge].astype("int16").load() if refuge else None
@@ -153,7 +167,19 @@ def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
 
 def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
                   progress: Progress = _quiet) -> dict[str, Path]:
-    """Harmonise every slice and write one CF NetCDF per slice plus the input table."""
+    """Harmonise every slice and write one CF NetCDF per slice plus the input table.
+
+    Parameters
+    ----------
+    cfg : Config
+        Validated configuration.
+    out : str or os.PathLike
+        Output folder.
+    force : bool
+        Recompute every stage.
+    progress : callable, optional
+        ``progress(stage, done, total)``.
+    """
     from timeslice.io import file_stem
     from timeslice.report import write_csv, write_series
 
@@ -174,7 +200,17 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
 
 
 def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict[str, Path]:
-    """Fit the niche on the harmonised baseline; write the model, tables and response curves."""
+    """Fit the niche on the harmonised baseline; write the model, tables and response curves.
+
+    Parameters
+    ----------
+    cfg : Config
+        Validated configuration (one species).
+    out : str or os.PathLike
+        Output folder.
+    force : bool
+        Recompute every stage.
+    """
     from timeslice.niche.persist import save_model
     from timeslice.report import response_curves, write_csv
 
@@ -226,6 +262,16 @@ def run_summarise(
     reference, rate, window, dated_records : optional
         New values of ``series.reference``, ``series.dispersal_rate``,
         ``series.refugium_window`` and ``species.dated_records``; None keeps the run's own.
+    progress : callable, optional
+        ``progress(stage, done, total)``.
+    target : path, optional
+        Write the new summaries into this folder (with the run's cache) and leave the run as
+        it is.
+
+    Returns
+    -------
+    RunResult
+        As :func:`run`.
     """
     from timeslice.config import SeriesConfig, parse_config
     from timeslice.report import read_manifest
@@ -249,9 +295,9 @@ def run_summarise(
         raise DataError(f"summarise: {str(err).splitlines()[-1].strip()}") from err
     if dated_records is not None:
         cfg.species.dated_records = Path(dated_records).resolve()
-    from timeslice.config import _check_references
+    from timeslice.config import check_references
 
-    _check_references(cfg, "summarise")
+    check_references(cfg, "summarise")
     command = ["timeslice", "summarise", str(out)]
     for flag, value in (("--reference", reference), ("--rate", rate),
                         ("--dated-records", dated_records)):
@@ -270,28 +316,51 @@ def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
                variables: list[str] | None = None,
                target: str | os.PathLike | None = None) -> list[Path]:
     """Export the layers of a finished run's ``series.nc`` (GeoTIFF) into `target`
-    (default ``out/geotiff``); `variables` chooses layers (default every layer on the grid)."""
-    from timeslice.report.geotiff import export_file
+    (default ``out/geotiff``); `variables` chooses layers (default every layer on the grid).
+
+    Parameters
+    ----------
+    out : str or os.PathLike
+        Folder of a finished run.
+    fmt : str
+        Export format (``"geotiff"``).
+    variables : list of str, optional
+        Layers to export (default every layer on the grid).
+    target : str or os.PathLike, optional
+        Output folder (default ``out/geotiff``).
+    """
+    from timeslice.report.zarr_store import export_store, find_series
 
     out = Path(out)
     if fmt != "geotiff":
         raise DataError(f"--format must be 'geotiff', got {fmt!r}")
-    path = out / "series.nc"
-    if not path.is_file():
-        raise DataError(f"{path}: not found; run `timeslice run CONFIG --out {out}` first")
+    path = find_series(out)  # series.nc or series.zarr ([output] format)
+    if path is None:
+        raise DataError(f"{out / 'series.nc'}: not found; run `timeslice run CONFIG --out {out}` "
+                        "first")
     require_complete(out, "timeslice export")
     folder = Path(target) if target is not None else out / "geotiff"
-    written = export_file(path, folder, variables=variables)
-    ensemble = out / "ensemble.nc"
-    if ensemble.is_file() and variables is None:
+    written = export_store(path, folder, variables=variables)
+    ensemble = find_series(out, "ensemble")
+    if ensemble is not None and variables is None:
         # agreement, consensus and variance shares across models, beside the series layers
-        written += export_file(ensemble, folder / "ensemble")
+        written += export_store(ensemble, folder / "ensemble")
     return written
 
 
 def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
           progress: Progress = _quiet) -> RunResult:
-    """Repeat the run recorded in `manifest` (inputs must still have their recorded hashes)."""
+    """Repeat the run recorded in `manifest` (inputs must still have their recorded hashes).
+
+    Parameters
+    ----------
+    manifest : str or os.PathLike
+        ``manifest.json`` of a finished run.
+    out : str or os.PathLike, optional
+        Output folder (default: the manifest's folder).
+    progress : callable, optional
+        ``progress(stage, done, total)``.
+    """
     from timeslice.config import parse_config
     from timeslice.report import read_manifest
 

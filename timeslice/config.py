@@ -41,6 +41,8 @@ class _Section(BaseModel):
 
 
 class RunConfig(_Section):
+    """``[run]``: the run's name, seed and scheduler (docs/config.md)."""
+
     name: str = "timeslice run"
     #: 0 .. 2**32 - 1 (the range numpy's and scikit-learn's seeds accept)
     seed: int = Field(0, ge=0, le=2**32 - 1)
@@ -219,6 +221,8 @@ def _check_units(source, key: str, inp: ClimateInput | None) -> None:
 
 
 class ClimateConfig(_Section):
+    """``[climate]``: the baseline, elevation, model baselines and regridding (docs/config.md)."""
+
     baseline: ClimateInput
     elevation: ClimateInput
     baseline_kind: Literal["monthly", "bioclim"] = "monthly"
@@ -329,6 +333,8 @@ class SliceConfig(_Section):
 
 
 class SpeciesConfig(_Section):
+    """``[species]`` (or one ``[[species]]`` entry): the records and how to read them."""
+
     name: str = "species"
     occurrences: Path
     columns: dict[str, str] | None = None
@@ -347,6 +353,8 @@ class SpeciesConfig(_Section):
 
 
 class NicheConfig(_Section):
+    """``[niche]``: cleaning, calibration area, background, screening, algorithm, threshold."""
+
     #: a fitted model written by `timeslice fit` (model.pkl): transfer it without refitting;
     #: the other [niche] keys are then not used
     model: Path | None = None
@@ -419,6 +427,8 @@ _PREDICTORS = (*(f"bio{i}" for i in range(1, 20)), "elevation")
 
 
 class TransferConfig(_Section):
+    """``[transfer]``: clamping, chunking and batching of the projection."""
+
     clamp: bool = False
     chunks: int | Literal["auto"] = "auto"
     chunk_budget_mb: float = Field(64.0, gt=0)
@@ -434,6 +444,8 @@ class TransferConfig(_Section):
 
 
 class SeriesConfig(_Section):
+    """``[series]``: reference slice, movement, refugium window, ensembles, zones."""
+
     reference: str = "baseline"
     dispersal_rate: str | None = None
     refugium_window: list[str] | tuple[float, float] | None = None
@@ -483,6 +495,8 @@ class BioticConfig(_Section):
 
 
 class OutputConfig(_Section):
+    """``[output]``: which outputs a run writes and how maps are drawn."""
+
     maps: bool = True
     geotiff: bool = False
     #: GeoJSON outlines of the refugium patches and of the suitable area per slice in vector/
@@ -491,9 +505,14 @@ class OutputConfig(_Section):
     #: map projection: "lonlat" (plain latitude-longitude), "equal_area" (Lambert azimuthal
     #: equal-area centred on the region) or "polar" (the same centred on the nearer pole)
     projection: Literal["lonlat", "equal_area", "polar"] = "lonlat"
+    #: data files of the run: "netcdf" (series.nc, ensemble.nc) or "zarr" (series.zarr,
+    #: ensemble.zarr: chunk files written in parallel by the dask workers)
+    format: Literal["netcdf", "zarr"] = "netcdf"
 
 
 class Config(_Section):
+    """A whole validated configuration (:func:`load_config`); the keys are in docs/config.md."""
+
     run: RunConfig = Field(default_factory=RunConfig)
     grid: GridConfig | None = None
     climate: ClimateConfig
@@ -797,7 +816,7 @@ def _resolve(base: Path | None, p: str | Path) -> Path:
     return p
 
 
-def _slug(name: str) -> str:
+def slug(name: str) -> str:
     """Folder name of a species: letters, digits, dots, dashes and underscores."""
     return re.sub(r"[^A-Za-z0-9._-]+", "_", str(name)).strip("._") or "species"
 
@@ -845,7 +864,7 @@ def _suggest(value: str, choices, what: str) -> str:
     return f"; choose one of {shown}{' …' if len(choices) > 12 else ''}"
 
 
-def _check_references(cfg: Config, source: str) -> None:
+def check_references(cfg: Config, source: str) -> None:
     """Names that refer to other parts of the config, and choices of the stages, checked at
     load so a mistake costs no harmonising time."""
     specs = cfg.slice_specs()  # unknown models, bad `between` names, duplicate labels
@@ -955,7 +974,19 @@ def _finite(data, source: str, key: str = "") -> None:
 
 
 def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
-    """Validate a config mapping; relative paths resolve against the folder of `source`."""
+    """Validate a config mapping; relative paths resolve against the folder of `source`.
+
+    Parameters
+    ----------
+    data : dict
+        The parsed TOML (or an equivalent mapping).
+    source : str or Path
+        The file it came from: named in every error, and the folder relative paths start in.
+
+    Returns
+    -------
+    Config
+    """
     src = Path(source)
     _finite(data, str(source))
     try:
@@ -975,7 +1006,7 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
             s.file = (str(_resolve(base, s.file)) if isinstance(s.file, str)
                       else [str(_resolve(base, f)) for f in s.file])
     _check_patterns(cfg, str(source))
-    _check_references(cfg, str(source))
+    check_references(cfg, str(source))
     for sp in (cfg.species if cfg.multi_species else [cfg.species]):
         sp.occurrences = _resolve(base, sp.occurrences)
         if sp.dated_records is not None:
@@ -984,13 +1015,13 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
             sp.diversity = _resolve(base, sp.diversity)
     if cfg.multi_species:
         names = [sp.name for sp in cfg.species]
-        slugs = [_slug(n) for n in names]
+        slugs = [slug(n) for n in names]
         dup = sorted({n for n, g in zip(names, slugs) if slugs.count(g) > 1})
         if len(names) < 2 or dup:
             raise ConfigError(f"{source}: [[species]] needs at least two species with distinct "
                               f"names (their output folders), got {names}")
         for i, sub in enumerate(cfg.species_configs()):
-            _check_references(sub, f"{source}: species[{i}]")
+            check_references(sub, f"{source}: species[{i}]")
     if cfg.series.zones is not None:
         cfg.series.zones = _resolve(base, cfg.series.zones)
     for role in ("partner", "competitor"):
@@ -1012,6 +1043,15 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
 
 def load_config(path: str | Path) -> Config:
     """Read and validate a TOML config file.
+
+    Parameters
+    ----------
+    path : str or Path
+        The TOML file.
+
+    Returns
+    -------
+    Config
 
     Raises
     ------

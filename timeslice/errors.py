@@ -46,6 +46,13 @@ class TimesliceWarning(UserWarning):
 def shorten(text: str, width: int = 300) -> str:
     """`text` on one line, cut at a word boundary to at most `width` characters (with "…").
 
+    Parameters
+    ----------
+    text : str
+        Any message.
+    width : int
+        Largest length kept.
+
     Examples
     --------
     >>> shorten("cannot be read as NetCDF because the header is damaged", 30)
@@ -86,6 +93,15 @@ def write_failure(target: str | os.PathLike, err: BaseException, *,
     A full disk, a read-only or forbidden folder, and the netCDF/HDF5 libraries' own write
     errors each get the file, the cause and what to do. `what` follows "could not write" (with
     its leading space), e.g. ``" the stage cache entry"``.
+
+    Parameters
+    ----------
+    target : str or os.PathLike
+        The file that could not be written.
+    err : BaseException
+        The error met.
+    what : str
+        What was being written (follows "could not write").
 
     Examples
     --------

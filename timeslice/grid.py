@@ -122,13 +122,26 @@ def wrap_lon(lon, *, west: float = -180.0) -> np.ndarray:
 
     Use it to put points (records, centroids) onto the axis of a grid that runs past 180:
     ``wrap_lon(-170.0, west=160.0)`` is 190.
+
+    Parameters
+    ----------
+    lon : array_like
+        Longitudes, degrees.
+    west : float
+        Western edge of the target axis, degrees.
     """
     a = np.asarray(lon, dtype=float)
     return ((a - west) % 360.0) + west
 
 
 def is_global_lon(lon) -> bool:
-    """True when a regular longitude axis covers the full 360° (it wraps east-west)."""
+    """True when a regular longitude axis covers the full 360° (it wraps east-west).
+
+    Parameters
+    ----------
+    lon : array_like
+        A regular longitude axis, degrees.
+    """
     values = np.asarray(lon, dtype=float)
     if values.size < 2:
         return False
@@ -142,6 +155,13 @@ def lon_order(lon, *, source: str = "input") -> tuple[np.ndarray, np.ndarray]:
     jump (e.g. ... -171, -170, 160, 161 ...). Starting the axis after the jump and adding 360°
     to what follows 180 gives the continuous axis (160 ... 190). An axis that is already
     continuous is returned unchanged.
+
+    Parameters
+    ----------
+    lon : array_like
+        Ascending longitudes, degrees.
+    source : str
+        File or input named in an error.
 
     Returns
     -------
@@ -188,6 +208,13 @@ def continuous_lon(obj, *, source: str = "input"):
     region in two. This rolls the ``lon`` dimension so that the axis starts at the region's
     western edge and continues past 180 (coordinate attributes kept). Anything already
     continuous is returned unchanged.
+
+    Parameters
+    ----------
+    obj : xarray.Dataset or xarray.DataArray
+        Data with a ``lon`` dimension in [-180, 180).
+    source : str
+        File or input named in an error.
     """
     order, values = lon_order(obj["lon"].values, source=source)
     if np.array_equal(order, np.arange(order.size)):
@@ -208,7 +235,13 @@ def _set_coord_attrs(ds: xr.Dataset | xr.DataArray) -> None:
 
 
 def resolution(coord: xr.DataArray | np.ndarray) -> float:
-    """Spacing of a regular 1-D coordinate in degrees (absolute value)."""
+    """Spacing of a regular 1-D coordinate in degrees (absolute value).
+
+    Parameters
+    ----------
+    coord : xarray.DataArray or numpy.ndarray
+        A regular 1-D coordinate, degrees.
+    """
     values = np.asarray(coord, dtype=float)
     if values.size < 2:
         raise DataError("a coordinate with fewer than 2 points has no resolution")
@@ -228,6 +261,15 @@ def cell_bounds(
     climate models, first row at e.g. 87.86°) is the polar cap, so the grid covers the
     sphere. A coordinate with a single value needs its cell size: `step`, or a
     ``resolution`` attribute (set by :func:`make_grid`).
+
+    Parameters
+    ----------
+    coord : xarray.DataArray or numpy.ndarray
+        Cell-centred 1-D coordinate, degrees.
+    kind : {'lat', 'lon'}
+        Latitude edges are clipped to the poles; longitude edges are not.
+    step : float, optional
+        Cell size for a coordinate with one value (default: its ``resolution`` attribute).
     """
     c = np.asarray(coord, dtype=float)
     if c.size == 1:
@@ -260,6 +302,11 @@ def grid_edges(obj: xr.Dataset | xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
 
     A one-row (or one-column) grid takes its cell size from the coordinate's ``resolution``
     attribute, else from the spacing of the other axis (square cells).
+
+    Parameters
+    ----------
+    obj : xarray.Dataset or xarray.DataArray
+        Data on a regular ``lat``/``lon`` grid.
     """
     lat, lon = obj["lat"], obj["lon"]
     lat_step = lat.attrs.get("resolution", resolution(lon) if lon.size > 1 else None)
@@ -318,6 +365,13 @@ def find_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input") -> tupl
 
     CF attributes first (``standard_name``, ``units``, ``axis``), common names second.
     Raises :class:`DataError` naming `source` when none or several candidates are found.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset or xarray.DataArray
+        Data read from a file.
+    source : str
+        File or input named in an error.
     """
     lon_c, lat_c = [], []
     for name in list(ds.coords) + list(getattr(ds, "data_vars", {})):
@@ -354,6 +408,13 @@ def find_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input") -> tupl
 def normalise_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input"):
     """Rename coordinates to ``lon``/``lat``, wrap longitudes to [-180, 180), sort both
     ascending. Attributes of the data are kept.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset or xarray.DataArray
+        Data read from a file.
+    source : str
+        File or input named in an error.
     """
     lon, lat = find_lonlat(ds, source=source)
     if lon != "lon" or lat != "lat":
@@ -383,6 +444,13 @@ def normalise_lonlat(ds: xr.Dataset | xr.DataArray, *, source: str = "input"):
 
 def haversine_km(lon1, lat1, lon2, lat2) -> np.ndarray:
     """Great-circle distance in km on the authalic sphere (degrees in, broadcasting).
+
+    Parameters
+    ----------
+    lon1, lat1 : array_like
+        First points, degrees.
+    lon2, lat2 : array_like
+        Second points, degrees (broadcast against the first).
 
     References
     ----------

@@ -19,6 +19,11 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
 
     A failure (or a kill) leaves any previous file at `path` untouched; the temporary file is
     removed on an exception.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file to write.
     """
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
@@ -49,6 +54,11 @@ def file_stem(text: str) -> str:
     Every output named after a slice label, layer or model uses this one function, and the
     config refuses labels whose stems coincide (:meth:`timeslice.config.Config.slice_specs`).
 
+    Parameters
+    ----------
+    text : str
+        A slice label, layer or model name.
+
     Examples
     --------
     >>> file_stem("21ka/a"), file_stem("21ka:a"), file_stem("..")
@@ -61,6 +71,13 @@ def file_stem(text: str) -> str:
 
 def writable_folder(path: str | os.PathLike, *, what: str = "--out") -> Path:
     """Create `path` if needed and check it is a writable folder; one-line error naming `what`.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The folder.
+    what : str
+        The option or key named in the error.
 
     Raises
     ------

@@ -41,7 +41,27 @@ def _quiet(_stage: str, _done: int, _total: int) -> None:
 
 @dataclass
 class RunResult:
-    """What a run produced: output paths, the tables and the timings per stage."""
+    """What a run produced: output paths, the tables and the timings per stage.
+
+    Parameters
+    ----------
+    out : Path
+        The run folder.
+    paths : dict of str to Path
+        Every output written, by kind.
+    summary : pandas.DataFrame or None
+        One row per slice.
+    timings : dict of str to float
+        Wall seconds per stage.
+    cache_hits, cache_misses : list of str
+        Stage cache entries reused and computed.
+    key_results : pandas.DataFrame or None
+        The headline numbers (:func:`timeslice.series.key_results`), as in the report.
+    fit : NicheFit
+        The fitted niche (:class:`timeslice.niche.workflow.NicheFit`).
+    analysis : SeriesResult
+        The series results (:class:`timeslice.series.analysis.SeriesResult`).
+    """
 
     out: Path
     paths: dict[str, Path] = field(default_factory=dict)
@@ -285,7 +305,19 @@ def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
 
 
 def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key: str = ""):
-    """Read, clean and thin the records and fit the niche on the prepared baseline."""
+    """Read, clean and thin the records and fit the niche on the prepared baseline.
+
+    Parameters
+    ----------
+    cfg : Config
+        The run's configuration (``[species]``, ``[niche]``, ``run.seed``).
+    baseline : xarray.Dataset
+        The prepared baseline slice.
+    cache : StageCache
+        The stage cache.
+    base_key : str
+        Content key of the baseline (part of the fit's key).
+    """
     from timeslice.niche.workflow import fit_niche
     from timeslice.readers import read_occurrences
 
@@ -324,7 +356,15 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
 def fitted_model(path: Path, baseline: xr.Dataset):
     """A model fitted earlier (`timeslice fit`), checked against this run's baseline: every
     predictor present, and in the same units (the baseline's values must overlap the model's
-    calibration range, or the predictors were computed differently)."""
+    calibration range, or the predictors were computed differently).
+
+    Parameters
+    ----------
+    path : Path
+        A model file written by ``timeslice fit``.
+    baseline : xarray.Dataset
+        This run's prepared baseline.
+    """
     from timeslice.niche.persist import load_model
 
     fit = load_model(path)
@@ -401,6 +441,18 @@ def transfer_stage(
 
 
 def dataset_key(ds: xr.Dataset) -> str:
+    """Content key of a dataset: its variables' values and its attributes.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A prepared slice.
+
+    Returns
+    -------
+    str
+        24 hex digits of SHA-256.
+    """
     import hashlib
 
     h = hashlib.sha256()
@@ -418,6 +470,13 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
     """Change, stability, refugia, movement, ensembles and the hindcast across the series.
 
     Returns a :class:`timeslice.series.analysis.SeriesResult`.
+
+    Parameters
+    ----------
+    cfg : Config
+        The run's configuration (``[series]``, dated records, diversity, biotic layers).
+    stack : xarray.Dataset
+        The stacked transfers (:func:`transfer_stage`).
     """
     from timeslice.readers import read_dated_records
     from timeslice.series.analysis import analyse_series
@@ -528,6 +587,73 @@ def _reference(cfg: Config) -> str:
     return cfg.climate.baseline_label if ref == "baseline" else ref
 
 
+def espace_stage(cfg: Config, fit, slices: list[xr.Dataset], stack: xr.Dataset,
+                 out: Path) -> dict[str, Any]:
+    """Each transfer seen in environmental space: the table (availability, analog fraction)
+    and, with a report, the figure (drawn here, where the slices' predictors are at hand).
+
+    Parameters
+    ----------
+    cfg : Config
+        The run's configuration (``output.report``, ``run.seed``).
+    fit : NicheFit
+        The fitted niche (its background is the calibration climate).
+    slices : list of xarray.Dataset
+        The prepared slices, baseline first.
+    stack : xarray.Dataset
+        The stacked transfers.
+    out : Path
+        Run folder (the figure goes to ``plots/environment.png``).
+
+    Returns
+    -------
+    dict
+        ``environment`` (table) and ``extra_figures`` (caption, path) for the report.
+    """
+    from timeslice.transfer.espace import environment_table
+
+    extra: dict[str, Any] = {"environment": environment_table(fit, slices)}
+    if cfg.output.report:
+        from timeslice.report.espace import environment_panels
+
+        extra["extra_figures"] = [(
+            "Each slice in environmental space (first two principal components of the "
+            "calibration climate; loadings on the axes): background grey, presences "
+            "black, the slice's land climate blue, suitable green, outside the "
+            "calibration range red",
+            environment_panels(fit, slices, stack, out / "plots" / "environment.png",
+                               seed=cfg.run.seed))]
+    return extra
+
+
+def _complete_manifest(cfg: Config, out: Path, started: int, *, input_files, result, command,
+                       cache: StageCache, warnings_seen: list[str], notes: list[str]) -> Path:
+    """List the run's files, remove stale ones and write the manifest as complete."""
+    from timeslice.report import write_manifest
+    from timeslice.runfolder import finish_run
+
+    written, removed = finish_run(out, started)
+    return write_manifest(
+        {
+            "status": "complete",
+            "files": written,
+            "removed_stale": removed,
+            "config": cfg.model_dump(mode="json"),
+            "config_path": str(cfg.source),
+            "inputs": sorted({str(f.path) for fs in input_files.values() for f in fs}),
+            "input_sets": {k: [str(f.path) for f in fs] for k, fs in input_files.items()},
+            "seed": cfg.run.seed,
+            "timings": result.timings,
+            "command": command or sys.argv,
+            "outputs": [str(p) for p in result.paths.values()],
+            "cache": {"reused": len(cache.hits), "computed": len(cache.misses)},
+            "warnings": warnings_seen,
+            "series_notes": notes,
+        },
+        out / "manifest.json",
+    )
+
+
 def report_options(cfg: Config):
     """The settings of the report stage, read from the config.
 
@@ -550,7 +676,7 @@ def report_options(cfg: Config):
         vector=cfg.output.vector, geotiff=cfg.output.geotiff, report=cfg.output.report,
         projection=cfg.output.projection, dispersal_rate=cfg.series.dispersal_rate,
         clamp=cfg.transfer.clamp, config_path=str(cfg.source), seed=cfg.run.seed,
-        version=__version__)
+        version=__version__, data_format=cfg.output.format)
 
 
 # ----------------------------------------------------------------------------- run
@@ -590,8 +716,7 @@ def run(
     RunResult
         Output paths, tables, the fit, the series analysis and the timings.
     """
-    from timeslice.report import write_manifest
-    from timeslice.runfolder import begin_run, finish_run, make_out
+    from timeslice.runfolder import begin_run, make_out
 
     if cfg.multi_species:
         raise ConfigError(f"{cfg.source}: several species ([[species]]): run them with "
@@ -616,21 +741,7 @@ def run(
         with _timed(t, "transfer"):
             stack = transfer_stage(cfg, fit, [baseline, *slices], cache, fit_key=fit_key,
                                    progress=progress)
-            from timeslice.transfer.espace import environment_table
-
-            # each transfer seen in environmental space (availability, analog fraction)
-            inputs["environment"] = environment_table(fit, [baseline, *slices])
-            if cfg.output.report:
-                from timeslice.report.espace import environment_panels
-
-                # the figure is drawn here, where the slices' predictors are at hand
-                inputs["extra_figures"] = [(
-                    "Each slice in environmental space (first two principal components of the "
-                    "calibration climate; loadings on the axes): background grey, presences "
-                    "black, the slice's land climate blue, suitable green, outside the "
-                    "calibration range red",
-                    environment_panels(fit, [baseline, *slices], stack,
-                                       out / "plots" / "environment.png", seed=cfg.run.seed))]
+            inputs.update(espace_stage(cfg, fit, [baseline, *slices], stack, out))
         with _timed(t, "summarise"):
             analysis = summarise_stage(cfg, stack)
         series, summary = analysis.series, analysis.tables["summary"].copy()
@@ -652,27 +763,10 @@ def run(
     # the warnings were collected for the report; show them to the user too, once each
     for w in {str(w.message): w for w in caught}.values():
         warnings.showwarning(w.message, w.category, w.filename, w.lineno)
-    inputs_used = {str(f.path) for fs in input_files.values() for f in fs}
-    written, removed = finish_run(out, started)
-    result.paths["manifest"] = write_manifest(
-        {
-            "status": "complete",
-            "files": written,
-            "removed_stale": removed,
-            "config": cfg.model_dump(mode="json"),
-            "config_path": str(cfg.source),
-            "inputs": sorted(inputs_used),
-            "input_sets": {k: [str(f.path) for f in fs] for k, fs in input_files.items()},
-            "seed": cfg.run.seed,
-            "timings": t,
-            "command": command or sys.argv,
-            "outputs": [str(p) for p in result.paths.values()],
-            "cache": {"reused": len(cache.hits), "computed": len(cache.misses)},
-            "warnings": sorted({str(w.message) for w in caught}),
-            "series_notes": list(analysis.notes),
-        },
-        out / "manifest.json",
-    )
+    result.paths["manifest"] = _complete_manifest(
+        cfg, out, started, input_files=input_files, result=result, command=command,
+        cache=cache, warnings_seen=sorted({str(w.message) for w in caught}),
+        notes=list(analysis.notes))
     result.summary = summary
     result.cache_hits, result.cache_misses = cache.hits, cache.misses
     return result
