@@ -174,12 +174,21 @@ def run(
     workers: WorkersOpt = None,
     chunks: ChunksOpt = None,
     verbose: VerboseOpt = 0,
+    data_format: Annotated[
+        Optional[str], typer.Option("--format", help="Data files: 'netcdf' (series.nc) or 'zarr' (series.zarr).")
+    ] = None,
 ) -> None:
     """Run every stage of CONFIG: harmonise, fit, transfer, summarise, report."""
     from timeslice.config import load_config
     from timeslice.commands import run as run_pipeline
 
     cfg = _apply_overrides(load_config(config), scheduler, workers, chunks)
+    if data_format is not None:
+        if data_format not in ("netcdf", "zarr"):
+            from timeslice.errors import ConfigError
+
+            raise ConfigError(f"--format must be 'netcdf' or 'zarr', got {data_format!r}")
+        cfg.output.format = data_format
     with _progress(True) as progress:
         result = run_pipeline(cfg, out, force=force, progress=progress, command=sys.argv)
     _report_done(result, verbose)

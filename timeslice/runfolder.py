@@ -24,7 +24,8 @@ __all__ = ["RUN_FILES", "RUN_FOLDERS", "begin_run", "finish_run", "make_out", "r
 #: there that the current run did not write is left over from an earlier run and is removed
 #: when the run completes, so the folder always holds one run.
 RUN_FILES = ("series.nc", "ensemble.nc", "summary.csv", "report.html", "assemblage.nc")
-RUN_FOLDERS = ("maps", "plots", "tables", "geotiff", "vector", "species")
+RUN_FOLDERS = ("maps", "plots", "tables", "geotiff", "vector", "species", "series.zarr",
+               "ensemble.zarr")
 
 
 def make_out(out: Path) -> None:

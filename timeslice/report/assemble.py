@@ -58,6 +58,8 @@ class ReportOptions:
         Whether predictors were clamped to the calibration range (methods paragraph).
     config_path, seed, version : str, int, str
         Run information printed in the report.
+    data_format : {"netcdf", "zarr"}
+        Format of the data files (``[output] format``): ``series.nc`` or ``series.zarr``.
     """
 
     title: str
@@ -75,6 +77,7 @@ class ReportOptions:
     config_path: str = ""
     seed: int = 0
     version: str = ""
+    data_format: str = "netcdf"
 
 
 @dataclass
@@ -221,15 +224,17 @@ def write_outputs(
 
 def _write_data(opts: ReportOptions, series, summary, fit, inputs, out: Path, analysis):
     """series.nc, ensemble.nc, summary.csv and every table; returns (paths, tables, results)."""
-    from timeslice.report.netcdf import write_series
     from timeslice.report.tables import write_csv
+    from timeslice.report.zarr_store import series_writer
 
+    write_series, ext = series_writer(opts.data_format)  # NetCDF file or Zarr store
     paths: dict[str, Path] = {
-        "series": write_series(series, out / "series.nc", history=opts.history, title=opts.title),
+        "series": write_series(series, out / f"series{ext}", history=opts.history,
+                               title=opts.title),
         "summary": write_csv(summary, out / "summary.csv"),
     }
     if analysis is not None and analysis.ensemble is not None:
-        paths["ensemble"] = write_series(analysis.ensemble, out / "ensemble.nc",
+        paths["ensemble"] = write_series(analysis.ensemble, out / f"ensemble{ext}",
                                          history=opts.history,
                                          title=f"{opts.title}: model ensemble")
     tables = {
@@ -488,9 +493,10 @@ def _write_html(opts: ReportOptions, *, series, summary, fit, analysis, out: Pat
 
 def _output_list(paths: dict[str, Path], extra: dict[str, pd.DataFrame]) -> dict[str, str]:
     return {
-        "all layers, CF NetCDF": "series.nc",
+        "all layers, CF NetCDF": paths["series"].name if "series" in paths else "series.nc",
         "one row per slice": "summary.csv",
-        **({"model agreement and variance shares": "ensemble.nc"} if "ensemble" in paths else {}),
+        **({"model agreement and variance shares": paths["ensemble"].name}
+           if "ensemble" in paths else {}),
         **({"refugium patches (GeoJSON, one feature per patch)": "vector/refugium_patches.geojson",
             "suitable area per slice (GeoJSON)": "vector/suitable.geojson"}
            if "vector" in paths else {}),
