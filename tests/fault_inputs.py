@@ -245,3 +245,26 @@ def record_lines(records: list[tuple[float, float]], *, sep: str = ",",
         rows.append(sep.join([f"rec{i}", "Nivalia demonstrata", la, lo, "50", "present",
                               "HumanObservation", "2005"]))
     return "\n".join(rows) + "\n"
+
+
+def kill_once_cached(proc, out: Path, stage: str, entries: int, timeout: float) -> bool:
+    """SIGKILL the run `proc` once `entries` entries of `stage` are in ``out/.cache``.
+
+    Returns False when the run finished before it could be killed (the caller skips), True
+    after the kill (the process has exited).
+    """
+    import signal
+    import time
+
+    deadline = time.time() + timeout
+    folder = out / ".cache" / stage
+    while time.time() < deadline:
+        done = list(folder.glob("*.nc")) if folder.is_dir() else []
+        if len(done) >= entries or proc.poll() is not None:
+            break
+        time.sleep(0.05)
+    if proc.poll() is not None:
+        return False
+    proc.send_signal(signal.SIGKILL)
+    proc.wait(timeout=30)
+    return True

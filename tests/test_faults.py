@@ -18,10 +18,8 @@ import errno
 import json
 import os
 import shutil
-import signal
 import subprocess
 import sys
-import time
 from collections import Counter
 from pathlib import Path
 
@@ -37,6 +35,7 @@ from fault_inputs import (
     DELETE,
     demo_mapping,
     geotiff_corpus,
+    kill_once_cached,
     mutated,
     netcdf_corpus,
     record_lines,
@@ -92,6 +91,13 @@ def _clean_line(msg: str, names: list[str]) -> None:
     assert "\n" not in msg and "Traceback" not in msg, msg
     assert len(msg) <= MAX_LINE, f"{len(msg)} characters: {msg}"
     assert any(n and n in msg for n in names), f"names none of {names}: {msg}"
+
+
+def _fail_on_traceback(kind: str, got, part: str) -> None:
+    """Count and fail an attempt that ended in a traceback instead of one clean line."""
+    if kind == "traceback":
+        _count(part, "traceback")
+        raise AssertionError(f"traceback {type(got).__name__}: {got}") from got
 
 
 def _attempt(fn):
@@ -202,9 +208,7 @@ def _config_case(world: Path, mutations, typo, part: str) -> None:
             refuse = True
     cfg_path = write_config(world, data, "run.toml")
     kind, got = _attempt(lambda: load_config(cfg_path).check_files())
-    if kind == "traceback":
-        _count(part, "traceback")
-        raise AssertionError(f"traceback {type(got).__name__}: {got}") from got
+    _fail_on_traceback(kind, got, part)
     if kind == "clean":
         _count(part, "clean error")
         _clean_line(got, names)
@@ -329,9 +333,7 @@ def _records_case(tmp_path, case, part: str) -> None:
     path = tmp_path / "records.csv"
     path.write_bytes(("\n".join(rows) + "\n").encode(encoding))
     kind, got = _attempt(lambda: read_occurrences(path))
-    if kind == "traceback":
-        _count(part, "traceback")
-        raise AssertionError(f"traceback {type(got).__name__}: {got}") from got
+    _fail_on_traceback(kind, got, part)
     if kind == "clean":
         # a well-formed table must be read; a refusal here is a false alarm
         _count(part, "clean error")
@@ -372,9 +374,7 @@ def _damaged_case(tmp_path, good: bytes, cuts, part: str) -> None:
     path = tmp_path / "damaged.csv"
     path.write_bytes(bytes(data))
     kind, got = _attempt(lambda: read_occurrences(path))
-    if kind == "traceback":
-        _count(part, "traceback")
-        raise AssertionError(f"traceback {type(got).__name__}: {got}") from got
+    _fail_on_traceback(kind, got, part)
     if kind == "clean":
         _count(part, "clean error")
         _clean_line(got, ["damaged.csv"])
@@ -501,9 +501,7 @@ def _climate_case(world: Path, key: tuple, path: Path, expect: str, part: str) -
                             else None, **opts)
 
     kind, got = _attempt(check)
-    if kind == "traceback":
-        _count(part, "traceback")
-        raise AssertionError(f"traceback {type(got).__name__}: {got}") from got
+    _fail_on_traceback(kind, got, part)
     if kind == "ok":
         _count(part, "silent acceptance")
         raise AssertionError(f"accepted {path.name}")
@@ -809,16 +807,8 @@ def test_killed_then_resumed_run_gives_byte_identical_files(world, tmp_path):
     assert ref.wait(timeout=600) == 0, ref.stderr.read().decode()
     out = tmp_path / "killed"
     proc = _run_cli(cfg, out, "run")
-    deadline = time.time() + 600
-    while time.time() < deadline:
-        done = list((out / ".cache" / "transfer").glob("*.nc")) if (out / ".cache").exists() else []
-        if len(done) >= 2 or proc.poll() is not None:
-            break
-        time.sleep(0.05)
-    if proc.poll() is not None:
+    if not kill_once_cached(proc, out, "transfer", entries=2, timeout=600):
         pytest.skip("the run finished before it could be killed")
-    proc.send_signal(signal.SIGKILL)
-    proc.wait(timeout=30)
     again = _run_cli(cfg, out, "run")
     assert again.wait(timeout=600) == 0, again.stderr.read().decode()
     for name in ("series.nc", "ensemble.nc"):

@@ -4,13 +4,13 @@ uninterrupted run (data variables compared byte for byte)."""
 from __future__ import annotations
 
 import os
-import signal
 import subprocess
 import sys
-import time
 
 import numpy as np
 import pytest
+
+from fault_inputs import kill_once_cached
 
 from timeslice.demo import generate
 from timeslice.demo_config import render_demo_config
@@ -44,17 +44,9 @@ def test_killed_run_resumes_identically(tmp_path):
 
     out = tmp_path / "killed"
     proc = _run(cfg, out, env=env)
-    deadline = time.time() + 300
     # kill once some slices are harmonised but before the run has finished
-    while time.time() < deadline:
-        done = list((out / ".cache" / "harmonise").glob("*.nc")) if (out / ".cache").exists() else []
-        if len(done) >= 3 or proc.poll() is not None:
-            break
-        time.sleep(0.05)
-    if proc.poll() is not None:
+    if not kill_once_cached(proc, out, "harmonise", entries=3, timeout=300):
         pytest.skip("the run finished before it could be killed")
-    proc.send_signal(signal.SIGKILL)
-    proc.wait(timeout=30)
     assert not (out / "series.nc").exists()
     # no half-written cache entries survive: temporary names only
     assert not [p for p in out.rglob("*.nc") if p.stat().st_size == 0]
