@@ -16,7 +16,7 @@ import xarray as xr
 
 from timeslice.errors import DataError
 
-__all__ = ["BIO_ATTRS", "BIO_NAMES", "bioclim_kernel", "from_monthly"]
+__all__ = ["BIO_ATTRS", "BIO_NAMES", "bioclim_kernel", "bioclim_rows", "from_monthly"]
 
 BIO_NAMES = tuple(f"bio{i}" for i in range(1, 20))
 
@@ -237,8 +237,39 @@ def _finish(ds: xr.Dataset, layers: dict[str, xr.DataArray]) -> xr.Dataset:
     return out
 
 
+def bioclim_rows(tmin: np.ndarray, tmax: np.ndarray, pr: np.ndarray,
+                 tavg: np.ndarray | None = None, *, dtype=np.float32) -> np.ndarray:
+    """Bioclimatic variables of a block of grid rows with months on the first axis.
+
+    Parameters
+    ----------
+    tmin, tmax, pr : numpy.ndarray, shape (12, rows, lon)
+        Monthly mean daily minimum and maximum temperature (degC) and precipitation (mm).
+    tavg : numpy.ndarray, optional
+        Monthly mean temperature; default (tmax + tmin) / 2.
+    dtype : numpy dtype
+        Output dtype (computation is in float64).
+
+    Returns
+    -------
+    numpy.ndarray, shape (19, rows, lon)
+        BIO1 ... BIO19; NaN wherever any input month is NaN. The same numbers as
+        :func:`bioclim_kernel` on those cells.
+    """
+    arrays = [tmin, tmax, pr] + ([] if tavg is None else [tavg])
+    _, nrow, nlon = arrays[0].shape
+    cols = [np.asarray(a, dtype=np.float64).reshape(12, -1) for a in arrays]
+    ok = np.ones(cols[0].shape[1], dtype=bool)
+    for c in cols:
+        ok &= np.isfinite(c).all(axis=0)
+    res = np.full((19, cols[0].shape[1]), np.nan, dtype=dtype)
+    if ok.any():
+        res[:, ok] = _bioclim_columns(*[c[:, ok] for c in cols])
+    return res.reshape(19, nrow, nlon)
+
+
 def _blocked(ds: xr.Dataset, args: list[xr.DataArray], rows: int, dtype) -> xr.Dataset:
-    from timeslice.harmonise._blocks import map_rows
+    from timeslice.harmonise.rowblocks import map_rows
 
     other = [d for d in args[0].dims if d not in ("month", "lat", "lon")]
     if other:
@@ -251,14 +282,7 @@ def _blocked(ds: xr.Dataset, args: list[xr.DataArray], rows: int, dtype) -> xr.D
     outs = np.empty((19, nlat, nlon), dtype=dtype)
 
     def block(r0: int, r1: int) -> None:
-        cols = [np.asarray(a[:, r0:r1, :], dtype=np.float64).reshape(12, -1) for a in arrays]
-        ok = np.ones(cols[0].shape[1], dtype=bool)
-        for c in cols:
-            ok &= np.isfinite(c).all(axis=0)
-        res = np.full((19, cols[0].shape[1]), np.nan, dtype=dtype)
-        if ok.any():
-            res[:, ok] = _bioclim_columns(*[c[:, ok] for c in cols])
-        outs[:, r0:r1, :] = res.reshape(19, r1 - r0, nlon)
+        outs[:, r0:r1, :] = bioclim_rows(*[a[:, r0:r1, :] for a in arrays], dtype=dtype)
 
     map_rows(block, nlat, rows)
     template = args[0].isel(month=0, drop=True).transpose("lat", "lon")

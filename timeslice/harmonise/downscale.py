@@ -10,12 +10,25 @@ import xarray as xr
 from timeslice.errors import DataError
 from timeslice.harmonise.regrid import regrid
 
-__all__ = ["anomalies", "delta"]
+__all__ = ["ChangeFactors", "anomalies", "check_monthly", "delta", "delta_log", "swap_to_midpoint"]
 
 _VARS = ("tasmin", "tasmax", "pr")
 
 
-def _check(ds: xr.Dataset, what: str) -> None:
+def check_monthly(ds: xr.Dataset, what: str) -> None:
+    """Stop with one line unless `ds` is a Dataset of monthly tasmin, tasmax and pr.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The input to check.
+    what : str
+        Its name in the message.
+
+    Returns
+    -------
+    None
+    """
     if not isinstance(ds, xr.Dataset):
         raise DataError(f"`{what}` must be an xarray Dataset, got {type(ds).__name__}")
     missing = [v for v in _VARS if v not in ds.data_vars]
@@ -71,8 +84,8 @@ def anomalies(
 
     with :math:`r_{q98}` the 98th percentile of the month's ratio grid.
     """
-    _check(slice_ds, "slice_ds")
-    _check(model_baseline_ds, "model_baseline_ds")
+    check_monthly(slice_ds, "slice_ds")
+    check_monthly(model_baseline_ds, "model_baseline_ds")
     if not _same_grid(slice_ds, model_baseline_ds):
         raise DataError(
             "`slice_ds` and `model_baseline_ds` are on different grids "
@@ -112,29 +125,141 @@ def anomalies(
     return out
 
 
+class ChangeFactors:
+    """Change factors of one model slice, interpolated onto blocks of fine-grid rows.
+
+    Parameters
+    ----------
+    anom : xarray.Dataset
+        Output of :func:`anomalies` (model grid).
+    fine_lat, fine_lon : array-like
+        Coordinates of the fine grid.
+
+    Notes
+    -----
+    Bilinear interpolation; any valid neighbour is enough for an anomaly (the fine baseline
+    decides where land is). Each fine row depends only on its own interpolation weights, so
+    a block of rows gives the same numbers as the whole grid.
+    """
+
+    def __init__(self, anom: xr.Dataset, fine_lat, fine_lon):
+        from timeslice.harmonise.regrid import bilinear_weights
+
+        alat, alon = anom["lat"].values, anom["lon"].values
+        self.w_lat, self.w_lon = bilinear_weights(alat, alon, fine_lat, fine_lon)
+        if self.w_lat.nnz == 0 or self.w_lon.nnz == 0:
+            flat, flon = np.asarray(fine_lat), np.asarray(fine_lon)
+            raise DataError(
+                f"model slice: grid (lon {alon.min():g}..{alon.max():g}, lat {alat.min():g}.."
+                f"{alat.max():g}) does not overlap the target area (lon {flon.min():g}.."
+                f"{flon.max():g}, lat {flat.min():g}..{flat.max():g}); give model files that "
+                "cover the target area"
+            )
+        order = ("month", "lat", "lon")
+        self.factors = {n: np.asarray(anom[n].transpose(*order).values, dtype=np.float64)
+                        for n in _VARS}
+
+    def apply(self, base: dict[str, np.ndarray], r0: int, r1: int, *,
+              cast_first: bool = False) -> dict[str, np.ndarray]:
+        """Downscaled fields of fine rows ``r0:r1``.
+
+        Parameters
+        ----------
+        base : dict of str to numpy.ndarray, shape (12, r1 - r0, n_lon)
+            Fine-baseline ``tasmin``, ``tasmax``, ``pr`` of those rows.
+        r0, r1 : int
+            First and one-past-last fine row.
+        cast_first : bool
+            Round the interpolated factor to float32 before applying it (the whole-grid
+            arithmetic of :func:`delta` without `chunks`); else apply it in float64.
+
+        Returns
+        -------
+        dict of str to numpy.ndarray
+            New arrays of the dtype of `base`: ``T_obs + I(dT)``, ``P_obs * I(r)``.
+        """
+        from timeslice.harmonise.regrid import apply_weights
+
+        out = {}
+        for n in _VARS:
+            a = apply_weights(self.factors[n], self.w_lat[r0:r1], self.w_lon, None, 1e-6)
+            if cast_first:
+                a = a.astype(np.float32)
+            b = base[n]
+            out[n] = (b * a if n == "pr" else b + a).astype(b.dtype, copy=False)
+        return out
+
+
+def swap_to_midpoint(tmin: np.ndarray, tmax: np.ndarray) -> int:
+    """Set both to their midpoint where tmin > tmax, in place.
+
+    Parameters
+    ----------
+    tmin, tmax : numpy.ndarray
+        Downscaled monthly temperatures (same shape).
+
+    Returns
+    -------
+    int
+        Number of cell-months changed.
+    """
+    bad = tmin > tmax
+    n_fixed = int(bad.sum())
+    if n_fixed:
+        mid = 0.5 * (tmin[bad] + tmax[bad])
+        tmin[bad] = mid
+        tmax[bad] = mid
+    return n_fixed
+
+
+def delta_log(slice_attrs: dict, *, pr_floor: float, ratio_quantile: float, shape,
+              n_fixed: int, n_uncovered: int) -> list[str]:
+    """The log lines of one delta downscaling, after the slice's own lines.
+
+    Parameters
+    ----------
+    slice_attrs : dict
+        Attributes of the model slice (its ``harmonise_log``, JSON, comes first).
+    pr_floor, ratio_quantile : float
+        As given to :func:`delta`.
+    shape : (int, int)
+        Fine grid rows and columns.
+    n_fixed, n_uncovered : int
+        Cell-months swapped to the midpoint; fine cell-months left NaN outside the model.
+
+    Returns
+    -------
+    list of str
+    """
+    try:
+        log = list(json.loads(slice_attrs.get("harmonise_log", "[]")))
+    except (TypeError, ValueError):
+        log = []
+    log.append(
+        f"delta downscaling: additive tasmin/tasmax, ratio pr (floor {pr_floor} mm month-1, "
+        f"truncated at the {ratio_quantile:g} quantile per month), bilinear to "
+        f"{shape[0]}x{shape[1]} fine grid"
+    )
+    log.append(f"tasmin > tasmax after downscaling in {n_fixed} cell-months: set to midpoint")
+    if n_uncovered:
+        log.append(f"{n_uncovered} fine cell-months outside model coverage left NaN")
+    return log
+
+
 def _blocked_fields(anom: xr.Dataset, fb: xr.Dataset, rows: int):
     """Interpolate the change factors and apply them block by block of fine rows, writing
     into preallocated arrays (no full-grid float64 intermediates, no dask copy of `fb`)."""
-    from timeslice.harmonise._blocks import map_rows
-    from timeslice.harmonise.regrid import _apply_kernel, bilinear_weights
+    from timeslice.harmonise.rowblocks import map_rows
 
-    w_lat, w_lon = bilinear_weights(anom["lat"].values, anom["lon"].values,
-                                    fb["lat"].values, fb["lon"].values)
-    if w_lat.nnz == 0 or w_lon.nnz == 0:
-        raise DataError(
-            "the model slice does not overlap the fine baseline grid; give model files that "
-            "cover the target area"
-        )
+    factors = ChangeFactors(anom, fb["lat"].values, fb["lon"].values)
     order = ("month", "lat", "lon")
     base = {n: np.asarray(fb[n].transpose(*order).values) for n in _VARS}
-    fac = {n: np.asarray(anom[n].transpose(*order).values, dtype=np.float64) for n in _VARS}
     outs = {n: np.empty(base[n].shape, dtype=base[n].dtype) for n in _VARS}
 
     def block(r0: int, r1: int) -> None:
+        res = factors.apply({n: base[n][:, r0:r1, :] for n in _VARS}, r0, r1)
         for n in _VARS:
-            a = _apply_kernel(fac[n], w_lat[r0:r1], w_lon, None, 1e-6)
-            b = base[n][:, r0:r1, :]
-            outs[n][:, r0:r1, :] = b * a if n == "pr" else b + a
+            outs[n][:, r0:r1, :] = res[n]
 
     map_rows(block, base["tasmin"].shape[1], rows)
     coords = {"month": fb["month"], "lat": fb["lat"], "lon": fb["lon"]}
@@ -195,7 +320,7 @@ def delta(
     (2020). High-resolution and bias-corrected CMIP5 projections for climate change impact
     assessments. Scientific Data 7:7.
     """
-    _check(fine_baseline_ds, "fine_baseline_ds")
+    check_monthly(fine_baseline_ds, "fine_baseline_ds")
     anom = anomalies(slice_ds, model_baseline_ds, pr_floor=pr_floor,
                      ratio_quantile=ratio_quantile)
     fb = fine_baseline_ds
@@ -215,14 +340,7 @@ def delta(
             values[name] = np.array(raw.astype(fb[name].dtype).values)
         dims = {n: fb[n].dims for n in _VARS}
         coords = {n: fb[n].coords for n in _VARS}
-    tmin_v, tmax_v = values["tasmin"], values["tasmax"]
-    bad = tmin_v > tmax_v
-    n_fixed = int(bad.sum())
-    if n_fixed:
-        mid = 0.5 * (tmin_v[bad] + tmax_v[bad])
-        tmin_v[bad] = mid
-        tmax_v[bad] = mid
-    del bad
+    n_fixed = swap_to_midpoint(values["tasmin"], values["tasmax"])
     out = xr.Dataset()
     for name in _VARS:
         da = xr.DataArray(values[name], dims=dims[name], coords=coords[name],
@@ -231,19 +349,9 @@ def delta(
     n_uncovered = int((fb["tasmin"].transpose(*dims["tasmin"]).notnull().values
                        & np.isnan(values["tasmin"])).sum())
     attrs = {k: v for k, v in slice_ds.attrs.items() if k not in ("harmonise_log",)}
-    log = []
-    try:
-        log = list(json.loads(slice_ds.attrs.get("harmonise_log", "[]")))
-    except (TypeError, ValueError):
-        log = []
-    log.append(
-        f"delta downscaling: additive tasmin/tasmax, ratio pr (floor {pr_floor} mm month-1, "
-        f"truncated at the {ratio_quantile:g} quantile per month), bilinear to "
-        f"{fb.sizes['lat']}x{fb.sizes['lon']} fine grid"
-    )
-    log.append(f"tasmin > tasmax after downscaling in {n_fixed} cell-months: set to midpoint")
-    if n_uncovered:
-        log.append(f"{n_uncovered} fine cell-months outside model coverage left NaN")
+    log = delta_log(slice_ds.attrs, pr_floor=pr_floor, ratio_quantile=ratio_quantile,
+                    shape=(fb.sizes["lat"], fb.sizes["lon"]), n_fixed=n_fixed,
+                    n_uncovered=n_uncovered)
     attrs.update(n_swapped=n_fixed, harmonise_log=json.dumps(log))
     out.attrs = attrs
     return out

@@ -10,7 +10,17 @@ from timeslice.errors import DataError
 from timeslice.grid import cell_area
 from timeslice.harmonise.regrid import regrid
 
-__all__ = ["STANDARD_LAPSE_RATE", "TEMPERATURE_LEVELS", "fill_exposed", "land_mask"]
+__all__ = [
+    "STANDARD_LAPSE_RATE",
+    "TEMPERATURE_LEVELS",
+    "check_lapse_rate",
+    "check_mask_options",
+    "fill_exposed",
+    "filled_attrs",
+    "ice_on_grid",
+    "land_mask",
+    "mask_attrs",
+]
 
 #: Temperature lapse rate of the standard atmosphere below 11 km, 6.5 K per km = 0.0065 K m-1
 #: (ICAO Doc 7488, Manual of the ICAO Standard Atmosphere, 3rd ed. 1993; ISO 2533:1975).
@@ -53,6 +63,107 @@ def _ice_fraction(ice: xr.DataArray) -> xr.DataArray:
     raise DataError(f"`ice` has units {units!r}; expected '%' or '1' (area fraction)")
 
 
+def mask_attrs(sea_level: float, ice_threshold: float) -> dict[str, dict[str, str]]:
+    """Attributes of the ``land``, ``ice`` and ``exposed_shelf`` masks.
+
+    Parameters
+    ----------
+    sea_level : float, [m]
+        The slice's sea level relative to present.
+    ice_threshold : float
+        Ice fraction at and above which a cell is ice.
+
+    Returns
+    -------
+    dict
+        Mask name -> attributes (``units``, ``long_name``, ``description``).
+    """
+    return {
+        "land": dict(units="1", long_name="land", description=(
+            f"elevation above slice sea level {sea_level:g} m and not ice-covered")),
+        "ice": dict(units="1", long_name="ice-covered land",
+                    description=f"land-ice area fraction >= {ice_threshold:g}"),
+        "exposed_shelf": dict(units="1", long_name="exposed shelf",
+                              description="land in this slice that lies below present sea level"),
+    }
+
+
+def filled_attrs(lapse_rate: float) -> dict[str, str]:
+    """Attributes of the ``filled`` mask.
+
+    Parameters
+    ----------
+    lapse_rate : float, [K m-1]
+        Lapse rate of the temperature correction.
+
+    Returns
+    -------
+    dict
+    """
+    return dict(units="1", long_name="climate filled from nearest baseline land cell",
+                description=f"temperatures lapse-rate corrected ({lapse_rate * 1000:g} K per km)")
+
+
+def check_mask_options(sea_level: float, ice_threshold: float) -> None:
+    """Stop with one line on a sea level or ice threshold that cannot be used.
+
+    Parameters
+    ----------
+    sea_level : float, [m]
+        Must be finite.
+    ice_threshold : float
+        Must be a fraction in [0, 1].
+
+    Returns
+    -------
+    None
+    """
+    if not 0.0 <= float(ice_threshold) <= 1.0:
+        raise DataError(f"`ice_threshold` must be a fraction in [0, 1], got {ice_threshold}")
+    if not np.isfinite(sea_level):
+        raise DataError(f"`sea_level` must be a finite number of metres, got {sea_level}")
+
+
+def check_lapse_rate(lapse_rate: float) -> None:
+    """Stop with one line on a lapse rate outside 0 .. 0.0098 K m-1 (dry adiabatic).
+
+    Parameters
+    ----------
+    lapse_rate : float, [K m-1]
+
+    Returns
+    -------
+    None
+    """
+    if lapse_rate < 0 or lapse_rate > 0.0098:
+        raise DataError(
+            f"`lapse_rate` must be between 0 and 0.0098 K m-1 (dry adiabatic), got {lapse_rate}"
+        )
+
+
+def ice_on_grid(ice, target, *, chunks: int | None = None) -> xr.DataArray:
+    """Land-ice fraction 0..1 on the grid of `target`.
+
+    Parameters
+    ----------
+    ice : xarray.DataArray or Dataset
+        Ice fraction (units '1' or '%') on any lat-lon grid.
+    target : xarray.DataArray or Dataset
+        Anything with the target ``lat`` and ``lon``.
+    chunks : int, optional
+        Lazy result in blocks of this many target rows (see :func:`regrid`).
+
+    Returns
+    -------
+    xarray.DataArray
+        Conservative when coarsening, bilinear when refining; NaN where under half the
+        target cell is covered.
+    """
+    frac = _ice_fraction(_as_dataarray(ice, "ice", "ice"))
+    return regrid(frac, target, method="auto", min_valid_fraction=0.5, source="ice",
+                  chunks=chunks)
+
+
 def _fresh_attrs(da: xr.DataArray, **attrs) -> xr.DataArray:
     out = da.copy()
     out.attrs = dict(attrs)
@@ -88,36 +199,22 @@ def land_mask(
         ``ice_km2``, ``exposed_shelf_km2`` (sums of spherical cell areas).
     """
     elev = _as_dataarray(elevation, "elevation", "elevation")
-    if not 0.0 <= float(ice_threshold) <= 1.0:
-        raise DataError(f"`ice_threshold` must be a fraction in [0, 1], got {ice_threshold}")
-    if not np.isfinite(sea_level):
-        raise DataError(f"`sea_level` must be a finite number of metres, got {sea_level}")
+    check_mask_options(sea_level, ice_threshold)
     above = elev > float(sea_level)
     if ice is not None:
-        frac = _ice_fraction(_as_dataarray(ice, "ice", "ice"))
-        frac = regrid(frac, elev, method="auto", min_valid_fraction=0.5, source="ice")
+        frac = ice_on_grid(ice, elev)
         ice_b = (frac.fillna(0.0) >= float(ice_threshold)) & above
     else:
         ice_b = xr.zeros_like(above, dtype=bool)
     land = above & ~ice_b
     shelf = land & (elev <= 0.0)
     # masks are derived from elevation but are not heights: start their attributes afresh
-    out = xr.Dataset(
-        {
-            "land": _fresh_attrs(land,
-                units="1", long_name="land",
-                description=f"elevation above slice sea level {sea_level:g} m and not ice-covered",
-            ),
-            "ice": _fresh_attrs(ice_b,
-                units="1", long_name="ice-covered land",
-                description=f"land-ice area fraction >= {ice_threshold:g}",
-            ),
-            "exposed_shelf": _fresh_attrs(shelf,
-                units="1", long_name="exposed shelf",
-                description="land in this slice that lies below present sea level",
-            ),
-        }
-    )
+    attrs = mask_attrs(sea_level, ice_threshold)
+    out = xr.Dataset({
+        "land": _fresh_attrs(land, **attrs["land"]),
+        "ice": _fresh_attrs(ice_b, **attrs["ice"]),
+        "exposed_shelf": _fresh_attrs(shelf, **attrs["exposed_shelf"]),
+    })
     for v in out.data_vars:
         out[v] = out[v].astype(bool)
     out.attrs["sea_level"] = float(sea_level)
@@ -170,10 +267,7 @@ def fill_exposed(
     ----------
     ICAO (1993). Manual of the ICAO Standard Atmosphere, Doc 7488, 3rd ed.
     """
-    if lapse_rate < 0 or lapse_rate > 0.0098:
-        raise DataError(
-            f"`lapse_rate` must be between 0 and 0.0098 K m-1 (dry adiabatic), got {lapse_rate}"
-        )
+    check_lapse_rate(lapse_rate)
     spatial = [v for v in climate.data_vars
                if "lat" in climate[v].dims and "lon" in climate[v].dims and v != "filled"]
     if not spatial:
@@ -218,8 +312,5 @@ def fill_exposed(
             arr[..., ni, nj] = vals
             out[v] = da.copy(data=arr).transpose(*dims)
             out[v].attrs = dict(climate[v].attrs)
-    out["filled"] = filled.assign_attrs(
-        units="1", long_name="climate filled from nearest baseline land cell",
-        description=f"temperatures lapse-rate corrected ({lapse_rate * 1000:g} K per km)",
-    )
+    out["filled"] = filled.assign_attrs(**filled_attrs(lapse_rate))
     return out

@@ -11,12 +11,13 @@ import numpy as np
 import xarray as xr
 
 from timeslice.errors import DataError
-from timeslice.harmonise.bioclim import BIO_ATTRS, BIO_NAMES, from_monthly
-from timeslice.harmonise.downscale import delta
-from timeslice.harmonise.landmask import STANDARD_LAPSE_RATE, fill_exposed, land_mask
+from timeslice.harmonise.bioclim import BIO_ATTRS, BIO_NAMES
+from timeslice.harmonise.landmask import STANDARD_LAPSE_RATE
 from timeslice.harmonise.regrid import regrid
 
-__all__ = ["prepare_slice", "write_prepared"]
+__all__ = ["block_rows", "prepare_slice", "write_prepared", "write_slice"]
+
+_VARS = ("tasmin", "tasmax", "pr")
 
 
 def _load(obj, what: str, require=None) -> xr.Dataset:
@@ -52,30 +53,295 @@ def _same_grid(a, b) -> bool:
     )
 
 
-def _materialise(ds: xr.Dataset) -> xr.Dataset:
-    """Compute a lazy Dataset into preallocated contiguous arrays in one pass (variables that
-    share a graph, like the 19 slices of one bioclimatic stack, are computed once)."""
-    import dask.array as dsa
+def block_rows(nlat: int, nlon: int, chunks: int | Literal["auto"] | None = "auto"
+               ) -> tuple[int, int]:
+    """Rows per block of the fine grid, and rows per call of the bioclimatic kernel.
 
-    names = [v for v in ds.data_vars if ds[v].chunks is not None]
-    targets = [np.empty(ds[v].shape, dtype=ds[v].dtype) for v in names]
-    if names:
-        dsa.store([ds[v].data for v in names], targets, lock=False)
-    out = ds.copy()
-    for v, arr in zip(names, targets):
-        out[v] = ds[v].copy(data=arr)
-    return out
+    Parameters
+    ----------
+    nlat, nlon : int
+        Size of the fine grid.
+    chunks : int, "auto" or None
+        As in :func:`prepare_slice`.
 
-
-def _rows(chunks, target) -> int | None:
+    Returns
+    -------
+    (int, int)
+        Rows per block (a multiple of the second number; the whole grid for ``None`` and
+        for "auto" on grids up to 2**20 cells), rows per bioclimatic call. A fine-grid input
+        chunked by this many rows is read once.
+    """
     if chunks is None:
-        return None
-    nlat, nlon = target.sizes["lat"], target.sizes["lon"]
+        return nlat, nlat
     if chunks == "auto":
-        return max(8, 2**18 // nlon) if nlat * nlon > 2**20 else None
-    if not isinstance(chunks, int) or chunks < 1:
+        if nlat * nlon <= 2**20:
+            return nlat, nlat
+        rows = max(8, 2**18 // nlon)
+    elif not isinstance(chunks, int) or isinstance(chunks, bool) or chunks < 1:
         raise DataError(f"`chunks` must be a positive number of latitude rows, got {chunks!r}")
-    return chunks
+    else:
+        rows = chunks
+    # smaller calls for the bioclimatic kernel: it holds ~15 float64 copies of its block
+    bio = max(1, rows // 4)
+    return 4 * bio, bio
+
+
+def _check_args(label, model_slice, model_baseline, bio, fine_baseline) -> None:
+    if (model_slice is None) != (model_baseline is None):
+        which = "model_baseline" if model_baseline is None else "model_slice"
+        raise DataError(
+            f"slice {label!r}: `{which}` is missing; a downscaled slice needs both the model's "
+            "slice and the same model's baseline run"
+        )
+    if bio is not None and model_slice is not None:
+        raise DataError(
+            f"slice {label!r}: give either pre-computed `bio` layers or model files, not both"
+        )
+    if fine_baseline is None and bio is None:
+        raise DataError(f"slice {label!r}: `fine_baseline` is required for monthly slices")
+
+
+def _elevation_of(elevation) -> xr.DataArray:
+    elev_ds = _load(elevation, "elevation")
+    if "elevation" in elev_ds.data_vars:
+        return elev_ds["elevation"]
+    if len(elev_ds.data_vars) == 1:
+        return next(iter(elev_ds.data_vars.values()))
+    raise DataError(
+        f"`elevation` input has no variable 'elevation' (found {sorted(elev_ds.data_vars)})"
+    )
+
+
+def _rows_reader(da: xr.DataArray, dtype=None):
+    """``read(r0, r1)``: a fresh (writable) numpy copy of rows r0:r1 of `da` (lat, lon last)."""
+    lead = [d for d in da.dims if d not in ("lat", "lon")]
+    da = da.transpose(*lead, "lat", "lon")
+
+    def read(r0: int, r1: int) -> np.ndarray:
+        block = np.asarray(da.isel(lat=slice(r0, r1)).values)
+        return block.astype(dtype or block.dtype, copy=True)
+
+    return read
+
+
+class _Job:
+    """The inputs of one slice, checked and put on the target grid (lazily where large)."""
+
+    def __init__(self, *, fine_baseline, elevation, model_slice, model_baseline, bio, ice,
+                 label, chunks, regrid_method, pr_floor, ratio_quantile):
+        self.label = label
+        self.log: list[str] = []
+        self.fb = None
+        elev = _elevation_of(elevation)
+        if fine_baseline is not None:
+            self.fb = _load(fine_baseline, "fine_baseline", require=("tasmin", "tasmax", "pr"))
+            self.log = list(_log_of(self.fb))
+        self.target = self.fb if self.fb is not None else elev
+        nlat, nlon = self.target.sizes["lat"], self.target.sizes["lon"]
+        self.rows, self.bio_rows = block_rows(nlat, nlon, chunks)
+        # one block: the whole-grid arithmetic of delta() (factor rounded to float32 first),
+        # kept so that small grids give the numbers they always gave
+        one_block = chunks is None or (chunks == "auto" and nlat * nlon <= 2**20)
+        self.whole = one_block and (self.fb is None or self.fb["tasmin"].chunks is None)
+        lazy = None if one_block else self.rows
+        if not _same_grid(elev, self.target):
+            elev = regrid(elev, self.target, method="auto", source="elevation", chunks=lazy)
+            self.log.append(
+                f"elevation regridded onto the fine grid ({elev.attrs.get('regrid_method')})")
+        self.elev = elev
+        self.ice = None
+        if ice is not None:
+            from timeslice.harmonise.landmask import ice_on_grid
+
+            ice_ds = _load(ice, "ice")
+            ice_da = (ice_ds["ice"] if "ice" in ice_ds.data_vars
+                      else next(iter(ice_ds.data_vars.values())))
+            self.ice = ice_on_grid(ice_da, elev, chunks=lazy)
+        self.n_swapped = 0
+        if bio is not None:
+            self.kind, self.read = "bio", self._bio_reader(bio, regrid_method, lazy)
+        elif model_slice is not None:
+            self.kind = "monthly"
+            self.read = self._delta_reader(model_slice, model_baseline, regrid_method,
+                                           pr_floor, ratio_quantile)
+        else:
+            self.kind = "monthly"
+            self.read = self._observed_reader()
+
+    def _monthly_fb(self) -> xr.Dataset:
+        from timeslice.harmonise.downscale import check_monthly
+
+        check_monthly(self.fb, "fine_baseline_ds")
+        fb = self.fb
+        if "month" in fb.coords and np.any(np.diff(fb["month"].values) < 0):
+            fb = fb.sortby("month")
+        return fb
+
+    def _observed_reader(self):
+        fb = self._monthly_fb()
+        self.log.append("observed baseline: no downscaling")
+        readers = {v: _rows_reader(fb[v].transpose("month", "lat", "lon")) for v in _VARS}
+
+        def read(r0, r1):
+            return {v: readers[v](r0, r1) for v in _VARS}, {}
+
+        return read
+
+    def _delta_reader(self, model_slice, model_baseline, method, pr_floor, ratio_quantile):
+        from timeslice.harmonise.downscale import ChangeFactors, anomalies, swap_to_midpoint
+
+        label = self.label
+        ms = _load(model_slice, "model_slice", require=_VARS)
+        mb = _load(model_baseline, "model_baseline", require=_VARS)
+        self.log += [f"model slice: {line}" for line in _log_of(ms)]
+        self.log += [f"model baseline: {line}" for line in _log_of(mb)]
+        if not _same_grid(ms, mb):
+            ms = regrid(ms, mb, method=method, source=f"slice {label!r} model slice")
+            self.log.append("model slice regridded onto its model baseline grid")
+        fb = self._monthly_fb()
+        anom = anomalies(ms, mb, pr_floor=pr_floor, ratio_quantile=ratio_quantile)
+        factors = ChangeFactors(anom, fb["lat"].values, fb["lon"].values)
+        self.delta_args = dict(slice_attrs=dict(ms.attrs), pr_floor=pr_floor,
+                               ratio_quantile=ratio_quantile,
+                               shape=(fb.sizes["lat"], fb.sizes["lon"]))
+        self.ms_log = set(_log_of(ms))
+        readers = {v: _rows_reader(fb[v].transpose("month", "lat", "lon")) for v in _VARS}
+        whole = self.whole
+
+        def read(r0, r1):
+            base = {v: readers[v](r0, r1) for v in _VARS}
+            out = factors.apply(base, r0, r1, cast_first=whole)
+            n_fixed = swap_to_midpoint(out["tasmin"], out["tasmax"])
+            uncovered = int((np.isfinite(base["tasmin"]) & np.isnan(out["tasmin"])).sum())
+            return out, {"n_swapped": n_fixed, "n_uncovered": uncovered}
+
+        return read
+
+    def _bio_reader(self, bio, method, lazy):
+        label = self.label
+        bds = _load(bio, "bio")
+        missing = [b for b in BIO_NAMES if b not in bds.data_vars]
+        if missing:
+            raise DataError(
+                f"slice {label!r}: pre-computed `bio` layers lack {missing} (found "
+                f"{sorted(map(str, bds.data_vars))}); give all of bio1..bio19"
+            )
+        self.log += [f"bio layers: {line}" for line in _log_of(bds)]
+        clim = bds[list(BIO_NAMES)]
+        if not _same_grid(clim, self.target):
+            clim = regrid(clim, self.target, method=method, source=f"slice {label!r} bio",
+                          chunks=lazy)
+            methods = sorted({str(clim[b].attrs.get("regrid_method")) for b in BIO_NAMES})
+            self.log.append(f"bio layers regridded onto the target grid ({', '.join(methods)})")
+        self.bio_attrs = {}
+        for name in BIO_NAMES:
+            attrs = dict(clim[name].attrs)
+            attrs.pop("regrid_method", None)
+            if not attrs.get("long_name") and name in BIO_ATTRS:
+                u, ln, desc = BIO_ATTRS[name]
+                attrs.update(units=attrs.get("units") or u, long_name=ln, description=desc)
+            self.bio_attrs[name] = attrs
+        readers = {b: _rows_reader(clim[b]) for b in BIO_NAMES}
+
+        def read(r0, r1):
+            return {b: readers[b](r0, r1) for b in BIO_NAMES}, {}
+
+        return read
+
+    def plan(self, *, sea_level, ice_threshold, lapse_rate):
+        from timeslice.harmonise.streaming import SlicePlan
+
+        read_elev = _rows_reader(self.elev, np.float32)
+        return SlicePlan(
+            kind=self.kind, read_climate=self.read, read_elevation=read_elev,
+            read_ice=_rows_reader(self.ice) if self.ice is not None else None,
+            lat=self.target["lat"].values, lon=self.target["lon"].values,
+            sea_level=float(sea_level), ice_threshold=float(ice_threshold),
+            lapse_rate=float(lapse_rate), rows=self.rows, bio_rows=self.bio_rows,
+            label=self.label, clip="maximum" if self.kind == "monthly" and
+            hasattr(self, "delta_args") else "clip",
+        )
+
+    def layers(self, *, sea_level, ice_threshold, lapse_rate):
+        from timeslice.harmonise.landmask import filled_attrs, mask_attrs
+        from timeslice.harmonise.sinks import Layer
+
+        if self.kind == "bio":
+            out = [Layer(b, np.float32, self.bio_attrs[b]) for b in BIO_NAMES]
+        else:
+            out = [Layer(b, np.float32, dict(zip(("units", "long_name", "description"),
+                                                 BIO_ATTRS[b]))) for b in BIO_NAMES]
+        masks = mask_attrs(sea_level, ice_threshold)
+        elev_attrs = {**self.elev.attrs, "units": "m",
+                      "standard_name": "height_above_mean_sea_level",
+                      "long_name": "elevation relative to present sea level"}
+        out += [Layer("land", bool, masks["land"]), Layer("elevation", np.float32, elev_attrs),
+                Layer("ice", bool, masks["ice"]),
+                Layer("exposed_shelf", bool, masks["exposed_shelf"]),
+                Layer("filled", bool, filled_attrs(lapse_rate))]
+        return out
+
+    def coords(self):
+        lat = xr.DataArray(self.target["lat"].values, dims="lat", name="lat",
+                           attrs=dict(self.target["lat"].attrs))
+        lon = xr.DataArray(self.target["lon"].values, dims="lon", name="lon",
+                           attrs=dict(self.target["lon"].attrs))
+        return lat, lon
+
+    def attrs(self, summary, meta: dict) -> dict:
+        from timeslice.harmonise.downscale import delta_log
+
+        log = list(self.log)
+        n_swapped = 0
+        if hasattr(self, "delta_args"):
+            n_swapped = int(summary.counts.get("n_swapped", 0))
+            lines = delta_log(n_fixed=n_swapped,
+                              n_uncovered=int(summary.counts.get("n_uncovered", 0)),
+                              **self.delta_args)
+            log += [line for line in lines if line not in self.ms_log]
+        sea_level, ice_threshold = meta["sea_level"], meta["ice_threshold"]
+        log.append(
+            f"land = elevation > {sea_level:g} m"
+            + (f" and ice fraction < {ice_threshold:g}" if self.ice is not None else "")
+            + f": land {summary.land_km2:.0f} km2, ice {summary.ice_km2:.0f} km2, "
+            f"exposed shelf {summary.exposed_shelf_km2:.0f} km2"
+        )
+        if summary.n_filled:
+            log.append(
+                f"{summary.n_filled} land cells without baseline climate filled from the nearest "
+                f"baseline cell ({meta['lapse_rate'] * 1000:g} K/km lapse-rate correction)"
+            )
+        if self.kind == "monthly" and summary.n_negative:
+            log.append(f"{summary.n_negative} cell-months of negative precipitation set to 0")
+        return {
+            "slice_label": str(meta["label"]), "year": float(meta["year"]),
+            "period": str(meta["period"]), "model": str(meta["model"]),
+            "scenario": str(meta["scenario"]), "sea_level": float(sea_level),
+            "n_swapped": n_swapped, "land_km2": summary.land_km2, "ice_km2": summary.ice_km2,
+            "exposed_shelf_km2": summary.exposed_shelf_km2, "harmonise_log": json.dumps(log),
+        }
+
+
+def _prepare(sink_factory, *, fine_baseline, elevation, model_slice=None, model_baseline=None,
+             sea_level=0.0, ice=None, ice_threshold=0.5, label, year, period, model, scenario,
+             bio=None, regrid_method="auto", pr_floor=0.1, ratio_quantile=0.98,
+             lapse_rate=STANDARD_LAPSE_RATE, chunks="auto"):
+    """Check the inputs, run the blocks into the sink from `sink_factory(job, layers)`;
+    returns (sink, global attributes)."""
+    from timeslice.harmonise.landmask import check_lapse_rate, check_mask_options
+    from timeslice.harmonise.streaming import run_slice
+
+    _check_args(label, model_slice, model_baseline, bio, fine_baseline)
+    job = _Job(fine_baseline=fine_baseline, elevation=elevation, model_slice=model_slice,
+               model_baseline=model_baseline, bio=bio, ice=ice, label=label, chunks=chunks,
+               regrid_method=regrid_method, pr_floor=pr_floor, ratio_quantile=ratio_quantile)
+    check_mask_options(sea_level, ice_threshold)
+    check_lapse_rate(lapse_rate)
+    opts = dict(sea_level=sea_level, ice_threshold=ice_threshold, lapse_rate=lapse_rate)
+    sink = sink_factory(job, job.layers(**opts))
+    summary = run_slice(job.plan(**opts), sink)
+    meta = dict(label=label, year=year, period=period, model=model, scenario=scenario, **opts)
+    return sink, job.attrs(summary, meta)
 
 
 def prepare_slice(
@@ -142,163 +408,68 @@ def prepare_slice(
         ``scenario``, ``sea_level``, ``n_swapped``, ``land_km2``, ``ice_km2``,
         ``exposed_shelf_km2``, ``harmonise_log`` (JSON list of lines).
     """
-    if (model_slice is None) != (model_baseline is None):
-        which = "model_baseline" if model_baseline is None else "model_slice"
-        raise DataError(
-            f"slice {label!r}: `{which}` is missing; a downscaled slice needs both the model's "
-            "slice and the same model's baseline run"
-        )
-    if bio is not None and model_slice is not None:
-        raise DataError(
-            f"slice {label!r}: give either pre-computed `bio` layers or model files, not both"
-        )
-    if fine_baseline is None and bio is None:
-        raise DataError(f"slice {label!r}: `fine_baseline` is required for monthly slices")
-    elev_ds = _load(elevation, "elevation")
-    if "elevation" in elev_ds.data_vars:
-        elev = elev_ds["elevation"]
-    elif len(elev_ds.data_vars) == 1:
-        elev = next(iter(elev_ds.data_vars.values()))
-    else:
-        raise DataError(
-            f"`elevation` input has no variable 'elevation' (found {sorted(elev_ds.data_vars)})"
-        )
-    fb = None
-    if fine_baseline is not None:
-        fb = _load(fine_baseline, "fine_baseline", require=("tasmin", "tasmax", "pr"))
-        target = fb
-        log = list(_log_of(fb))
-    else:
-        target = elev
-        log = []
-    if not _same_grid(elev, target):
-        elev = regrid(elev, target, method="auto", source="elevation")
-        log.append(f"elevation regridded onto the fine grid ({elev.attrs.get('regrid_method')})")
-    elev = elev.astype(np.float32)
+    from timeslice.harmonise.sinks import MemorySink
 
-    rows = _rows(chunks, target)
-    n_swapped = 0
-    owned = False
-    if bio is not None:
-        bds = _load(bio, "bio")
-        missing = [b for b in BIO_NAMES if b not in bds.data_vars]
-        if missing:
-            raise DataError(
-                f"slice {label!r}: pre-computed `bio` layers lack {missing} (found "
-                f"{sorted(map(str, bds.data_vars))}); give all of bio1..bio19"
-            )
-        log += [f"bio layers: {line}" for line in _log_of(bds)]
-        clim = bds[list(BIO_NAMES)]
-        if not _same_grid(clim, target):
-            clim = regrid(clim, target, method=regrid_method, source=f"slice {label!r} bio")
-            methods = sorted({str(clim[b].attrs.get("regrid_method")) for b in BIO_NAMES})
-            log.append(f"bio layers regridded onto the target grid ({', '.join(methods)})")
-        clim = clim.assign_coords(lat=target["lat"], lon=target["lon"])
-    elif model_slice is not None:
-        ms = _load(model_slice, "model_slice", require=("tasmin", "tasmax", "pr"))
-        mb = _load(model_baseline, "model_baseline", require=("tasmin", "tasmax", "pr"))
-        log += [f"model slice: {line}" for line in _log_of(ms)]
-        log += [f"model baseline: {line}" for line in _log_of(mb)]
-        if not _same_grid(ms, mb):
-            ms = regrid(ms, mb, method=regrid_method, source=f"slice {label!r} model slice")
-            log.append("model slice regridded onto its model baseline grid")
-        clim = delta(ms, mb, fb, pr_floor=pr_floor, ratio_quantile=ratio_quantile,
-                     chunks=rows)
-        ms_log = set(_log_of(ms))
-        log += [line for line in _log_of(clim) if line not in ms_log]
-        n_swapped = int(clim.attrs.get("n_swapped", 0))
-        owned = True  # delta returns fresh numpy arrays: fill them in place
-    else:
-        clim = fb[["tasmin", "tasmax", "pr"]]
-        log.append("observed baseline: no downscaling")
+    def factory(job, layers):
+        return MemorySink(layers, *job.coords())
 
-    ice_da = None
-    if ice is not None:
-        ice_ds = _load(ice, "ice")
-        ice_da = ice_ds["ice"] if "ice" in ice_ds.data_vars else next(iter(ice_ds.data_vars.values()))
-    masks = land_mask(elev, sea_level=sea_level, ice=ice_da, ice_threshold=ice_threshold)
-    log.append(
-        f"land = elevation > {sea_level:g} m"
-        + (f" and ice fraction < {ice_threshold:g}" if ice is not None else "")
-        + f": land {masks.attrs['land_km2']:.0f} km2, ice {masks.attrs['ice_km2']:.0f} km2, "
-        f"exposed shelf {masks.attrs['exposed_shelf_km2']:.0f} km2"
-    )
-    land = masks["land"]
-    if bio is None:
-        clim = clim.transpose("month", "lat", "lon")
-    land_np = np.asarray(land.values)
-    for v in clim.data_vars:
-        first = clim[v].isel(month=0) if "month" in clim[v].dims else clim[v]
-        if land_np.any() and not np.isfinite(np.asarray(first.values)[land_np]).any():
-            raise DataError(
-                f"slice {label!r}: variable {v!r} has no value on any land cell of the target "
-                "grid; check that the input covers the target area"
-            )
-    clim = fill_exposed(clim, land, elev, lapse_rate=lapse_rate, inplace=owned)
-    n_filled = int(clim["filled"].sum())
-    if n_filled:
-        log.append(
-            f"{n_filled} land cells without baseline climate filled from the nearest baseline "
-            f"cell ({lapse_rate * 1000:g} K/km lapse-rate correction)"
-        )
-    if bio is None:
-        neg = int((clim["pr"].values < -1e-6).sum())
-        if neg:
-            log.append(f"{neg} cell-months of negative precipitation set to 0")
-        if owned and neg:
-            np.maximum(clim["pr"].values, 0.0, out=clim["pr"].values)
-        elif neg:
-            clim["pr"] = clim["pr"].clip(min=0.0)
-        if rows is not None:
-            # smaller blocks here: the kernel holds ~15 float64 copies of its block
-            bio_rows = max(1, rows // 4)
-            bio_ds = from_monthly(clim, block_rows=bio_rows)
-        else:
-            bio_ds = from_monthly(clim)
-    else:
-        bio_ds = clim
-    out = xr.Dataset()
-    sea = ~land_np
-    for name in BIO_NAMES:
-        src = bio_ds[name]
-        if bio is None and src.dtype == np.float32:
-            arr = np.asarray(src.values)  # computed here: ours to mask in place
-            if not arr.flags.writeable or not arr.flags.c_contiguous:
-                arr = np.ascontiguousarray(arr).copy()
-            arr[sea] = np.nan
-            da = src.copy(data=arr)
-        else:
-            da = src.where(land).astype(np.float32)
-        attrs = dict(src.attrs)
-        attrs.pop("regrid_method", None)
-        if not attrs.get("long_name") and name in BIO_ATTRS:
-            u, ln, desc = BIO_ATTRS[name]
-            attrs.update(units=attrs.get("units") or u, long_name=ln, description=desc)
-        da.attrs = attrs
-        out[name] = da
-    out["land"] = land
-    out["elevation"] = elev.assign_attrs(
-        units="m", standard_name="height_above_mean_sea_level",
-        long_name="elevation relative to present sea level",
-    )
-    out["ice"] = masks["ice"]
-    out["exposed_shelf"] = masks["exposed_shelf"]
-    out["filled"] = (clim["filled"] & land).assign_attrs(clim["filled"].attrs)
-    for c in ("lat", "lon"):
-        out[c].attrs.update(target[c].attrs)
-    out.attrs = {
-        "slice_label": str(label),
-        "year": float(year),
-        "period": str(period),
-        "model": str(model),
-        "scenario": str(scenario),
-        "sea_level": float(sea_level),
-        "n_swapped": n_swapped,
-        "land_km2": masks.attrs["land_km2"],
-        "ice_km2": masks.attrs["ice_km2"],
-        "exposed_shelf_km2": masks.attrs["exposed_shelf_km2"],
-        "harmonise_log": json.dumps(log),
-    }
+    sink, attrs = _prepare(
+        factory, fine_baseline=fine_baseline, elevation=elevation, model_slice=model_slice,
+        model_baseline=model_baseline, sea_level=sea_level, ice=ice,
+        ice_threshold=ice_threshold, label=label, year=year, period=period, model=model,
+        scenario=scenario, bio=bio, regrid_method=regrid_method, pr_floor=pr_floor,
+        ratio_quantile=ratio_quantile, lapse_rate=lapse_rate, chunks=chunks)
+    return sink.dataset(attrs)
+
+
+def write_slice(path, **kwargs) -> Path:
+    """Prepare one slice and write it as it is computed, a block of rows at a time.
+
+    The file holds the same values and attributes as ``write_prepared(prepare_slice(...))``
+    (chunked by blocks of rows instead of one chunk), and peak memory stays that of a few
+    blocks whatever the grid size, when the fine baseline is lazy (opened with
+    ``chunks={"lat": rows}``; see :func:`block_rows`).
+
+    Parameters
+    ----------
+    path : path-like
+        Output NetCDF file (written under a temporary name, then renamed).
+    **kwargs
+        The arguments of :func:`prepare_slice`.
+
+    Returns
+    -------
+    pathlib.Path
+        `path`.
+    """
+    from timeslice.harmonise.sinks import NetCDFSink
+    from timeslice.io import atomic_path
+
+    target = Path(path)
+    with atomic_path(target) as tmp:
+        sinks = []
+
+        def factory(job, layers):
+            sinks.append(NetCDFSink(tmp, layers, *job.coords(), rows=job.rows))
+            return sinks[0]
+
+        try:
+            sink, attrs = _prepare(factory, **kwargs)
+        except BaseException:
+            if sinks:
+                sinks[0].close()
+            raise
+        sink.close(_file_attrs(attrs))
+    return target
+
+
+def _file_attrs(attrs: dict) -> dict:
+    """Global attributes as :func:`write_prepared` writes them."""
+    out = dict(attrs)
+    out.setdefault("Conventions", "CF-1.8")
+    out.setdefault("title", f"timeslice prepared slice {out.get('slice_label', '')}".strip())
+    out["history"] = (str(out.get("history", "")) + "\n").lstrip() + \
+        "prepared by timeslice.harmonise.prepare_slice"
     return out
 
 
@@ -325,12 +496,7 @@ def write_prepared(ds: xr.Dataset, path) -> Path:
     for c in ("lat", "lon"):
         if c in out.coords:
             encoding[c] = {"_FillValue": None}  # CF 2.5.1: coordinates carry no fill value
-    out.attrs.setdefault("Conventions", "CF-1.8")
-    out.attrs.setdefault(
-        "title", f"timeslice prepared slice {out.attrs.get('slice_label', '')}".strip()
-    )
-    out.attrs["history"] = (str(out.attrs.get("history", "")) + "\n").lstrip() + \
-        "prepared by timeslice.harmonise.prepare_slice"
+    out.attrs = _file_attrs(out.attrs)
     target = Path(path)
     with atomic_path(target) as tmp:
         out.to_netcdf(tmp, encoding=encoding, format="NETCDF4")

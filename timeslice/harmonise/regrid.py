@@ -24,6 +24,7 @@ from timeslice.errors import DataError
 from timeslice.grid import cell_bounds, is_global_lon, lon_order, normalise_lonlat, resolution
 
 __all__ = [
+    "apply_weights",
     "bilinear_weights",
     "conservative_weights",
     "regrid",
@@ -222,7 +223,7 @@ def bilinear_weights(src_lat, src_lon, dst_lat, dst_lon) -> tuple[sp.csr_matrix,
 
     Longitudes wrap when the source grid is global. On a global source the polar rows are
     interpolated towards the pole (``w_lat`` then has two more columns, virtual pole rows
-    that :func:`_apply_kernel` fills with the mean of the outermost row); latitudes of
+    that :func:`apply_weights` fills with the mean of the outermost row); latitudes of
     regional sources (and longitudes of regional grids) are edge-padded up to the source's
     outer cell edges, so polar rows and borders are never NaN.
     """
@@ -233,14 +234,32 @@ def bilinear_weights(src_lat, src_lon, dst_lat, dst_lon) -> tuple[sp.csr_matrix,
     return w_lat, w_lon
 
 
-def _apply_kernel(
+def apply_weights(
     values: np.ndarray,
     w_lat: sp.csr_matrix,
     w_lon: sp.csr_matrix,
     dst_area: np.ndarray | None,
     min_valid_fraction: float,
 ) -> np.ndarray:
-    """Apply separable weights to the last two axes of `values` (NaN-aware)."""
+    """Apply separable weights to the last two axes of `values` (NaN-aware).
+
+    Parameters
+    ----------
+    values : numpy.ndarray, shape (..., n_src_lat, n_src_lon)
+        Source fields; NaN marks missing cells.
+    w_lat, w_lon : scipy.sparse.csr_matrix
+        Weights from :func:`bilinear_weights` or :func:`conservative_weights`; a block of
+        target rows is ``w_lat[r0:r1]`` (each target row depends only on its own weights).
+    dst_area : numpy.ndarray or None
+        Target cell areas (conservative; rows matching `w_lat`), None for bilinear.
+    min_valid_fraction : float
+        Below this valid share of the weights the result is NaN.
+
+    Returns
+    -------
+    numpy.ndarray, shape (..., n_dst_lat, n_dst_lon)
+        float32 for float32 input, else float64 (computed in float64).
+    """
     lead = values.shape[:-2]
     nlat, nlon = values.shape[-2:]
     flat = values.reshape((-1, nlat, nlon))
@@ -370,71 +389,16 @@ def regrid(
         raise DataError(
             f"`min_valid_fraction` must be in [0, 1], got {min_valid_fraction}"
         )
-    if "lat" not in obj.dims or "lon" not in obj.dims:
-        obj = normalise_lonlat(obj, source=source)
-    tlat, tlon = _target_coords(target)
-    slat = obj["lat"].values.astype(float)
-    slon = obj["lon"].values.astype(float)
-    if np.any(np.diff(slat) <= 0) or np.any(np.diff(slon) <= 0):
-        obj = normalise_lonlat(obj, source=source)
-        slat = obj["lat"].values.astype(float)
-        slon = obj["lon"].values.astype(float)
-    lon_order(slon, source=source)  # a gap in the source (not a crossing of 180°) is refused
-    t_order, _ = lon_order(tlon.values, source="regrid target")
-    if not np.array_equal(t_order, np.arange(t_order.size)):
-        raise DataError(
-            f"{source}: the target grid's longitudes jump (a region across 180° wrapped to "
-            "[-180, 180)); put it on a continuous axis first (timeslice.grid.continuous_lon)"
-        )
-    cache: dict[str, tuple] = {}
-
-    def weights(m: str):
-        if m == "auto":
-            m = _choose(slat, slon, tlat.values, tlon.values)
-        if m not in cache:
-            if m == "conservative":
-                cache[m] = conservative_weights(slat, slon, tlat.values, tlon.values)
-            elif m == "bilinear":
-                cache[m] = (*bilinear_weights(slat, slon, tlat.values, tlon.values), None)
-            else:
-                raise DataError(
-                    f"regrid `method` must be 'auto', 'conservative' or 'bilinear', got {m!r}"
-                )
-        return m, cache[m]
-
-    def one(da: xr.DataArray, name: str) -> xr.DataArray:
-        if "lat" not in da.dims or "lon" not in da.dims:
-            return da
-        m = method.get(name, "auto") if isinstance(method, dict) else method
-        m, (w_lat, w_lon, area) = weights(m)
-        if w_lat.nnz == 0 or w_lon.nnz == 0:
-            raise DataError(
-                f"{source}: grid (lon {slon.min():g}..{slon.max():g}, lat {slat.min():g}.."
-                f"{slat.max():g}) does not overlap the target area (lon {float(tlon.min()):g}.."
-                f"{float(tlon.max()):g}, lat {float(tlat.min()):g}..{float(tlat.max()):g}); "
-                "give an input that covers it"
-            )
-        data = da
-        if data.dtype == bool or np.issubdtype(data.dtype, np.integer):
-            data = data.astype(np.float32)
-        mvf = float(min_valid_fraction)
-        if chunks is not None and data.chunks is None:
-            res = _blocked(data, w_lat, w_lon, area, mvf, int(chunks))
-        else:
-            res = _unblocked(data, w_lat, w_lon, area, mvf, tlat.size, tlon.size)
-        res = res.assign_coords(lat=tlat.values, lon=tlon.values)
-        res = res.transpose(*da.dims)
-        res["lat"].attrs.update(tlat.attrs)
-        res["lon"].attrs.update(tlon.attrs)
-        res.attrs = dict(da.attrs)
-        res.attrs["regrid_method"] = m
-        res.name = da.name
-        return res
-
+    obj, slat, slon = _checked_source(obj, source)
+    tlat, tlon = _checked_target(target, source)
+    weights = _Weights(slat, slon, tlat.values, tlon.values)
+    opts = dict(weights=weights, method=method, mvf=float(min_valid_fraction), source=source,
+                chunks=chunks, tlat=tlat, tlon=tlon)
     if isinstance(obj, xr.DataArray):
-        return one(obj, str(obj.name))
+        return _regrid_array(obj, str(obj.name), **opts)
     out = xr.Dataset(
-        {str(k): one(v, str(k)) for k, v in obj.data_vars.items()}, attrs=dict(obj.attrs)
+        {str(k): _regrid_array(v, str(k), **opts) for k, v in obj.data_vars.items()},
+        attrs=dict(obj.attrs),
     )
     for c in obj.coords:
         if c not in out.coords and "lat" not in obj[c].dims and "lon" not in obj[c].dims:
@@ -442,11 +406,89 @@ def regrid(
     return out
 
 
+def _checked_source(obj, source: str):
+    """`obj` on ascending lat/lon without gaps, with its coordinates as float arrays."""
+    if "lat" not in obj.dims or "lon" not in obj.dims:
+        obj = normalise_lonlat(obj, source=source)
+    slat = obj["lat"].values.astype(float)
+    slon = obj["lon"].values.astype(float)
+    if np.any(np.diff(slat) <= 0) or np.any(np.diff(slon) <= 0):
+        obj = normalise_lonlat(obj, source=source)
+        slat = obj["lat"].values.astype(float)
+        slon = obj["lon"].values.astype(float)
+    lon_order(slon, source=source)  # a gap in the source (not a crossing of 180°) is refused
+    return obj, slat, slon
+
+
+def _checked_target(target, source: str) -> tuple[xr.DataArray, xr.DataArray]:
+    tlat, tlon = _target_coords(target)
+    t_order, _ = lon_order(tlon.values, source="regrid target")
+    if not np.array_equal(t_order, np.arange(t_order.size)):
+        raise DataError(
+            f"{source}: the target grid's longitudes jump (a region across 180° wrapped to "
+            "[-180, 180)); put it on a continuous axis first (timeslice.grid.continuous_lon)"
+        )
+    return tlat, tlon
+
+
+class _Weights:
+    """The weights of one source/target pair, computed once per method."""
+
+    def __init__(self, slat, slon, tlat, tlon):
+        self.coords = (slat, slon, tlat, tlon)
+        self.cache: dict[str, tuple] = {}
+
+    def get(self, m: str):
+        if m == "auto":
+            m = _choose(*self.coords)
+        if m not in self.cache:
+            if m == "conservative":
+                self.cache[m] = conservative_weights(*self.coords)
+            elif m == "bilinear":
+                self.cache[m] = (*bilinear_weights(*self.coords), None)
+            else:
+                raise DataError(
+                    f"regrid `method` must be 'auto', 'conservative' or 'bilinear', got {m!r}"
+                )
+        return m, self.cache[m]
+
+
+def _regrid_array(da: xr.DataArray, name: str, *, weights: _Weights, method, mvf: float,
+                  source: str, chunks, tlat, tlon) -> xr.DataArray:
+    if "lat" not in da.dims or "lon" not in da.dims:
+        return da
+    m = method.get(name, "auto") if isinstance(method, dict) else method
+    m, (w_lat, w_lon, area) = weights.get(m)
+    if w_lat.nnz == 0 or w_lon.nnz == 0:
+        slat, slon = weights.coords[:2]
+        raise DataError(
+            f"{source}: grid (lon {slon.min():g}..{slon.max():g}, lat {slat.min():g}.."
+            f"{slat.max():g}) does not overlap the target area (lon {float(tlon.min()):g}.."
+            f"{float(tlon.max()):g}, lat {float(tlat.min()):g}..{float(tlat.max()):g}); "
+            "give an input that covers it"
+        )
+    data = da
+    if data.dtype == bool or np.issubdtype(data.dtype, np.integer):
+        data = data.astype(np.float32)
+    if chunks is not None and data.chunks is None:
+        res = _blocked(data, w_lat, w_lon, area, mvf, int(chunks))
+    else:
+        res = _unblocked(data, w_lat, w_lon, area, mvf, tlat.size, tlon.size)
+    res = res.assign_coords(lat=tlat.values, lon=tlon.values)
+    res = res.transpose(*da.dims)
+    res["lat"].attrs.update(tlat.attrs)
+    res["lon"].attrs.update(tlon.attrs)
+    res.attrs = dict(da.attrs)
+    res.attrs["regrid_method"] = m
+    res.name = da.name
+    return res
+
+
 def _unblocked(data, w_lat, w_lon, area, mvf, nlat, nlon) -> xr.DataArray:
     """One apply_ufunc over the (lat, lon) core dims; dask input chunked on other dims stays
     lazy."""
     return xr.apply_ufunc(
-        _apply_kernel,
+        apply_weights,
         data,
         input_core_dims=[["lat", "lon"]],
         output_core_dims=[["lat", "lon"]],
@@ -473,7 +515,7 @@ def _blocked(data, w_lat, w_lon, area, mvf, rows) -> xr.DataArray:
     blocks = []
     for r0 in range(0, w_lat.shape[0], rows):
         r1 = min(r0 + rows, w_lat.shape[0])
-        blk = dask.delayed(_apply_kernel)(
+        blk = dask.delayed(apply_weights)(
             vals, w_lat[r0:r1], w_lon, None if area is None else area[r0:r1], mvf
         )
         blocks.append(dsa.from_delayed(blk, shape=lead + (r1 - r0, w_lon.shape[0]), dtype=dtype))
