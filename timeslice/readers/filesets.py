@@ -45,7 +45,17 @@ _GLOB_CHARS = "*?["
 
 @dataclass(frozen=True, order=True)
 class InputFile:
-    """One input file and what its path pattern says it holds."""
+    """One input file and what its path pattern says it holds.
+
+    Parameters
+    ----------
+    path : pathlib.Path
+        The file.
+    variable : str, optional
+        Canonical variable named by a ``{variable}`` pattern (None: the reader identifies it).
+    month : int, optional
+        Month 1..12 named by a ``{month}`` pattern (None: from the file's own time axis).
+    """
 
     path: Path
     #: canonical variable named by a ``{variable}`` pattern (None: the reader identifies it)
@@ -59,6 +69,25 @@ def check_pattern(pattern: str, *, key: str, allowed: Iterable[str] = PLACEHOLDE
 
     A stray ``{`` or ``}``, an unknown placeholder or a format spec that does not fit a month
     number is refused with the fix, before any file is touched.
+
+    Parameters
+    ----------
+    pattern : str
+        A configured path.
+    key : str
+        Config key named in messages.
+    allowed : iterable of str
+        Placeholders allowed for this key (default: :data:`PLACEHOLDERS`).
+
+    Returns
+    -------
+    set of str
+        The placeholders `pattern` uses.
+
+    Raises
+    ------
+    ConfigError
+        A malformed pattern, an unknown placeholder or a bad format spec.
     """
     allowed = set(allowed)
     try:
@@ -88,7 +117,19 @@ def _names(allowed: Iterable[str]) -> str:
 
 
 def substitute_model(pattern: str, model: str) -> str:
-    """Fill ``{model}`` only, leaving ``{variable}`` and ``{month}`` for :func:`expand_files`."""
+    """Fill ``{model}`` only, leaving ``{variable}`` and ``{month}`` for :func:`expand_files`.
+
+    Parameters
+    ----------
+    pattern : str
+        A configured path.
+    model : str
+        The model name.
+
+    Returns
+    -------
+    str
+    """
     return re.sub(r"\{model\}", model.replace("\\", "\\\\"), pattern)
 
 
@@ -229,7 +270,17 @@ def _match(name: str, *, pattern: str, key: str) -> list[Path]:
 
 
 def file_set_digest(files: Iterable[InputFile | str | os.PathLike]) -> str:
-    """SHA-256 over the sorted files' own digests and their tags (the stage cache key)."""
+    """SHA-256 over the sorted files' own digests and their tags (the stage cache key).
+
+    Parameters
+    ----------
+    files : iterable of InputFile or path-like
+
+    Returns
+    -------
+    str
+        Hexadecimal digest.
+    """
     import hashlib
 
     from timeslice.cache import file_digest

@@ -22,8 +22,14 @@ def open_layer(path: str | os.PathLike, *, what: str = "layer") -> xr.DataArray:
     Parameters
     ----------
     path : path-like
+        A NetCDF or GeoTIFF file.
     what : str
         What the layer is, for messages (e.g. ``"biotic.partner"``).
+
+    Returns
+    -------
+    xarray.DataArray
+        Float ``(lat, lon)`` field named `what`, lat ascending, lon in [-180, 180).
     """
     from timeslice.grid import normalise_lonlat
 

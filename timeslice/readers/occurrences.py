@@ -4,7 +4,7 @@ Files may be delimited text (comma, tab, semicolon or pipe; optionally gzip-, bz
 xz-compressed), a zip holding one such table (the aggregators' "simple" downloads), or a Darwin
 Core Archive (a zip with ``meta.xml``; event- or taxon-core archives are joined to their
 occurrences). Text is read as strict UTF-8 (with or without BOM), else Windows-1252 / Latin-1
-over the whole file; the encoding used is recorded (see :mod:`timeslice.readers._dwca`).
+over the whole file; the encoding used is recorded (see :mod:`timeslice.readers.dwca`).
 
 Canonical occurrence columns: ``lon``, ``lat`` (decimal degrees, WGS84), ``uncertainty_m``
 (coordinate uncertainty in metres), ``status`` (lower-case occurrence status), ``basis``
@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from timeslice.errors import InputFileError
-from timeslice.readers._dwca import load_table, term_name
+from timeslice.readers.dwca import load_table, term_name
 
 __all__ = ["OCCURRENCE_COLUMNS", "DATED_COLUMNS", "header_key", "read_dated_records", "read_occurrences"]
 
@@ -97,7 +97,17 @@ PAST_YEAR_CE = 1500.0
 
 def header_key(name: str) -> str:
     """Spelling-free key of a column name: term URI and ``dwc:`` prefix removed, lower case,
-    letters and digits only (``DECIMAL_LATITUDE``, ``dwc:decimalLatitude`` -> ``decimallatitude``)."""
+    letters and digits only (``DECIMAL_LATITUDE``, ``dwc:decimalLatitude`` -> ``decimallatitude``).
+
+    Parameters
+    ----------
+    name : str
+        A column name as the file spells it.
+
+    Returns
+    -------
+    str
+    """
     return re.sub(r"[^a-z0-9]", "", term_name(str(name).strip().lstrip("\ufeff")).lower())
 
 
@@ -205,6 +215,40 @@ def _date_years(text: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return start, np.where(np.isfinite(end), end, start)
 
 
+def _require_coordinates(df: pd.DataFrame, src: str, found: Mapping[str, str]) -> None:
+    """Refuse a table without longitude and latitude columns, naming the nearest column."""
+    missing = [c for c in ("lon", "lat") if c not in found]
+    if missing:
+        free = [c for c in _columns(df) if c not in found.values()]
+        near = _nearest(tuple(a for c in missing for a in _OCC_ALIASES[c]), free)
+        hint = f"nearest file column {near!r}; " if near else ""
+        raise InputFileError(
+            f"{src}: no coordinate column for {', '.join(missing)} (looked for decimalLongitude / "
+            f"lon / decimalLatitude / lat, any spelling); {hint}file columns are: "
+            f"{_clip(_columns(df), 4 if near else 8)}; map them with [species] columns"
+        )
+
+
+def _ages(df: pd.DataFrame, found: Mapping[str, str], start: np.ndarray,
+          end: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``age_bp`` and ``age_sd``: an age column, else min_ma/max_ma, else a past date interval."""
+    n = len(df)
+    age = _numeric(df[found["age_bp"]]) if "age_bp" in found else np.full(n, np.nan)
+    sd = _numeric(df[found["age_sd"]]) if "age_sd" in found else np.full(n, np.nan)
+    if "max_ma" in found or "min_ma" in found:
+        hi = _numeric(df[found["max_ma"]]) if "max_ma" in found else np.full(n, np.nan)
+        lo = _numeric(df[found["min_ma"]]) if "min_ma" in found else np.full(n, np.nan)
+        hi, lo = np.where(np.isnan(hi), lo, hi), np.where(np.isnan(lo), hi, lo)
+        fill = np.isnan(age) & np.isfinite(hi)
+        age = np.where(fill, (hi + lo) / 2.0 * 1e6, age)
+        sd = np.where(fill & (hi > lo), (hi - lo) / 4.0 * 1e6, sd)
+    with np.errstate(invalid="ignore"):
+        past = np.isnan(age) & np.isfinite(end) & (end < PAST_YEAR_CE)
+    age = np.where(past, 1950.0 - (start + end) / 2.0, age)
+    sd = np.where(past & (end > start), (end - start) / 4.0, sd)
+    return age, sd
+
+
 def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | None = None) -> pd.DataFrame:
     """Read occurrence records from a Darwin Core Archive, an aggregator download or a CSV.
 
@@ -249,16 +293,7 @@ def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | No
     table = load_table(path)
     df, src = table.data, table.source
     found = _resolve_columns(df, src, _OCC_ALIASES, columns)
-    missing = [c for c in ("lon", "lat") if c not in found]
-    if missing:
-        free = [c for c in _columns(df) if c not in found.values()]
-        near = _nearest(tuple(a for c in missing for a in _OCC_ALIASES[c]), free)
-        hint = f"nearest file column {near!r}; " if near else ""
-        raise InputFileError(
-            f"{src}: no coordinate column for {', '.join(missing)} (looked for decimalLongitude / "
-            f"lon / decimalLatitude / lat, any spelling); {hint}file columns are: "
-            f"{_clip(_columns(df), 4 if near else 8)}; map them with [species] columns"
-        )
+    _require_coordinates(df, src, found)
     n = len(df)
     out = pd.DataFrame(index=pd.RangeIndex(n))
     out["lon"], n_lon = _coordinate(df[found["lon"]])
@@ -285,19 +320,7 @@ def read_occurrences(path: str | os.PathLike, *, columns: Mapping[str, str] | No
     for canon in _TEXT:
         if canon in found:
             out[canon] = df[found[canon]].astype(str).str.strip().to_numpy()
-    age = _numeric(df[found["age_bp"]]) if "age_bp" in found else np.full(n, np.nan)
-    sd = _numeric(df[found["age_sd"]]) if "age_sd" in found else np.full(n, np.nan)
-    if "max_ma" in found or "min_ma" in found:
-        hi = _numeric(df[found["max_ma"]]) if "max_ma" in found else np.full(n, np.nan)
-        lo = _numeric(df[found["min_ma"]]) if "min_ma" in found else np.full(n, np.nan)
-        hi, lo = np.where(np.isnan(hi), lo, hi), np.where(np.isnan(lo), hi, lo)
-        fill = np.isnan(age) & np.isfinite(hi)
-        age = np.where(fill, (hi + lo) / 2.0 * 1e6, age)
-        sd = np.where(fill & (hi > lo), (hi - lo) / 4.0 * 1e6, sd)
-    with np.errstate(invalid="ignore"):
-        past = np.isnan(age) & np.isfinite(end) & (end < PAST_YEAR_CE)
-    age = np.where(past, 1950.0 - (start + end) / 2.0, age)
-    sd = np.where(past & (end > start), (end - start) / 4.0, sd)
+    age, sd = _ages(df, found, start, end)
     if np.isfinite(age).any():
         out["age_bp"] = age
         out["age_sd"] = sd

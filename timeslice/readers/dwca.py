@@ -1,6 +1,6 @@
 """Delivered record files to one table of strings: delimited text, gzip, zip, Darwin Core Archive.
 
-Private helper of :mod:`timeslice.readers.occurrences`. Every bad file raises
+Used by :mod:`timeslice.readers.occurrences`. Every bad file raises
 :class:`timeslice.errors.InputFileError` with a one-line message that names the file (and the
 member of an archive), what was expected and what was found.
 
@@ -33,7 +33,7 @@ import pandas as pd
 
 from timeslice.errors import InputFileError
 
-__all__ = ["RawTable", "load_table", "decode", "sniff", "term_name"]
+__all__ = ["RawTable", "decode", "load_table", "sniff", "term_name"]
 
 #: Table members a zip without meta.xml may hold, by file name ending.
 _TABLE_ENDINGS = (".csv", ".tsv", ".txt", ".tab", ".csv.gz", ".txt.gz", ".tsv.gz")
@@ -49,8 +49,21 @@ _MAX_BYTES = 4 * 1024**3
 class RawTable:
     """A delivered table as strings, with how it was read.
 
-    ``data`` holds one column per file column (Darwin Core Archives: the term's local name, e.g.
-    ``decimalLatitude``) plus ``__line__``, the 1-based line of the record in its file.
+    Parameters
+    ----------
+    data : pandas.DataFrame
+        One column per file column (Darwin Core Archives: the term's local name, e.g.
+        ``decimalLatitude``) plus ``__line__``, the 1-based line of the record in its file.
+    source : str
+        The file (and archive member) named in messages.
+    fmt : str
+        What the file was read as (its format, in words).
+    encoding : str
+        The text encoding used.
+    delimiter : str
+        The column delimiter.
+    notes : list of str
+        Further remarks on the reading (fallback encodings...).
     """
 
     data: pd.DataFrame
@@ -61,7 +74,12 @@ class RawTable:
     notes: list[str] = field(default_factory=list)
 
     def describe(self) -> str:
-        """One line: format, encoding and delimiter, for the cleaning table."""
+        """One line: format, encoding and delimiter, for the cleaning table.
+
+        Returns
+        -------
+        str
+        """
         parts = [self.fmt, f"encoding {self.encoding}", f"{_SEP_NAMES.get(self.delimiter, repr(self.delimiter))}-separated"]
         return "; ".join(parts + self.notes)
 
@@ -96,7 +114,19 @@ def decode(data: bytes, name: str, *, declared: str | None = None) -> tuple[str,
     A declared encoding (``meta.xml``) is tried first; when the bytes do not decode with it the
     same fallback applies and a note says so. UTF-16 is recognised by its byte-order mark.
 
-    Returns the text, the name of the encoding used and notes.
+    Parameters
+    ----------
+    data : bytes
+        The file's bytes.
+    name : str
+        The file named in messages.
+    declared : str, optional
+        The encoding the archive declares.
+
+    Returns
+    -------
+    text, encoding, notes : str, str, list of str
+        The text, the name of the encoding used and notes.
     """
     notes: list[str] = []
     if data.startswith((b"\xff\xfe", b"\xfe\xff")):
@@ -169,6 +199,16 @@ def sniff(text: str) -> tuple[str, int]:
     aggregators' tab-separated downloads do not quote, and hold stray double quotes inside
     fields) unless the header itself is quoted; the others with optional double quotes
     (RFC 4180).
+
+    Parameters
+    ----------
+    text : str
+        The decoded table.
+
+    Returns
+    -------
+    delimiter, quoting : str, int
+        The delimiter and a :mod:`csv` quoting constant.
     """
     header = next((ln for ln in text.splitlines() if ln.strip()), "")
     counts = {sep: header.count(sep) for sep in ("\t", ",", ";", "|")}
@@ -234,7 +274,16 @@ def _text_table(data: bytes, name: str, fmt: str) -> RawTable:
 # Darwin Core Archive
 # ---------------------------------------------------------------------------------------------
 def term_name(term: str) -> str:
-    """Local name of a term URI or prefixed term: ``http://rs.tdwg.org/dwc/terms/year`` -> ``year``."""
+    """Local name of a term URI or prefixed term: ``http://rs.tdwg.org/dwc/terms/year`` -> ``year``.
+
+    Parameters
+    ----------
+    term : str
+
+    Returns
+    -------
+    str
+    """
     t = str(term).strip()
     if "://" in t or t.startswith("urn:"):
         t = re.split(r"[/#:]", t.rstrip("/#"))[-1]
@@ -475,6 +524,19 @@ def load_table(path: str | Path) -> RawTable:
 
     Zip files are Darwin Core Archives (with ``meta.xml``) or hold one table; gzip, bzip2 and xz
     files are decompressed before the delimiter is sniffed; anything else is delimited text.
+
+    Parameters
+    ----------
+    path : str or path-like
+
+    Returns
+    -------
+    RawTable
+
+    Raises
+    ------
+    InputFileError
+        The file is missing, a folder, or unreadable in its format.
     """
     path = Path(path)
     label = str(path)
