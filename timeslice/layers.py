@@ -20,11 +20,15 @@ Rules the table encodes
   (the window's slices): ``"<table long_name> (<qualifier>)"`` agrees with the table.
 * ``per_chain`` entries also describe the per-chain layers ``<name>_<chain>``
   (``refugium_window_alder`` uses ``refugium_window``).
+
+The novelty layers (``mess``, ``most_dissimilar``, ``nt1``, ``nt2``) are in :data:`BUILT_IN`
+like every other layer the tool writes; a module that registers the same entry again is a
+no-op, a different entry under a taken name is refused (``replace=True`` to override).
 """
 
 from __future__ import annotations
 
-from collections.abc import Hashable, Mapping
+from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
@@ -34,11 +38,21 @@ import xarray as xr
 from timeslice.errors import DataError
 
 __all__ = [
-    "FIXED_KEYS", "LAYERS", "LayerSpec", "check", "disagreements", "register", "spec", "stamp",
+    "BUILT_IN", "CHECKED_KEYS", "INHERITED_NOISE", "LAYERS", "WRITER_KEYS", "LayerSpec", "agrees",
+    "check",
+    "disagreements", "flag_list", "register", "spec", "stamp",
 ]
 
-#: Attributes whose value the table fixes (when the entry sets them).
-FIXED_KEYS = ("units", "standard_name", "long_name", "cell_methods", "flag_meanings")
+#: Attributes :func:`check` compares with the table ("flags": the value-meaning pairs).
+#: ``standard_name`` is written from the table where a layer has none but not compared: a
+#: field passed through from an input keeps the standard name its reader gave it.
+CHECKED_KEYS = ("units", "long_name", "cell_methods", "flags")
+#: What the writers refuse to write against the table: units and flag meanings.
+WRITER_KEYS = ("units", "flags")
+
+#: Attributes a mask may inherit from the field it was derived from that would mislabel it.
+INHERITED_NOISE = ("standard_name", "positive", "source_units", "source_variable",
+                   "regrid_method", "valid_min", "valid_max", "valid_range", "axis")
 
 
 @dataclass(frozen=True)
@@ -71,6 +85,9 @@ class LayerSpec:
         Label of the maps' colour bar; default the long_name.
     per_chain : bool, default False
         The entry also describes ``<name>_<chain>`` layers.
+    fill_meaning : str, optional
+        Meaning of -1 where the stage marks cells without a value with -1 (a fill value) and
+        the table has no flag for it; the NetCDF writer writes it as a named flag.
 
     Returns
     -------
@@ -90,6 +107,7 @@ class LayerSpec:
     cmap: str | None = None
     colorbar_label: str | None = None
     per_chain: bool = False
+    fill_meaning: str | None = None
 
     def __post_init__(self) -> None:
         if not self.name or not str(self.name).isidentifier():
@@ -123,6 +141,23 @@ class LayerSpec:
             return list(zip((0, 1), self.bool_flags.split()))
         return []
 
+    def meaning(self, value: int) -> str | None:
+        """Meaning of code `value` (e.g. -1 "not_land"), None when the entry gives none.
+
+        Parameters
+        ----------
+        value : int
+            A flag value.
+
+        Returns
+        -------
+        str or None
+        """
+        found = dict(self.flags).get(int(value))
+        if found is None and int(value) == -1:
+            return self.fill_meaning
+        return found
+
     def attrs(self, dtype: Any = None) -> dict[str, Any]:
         """The attributes :func:`stamp` writes.
 
@@ -130,8 +165,8 @@ class LayerSpec:
         ----------
         dtype : numpy dtype, optional
             Type of the layer; integer layers get ``flag_values`` of that type (CF 1.8
-            section 3.5), boolean layers get no flag attributes (the writer adds them with
-            the int8 encoding).
+            section 3.5), boolean masks int8 ``0, 1`` (the type the NetCDF writer stores
+            them as), float layers no flags.
 
         Returns
         -------
@@ -145,14 +180,13 @@ class LayerSpec:
         if self.description:
             out["description"] = self.description
         kind = np.dtype(dtype).kind if dtype is not None else "i"
-        if kind != "b":
-            if self.flag_values is not None:
-                out["flag_values"] = np.asarray(self.flag_values,
-                                                dtype=dtype if kind in "iu" else np.int8)
-                out["flag_meanings"] = self.flag_meanings
-            elif self.bool_flags is not None and kind in "iu":
-                out["flag_values"] = np.asarray([0, 1], dtype=dtype)
-                out["flag_meanings"] = self.bool_flags
+        code = dtype if kind in "iu" else np.int8
+        if self.flag_values is not None and kind in "iu":
+            out["flag_values"] = np.asarray(self.flag_values, dtype=code)
+            out["flag_meanings"] = self.flag_meanings
+        elif self.bool_flags is not None and kind in "iub":
+            out["flag_values"] = np.asarray([0, 1], dtype=code)
+            out["flag_meanings"] = self.bool_flags
         return out
 
 
@@ -213,7 +247,99 @@ def spec(name: Hashable) -> LayerSpec | None:
 _T = TypeVar("_T", xr.DataArray, xr.Dataset)
 
 
-def stamp(obj: _T, name: str | None = None, *, qualifier: str | None = None) -> _T:
+def agrees(layer: LayerSpec, key: str, value: Any) -> bool:
+    """Whether attribute `key` = `value` agrees with the table entry `layer`.
+
+    Parameters
+    ----------
+    layer : LayerSpec
+        Table entry.
+    key : str
+        Attribute name (one of :data:`CHECKED_KEYS`).
+    value : object
+        The layer's value of it.
+
+    Returns
+    -------
+    bool
+        True when the entry does not fix `key`, or the values agree: equal text, a long_name
+        that starts with the table's and goes on with a qualifier (", limited movement",
+        " (its slices)", " against baseline"), flags whose values mean what the table says
+        (a stage may leave values out; -1 may be the one value the table lacks: cells with
+        no data).
+    """
+    if key == "flags":
+        table = dict(layer.flags) if layer.flag_values is not None else {}
+        have = dict(value) if isinstance(value, list) else {}
+        if not table:
+            return True
+        extra = [v for v in have if v not in table]
+        return (all(have[v] == table[v] for v in have if v in table)
+                and (extra == [] or extra == [-1]))
+    want = getattr(layer, key, None)
+    if want is None:
+        return True
+    text = str(value)
+    if key == "long_name":
+        return text == want or (text.startswith(want) and text[len(want)] in " ,;")
+    return text == str(want)
+
+
+def flag_list(attrs: Mapping[str, Any]) -> list[tuple[int, str]]:
+    """(value, meaning) pairs of a layer's CF ``flag_values``/``flag_meanings`` attributes.
+
+    Parameters
+    ----------
+    attrs : mapping
+        A layer's attributes.
+
+    Returns
+    -------
+    list of (int, str)
+        Empty when the layer has no flag attributes.
+    """
+    if "flag_values" not in attrs or "flag_meanings" not in attrs:
+        return []
+    values = np.atleast_1d(np.asarray(attrs["flag_values"])).tolist()
+    return list(zip((int(v) for v in values), str(attrs["flag_meanings"]).split()))
+
+
+def disagreements(name: Hashable, attrs: Mapping[str, Any], *,
+                  keys: Sequence[str] = CHECKED_KEYS) -> list[str]:
+    """What in `attrs` contradicts the table entry of layer `name`.
+
+    Parameters
+    ----------
+    name : str
+        Layer name.
+    attrs : mapping
+        The layer's attributes.
+    keys : sequence of str, default :data:`CHECKED_KEYS`
+        Attributes to compare ("flags" for the value-meaning pairs).
+
+    Returns
+    -------
+    list of str
+        One phrase per disagreeing attribute (``[]`` when they agree or the layer is not in
+        the table). A missing attribute is no disagreement: the writer completes it.
+    """
+    entry = spec(name)
+    if entry is None:
+        return []
+    problems = []
+    for key in keys:
+        if key == "flags":
+            have: Any = flag_list(attrs)
+            if have and not agrees(entry, key, have):
+                problems.append(f"flags {have} (the table has {entry.flags})")
+        elif key in attrs and not agrees(entry, key, attrs[key]):
+            problems.append(f"{key} {str(attrs[key])!r} (the table has "
+                            f"{getattr(entry, key)!r})")
+    return problems
+
+
+def stamp(obj: _T, name: str | None = None, *, long_name: str | None = None,
+          description: str | None = None, missing_only: bool = False) -> _T:
     """Set a layer's attributes from the table (in place; also returned).
 
     Parameters
@@ -223,20 +349,31 @@ def stamp(obj: _T, name: str | None = None, *, qualifier: str | None = None) -> 
     name : str, optional
         Table name of the layer; default the DataArray's name. With a Dataset: the variable
         to stamp; None stamps every variable of the dataset the table describes.
-    qualifier : str, optional
-        Parenthesised tail of the long_name naming what the run chose (a window's slices).
+    long_name : str, optional
+        A run-specific long_name: the table's followed by a qualifier (", limited movement",
+        " (baseline 21ka)"). Default: a long_name the layer has that agrees with the table,
+        else the table's.
+    description : str, optional
+        A run-specific description (thresholds, slice counts). Default: the layer's own,
+        else the table's.
+    missing_only : bool, default False
+        Write only the attributes the layer lacks (what a writer does to complete a dataset
+        it was handed); flags only when it has no ``flag_values``.
 
     Returns
     -------
     xarray.DataArray or xarray.Dataset
-        `obj`, its layer attributes now the table's (other attributes kept).
+        `obj`, its units, long_name, standard_name, cell_methods and flags now the table's
+        (other attributes kept). A boolean mask drops what it inherited from the field it was
+        derived from (:data:`INHERITED_NOISE`).
     """
     if isinstance(obj, xr.Dataset):
         names = [name] if name is not None else [n for n in obj.data_vars if spec(n)]
         for n in names:
             if n not in obj.data_vars:
                 raise DataError(f"stamp: the dataset has no layer {n!r}")
-            stamp(obj[n], str(n), qualifier=qualifier)
+            obj[n] = stamp(obj[n], str(n), long_name=long_name, description=description,
+                           missing_only=missing_only)
         return obj
     if not isinstance(obj, xr.DataArray):
         raise DataError(f"stamp: expected an xarray DataArray or Dataset, got "
@@ -246,60 +383,44 @@ def stamp(obj: _T, name: str | None = None, *, qualifier: str | None = None) -> 
     if entry is None:
         raise DataError(f"stamp: layer {key!r} is not in the layer table; register it in "
                         "timeslice.layers (docs/extending.md, 'An output layer')")
-    attrs = entry.attrs(obj.dtype)
-    if qualifier:
-        attrs["long_name"] = f"{entry.long_name} ({qualifier})"
+    attrs = dict(obj.attrs)
+    if missing_only:
+        new = entry.attrs(obj.dtype)
+        if "flag_values" in attrs:
+            new.pop("flag_values", None)
+            new.pop("flag_meanings", None)
+        obj.attrs = {**attrs, **{k: v for k, v in new.items() if k not in attrs}}
+        return obj
+    if obj.dtype == bool:
+        for noise in INHERITED_NOISE:
+            attrs.pop(noise, None)
+    if long_name is not None and not agrees(entry, "long_name", long_name):
+        raise DataError(f"stamp: long_name {long_name!r} of layer {key!r} must start with the "
+                        f"table's {entry.long_name!r}")
+    own = attrs.get("long_name")
+    new = entry.attrs(obj.dtype)
+    if attrs.get("standard_name") and obj.dtype != bool:
+        new.pop("standard_name", None)  # a passed-through input keeps its reader's name
+    if long_name is not None:
+        new["long_name"] = long_name
+    elif own is not None and agrees(entry, "long_name", own):
+        new["long_name"] = own
+    if description is not None:
+        new["description"] = description
+    elif attrs.get("description"):
+        new["description"] = attrs["description"]
     if entry.flag_values is None and entry.bool_flags is None:
         # run-dependent classes (variable names, patch numbers) stay the stage's own
-        attrs.pop("flag_values", None)
-    obj.attrs.update(attrs)
+        new.pop("flag_values", None)
+        new.pop("flag_meanings", None)
+    # the table's keys first (units, long_name, ...), then what the stage added
+    obj.attrs = {**new, **{k: v for k, v in attrs.items() if k not in new}}
     return obj
 
 
-def _agrees(key: str, have: Any, want: Any) -> bool:
-    if key == "long_name":
-        text = str(have)
-        return text == want or text.startswith(f"{want} (")
-    return str(have) == str(want)
-
-
-def disagreements(name: Hashable, attrs: Mapping[str, Any]) -> list[str]:
-    """What in `attrs` contradicts the table entry of layer `name`.
-
-    Parameters
-    ----------
-    name : str
-        Layer name.
-    attrs : mapping
-        The layer's attributes.
-
-    Returns
-    -------
-    list of str
-        One phrase per disagreeing attribute (``[]`` when they agree or the layer is not in
-        the table). A missing attribute is no disagreement; an extra leading flag value
-        (-1 "not_land" added by the NetCDF writer) neither.
-    """
-    entry = spec(name)
-    if entry is None:
-        return []
-    want = entry.attrs()
-    problems = []
-    for key in FIXED_KEYS:
-        if key == "flag_meanings":
-            continue
-        if key in want and key in attrs and not _agrees(key, attrs[key], want[key]):
-            problems.append(f"{key} {str(attrs[key])!r} (the table has {want[key]!r})")
-    if entry.flag_values is not None and "flag_meanings" in attrs:
-        have = list(zip(np.atleast_1d(np.asarray(attrs.get("flag_values", []))).tolist(),
-                        str(attrs["flag_meanings"]).split()))
-        if not set(entry.flags) <= set(have) or len(have) > len(entry.flags) + 1:
-            problems.append(f"flags {have} (the table has {entry.flags})")
-    return problems
-
-
-def check(ds: xr.Dataset | xr.DataArray, *, where: str = "write") -> None:
-    """Refuse a dataset whose layer attributes disagree with the table.
+def check(ds: xr.Dataset | xr.DataArray, *, where: str = "write",
+          keys: Sequence[str] = CHECKED_KEYS) -> None:
+    """Refuse layers whose attributes disagree with the table.
 
     Parameters
     ----------
@@ -307,6 +428,10 @@ def check(ds: xr.Dataset | xr.DataArray, *, where: str = "write") -> None:
         Layers about to be written.
     where : str, default "write"
         Name of the caller for the message (``"write_series"``, ``"geotiff.export"``).
+    keys : sequence of str, default :data:`CHECKED_KEYS`
+        Attributes to compare. The writers pass :data:`WRITER_KEYS` (units and flags: what a
+        reader computes with), so a dataset of the user's own with its own titles is written;
+        the stages' outputs agree on every key (a test checks them all).
 
     Returns
     -------
@@ -315,7 +440,7 @@ def check(ds: xr.Dataset | xr.DataArray, *, where: str = "write") -> None:
     """
     items = ds.data_vars.items() if isinstance(ds, xr.Dataset) else [(ds.name, ds)]
     for name, da in items:
-        problems = disagreements(name, da.attrs)
+        problems = disagreements(name, da.attrs, keys=keys)
         if problems:
             raise DataError(
                 f"{where}: layer {str(name)!r} disagrees with the layer table: "
@@ -324,123 +449,157 @@ def check(ds: xr.Dataset | xr.DataArray, *, where: str = "write") -> None:
             )
 
 
-def _table() -> None:
-    """Fill :data:`LAYERS` with the layers the tool writes."""
-    fraction = "1"
-    for entry in (
-        LayerSpec(
-            "suitability", fraction, "climatic suitability",
-            "relative suitability of the cell's climate for the species, 0..1, from the "
-            "niche model fitted on the baseline climate",
-            cmap="viridis", colorbar_label="climatic suitability (0-1)"),
-        LayerSpec(
-            "suitable", fraction, "climatically suitable (suitability at or above the threshold)",
-            "suitability >= threshold on land; -1 marks cells that are not land in the slice",
-            flag_values=(-1, 0, 1), flag_meanings="not_land unsuitable suitable"),
-        LayerSpec(
-            "mess", fraction, "multivariate environmental similarity surface",
-            "MESS (Elith, Kearney & Phillips 2010): negative values mean at least one "
-            "variable lies outside the reference range (novel climate)",
-            cmap="PuOr", colorbar_label="MESS (< 0: novel climate)"),
-        LayerSpec(
-            "most_dissimilar", fraction, "most dissimilar variable",
-            "variable with the lowest univariate similarity in MESS"),
-        LayerSpec(
-            "nt1", fraction, "ExDet univariate extrapolation (NT1)",
-            "NT1 (Mesgaran, Cousens & Webber 2014): 0 inside every univariate reference "
-            "range, negative outside",
-            cmap="cividis", colorbar_label="NT1 (< 0: outside the reference range)"),
-        LayerSpec(
-            "nt2", fraction, "ExDet combination novelty (NT2)",
-            "NT2 (Mesgaran, Cousens & Webber 2014): squared Mahalanobis distance over its "
-            "largest reference value; > 1 is a novel combination",
-            cmap="cividis", colorbar_label="NT2 (> 1: novel combination)"),
-        LayerSpec(
-            "change", fraction, "range change against the reference slice",
-            "0 unsuitable in both, 1 gained, 2 lost, 3 suitable in both the slice and the "
-            "reference slice; -1 not land",
-            flag_values=(-1, 0, 1, 2, 3), flag_meanings="not_land absent gain loss stable"),
-        LayerSpec(
-            "land", fraction, "land in the slice",
-            "1 where the cell is land in the slice (elevation above the slice's sea level and "
-            "not under an ice sheet)",
-            standard_name="land_binary_mask", bool_flags="sea_or_ice land"),
-        LayerSpec(
-            "ice", fraction, "ice sheet in the slice",
-            "1 where an ice sheet covers the cell in the slice (not land for the niche)",
-            bool_flags="no_ice ice"),
-        LayerSpec(
-            "exposed_shelf", fraction, "exposed continental shelf",
-            "land in the slice that lies below present sea level",
-            bool_flags="not_exposed exposed"),
-        LayerSpec(
-            "reachable", fraction, "suitable and reachable",
-            flag_values=(-1, 0, 1), flag_meanings="not_land not_reached reached",
-            per_chain=True),
-        LayerSpec("clamp_effect", fraction, "effect of clamping on suitability"),
-        LayerSpec(
-            "elevation", "m", "present-day surface elevation",
-            "elevation relative to present mean sea level; negative below it",
-            standard_name="surface_altitude", cell_methods="area: mean"),
-        LayerSpec(
-            "calibration_area", fraction, "calibration area of the niche model",
-            "cells the background sample and the novelty reference were drawn from",
-            bool_flags="outside inside"),
-        LayerSpec(
-            "stability", fraction, "fraction of slices suitable",
-            "share of the slices in which the cell is suitable (0..1)",
-            cmap="viridis", colorbar_label="fraction of slices suitable", per_chain=True),
-        LayerSpec(
-            "refugium", fraction, "climatic refugium (suitable in every slice)",
-            "1 where the cell is land and suitable in every slice of the series (a hypothesis "
-            "of climatic stability, not of occupancy)",
-            bool_flags="not_refugium refugium", per_chain=True),
-        LayerSpec(
-            "stability_all_slices", fraction,
-            "fraction of all slices suitable (past and future together)",
-            "share of every slice of the series, past and future, in which the cell is "
-            "suitable (0..1)", per_chain=True),
-        LayerSpec(
-            "refugium_all_slices", fraction,
-            "climatic refugium over all slices (past and future together)",
-            "1 where the cell is land and suitable in every slice of the series, past and "
-            "future together (a hypothesis of climatic stability, not of occupancy)",
-            bool_flags="not_refugium refugium", per_chain=True),
-        LayerSpec(
-            "refugium_all_slices_analog", fraction,
-            "climatic refugium over all slices, in analog climate",
-            "as refugium_all_slices, and in analog climate in every slice",
-            bool_flags="not_refugium refugium", per_chain=True),
-        LayerSpec(
-            "stability_window", fraction, "fraction of the refugium window's slices suitable",
-            "share of the slices of the refugium window in which the cell is suitable (0..1)",
-            per_chain=True),
-        LayerSpec(
-            "refugium_window", fraction, "climatic refugium over the refugium window",
-            "1 where the cell is land and suitable in every slice of the refugium window, in "
-            "every model (a hypothesis of climatic stability, not of occupancy)",
-            bool_flags="not_refugium refugium", per_chain=True),
-        LayerSpec(
-            "refugium_window_analog", fraction,
-            "climatic refugium over the refugium window, in analog climate",
-            "as refugium_window, and in analog climate in every slice of the window",
-            bool_flags="not_refugium refugium", per_chain=True),
-        LayerSpec(
-            "refugium_patch", fraction, "connected patch of the refugium",
-            "8-connected patches of the report's refugium layer numbered by decreasing area "
-            "(1 the largest, named R1); 0 outside; see tables/refugium_patches.csv",
-            per_chain=True),
-        LayerSpec("static_stability", fraction, "static stability (sum of log suitability)",
-                  per_chain=True),
-        LayerSpec(
-            "cell_area", "km2", "grid cell area",
-            "area on the authalic sphere, R = 6371.0072 km", standard_name="cell_area"),
-        LayerSpec(
-            "agreement", fraction, "fraction of climate models in which the cell is suitable",
-            cmap="viridis",
-            colorbar_label="share of climate models in which the cell is suitable"),
-    ):
-        register(entry)
+_ONE = "1"  # CF units of fractions, indices and flags
+_REFUGE = "not_refugium refugium"
 
+#: The layers the tool writes, in the words of its files; registered below.
+BUILT_IN: tuple[LayerSpec, ...] = (
+    # transfer: one value per slice and cell
+    LayerSpec(
+        "suitability", _ONE, "climatic suitability",
+        "relative suitability of the cell's climate for the species, 0..1, from the "
+        "niche model fitted on the baseline climate",
+        cmap="viridis", colorbar_label="climatic suitability (0-1)"),
+    LayerSpec(
+        "suitable", _ONE, "suitable climate",
+        "suitability >= threshold on land; -1 marks cells that are not land in the slice",
+        flag_values=(-1, 0, 1), flag_meanings="not_land unsuitable suitable"),
+    LayerSpec("clamp_effect", _ONE, "effect of clamping on suitability"),
+    LayerSpec(
+        "mess", _ONE, "multivariate environmental similarity",
+        "MESS (Elith, Kearney & Phillips 2010): negative values mean at least one "
+        "variable lies outside the reference range (novel climate)",
+        cmap="PuOr", colorbar_label="MESS (< 0: novel climate)"),
+    LayerSpec(
+        "most_dissimilar", _ONE, "most dissimilar variable",
+        "variable with the lowest univariate similarity in MESS", fill_meaning="no_data"),
+    LayerSpec(
+        "nt1", _ONE, "univariate novelty (ExDet NT1)",
+        "NT1 (Mesgaran, Cousens & Webber 2014): 0 inside every univariate reference "
+        "range, negative outside",
+        cmap="cividis", colorbar_label="NT1 (< 0: outside the reference range)"),
+    LayerSpec(
+        "nt2", _ONE, "combinational novelty (ExDet NT2)",
+        "NT2 (Mesgaran, Cousens & Webber 2014): squared Mahalanobis distance over its "
+        "largest reference value; > 1 is a novel combination",
+        cmap="cividis", colorbar_label="NT2 (> 1: novel combination)"),
+    # harmonise and niche: the slice's land, the terrain, the calibration area
+    LayerSpec(
+        "land", _ONE, "land in the slice",
+        "1 where the cell is land in the slice (elevation above the slice's sea level and "
+        "not under an ice sheet)",
+        standard_name="land_binary_mask", bool_flags="sea_or_ice land"),
+    LayerSpec(
+        "ice", _ONE, "ice sheet in the slice",
+        "1 where an ice sheet covers the cell in the slice (not land for the niche)",
+        bool_flags="no_ice ice"),
+    LayerSpec(
+        "exposed_shelf", _ONE, "exposed continental shelf",
+        "land in the slice that lies below present sea level",
+        bool_flags="not_exposed exposed"),
+    LayerSpec(
+        "elevation", "m", "elevation relative to present sea level",
+        "elevation relative to present mean sea level; negative below it",
+        standard_name="surface_altitude", cell_methods="area: mean"),
+    LayerSpec(
+        "calibration_area", _ONE, "calibration area of the niche model",
+        "cells the background sample and the novelty reference were drawn from",
+        bool_flags="outside inside"),
+    LayerSpec(
+        "cell_area", "km2", "grid cell area",
+        "area on the authalic sphere, R = 6371.0072 km", standard_name="cell_area"),
+    # series: change, stability, refugia, movement
+    LayerSpec(
+        "change", _ONE, "change of suitability class against the reference slice",
+        "0 unsuitable in both, 1 gained, 2 lost, 3 suitable in both the slice and the "
+        "reference slice; -1 not land",
+        flag_values=(-1, 0, 1, 2, 3), flag_meanings="not_land absent gain loss stable"),
+    LayerSpec(
+        "stability", _ONE, "fraction of slices suitable",
+        "share of the slices in which the cell is suitable (0..1)",
+        cmap="viridis", colorbar_label="fraction of slices suitable", per_chain=True),
+    LayerSpec(
+        "refugium", _ONE, "climatic refugium (suitable in every slice)",
+        "1 where the cell is land and suitable in every slice of the series (a hypothesis "
+        "of climatic stability, not of occupancy)",
+        bool_flags=_REFUGE, per_chain=True),
+    LayerSpec(
+        "refugium_analog", _ONE, "climatic refugium in analog climate",
+        "1 where the cell is land, suitable and in analog climate in every slice (a "
+        "hypothesis of climatic stability, not of occupancy)",
+        bool_flags=_REFUGE, per_chain=True),
+    LayerSpec(
+        "stability_all_slices", _ONE,
+        "fraction of all slices suitable (past and future together)",
+        "share of every slice of the series, past and future, in which the cell is "
+        "suitable (0..1)", per_chain=True),
+    LayerSpec(
+        "refugium_all_slices", _ONE,
+        "climatic refugium over all slices (past and future together)",
+        "1 where the cell is land and suitable in every slice of the series, past and "
+        "future together (a hypothesis of climatic stability, not of occupancy)",
+        bool_flags=_REFUGE, per_chain=True),
+    LayerSpec(
+        "refugium_all_slices_analog", _ONE,
+        "climatic refugium over all slices, in analog climate",
+        "as refugium_all_slices, and in analog climate in every slice",
+        bool_flags=_REFUGE, per_chain=True),
+    LayerSpec(
+        "stability_window", _ONE, "fraction of the refugium window's slices suitable",
+        "share of the slices of the refugium window in which the cell is suitable (0..1)",
+        per_chain=True),
+    LayerSpec(
+        "refugium_window", _ONE, "climatic refugium over the refugium window",
+        "1 where the cell is land and suitable in every slice of the refugium window, in "
+        "every model (a hypothesis of climatic stability, not of occupancy)",
+        bool_flags=_REFUGE, per_chain=True),
+    LayerSpec(
+        "refugium_window_analog", _ONE,
+        "climatic refugium over the refugium window, in analog climate",
+        "as refugium_window, and in analog climate in every slice of the window",
+        bool_flags=_REFUGE, per_chain=True),
+    LayerSpec(
+        "refugium_patch", _ONE, "connected patch",
+        "8-connected patches of the report's refugium layer numbered by decreasing area "
+        "(1 the largest, named R1); 0 outside; see tables/refugium_patches.csv"),
+    LayerSpec("static_stability", _ONE, "static stability (sum of log suitability)",
+              per_chain=True),
+    LayerSpec("dynamic_stability", _ONE, "dynamic stability (best log-suitability path)",
+              per_chain=True),
+    LayerSpec("geometric_mean_suitability", _ONE, "geometric mean suitability"),
+    LayerSpec("minimum_suitability", _ONE, "minimum suitability through the series"),
+    LayerSpec(
+        "reachable", _ONE, "suitable and reachable",
+        flag_values=(-1, 0, 1), flag_meanings="not_land not_reached reached",
+        per_chain=True),
+    # series: biotic limits
+    LayerSpec("partner_present", _ONE, "required partner present", bool_flags="false true"),
+    LayerSpec("competitor_present", _ONE, "competitor present", bool_flags="false true"),
+    LayerSpec("suitability_biotic", _ONE, "climatic suitability under biotic limits"),
+    LayerSpec(
+        "suitable_biotic", _ONE, "suitable under biotic limits",
+        flag_values=(-1, 0, 1), flag_meanings="not_land unsuitable suitable"),
+    # series: model ensembles (ensemble.nc)
+    LayerSpec(
+        "agreement", _ONE, "fraction of climate models in which the cell is suitable",
+        cmap="viridis",
+        colorbar_label="share of climate models in which the cell is suitable"),
+    LayerSpec(
+        "consensus", _ONE, "majority consensus of climate models",
+        flag_values=(-1, 0, 1), flag_meanings="not_land no_majority majority_suitable"),
+    LayerSpec("suitability_mean", _ONE, "mean suitability across climate models"),
+    LayerSpec("suitability_sd", _ONE,
+              "standard deviation of suitability across climate models"),
+    LayerSpec("variance_share", _ONE, "share of suitability variance"),
+    LayerSpec("ss_total", _ONE, "total sum of squares of suitability"),
+    LayerSpec("dominant", _ONE, "source with the largest share of variance"),
+    # several species (assemblage.nc)
+    LayerSpec("richness", _ONE,
+              "predicted richness (number of species climatically suitable)"),
+    LayerSpec("richness_change", _ONE, "change in predicted richness"),
+    LayerSpec("shared_refugia", _ONE, "number of species whose refugium the cell is"),
+)
 
-_table()
+for _entry in BUILT_IN:
+    register(_entry)
+del _entry

@@ -13,7 +13,8 @@ import xarray as xr
 from timeslice.errors import DataError
 from timeslice.grid import grid_edges
 from timeslice.report._output import file_stem, output_path
-from timeslice.report._layers import LAYERS, flag_pairs, slice_labels
+from timeslice import layers
+from timeslice.report._layers import flag_pairs, slice_labels
 
 __all__ = ["export", "export_file"]
 
@@ -128,6 +129,7 @@ def export(
                 f"geotiff.export: variables {missing} are not in the dataset; "
                 f"choose from {sorted(map(str, ds.data_vars))}"
             )
+    layers.check(ds[names], where="geotiff.export", keys=layers.WRITER_KEYS)
     lat = ds["lat"].values
     lon = ds["lon"].values
     _check_regular(lon, "lon")
@@ -157,12 +159,14 @@ def export(
             out_dtype, nodata = kind.name, (-1 if kind.kind == "i" else None)
         else:
             out_dtype, nodata = "float32", float("nan")
-        spec = LAYERS.get(str(name), {})
-        desc = str(da.attrs.get("long_name", spec.get("long_name", name)))
-        tags = {"units": str(da.attrs.get("units", spec.get("units", "1"))),
+        # the layer's own attributes (checked above), else the table's words
+        entry = layers.LAYERS.get(str(name))
+        table = entry.attrs() if entry is not None else {}
+        desc = str(da.attrs.get("long_name", table.get("long_name", name)))
+        tags = {"units": str(da.attrs.get("units", table.get("units", "1"))),
                 "long_name": desc}
-        if da.attrs.get("description", spec.get("description")):
-            tags["description"] = str(da.attrs.get("description", spec.get("description")))
+        if da.attrs.get("description", table.get("description")):
+            tags["description"] = str(da.attrs.get("description", table.get("description")))
         for key in ("reference_slice", "slices"):  # what a change or window layer is against
             if da.attrs.get(key):
                 tags[key] = str(da.attrs[key])

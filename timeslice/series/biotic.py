@@ -15,6 +15,7 @@ import pandas as pd
 import xarray as xr
 
 from timeslice.errors import DataError
+from timeslice.layers import stamp
 
 __all__ = ["biotic_layers", "biotic_table"]
 
@@ -73,13 +74,13 @@ def biotic_layers(
     if p is not None:
         keep = keep & p
         out["partner_present"] = p.where(land, False)
-        out["partner_present"].attrs = {"units": "1", "long_name": "required partner present",
-                                        "threshold": float(partner_threshold)}
+        out["partner_present"].attrs = {"threshold": float(partner_threshold)}
+        stamp(out, "partner_present")
     c = _present(competitor, competitor_threshold, suitable)
     if c is not None:
         out["competitor_present"] = c.where(land, False)
-        out["competitor_present"].attrs = {"units": "1", "long_name": "competitor present",
-                                           "threshold": float(competitor_threshold)}
+        out["competitor_present"].attrs = {"threshold": float(competitor_threshold)}
+        stamp(out, "competitor_present")
         if competitor_effect == "exclude":
             keep = keep & ~c
         else:
@@ -94,24 +95,20 @@ def biotic_layers(
             if p is not None:
                 s = s.where(p, 0.0)
             out["suitability_biotic"] = s.where(land)
-            out["suitability_biotic"].attrs = {
-                "units": "1", "long_name": "climatic suitability under biotic limits",
-                "description": f"suitability x {f:g} where the competitor is present"
-                               + ("; 0 where the partner is absent" if p is not None else "")}
+            out["suitability_biotic"].attrs = {}
+            stamp(out, "suitability_biotic",
+                  description=f"suitability x {f:g} where the competitor is present"
+                  + ("; 0 where the partner is absent" if p is not None else ""))
             keep = (s >= float(threshold)) & land
     code = xr.where(land, keep.astype("int8"), np.int8(-1)).astype("int8")
     out["suitable_biotic"] = code
-    out["suitable_biotic"].attrs = {
-        "units": "1", "long_name": "suitable under biotic limits",
-        "flag_values": np.array([-1, 0, 1], dtype="int8"),
-        "flag_meanings": "not_land unsuitable suitable",
-        "description": "climatically suitable"
-        + (", where the required partner is present" if p is not None else "")
-        + (", not where the competitor is present" if c is not None and competitor_effect == "exclude"
-           else ", competitor reducing suitability" if c is not None else "")
-        + "; the abiotic `suitable` layer is unchanged",
-    }
-    return out
+    out["suitable_biotic"].attrs = {}
+    return stamp(out, "suitable_biotic", description="climatically suitable"
+                 + (", where the required partner is present" if p is not None else "")
+                 + (", not where the competitor is present"
+                    if c is not None and competitor_effect == "exclude"
+                    else ", competitor reducing suitability" if c is not None else "")
+                 + "; the abiotic `suitable` layer is unchanged")
 
 
 def biotic_table(stack: xr.Dataset, layers: xr.Dataset, *, reference: str,
@@ -140,5 +137,5 @@ def biotic_table(stack: xr.Dataset, layers: xr.Dataset, *, reference: str,
     if window is not None:
         ref = refugium(layers["suitable_biotic"], window=window)
         ref.name = "refugium_window_biotic"
-        ref.attrs["long_name"] = "climatic refugium over the refugium window under biotic limits"
+        stamp(ref, long_name="climatic refugium over the refugium window under biotic limits")
     return t, ref

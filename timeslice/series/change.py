@@ -12,6 +12,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from timeslice import layers
 from timeslice.errors import DataError
 from timeslice.grid import cell_area, haversine_km
 from timeslice.series._checks import (
@@ -38,9 +39,10 @@ __all__ = [
     "suitable_area",
 ]
 
-#: Codes of the change layer (CF ``flag_values``) and their ``flag_meanings``.
-CHANGE_FLAG_VALUES = np.array([-1, 0, 1, 2, 3], dtype=np.int8)
-CHANGE_FLAG_MEANINGS = "not_land absent gain loss stable"
+#: Codes of the change layer (CF ``flag_values``) and their ``flag_meanings``, read from the
+#: layer table (:mod:`timeslice.layers`, the one place they are defined).
+CHANGE_FLAG_VALUES = np.asarray(layers.LAYERS["change"].flag_values, dtype=np.int8)
+CHANGE_FLAG_MEANINGS = str(layers.LAYERS["change"].flag_meanings)
 
 #: Columns of the per-slice summary table (``summary.csv``), in order.
 SUMMARY_COLUMNS = [
@@ -222,18 +224,11 @@ def change_map(
         output_dtypes=[np.int8],
     )
     out.name = "change"
-    out.attrs = {
-        "units": "1",
-        "long_name": "change of suitability class against the reference slice",
-        "description": (
-            "0 absent (not suitable in either), 1 gain (suitable now, not in reference), "
-            "2 loss (suitable in reference, not now), 3 stable (suitable in both), "
-            f"-1 not land ({'in neither slice' if invalid == 'both' else 'in either slice'})"
-        ),
-        "flag_values": CHANGE_FLAG_VALUES,
-        "flag_meanings": CHANGE_FLAG_MEANINGS,
-    }
-    return out
+    out.attrs = {}
+    return layers.stamp(out, description=(
+        "0 absent (not suitable in either), 1 gain (suitable now, not in reference), "
+        "2 loss (suitable in reference, not now), 3 stable (suitable in both), "
+        f"-1 not land ({'in neither slice' if invalid == 'both' else 'in either slice'})"))
 
 
 def _check_same_grid(a: xr.DataArray, b: xr.DataArray, *, names=("suitable", "reference")) -> None:

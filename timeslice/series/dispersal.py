@@ -24,6 +24,7 @@ import xarray as xr
 from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import dijkstra
 
+from timeslice import layers
 from timeslice.errors import ConfigError, DataError
 from timeslice.grid import haversine_km, is_global_lon, lon_order
 from timeslice.series._checks import (
@@ -428,24 +429,14 @@ def reachable(
     edges = _graph_for(suitable["lat"].values, suitable["lon"].values, neighbours)
     code = _reach_kernel(np.asarray(suitable.values), st_np, dist, edges, assumption, rule)
     out = xr.DataArray(code, dims=suitable.dims, coords=suitable.coords, name="reachable")
-    out.attrs = {
-        "units": "1",
-        "long_name": f"suitable and reachable, {assumption} movement",
-        "description": (
-            {
-                "none": "occupied start cells kept while they stay suitable",
-                "limited": "spread between consecutive slices up to the step distance along "
-                f"shortest paths through '{through if passable is None else 'passable'}' "
-                f"cells ({neighbours}-neighbour graph, great-circle edges), then kept if "
-                "suitable",
-                "unlimited": "every suitable cell",
-            }[assumption]
-        ),
-        "movement_assumption": assumption,
-        "step_distance_km": dist.astype(float),
-        "flag_values": np.array([-1, 0, 1], dtype=np.int8),
-        "flag_meanings": "not_land not_reached reached",
-    }
+    out.attrs = {"movement_assumption": assumption, "step_distance_km": dist.astype(float)}
+    layers.stamp(out, long_name=f"suitable and reachable, {assumption} movement", description={
+        "none": "occupied start cells kept while they stay suitable",
+        "limited": "spread between consecutive slices up to the step distance along shortest "
+        f"paths through '{through if passable is None else 'passable'}' cells "
+        f"({neighbours}-neighbour graph, great-circle edges), then kept if suitable",
+        "unlimited": "every suitable cell",
+    }[assumption])
     if rate is not None:
         out.attrs["rate"] = str(rate)
     return out

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from timeslice import layers
 from timeslice.errors import DataError
 from timeslice.grid import cell_area
 from timeslice.series._checks import check_dataarray, check_stack, suitable_mask, valid_mask
@@ -118,24 +119,19 @@ def agreement(
         coords["year"] = ("group", [float(np.mean(years[v])) for v in groups.values()])
     dims = ("group", "lat", "lon")
     out = xr.Dataset(coords=coords)
-    out["agreement"] = (dims, np.stack(ag), {
-        "units": "1", "long_name": "fraction of climate models in which the cell is suitable",
-        "description": "among models where the cell is land; NaN where land in none",
-    })
-    out["consensus"] = (dims, np.stack(cons), {
-        "units": "1", "long_name": "majority consensus of climate models",
-        "description": "1 where more than half of the models (with land) say suitable; "
-                       "a tie is not a majority",
-        "flag_values": np.array([-1, 0, 1], dtype=np.int8),
-        "flag_meanings": "not_land no_majority majority_suitable",
-    })
+    out["agreement"] = (dims, np.stack(ag))
+    layers.stamp(out, "agreement",
+                 description="among models where the cell is land; NaN where land in none")
+    out["consensus"] = (dims, np.stack(cons))
+    layers.stamp(out, "consensus", description="1 where more than half of the models (with "
+                 "land) say suitable; a tie is not a majority")
     if has_cont:
-        out["suitability_mean"] = (dims, np.stack(mean), {
-            "units": "1", "long_name": "mean suitability across climate models",
-            "description": "arithmetic mean over the models of the group with a value"})
-        out["suitability_sd"] = (dims, np.stack(sd), {
-            "units": "1", "long_name": "standard deviation of suitability across climate models",
-            "description": "divisor n (spread of the ensemble members)"})
+        out["suitability_mean"] = (dims, np.stack(mean))
+        layers.stamp(out, "suitability_mean",
+                     description="arithmetic mean over the models of the group with a value")
+        out["suitability_sd"] = (dims, np.stack(sd))
+        layers.stamp(out, "suitability_sd",
+                     description="divisor n (spread of the ensemble members)")
     out.attrs["history"] = f"timeslice.series.ensemble.agreement over {list(by)}"
     return out
 
@@ -338,20 +334,21 @@ def partition(
         dominant[ok] = np.argmax(share[:, ok], axis=0).astype(np.int8)
     coords = {d: da[d] for d in cells if d in da.coords}
     out = xr.Dataset(coords={"source": ("source", names), **coords})
-    out["share"] = (("source", *cells), share.reshape(len(names), *shape_cells).astype(np.float32),
-                    {"units": "1", "long_name": "share of suitability variance",
-                     "description": "SS_source / SS_total of a factorial ANOVA without "
-                                    f"replication over {' x '.join(factors)}; the last source "
-                                    "is the highest-order interaction (the residual)"})
-    out["ss_total"] = (tuple(cells), total.reshape(shape_cells).astype(np.float32),
-                       {"units": "1", "long_name": "total sum of squares of suitability",
-                        "description": "sum over all factor combinations of (y - mean)^2"})
+    # `share` is written as `variance_share` (timeslice.series.analysis): its table entry
+    out["share"] = (("source", *cells), share.reshape(len(names), *shape_cells).astype(np.float32))
+    out["share"] = layers.stamp(out["share"], "variance_share", description=(
+        f"SS_source / SS_total of a factorial ANOVA without replication over "
+        f"{' x '.join(factors)}; the last source is the highest-order interaction (the "
+        "residual)"))
+    out["ss_total"] = (tuple(cells), total.reshape(shape_cells).astype(np.float32))
+    layers.stamp(out, "ss_total",
+                 description="sum over all factor combinations of (y - mean)^2")
     out["dominant"] = (tuple(cells), dominant.reshape(shape_cells), {
-        "units": "1", "long_name": "source with the largest share of variance",
-        "description": "index into the source coordinate; -1 where shares are undefined",
         "flag_values": np.arange(-1, len(names), dtype=np.int8),
         "flag_meanings": " ".join(["undefined"] + [n.replace(":", "_x_") for n in names]),
     })
+    layers.stamp(out, "dominant",
+                 description="index into the source coordinate; -1 where shares are undefined")
     out.attrs["factors"] = " ".join(factors)
     out.attrs["residual_source"] = names[-1]
     out.attrs["levels"] = "; ".join(

@@ -12,6 +12,7 @@ from collections.abc import Sequence
 import numpy as np
 import xarray as xr
 
+from timeslice import layers
 from timeslice.errors import DataError
 from timeslice.series._checks import check_dataarray, is_suitable, is_valid
 
@@ -67,16 +68,10 @@ def stability(suitable: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
     frac = is_suitable(suitable).mean(dim).astype(np.float32)
     out = frac.where(_ever_land(suitable, dim))
     out.name = "stability"
-    out.attrs = {
-        "units": "1",
-        "long_name": "fraction of slices suitable",
-        "description": (
-            f"share of the {suitable.sizes[dim]} slices along '{dim}' in which the cell is "
-            "suitable; not-land slices count as not suitable; NaN where never land"
-        ),
-        "valid_range": np.array([0.0, 1.0], dtype=np.float32),
-    }
-    return out
+    out.attrs = {"valid_range": np.array([0.0, 1.0], dtype=np.float32)}
+    return layers.stamp(out, description=(
+        f"share of the {suitable.sizes[dim]} slices along '{dim}' in which the cell is "
+        "suitable; not-land slices count as not suitable; NaN where never land"))
 
 
 def select_window(obj, window=None, *, dim: str = "slice"):
@@ -173,18 +168,10 @@ def refugium(
     out = ok.all(dim)
     out.name = "refugium_analog" if analog is not None else "refugium"
     labels = " ".join(map(str, suitable[dim].values)) if dim in suitable.coords else ""
-    out.attrs = {
-        "units": "1",
-        "long_name": "climatic refugium" + (" in analog climate" if analog is not None else ""),
-        "description": (
-            f"true where suitable{' and analog (not novel)' if analog is not None else ''} "
-            f"in every one of the {suitable.sizes[dim]} slices along '{dim}'"
-        ),
-        "slices": labels,
-        "flag_values": np.array([0, 1], dtype=np.int8),
-        "flag_meanings": "not_refugium refugium",
-    }
-    return out
+    out.attrs = {"slices": labels}
+    return layers.stamp(out, description=(
+        f"true where suitable{' and analog (not novel)' if analog is not None else ''} "
+        f"in every one of the {suitable.sizes[dim]} slices along '{dim}'"))
 
 
 def _log_floor(suitability: xr.DataArray, eps: float) -> xr.DataArray:
@@ -231,16 +218,10 @@ def static_stability(
     out = _log_floor(suitability, eps).sum(dim).astype(np.float32)
     out = out.where(suitability.notnull().any(dim))
     out.name = "static_stability"
-    out.attrs = {
-        "units": "1",
-        "long_name": "static stability (sum of log suitability)",
-        "description": (
+    out.attrs = {"eps": float(eps)}
+    return layers.stamp(out, description=(
             f"sum over {suitability.sizes[dim]} slices of ln(max(S, {eps:g})); "
-            "not-land counts as S = 0"
-        ),
-        "eps": float(eps),
-    }
-    return out
+            "not-land counts as S = 0"))
 
 
 def geometric_mean(
@@ -267,16 +248,10 @@ def geometric_mean(
     out = np.exp(_log_floor(suitability, eps).mean(dim)).astype(np.float32)
     out = out.where(suitability.notnull().any(dim))
     out.name = "geometric_mean_suitability"
-    out.attrs = {
-        "units": "1",
-        "long_name": "geometric mean suitability",
-        "description": (
+    out.attrs = {"eps": float(eps)}
+    return layers.stamp(out, description=(
             f"exp(mean over {suitability.sizes[dim]} slices of ln(max(S, {eps:g}))); "
-            "not-land counts as S = 0"
-        ),
-        "eps": float(eps),
-    }
-    return out
+            "not-land counts as S = 0"))
 
 
 def minimum_suitability(suitability: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
@@ -292,14 +267,9 @@ def minimum_suitability(suitability: xr.DataArray, *, dim: str = "slice") -> xr.
     out = suitability.fillna(0.0).min(dim).astype(np.float32)
     out = out.where(suitability.notnull().any(dim))
     out.name = "minimum_suitability"
-    out.attrs = {
-        "units": "1",
-        "long_name": "minimum suitability through the series",
-        "description": (
-            f"minimum over {suitability.sizes[dim]} slices; not-land counts as 0"
-        ),
-    }
-    return out
+    out.attrs = {}
+    return layers.stamp(out, description=(
+        f"minimum over {suitability.sizes[dim]} slices; not-land counts as 0"))
 
 
 def _half_widths(lat: np.ndarray, lon: np.ndarray, d_km: float) -> np.ndarray:
@@ -473,14 +443,7 @@ def dynamic_stability(
                        coords={"lat": da["lat"], "lon": da["lon"]})
     out = out.where(da.notnull().any(dim))
     out.name = "dynamic_stability"
-    out.attrs = {
-        "units": "1",
-        "long_name": "dynamic stability (best log-suitability path)",
-        "description": (
+    out.attrs = {"step_distance_km": dist.astype(float), "eps": float(eps)}
+    return layers.stamp(out, description=(
             f"a_t = ln(max(S_t, {eps:g})) + max of a_(t-1) within the step distance "
-            "(great-circle between cell centres); value at the last slice"
-        ),
-        "step_distance_km": dist.astype(float),
-        "eps": float(eps),
-    }
-    return out
+            "(great-circle between cell centres); value at the last slice"))

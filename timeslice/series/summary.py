@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from timeslice import layers
 from timeslice.errors import DataError
 from timeslice.grid import cell_area
 from timeslice.series._checks import (
@@ -217,20 +218,23 @@ def summarise(
         out["geometric_mean_suitability"] = drop_nondim(geometric_mean(s))
         out["minimum_suitability"] = drop_nondim(minimum_suitability(s))
     if window is not None:
-        out["refugium_window"] = drop_nondim(refugium(suitable, window=window))
-        names = out["refugium_window"].attrs.get("slices", "")
-        out["refugium_window"].attrs["long_name"] = (
-            f"climatic refugium over the refugium window (suitable in every one of its slices: "
-            f"{names})")
-        out["stability_window"] = drop_nondim(stability(select_window(suitable, window)))
-        out["stability_window"].attrs["long_name"] = (
-            f"fraction of the refugium window's slices suitable ({names})")
-        out["stability_window"].attrs["slices"] = names
+        window_ref = refugium(suitable, window=window)
+        names = window_ref.attrs.get("slices", "")
+        out["refugium_window"] = layers.stamp(
+            drop_nondim(window_ref), "refugium_window", long_name=(
+                "climatic refugium over the refugium window (suitable in every one of its "
+                f"slices: {names})"))
+        window_stab = drop_nondim(stability(select_window(suitable, window)))
+        window_stab.attrs["slices"] = names
+        out["stability_window"] = layers.stamp(
+            window_stab, "stability_window",
+            long_name=f"fraction of the refugium window's slices suitable ({names})")
         if analog is not None:
-            out["refugium_window_analog"] = drop_nondim(
-                refugium(suitable, window=window, analog=analog))
-            out["refugium_window_analog"].attrs["long_name"] = (
-                f"climatic refugium over the refugium window in analog climate ({names})")
+            out["refugium_window_analog"] = layers.stamp(
+                drop_nondim(refugium(suitable, window=window, analog=analog)),
+                "refugium_window_analog",
+                long_name=f"climatic refugium over the refugium window, in analog climate "
+                f"({names})")
 
     moving = rate is not None or distance_km is not None
     chain_map = _resolve_chains(stack, "auto" if (moving and chains is None) else chains,
@@ -250,15 +254,10 @@ def summarise(
 
 
 def _named(da: xr.DataArray, name: str) -> xr.DataArray:
-    """A series-wide layer under its window name, with the long_name of that window."""
-    from timeslice.report._layers import LAYERS
-
+    """A series-wide layer under its window name, with the table's words for that window."""
     out = drop_nondim(da)
     out.name = name
-    if name in LAYERS:
-        out.attrs.update({k: v for k, v in LAYERS[name].items()
-                          if k in ("long_name", "description")})
-    return out
+    return layers.stamp(out, description=layers.spec(name).description or None)
 
 
 def _add_chain_layers(out, stack, chain_map, analog, *, rate, distance_km) -> None:
