@@ -22,7 +22,7 @@ import xarray as xr
 from timeslice.errors import DataError, InputFileError
 from timeslice.grid import cell_area, grid_edges
 from timeslice.report._output import output_path
-from timeslice.report._layers import INHERITED_NOISE, LAYERS, NOT_LAND_FLAG, layer_spec
+from timeslice import layers
 
 __all__ = ["open_series", "prepare_cf", "write_series"]
 
@@ -111,22 +111,21 @@ def prepare_cf(
         out[name].encoding = {}
     for name in list(out.data_vars):
         da = out[name]
-        spec = layer_spec(str(name))
+        entry = layers.spec(name)
+        if entry is not None:
+            if da.dtype == bool:
+                # A mask built from another field inherits that field's attributes
+                # (e.g. `land` carrying elevation's standard_name); the table's words win.
+                da = layers.stamp(da.copy(), str(name))
+            layers.check(da, where=f"write_series ({name})", keys=layers.WRITER_KEYS)
+            da = layers.stamp(da, str(name), missing_only=True)  # completes what it lacks
         attrs = dict(da.attrs)
         if da.dtype == bool:
             da = da.astype("int8")
-            if spec:
-                # A mask built from another field inherits that field's attributes
-                # (e.g. `land` carrying elevation's standard_name); the table's words win.
-                for key in INHERITED_NOISE:
-                    attrs.pop(key, None)
-                attrs.update({k: v for k, v in spec.items()
-                              if k in ("units", "standard_name", "long_name")})
             if "flag_values" not in attrs:
                 attrs["flag_values"] = np.array([0, 1], dtype="int8")
-                attrs["flag_meanings"] = spec.get("bool_flags", "false true")
-        elif "flags" in spec and "flag_values" not in attrs:
-            attrs["flag_values"], attrs["flag_meanings"] = spec["flags"]
+                attrs["flag_meanings"] = (entry.bool_flags if entry is not None
+                                          and entry.bool_flags else "false true")
         if "flag_values" in attrs and da.dtype.kind in "iu":
             values = np.atleast_1d(np.asarray(attrs["flag_values"])).tolist()
             meanings = str(attrs.get("flag_meanings", "")).split()
@@ -134,19 +133,18 @@ def prepare_cf(
             missing = None
             if fill is not None and np.isfinite(float(fill)) and int(fill) not in values:
                 missing = int(fill)
-            elif str(name) in NOT_LAND_FLAG and -1 not in values and da.dtype.kind == "i":
+            elif (entry is not None and entry.meaning(-1) and -1 not in values
+                  and da.dtype.kind == "i"):
                 missing = -1
             if missing is not None and len(meanings) == len(values):
                 # The stages mark "not land / no prediction" with a fill value; here it is a
                 # named flag instead, so the layer stays an integer when read back.
                 values = [missing, *values]
-                meanings = [NOT_LAND_FLAG.get(str(name), "no_data"), *meanings]
+                meanings = [(entry.meaning(-1) if entry is not None else None) or "no_data",
+                            *meanings]
                 attrs["flag_meanings"] = " ".join(meanings)
             # CF 1.8 section 3.5: flag_values must have the variable's type.
             attrs["flag_values"] = np.asarray(values).astype(da.dtype)
-        for key in ("units", "standard_name", "long_name", "cell_methods", "description"):
-            if key in spec and key not in attrs:
-                attrs[key] = spec[key]
         if "units" not in attrs and da.dtype.kind == "f":
             attrs["units"] = "1"
         if "long_name" not in attrs:
@@ -161,8 +159,7 @@ def prepare_cf(
         out[name] = da
     if "cell_area" not in out:
         area = cell_area(out)
-        out["cell_area"] = area.astype("float64")
-        out["cell_area"].attrs = dict(LAYERS["cell_area"])
+        out["cell_area"] = layers.stamp(area.astype("float64").rename("cell_area"))
         out["cell_area"].attrs["grid_mapping"] = "crs"
     out["crs"] = xr.DataArray(
         np.int32(0),
@@ -342,9 +339,9 @@ def open_series(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
             ds = ds.drop_vars(label)
             ds[dim].attrs = attrs
     for name in list(ds.data_vars):
-        spec = layer_spec(str(name))
+        entry = layers.spec(name)
         flags = np.asarray(ds[name].attrs.get("flag_values", [])).tolist()
-        if "bool_flags" in spec and flags == [0, 1]:
+        if entry is not None and entry.bool_flags is not None and flags == [0, 1]:
             attrs = {k: v for k, v in ds[name].attrs.items()
                      if k not in ("flag_values", "flag_meanings")}
             ds[name] = (ds[name] == 1).assign_attrs(attrs)
