@@ -467,21 +467,25 @@ BUILT_IN: tuple[LayerSpec, ...] = (
     LayerSpec("clamp_effect", _ONE, "effect of clamping on suitability"),
     LayerSpec(
         "mess", _ONE, "multivariate environmental similarity",
-        "MESS (Elith, Kearney & Phillips 2010): negative values mean at least one "
-        "variable lies outside the reference range (novel climate)",
+        "MESS (Elith et al. 2010): smallest univariate similarity over the predictors; 100 at "
+        "the reference median, 0 at the edge of the reference range, negative outside it "
+        "(novel climate: suitability there is extrapolated and not to be trusted)",
         cmap="PuOr", colorbar_label="MESS (< 0: novel climate)"),
     LayerSpec(
         "most_dissimilar", _ONE, "most dissimilar variable",
-        "variable with the lowest univariate similarity in MESS", fill_meaning="no_data"),
+        "index of the predictor with the smallest MESS similarity (first in order on ties); "
+        "-1 where a predictor is missing", fill_meaning="no_data"),
     LayerSpec(
         "nt1", _ONE, "univariate novelty (ExDet NT1)",
-        "NT1 (Mesgaran, Cousens & Webber 2014): 0 inside every univariate reference "
-        "range, negative outside",
+        "sum over predictors of the distance outside the reference range, in units of that "
+        "range (Mesgaran et al. 2014); 0 inside every range, negative outside (extrapolation: "
+        "flagged, not trusted)",
         cmap="cividis", colorbar_label="NT1 (< 0: outside the reference range)"),
     LayerSpec(
         "nt2", _ONE, "combinational novelty (ExDet NT2)",
-        "NT2 (Mesgaran, Cousens & Webber 2014): squared Mahalanobis distance over its "
-        "largest reference value; > 1 is a novel combination",
+        "squared Mahalanobis distance from the reference mean over the largest one among "
+        "reference points (Mesgaran et al. 2014); above 1 the combination of predictor values "
+        "is outside the reference",
         cmap="cividis", colorbar_label="NT2 (> 1: novel combination)"),
     # harmonise and niche: the slice's land, the terrain, the calibration area
     LayerSpec(
