@@ -151,7 +151,7 @@ def test_model_biases_and_slice_changes(demo_dir):
             return (0.5 * (ds["tasmin"] + ds["tasmax"]) - 273.15).values
 
     base = {m: tas(m, "baseline") for m in MODELS}
-    # invented biases (see MODELS in timeslice/demo.py): alder warm, birch cold
+    # invented biases (see MODELS in timeslice/demo/scenario.py): alder warm, birch cold
     assert base["alder"].mean() - base["birch"].mean() == pytest.approx(2.0, abs=0.3)
     ranges = {"21ka": (-9.5, -5.0), "6ka": (-0.5, 1.0),
               "low-forcing_2041-2060": (1.2, 1.8), "low-forcing_2081-2100": (1.8, 2.5),
@@ -191,7 +191,7 @@ def test_full_size_demo_is_small(full_demo):
 
 
 def test_committed_demo_matches_generator(full_demo):
-    committed = Path(demo.__file__).resolve().parent.parent / "demo_data"
+    committed = Path(demo.__file__).resolve().parents[2] / "demo_data"
     if not (committed / "dem.nc").is_file():
         pytest.skip("demo_data/ not generated in this checkout")
     root = full_demo["truth"].parent
@@ -247,7 +247,9 @@ def test_files_pass_cf_checker(demo_dir, tmp_path, no_network):
 def test_failed_generation_leaves_no_partial_files(tmp_path, monkeypatch):
     """A crash part-way leaves complete files and no temporary ones."""
     calls = {"n": 0}
-    real = demo._write_model_file
+    from timeslice.demo import files
+
+    real = files.write_model_file
 
     def flaky(*args, **kwargs):
         calls["n"] += 1
@@ -255,7 +257,7 @@ def test_failed_generation_leaves_no_partial_files(tmp_path, monkeypatch):
             raise RuntimeError("disk full (simulated)")
         return real(*args, **kwargs)
 
-    monkeypatch.setattr(demo, "_write_model_file", flaky)
+    monkeypatch.setattr(files, "write_model_file", flaky)
     with pytest.raises(RuntimeError, match="simulated"):
         demo.generate(tmp_path, resolution=0.5)
     assert not list(tmp_path.rglob("*.part"))
@@ -557,7 +559,7 @@ def test_warmest_quarter_against_xclim(demo_dir):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # xclim's own notes on monthly input
             ref = tg_mean_warmcold_quarter(tas, op="warmest", freq="YS").isel(time=0).values
-        mine, _ = demo._bio10_bio12(b["tasmin"].values, b["tasmax"].values, b["pr"].values)
+        mine, _ = demo.world.bio10_bio12(b["tasmin"].values, b["tasmax"].values, b["pr"].values)
     ok = np.isfinite(mine)
     assert ok.sum() > 100
     np.testing.assert_allclose(mine[ok], ref[ok], atol=1e-4)
