@@ -70,6 +70,10 @@ def run(
     RunResult
         Output paths, tables, the fit, the series analysis and the timings.
     """
+    from timeslice.series_only import SeriesOnlyConfig, run_series_only
+
+    if isinstance(cfg, SeriesOnlyConfig):  # the user's own suitability maps: series stage only
+        return run_series_only(cfg, out, progress=progress, command=command)
     if cfg.multi_species:
         return run_assemblage(cfg, out, force=force, progress=progress, command=command)
     return run_species(cfg, out, force=force, progress=progress, command=command,
@@ -184,6 +188,9 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
     from timeslice.report import write_csv, write_series
 
     out = Path(out)
+    from timeslice.series_only import require_climate
+
+    require_climate(cfg, "timeslice harmonise")
     cfg.check_files()
     cache = StageCache(out / ".cache", force=force)
     baseline, slices, tables = harmonise_stage(cfg, cache, progress=progress)
@@ -215,6 +222,9 @@ def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict
     from timeslice.report import response_curves, write_csv
 
     out = Path(out)
+    from timeslice.series_only import require_climate
+
+    require_climate(cfg, "timeslice fit")
     if cfg.multi_species:
         raise ConfigError(
             f"{cfg.source}: `timeslice fit` fits one species; this config lists "
@@ -293,11 +303,19 @@ def run_summarise(
         cfg.series = SeriesConfig.model_validate(data)
     except Exception as err:  # pydantic's ValidationError
         raise DataError(f"summarise: {str(err).splitlines()[-1].strip()}") from err
-    if dated_records is not None:
-        cfg.species.dated_records = Path(dated_records).resolve()
-    from timeslice.config import check_references
+    from timeslice.series_only import SeriesOnlyConfig, check_suitability
 
-    check_references(cfg, "summarise")
+    if isinstance(cfg, SeriesOnlyConfig):  # a run of the user's own suitability maps
+        if dated_records is not None:
+            raise DataError("summarise --dated-records: this run summarises supplied "
+                            "suitability maps, without climate to hindcast from; drop it")
+        check_suitability(cfg, "summarise")
+    else:
+        if dated_records is not None:
+            cfg.species.dated_records = Path(dated_records).resolve()
+        from timeslice.config import check_references
+
+        check_references(cfg, "summarise")
     command = ["timeslice", "summarise", str(out)]
     for flag, value in (("--reference", reference), ("--rate", rate),
                         ("--dated-records", dated_records)):

@@ -989,6 +989,10 @@ def parse_config(data: dict, *, source: str | Path = "<config>") -> Config:
     """
     src = Path(source)
     _finite(data, str(source))
+    if "suitability" in data:  # the user's own suitability maps: the series stage only
+        from timeslice.series_only import parse_series_only
+
+        return parse_series_only(data, source=source)
     try:
         cfg = Config.model_validate(data)
     except ValidationError as err:
