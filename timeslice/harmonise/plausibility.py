@@ -66,39 +66,59 @@ ELEVATION_RANGE = (-11500.0, 9000.0)
 _TEMPERATURE = ("tasmin", "tasmax", "tas")
 
 
+def _part_rows(da: xr.DataArray) -> int | None:
+    """Latitude rows per part: the dask chunk (read once), else ~2**18 cells; None: no split."""
+    if "lat" not in da.dims:
+        return None
+    if da.chunks is not None:
+        return int(da.chunksizes["lat"][0])
+    nlon = da.sizes.get("lon", 1)
+    return max(1, 2**18 // max(1, nlon))
+
+
 def _parts(da: xr.DataArray):
-    """`da` one step of its leading dimension at a time (a month of a fine baseline, not the
-    whole 12-month stack), so the check holds one field in memory, whatever the grid size."""
-    if da.ndim < 3:
-        yield {}, da
-        return
-    dim = da.dims[0]
-    for i in range(da.sizes[dim]):
-        yield {dim: i}, da.isel({dim: i})
+    """`da` one step of its leading dimension and one block of rows at a time (a block of one
+    month of a fine baseline, not the whole 12-month stack), so the check holds a bounded
+    piece in memory, whatever the grid size."""
+    rows = _part_rows(da)
+    lead = [{}] if da.ndim < 3 else [{da.dims[0]: i} for i in range(da.sizes[da.dims[0]])]
+    for sel in lead:
+        if rows is None or rows >= da.sizes["lat"]:
+            yield sel, da.isel(sel) if sel else da
+            continue
+        for r0 in range(0, da.sizes["lat"], rows):
+            part_sel = {**sel, "lat": slice(r0, min(r0 + rows, da.sizes["lat"]))}
+            yield part_sel, da.isel(part_sel)
 
 
 def _extremes(da: xr.DataArray) -> tuple[float, float]:
     lo, hi = np.inf, -np.inf
     for _, part in _parts(da):
-        values = np.asarray(part.values, dtype=float)
-        if np.isfinite(values).any():
-            lo, hi = min(lo, float(np.nanmin(values))), max(hi, float(np.nanmax(values)))
+        lo, hi = _fold(lo, hi, np.asarray(part.values, dtype=float))
     if not np.isfinite(lo):
         return float("nan"), float("nan")
     return lo, hi
 
 
+def _fold(lo: float, hi: float, values: np.ndarray) -> tuple[float, float]:
+    if np.isfinite(values).any():
+        return min(lo, float(np.nanmin(values))), max(hi, float(np.nanmax(values)))
+    return lo, hi
+
+
 def _where(da: xr.DataArray, value: float) -> str:
     """' at lat .., lon .. (month m)' of the first cell holding `value`."""
-    idx = None
+    pos = None
     for sel, part in _parts(da):
         hit = np.argwhere(np.asarray(part.values, dtype=float) == value)
         if hit.size:
-            idx = [*sel.values(), *hit[0]]
+            pos = {d: int(i) for d, i in sel.items() if not isinstance(i, slice)}
+            for d, k in zip(part.dims, hit[0]):
+                offset = sel[d].start if isinstance(sel.get(d), slice) else 0
+                pos[d] = int(k) + offset
             break
-    if idx is None:
+    if pos is None:
         return ""
-    pos = dict(zip(da.dims, idx))
     parts = []
     if "lat" in pos:
         parts.append(f"lat {float(da['lat'][pos['lat']]):.2f}")
@@ -109,6 +129,33 @@ def _where(da: xr.DataArray, value: float) -> str:
     elif "month" in da.coords and da["month"].ndim == 0:  # one month of a stack
         parts.append(f"month {int(da['month'])}")
     return f" at {', '.join(parts)}" if parts else ""
+
+
+def _scan_temperatures(ds: xr.Dataset):
+    """Extremes of every temperature and the largest tasmin - tasmax excess, in one read of
+    each variable: ({name: (lo, hi)}, (largest excess, cell-months over the tolerance))."""
+    names = [n for n in _TEMPERATURE if n in ds]
+    paired = ("tasmin" in ds and "tasmax" in ds and ds["tasmin"].shape == ds["tasmax"].shape
+              and set(ds["tasmin"].dims) == set(ds["tasmax"].dims))
+    ext = {n: (np.inf, -np.inf) for n in names}
+    hi_diff, n_over = -np.inf, 0
+    if paired:
+        tmax = ds["tasmax"].transpose(*ds["tasmin"].dims)
+        for sel, part in _parts(ds["tasmin"]):
+            a = np.asarray(part.values)
+            b = np.asarray(tmax.isel(sel).values)
+            ext["tasmin"] = _fold(*ext["tasmin"], np.asarray(a, dtype=float))
+            ext["tasmax"] = _fold(*ext["tasmax"], np.asarray(b, dtype=float))
+            d = a - b  # in the stored precision, as the difference of the two DataArrays
+            if np.isfinite(d).any():
+                hi_diff = max(hi_diff, float(np.nanmax(d)))
+            n_over += int((d > TASMIN_TASMAX_TOLERANCE).sum())
+    for n in names:
+        if not paired or n not in ("tasmin", "tasmax"):
+            ext[n] = _extremes(ds[n])
+    ext = {n: (lo, hi) if np.isfinite(lo) else (float("nan"), float("nan"))
+           for n, (lo, hi) in ext.items()}
+    return ext, (hi_diff, n_over) if paired else None
 
 
 def _label(da: xr.DataArray, name: str, source: str) -> str:
@@ -166,6 +213,22 @@ def _pr_cause(lo: float, hi: float, da: xr.DataArray) -> str:
     return "check the units and scale declared for this input"
 
 
+def _check_pr(da: xr.DataArray, source: str) -> None:
+    lo, hi = _extremes(da)
+    if np.isfinite(hi) and hi > PR_RANGE[1]:
+        raise DataError(
+            f"{_label(da, 'pr', source)}: {hi:.4g} mm month-1 after conversion"
+            f"{_where(da, hi)} is above the plausible {PR_RANGE[1]:g} mm for one month; "
+            f"likely cause: {_pr_cause(lo, hi, da)}"
+        )
+    if np.isfinite(hi) and 0.0 < hi < 0.01 and da.size > 12:
+        raise DataError(
+            f"{_label(da, 'pr', source)}: the wettest cell-month has only {hi:.3g} mm after "
+            f"conversion from {_units_text(da)}; likely cause: the values are a flux (kg "
+            "m-2 s-1) labelled as a total: set units = \"kg m-2 s-1\" for this input"
+        )
+
+
 def check_fields(ds: xr.Dataset, *, source: str) -> None:
     """Stop with one line if a converted field is physically implausible.
 
@@ -182,7 +245,7 @@ def check_fields(ds: xr.Dataset, *, source: str) -> None:
         Naming the file, the variable, the offending value (and where it is) and the likely
         cause.
     """
-    ext = {name: _extremes(ds[name]) for name in _TEMPERATURE if name in ds}
+    ext, paired = _scan_temperatures(ds)
     finite = [e for e in ext.values() if np.isfinite(e[0])]
     # the likely cause is judged on all temperatures of the input together (tasmin of an
     # integer-coded file may be all negative, tasmax all positive)
@@ -201,29 +264,11 @@ def check_fields(ds: xr.Dataset, *, source: str) -> None:
                 f"{_temperature_cause(all_lo, all_hi, da)}"
             )
     if "pr" in ds:
-        da = ds["pr"]
-        lo, hi = _extremes(da)
-        if np.isfinite(hi) and hi > PR_RANGE[1]:
-            raise DataError(
-                f"{_label(da, 'pr', source)}: {hi:.4g} mm month-1 after conversion"
-                f"{_where(da, hi)} is above the plausible {PR_RANGE[1]:g} mm for one month; "
-                f"likely cause: {_pr_cause(lo, hi, da)}"
-            )
-        if np.isfinite(hi) and 0.0 < hi < 0.01 and da.size > 12:
-            raise DataError(
-                f"{_label(da, 'pr', source)}: the wettest cell-month has only {hi:.3g} mm after "
-                f"conversion from {_units_text(da)}; likely cause: the values are a flux (kg "
-                "m-2 s-1) labelled as a total: set units = \"kg m-2 s-1\" for this input"
-            )
-    if "tasmin" in ds and "tasmax" in ds and ds["tasmin"].shape == ds["tasmax"].shape:
-        hi, n, diff = -np.inf, 0, None
-        for sel, tmin in _parts(ds["tasmin"]):  # one month of each at a time
-            d = tmin - ds["tasmax"].isel(sel)
-            dmax = float(d.max()) if bool(d.notnull().any()) else -np.inf
-            n += int((d > TASMIN_TASMAX_TOLERANCE).sum())
-            if dmax > hi:
-                hi, diff = dmax, d
+        _check_pr(ds["pr"], source)
+    if paired is not None:
+        hi, n = paired
         if np.isfinite(hi) and hi > TASMIN_TASMAX_TOLERANCE:
+            diff = ds["tasmin"] - ds["tasmax"]
             raise DataError(
                 f"{_label(ds['tasmin'], 'tasmin', source)}: tasmin exceeds tasmax by up to "
                 f"{hi:.3g} degC in {n} cell-months{_where(diff, hi)}; likely cause: the two "

@@ -154,6 +154,11 @@ class NetCDFSink(BlockSink):
                 complevel=4, shuffle=True, chunksizes=(rows, lon.size),
                 fill_value=np.array(np.nan, dtype=ly.dtype) if floating else None,
             )
+            # a chunk is written whole, once: a cache of about one chunk per variable (the
+            # library's default keeps up to 16-64 MB of written chunks per variable, i.e.
+            # the whole output of a mid-sized grid, until the file is closed)
+            chunk_bytes = rows * lon.size * var.dtype.itemsize
+            var.set_var_chunk_cache(size=chunk_bytes + 2**16, nelems=11, preemption=1.0)
             for k, v in encoded_attrs(ly.name, ly.dtype, ly.attrs).items():
                 var.setncattr(k, v)
             if ly.dtype == bool:
