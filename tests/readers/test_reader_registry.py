@@ -122,6 +122,17 @@ def test_files_of_the_new_format_join_in_time_and_pass_the_file_set_checks(npz_f
         check_file_set([InputFile(parts[0]), InputFile(shifted)], key="climate.baseline")
 
 
+def test_a_single_layer_of_the_new_format_reads_like_netcdf(npz_format, tmp_path):
+    from timeslice.readers.layers import open_layer
+
+    one = _series(years=(2001,)).isel(time=[0])[["tn"]]
+    nc = tmp_path / "partner.nc"
+    one.to_netcdf(nc)
+    got = open_layer(_write_npz(tmp_path / "partner.npz", one), what="biotic.partner")
+    xr.testing.assert_identical(got.reset_coords(drop=True),
+                                open_layer(nc, what="biotic.partner").reset_coords(drop=True))
+
+
 def test_refusal_of_an_unknown_file_lists_the_registered_formats(npz_format, tmp_path):
     note = tmp_path / "notes.txt"
     note.write_text("not climate")

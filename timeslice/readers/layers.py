@@ -10,14 +10,29 @@ import numpy as np
 import xarray as xr
 
 from timeslice.errors import DataError, InputFileError
-from timeslice.readers.filesets import sniff_format, unsupported_message
+from timeslice.readers.filesets import InputFile, sniff_format, unsupported_message
+from timeslice.readers.registry import ReadOptions, get_reader
 
 __all__ = ["open_layer"]
 
 
+def _only_field(ds: xr.Dataset, p: Path, what: str) -> xr.DataArray:
+    """The one gridded variable of a file, loaded, its length-1 dimensions squeezed."""
+    names = [v for v in ds.data_vars if ds[v].ndim >= 2
+             and not str(v).endswith(("_bnds", "_bounds"))]
+    if len(names) != 1:
+        raise DataError(f"{p}: {what} needs one gridded variable, found {names}; give a "
+                        "file with one layer")
+    da = ds[names[0]].load()
+    extra = [d for d in da.dims if da.sizes[d] == 1 and d not in ("lat", "lon")]
+    return da.isel({d: 0 for d in extra}, drop=True) if extra else da
+
+
 def open_layer(path: str | os.PathLike, *, what: str = "layer") -> xr.DataArray:
     """Read one (lat, lon) field: the only data variable of a NetCDF file (a single time step
-    or band is squeezed), or band 1 of a GeoTIFF; ``lat``/``lon`` normalised.
+    or band is squeezed), or band 1 of a GeoTIFF; ``lat``/``lon`` normalised. A format added
+    to the reader registry (:mod:`timeslice.readers.registry`) is opened by its opener and
+    read like a NetCDF file.
 
     Parameters
     ----------
@@ -48,16 +63,11 @@ def open_layer(path: str | os.PathLike, *, what: str = "layer") -> xr.DataArray:
         da = da.rename({"x": "lon", "y": "lat"})
         da["lon"].attrs.update(units="degrees_east")
         da["lat"].attrs.update(units="degrees_north")
-    else:
+    elif kind == "netcdf":
         with xr.open_dataset(p) as ds:
-            names = [v for v in ds.data_vars if ds[v].ndim >= 2
-                     and not str(v).endswith(("_bnds", "_bounds"))]
-            if len(names) != 1:
-                raise DataError(f"{p}: {what} needs one gridded variable, found {names}; give a "
-                                "file with one layer")
-            da = ds[names[0]].load()
-        extra = [d for d in da.dims if da.sizes[d] == 1 and d not in ("lat", "lon")]
-        da = da.isel({d: 0 for d in extra}, drop=True) if extra else da
+            da = _only_field(ds, p, what)
+    else:  # a format added to the reader registry
+        da = _only_field(get_reader(kind).open(InputFile(p), ReadOptions(source=str(p))), p, what)
     da = normalise_lonlat(da, source=str(p))
     if set(da.dims) != {"lat", "lon"}:
         raise DataError(f"{p}: {what} has dims {da.dims}; give one (lat, lon) field per file")
