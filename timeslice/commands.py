@@ -206,7 +206,8 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
     return paths
 
 
-def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict[str, Path]:
+def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False,
+            progress: Progress = _quiet) -> dict[str, Path]:
     """Fit the niche on the harmonised baseline; write the model, tables and response curves.
 
     Parameters
@@ -217,6 +218,8 @@ def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict
         Output folder.
     force : bool
         Recompute every stage.
+    progress : callable, optional
+        ``progress(stage, done, total)``: harmonising the baseline, then per fold of the fit.
     """
     from timeslice.niche.persist import save_model
     from timeslice.report import response_curves, write_csv
@@ -233,8 +236,8 @@ def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False) -> dict
     cfg.check_files()
     cache = StageCache(out / ".cache", force=force)
     cfg_base = cfg.model_copy(update={"slices": []})
-    baseline, _, _ = harmonise_stage(cfg_base, cache)
-    fit, _ = fit_stage(cfg, baseline, cache, base_key=dataset_key(baseline))
+    baseline, _, _ = harmonise_stage(cfg_base, cache, progress=progress)
+    fit, _ = fit_stage(cfg, baseline, cache, base_key=dataset_key(baseline), progress=progress)
     paths = {"model": save_model(fit, out / "model.pkl")}
     for name in ("cleaning", "screening", "evaluation", "response", "importance"):
         df = getattr(fit, name, None)

@@ -304,7 +304,8 @@ def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
 # ----------------------------------------------------------------------------- fit
 
 
-def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key: str = ""):
+def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key: str = "",
+              progress: Progress = _quiet):
     """Read, clean and thin the records and fit the niche on the prepared baseline.
 
     Parameters
@@ -317,6 +318,8 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
         The stage cache.
     base_key : str
         Content key of the baseline (part of the fit's key).
+    progress : callable, optional
+        ``progress("fit", done, total)`` per cross-validation fold (not part of the key).
     """
     from timeslice.niche.workflow import fit_niche
     from timeslice.readers import read_occurrences
@@ -466,7 +469,7 @@ def dataset_key(ds: xr.Dataset) -> str:
 # ----------------------------------------------------------------------------- summarise
 
 
-def summarise_stage(cfg: Config, stack: xr.Dataset):
+def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = _quiet):
     """Change, stability, refugia, movement, ensembles and the hindcast across the series.
 
     Returns a :class:`timeslice.series.analysis.SeriesResult`.
@@ -477,11 +480,19 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
         The run's configuration (``[series]``, dated records, diversity, biotic layers).
     stack : xarray.Dataset
         The stacked transfers (:func:`transfer_stage`).
+    progress : callable, optional
+        ``progress("summarise", done, total)`` after each analysis step (the series analysis,
+        then diversity, hypotheses, biotic layers and zones where configured).
     """
     from timeslice.readers import read_dated_records
     from timeslice.series.analysis import analyse_series
 
     ser = cfg.series
+    total = 1 + sum([cfg.species.diversity is not None, bool(ser.hypotheses),
+                     cfg.biotic.partner is not None or cfg.biotic.competitor is not None,
+                     ser.zones is not None])
+    steps = iter(range(1, total + 1))
+    progress("summarise", 0, total)
     records = None
     source = str(cfg.species.dated_records)
     if cfg.species.dated_records is not None:
@@ -507,6 +518,7 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             neighbours=ser.graph_neighbours, factors=ser.partition_factors, records=records,
             records_source=source, max_offset_years=ser.hindcast_max_offset_years,
         )
+    progress("summarise", next(steps), total)
     sites = None
     if cfg.species.diversity is not None:
         from timeslice.series.genetics import read_diversity_table, stability_vs_diversity
@@ -517,20 +529,24 @@ def summarise_stage(cfg: Config, stack: xr.Dataset):
             table = stability_vs_diversity(result.series, sites)
         result.tables["diversity"] = table
         result.tables["diversity_sites"] = table.attrs["sites"]
+        progress("summarise", next(steps), total)
     if ser.hypotheses:
         from timeslice.series.hypotheses import compare_hypotheses
 
         table, layers = compare_hypotheses(stack, ser.hypotheses, records=records, sites=sites)
         result.tables["hypotheses"] = table
         result.series = result.series.assign(dict(layers.data_vars))
+        progress("summarise", next(steps), total)
     if cfg.biotic.partner is not None or cfg.biotic.competitor is not None:
         _apply_biotic(cfg, stack, result, window=window)
+        progress("summarise", next(steps), total)
     if ser.zones is not None:
         from timeslice.series.zonal import read_zones, zonal_table
 
         with _about(ser.zones):
             result.tables["zones"] = zonal_table(
                 result.series, read_zones(ser.zones, name_field=ser.zones_name_field))
+        progress("summarise", next(steps), total)
     return result
 
 
@@ -674,7 +690,8 @@ def report_options(cfg: Config):
         species=cfg.species.name, reference=_reference(cfg),
         threshold_value=cfg.niche.threshold_value, maps=cfg.output.maps,
         vector=cfg.output.vector, geotiff=cfg.output.geotiff, report=cfg.output.report,
-        projection=cfg.output.projection, dispersal_rate=cfg.series.dispersal_rate,
+        projection=cfg.output.projection, dpi=cfg.output.dpi,
+        figure_format=cfg.output.figure_format, dispersal_rate=cfg.series.dispersal_rate,
         clamp=cfg.transfer.clamp, config_path=str(cfg.source), seed=cfg.run.seed,
         version=__version__, data_format=cfg.output.format)
 
@@ -737,13 +754,14 @@ def run(
         with _timed(t, "harmonise"):
             baseline, slices, inputs = harmonise_stage(cfg, cache, progress=progress)
         with _timed(t, "fit"):
-            fit, fit_key = fit_stage(cfg, baseline, cache, base_key=dataset_key(baseline))
+            fit, fit_key = fit_stage(cfg, baseline, cache, base_key=dataset_key(baseline),
+                                     progress=progress)
         with _timed(t, "transfer"):
             stack = transfer_stage(cfg, fit, [baseline, *slices], cache, fit_key=fit_key,
                                    progress=progress)
             inputs.update(espace_stage(cfg, fit, [baseline, *slices], stack, out))
         with _timed(t, "summarise"):
-            analysis = summarise_stage(cfg, stack)
+            analysis = summarise_stage(cfg, stack, progress=progress)
         series, summary = analysis.series, analysis.tables["summary"].copy()
         if "period" not in summary and "period" in series.coords:
             periods = dict(zip(series["slice"].values, series["period"].values))
