@@ -10,7 +10,7 @@ import scipy.spatial.distance
 import xarray as xr
 
 from timeslice.errors import DataError
-from timeslice.transfer.novelty import _exdet_kernel, _exdet_params, _mess_kernel, combined, exdet, mess, reference_table
+from timeslice.transfer.novelty import combined, exdet, exdet_parameters, exdet_values, mess, mess_values, reference_table
 
 
 def _target(values: np.ndarray, names) -> xr.Dataset:
@@ -93,7 +93,7 @@ def test_mess_kernel_matches_direct_formula_with_ties(rng):
     ref[0], ref[1] = 0.0, 7.0  # guarantee a non-zero range in every column
     p = rng.integers(-2, 10, size=(500, 4)).astype(float)
     p[::7] += rng.uniform(-0.5, 0.5, size=p[::7].shape)
-    got_mess, got_mod = _mess_kernel(np.sort(ref, axis=0), p)
+    got_mess, got_mod = mess_values(np.sort(ref, axis=0), p)
     exp = [_mess_direct(ref, row) for row in p]
     np.testing.assert_allclose(got_mess, [e[0] for e in exp], rtol=1e-12, atol=1e-12)
     # Ties: decided in exact arithmetic (a float evaluation of 2f and 2(100 - f) can split
@@ -107,7 +107,7 @@ def test_mess_kernel_matches_direct_formula_with_ties(rng):
 def test_mess_kernel_nan_and_shape():
     ref = np.sort(np.array([[0.0, 0.0], [1.0, 2.0], [2.0, 4.0]]), axis=0)
     vals = np.array([[[0.5, 1.0], [np.nan, 1.0]], [[1.0, np.inf], [3.0, 5.0]]])
-    m, k = _mess_kernel(ref, vals)
+    m, k = mess_values(ref, vals)
     assert m.shape == (2, 2) and k.dtype == np.int16
     assert np.isnan(m[0, 1]) and k[0, 1] == -1
     assert np.isnan(m[1, 0]) and k[1, 0] == -1  # inf is not a usable value either
@@ -205,8 +205,8 @@ def test_nt2_matches_scipy_mahalanobis(reference_df, rng):
     d2_max = max(d2(r) for r in x)
     p = rng.normal(0, 2, size=(300, 3))
     expected = np.array([d2(q) for q in p]) / d2_max
-    params = _exdet_params(reference_table(reference_df))
-    _, nt2 = _exdet_kernel(values=p, **params)
+    params = exdet_parameters(reference_table(reference_df))
+    _, nt2 = exdet_values(values=p, **params)
     np.testing.assert_allclose(nt2, expected, rtol=1e-10)
     out = exdet(reference_df, _target(p, list(reference_df.columns)))
     np.testing.assert_allclose(out["nt2"].values, expected, rtol=2e-6)
@@ -279,7 +279,7 @@ def test_mess_kernel_equals_formula_property(ref, p):
     ref = ref.copy()
     ref[0] = ref.min(axis=0)
     ref[1] = ref.max(axis=0) + 1.0  # non-zero range in every column
-    got_mess, got_mod = _mess_kernel(np.sort(ref, axis=0), p)
+    got_mess, got_mod = mess_values(np.sort(ref, axis=0), p)
     for row, g_mess, g_mod in zip(p, got_mess, got_mod):
         s = _mess_exact(ref, row)
         best = min(v for v, _ in s)

@@ -13,7 +13,7 @@ from sklearn.linear_model import LogisticRegression
 
 from timeslice.errors import ConfigError, DataError
 from timeslice.transfer import auto_chunks, exdet, mess, project, project_slice
-from timeslice.transfer.project import _BYTES_PER_CELL_FIXED, _BYTES_PER_CELL_PER_VAR
+from timeslice.transfer.blocks import BYTES_PER_CELL_FIXED, BYTES_PER_CELL_PER_VAR
 
 VARS = ["bio1", "bio5", "bio12"]  # same as the fixtures in conftest.py
 
@@ -154,7 +154,7 @@ def test_project_errors(fitted_logistic, reference_df, slice_factory):
 def test_auto_chunks_budget():
     sizes = {"lat": 2160, "lon": 4320}
     c = auto_chunks(sizes, n_variables=8, budget_mb=64)
-    per_cell = _BYTES_PER_CELL_PER_VAR * 8 + _BYTES_PER_CELL_FIXED  # our measured estimate
+    per_cell = BYTES_PER_CELL_PER_VAR * 8 + BYTES_PER_CELL_FIXED  # our measured estimate
     assert c["lat"] * c["lon"] * per_cell <= 64e6
     assert c["lon"] == 4320  # whole rows fit
     small = auto_chunks(sizes, n_variables=8, budget_mb=1)

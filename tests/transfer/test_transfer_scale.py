@@ -17,8 +17,8 @@ from hypothesis.extra.numpy import arrays
 
 from timeslice.errors import ConfigError
 from timeslice.transfer import auto_chunks, project_slice, scheduler, set_chunk_cache
-from timeslice.transfer.novelty import _CountTable
-from timeslice.transfer.project import _BYTES_PER_CELL_FIXED, _BYTES_PER_CELL_PER_VAR
+from timeslice.transfer.novelty import CountTable
+from timeslice.transfer.blocks import BYTES_PER_CELL_FIXED, BYTES_PER_CELL_PER_VAR
 
 VARS = ["bio1", "bio5", "bio12"]  # same as the fixtures in conftest.py
 
@@ -28,7 +28,7 @@ VARS = ["bio1", "bio5", "bio12"]  # same as the fixtures in conftest.py
 # strictly smaller (the MESS convention of METHODS.md).
 
 def _check_counts(ref: np.ndarray, x: np.ndarray) -> None:
-    table = _CountTable(np.sort(ref)[:, None])
+    table = CountTable(np.sort(ref)[:, None])
     got = table.count_smaller(0, x.astype(np.float64))
     exp = np.searchsorted(np.sort(ref), x.astype(np.float64), side="left")
     np.testing.assert_array_equal(got, exp)
@@ -38,7 +38,7 @@ def test_count_table_adversarial(rng):
     # Integer values (many ties), values exactly at the reference extremes and on bin edges.
     ref = rng.integers(0, 50, size=2000).astype(float)
     lo, hi = ref.min(), ref.max()
-    n_bins = _CountTable(np.sort(ref)[:, None]).n_bins
+    n_bins = CountTable(np.sort(ref)[:, None]).n_bins
     edges = lo + (hi - lo) * np.arange(n_bins + 1) / n_bins
     x = np.concatenate([
         rng.integers(-5, 55, size=5000).astype(float), [lo, hi, np.nextafter(lo, -1),
@@ -139,7 +139,7 @@ def test_memory_bounded_by_chunk_budget(fitted_logistic, reference_df):
     out = project_slice(fitted_logistic, ds, variables=VARS, reference=reference_df,
                         threshold=0.5, chunks="auto", chunk_budget_mb=budget_mb)
     means = [out[v].astype("f8").mean() for v in ("suitability", "mess", "nt1", "nt2")]
-    whole = ny * nx * (_BYTES_PER_CELL_PER_VAR * len(VARS) + _BYTES_PER_CELL_FIXED)
+    whole = ny * nx * (BYTES_PER_CELL_PER_VAR * len(VARS) + BYTES_PER_CELL_FIXED)
     tracemalloc.start()
     try:
         with scheduler(threads=2):
@@ -158,7 +158,7 @@ def test_count_table_pickles_small_and_rebuilds(rng):
     import pickle
 
     ref = np.sort(rng.normal(size=(5000, 3)), axis=0)
-    table = _CountTable(ref)
+    table = CountTable(ref)
     blob = pickle.dumps(table)
     assert len(blob) < ref.nbytes + 10_000  # only the sorted reference travels, not the tables
     again = pickle.loads(blob)

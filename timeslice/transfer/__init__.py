@@ -2,11 +2,23 @@
 
 from __future__ import annotations
 
-from timeslice.transfer.novelty import ReferenceSet, combined, exdet, mess, reference_table
+from timeslice.transfer.metrics import (
+    NoveltyMetric,
+    OutputLayer,
+    register_metric,
+    registered_metrics,
+    unregister_metric,
+)
+from timeslice.transfer.novelty import ExDet, Mess, combined, exdet, mess
 from timeslice.transfer.project import auto_chunks, project, project_slice
+from timeslice.transfer.reference import ReferenceSet, reference_table
 from timeslice.transfer.scheduler import get_client, scheduler, set_chunk_cache
 
 __all__ = [
+    "ExDet",
+    "Mess",
+    "NoveltyMetric",
+    "OutputLayer",
     "ReferenceSet",
     "auto_chunks",
     "combined",
@@ -16,6 +28,9 @@ __all__ = [
     "project",
     "project_slice",
     "reference_table",
+    "register_metric",
+    "registered_metrics",
     "scheduler",
     "set_chunk_cache",
+    "unregister_metric",
 ]

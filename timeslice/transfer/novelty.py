@@ -5,14 +5,17 @@ within the model's calibration area (one row per point, one column per predictor
 where a transferred model extrapolates; they say nothing about whether the prediction there is
 right.
 
-The kernels (:func:`_mess_kernel`, :func:`_exdet_kernel`) work on plain numpy arrays with the
-variables on the last axis; the public functions hand every variable of the target to one
-:func:`xarray.apply_ufunc` call with ``dask="parallelized"``, so chunked (dask) targets stay lazy
-and each chunk is processed independently.
+Each is a :class:`timeslice.transfer.metrics.NoveltyMetric` (:class:`Mess`, :class:`ExDet`):
+prepared once from the reference, computed for the stacked finite cells of a block by a compiled
+per-cell loop (:mod:`timeslice.transfer.kernels`). The public functions :func:`mess` and
+:func:`exdet` run one metric over a Dataset with :func:`xarray.apply_ufunc`
+(``dask="parallelized"``: chunked targets stay lazy); a transfer runs them all in the pass of
+:func:`timeslice.transfer.project.project_slice`.
 """
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Sequence
 from typing import Any
 
@@ -22,165 +25,34 @@ import scipy.linalg
 import xarray as xr
 
 from timeslice.errors import DataError
+from timeslice.transfer.metrics import NoveltyMetric, OutputLayer, register_metric
+from timeslice.transfer.reference import (
+    REFERENCE_DESCRIPTION,
+    ReferenceSet,
+    reference_table,
+    scatter,
+    target_arrays,
+    valid_columns,
+)
 
-__all__ = ["ReferenceSet", "combined", "exdet", "mess", "reference_table"]
-
-#: Text written into output attributes to say what the reference set is.
-REFERENCE_DESCRIPTION = "background sample within the calibration area"
+__all__ = [
+    "DISSIMILAR_FILL",
+    "CountTable",
+    "ExDet",
+    "Mess",
+    "ReferenceSet",
+    "combined",
+    "count_table_cached",
+    "exdet",
+    "exdet_parameters",
+    "exdet_values",
+    "mess",
+    "mess_values",
+    "reference_table",
+]
 
 #: Integer written into ``most_dissimilar`` where a target cell has a missing predictor.
 DISSIMILAR_FILL = np.int16(-1)
-
-
-class ReferenceSet:
-    """A validated reference sample: variable names and a float64 ``(n_points, n_vars)`` array.
-
-    Built by :func:`reference_table`; carried between the public functions so that validation
-    happens once.
-    """
-
-    __slots__ = ("values", "variables")
-
-    def __init__(self, values: np.ndarray, variables: tuple[str, ...]) -> None:
-        self.values = values
-        self.variables = variables
-
-    @property
-    def n_points(self) -> int:
-        """Number of reference points."""
-        return int(self.values.shape[0])
-
-
-def reference_table(
-    reference: pd.DataFrame | xr.Dataset | ReferenceSet,
-    *,
-    variables: Sequence[str] | None = None,
-    name: str = "reference",
-) -> ReferenceSet:
-    """Validate a reference sample and return it as a :class:`ReferenceSet`.
-
-    Parameters
-    ----------
-    reference : pandas.DataFrame or xarray.Dataset or ReferenceSet
-        One column per variable (DataFrame), or one data variable per predictor along a single
-        ``point`` dimension (Dataset).
-    variables : sequence of str, optional
-        Variables to use, in this order. Default: every column (DataFrame) or every data
-        variable (Dataset) of `reference`.
-    name : str
-        How to call the argument in error messages.
-
-    Returns
-    -------
-    ReferenceSet
-
-    Raises
-    ------
-    DataError
-        A variable is missing, not numeric or holds NaN/inf; fewer than 2 points; or a variable
-        has zero range (every reference point has the same value).
-    """
-    if isinstance(reference, ReferenceSet):
-        if variables is None or tuple(variables) == reference.variables:
-            return reference
-        reference = pd.DataFrame(reference.values, columns=list(reference.variables))
-    if isinstance(reference, xr.Dataset):
-        dims = set(reference.dims)
-        if dims != {"point"}:
-            raise DataError(
-                f"`{name}` Dataset must have exactly one dimension `point`, got {sorted(dims)}; "
-                "pass a DataFrame with one column per variable instead"
-            )
-        available = list(reference.data_vars)
-        getter = lambda v: np.asarray(reference[v].values)  # noqa: E731 - reference is small
-    elif isinstance(reference, pd.DataFrame):
-        available = [str(c) for c in reference.columns]
-        getter = lambda v: reference[v].to_numpy()  # noqa: E731
-    else:
-        raise DataError(
-            f"`{name}` must be a pandas DataFrame (one column per variable) or an xarray Dataset "
-            f"with a `point` dimension, got {type(reference).__name__}"
-        )
-    if variables is None:
-        variables = available
-    variables = tuple(str(v) for v in variables)
-    if not variables:
-        raise DataError(f"`{name}` has no variables; pass at least one predictor column")
-    missing = [v for v in variables if v not in available]
-    if missing:
-        raise DataError(
-            f"`{name}` has no variable {missing[0]!r} (has {available}); "
-            "sample the background for every predictor of the model"
-        )
-    columns = []
-    for v in variables:
-        col = getter(v)
-        if not np.issubdtype(col.dtype, np.number) or np.issubdtype(col.dtype, np.complexfloating):
-            raise DataError(f"`{name}` variable {v!r} must be numeric, got dtype {col.dtype}")
-        col = col.astype(np.float64)
-        bad = int(np.count_nonzero(~np.isfinite(col)))
-        if bad:
-            raise DataError(
-                f"`{name}` variable {v!r} has {bad} missing or infinite values; "
-                "drop background points without climate before using them as reference"
-            )
-        columns.append(col)
-    values = np.stack(columns, axis=1) if columns else np.empty((0, 0))
-    if values.shape[0] < 2:
-        raise DataError(
-            f"`{name}` has {values.shape[0]} points; at least 2 are needed (more than "
-            "1,000 background points are common practice)"
-        )
-    span = values.max(axis=0) - values.min(axis=0)
-    for v, s in zip(variables, span):
-        if not s > 0:
-            raise DataError(
-                f"`{name}` variable {v!r} has zero range (every reference value is "
-                f"{values[0, variables.index(v)]:g}); drop it from the predictors"
-            )
-    return ReferenceSet(np.ascontiguousarray(values), variables)
-
-
-def _target_arrays(target: xr.Dataset, variables: Sequence[str], name: str) -> list[xr.DataArray]:
-    if not isinstance(target, xr.Dataset):
-        raise DataError(
-            f"`{name}` must be an xarray Dataset with one data variable per predictor, "
-            f"got {type(target).__name__}"
-        )
-    missing = [v for v in variables if v not in target.data_vars]
-    if missing:
-        raise DataError(
-            f"`{name}` has no variable {missing[0]!r} (has {sorted(map(str, target.data_vars))}); "
-            "every reference variable must be present in the target slice"
-        )
-    arrays = [target[v] for v in variables]
-    dims0 = arrays[0].dims
-    for v, a in zip(variables, arrays):
-        if set(a.dims) != set(dims0):
-            raise DataError(
-                f"`{name}` variable {v!r} has dims {a.dims}, expected {dims0} like "
-                f"{variables[0]!r}; put every predictor on the same grid"
-            )
-    return arrays
-
-
-def _valid_columns(blocks: Sequence[np.ndarray]) -> tuple[np.ndarray, np.ndarray | None]:
-    """Finite cells of same-shape blocks as a float64 ``(k, n_valid)`` matrix, and their mask
-    (None when every cell is finite). Cells with any missing predictor are never copied."""
-    flat = [np.asarray(b).reshape(-1) for b in blocks]
-    valid = np.isfinite(flat[0])
-    for f in flat[1:]:
-        valid &= np.isfinite(f)
-    if valid.all():
-        good = np.empty((len(flat), flat[0].size), dtype=np.float64)
-        for i, f in enumerate(flat):
-            good[i] = f
-        return good, None
-    good = np.empty((len(flat), int(np.count_nonzero(valid))), dtype=np.float64)
-    for i, f in enumerate(flat):
-        good[i] = f[valid]
-    return good, valid
-
 
 # --------------------------------------------------------------------------------------- MESS
 
@@ -191,7 +63,7 @@ _BINS_PER_POINT = 32
 _MAX_BINS = 2**20
 
 
-class _CountTable:
+class CountTable:
     """Exact, mostly O(1) counts of reference values strictly smaller than a target value.
 
     For each variable, the monotone map ``g(x) = trunc(clip((x - lo) * scale, 0, G - 1))``
@@ -206,7 +78,8 @@ class _CountTable:
     the object is unpickled, e.g. on ``dask.distributed`` workers.
     """
 
-    __slots__ = ("code", "hi", "lo", "m", "n_bins", "scale", "sim_of_count", "sorted", "span")
+    __slots__ = ("code", "code2d", "factor", "hi", "lo", "m", "n_bins", "scale", "sim_of_count", "sorted",
+                 "span")
 
     def __init__(self, ref_sorted: np.ndarray) -> None:
         ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
@@ -230,9 +103,22 @@ class _CountTable:
         # the formula makes equal (c and m - c) give bit-equal S and ties stay ties.
         c = np.arange(self.m + 1)
         self.sim_of_count = 200.0 * np.minimum(c, self.m - c) / self.m
+        self.code2d = np.stack(self.code)  # (k, n_bins) for the compiled kernel
+        with np.errstate(divide="ignore"):
+            self.factor = 100.0 / self.span
+
+    def kernel_args(self) -> tuple:
+        """The arrays :func:`timeslice.transfer.kernels.mess_cells` takes after ``good``.
+
+        Returns
+        -------
+        tuple
+        """
+        return (self.lo, self.hi, self.factor, self.scale, self.n_bins, self.code2d,
+                self.sorted, self.sim_of_count)
 
     def __reduce__(self):
-        return (_count_table_cached, (self.sorted.T.copy(),))
+        return (count_table_cached, (self.sorted.T.copy(),))
 
     def _bins(self, i: int, x: np.ndarray) -> np.ndarray:
         g = x - self.lo[i]
@@ -241,7 +127,19 @@ class _CountTable:
         return g.astype(np.intp)  # non-negative: truncation = floor
 
     def count_smaller(self, i: int, x: np.ndarray) -> np.ndarray:
-        """Number of reference values of variable `i` strictly smaller than each finite `x`."""
+        """Number of reference values of variable `i` strictly smaller than each finite `x`.
+
+        Parameters
+        ----------
+        i : int
+            Variable index.
+        x : numpy.ndarray
+            Finite values.
+
+        Returns
+        -------
+        numpy.ndarray of int64
+        """
         c = np.zeros(x.shape, dtype=np.int64)
         c[x > self.hi[i]] = self.m
         inside = (x > self.lo[i]) & (x <= self.hi[i])
@@ -254,7 +152,19 @@ class _CountTable:
         return c
 
     def similarity(self, i: int, x: np.ndarray) -> np.ndarray:
-        """MESS similarity ``S_i`` of each finite `x` (float64)."""
+        """MESS similarity ``S_i`` of each finite `x`, in numpy (the compiled kernel's reference).
+
+        Parameters
+        ----------
+        i : int
+            Variable index.
+        x : numpy.ndarray
+            Finite values.
+
+        Returns
+        -------
+        numpy.ndarray of float64
+        """
         lo, hi = self.lo[i], self.hi[i]
         # f = 0 (x <= lo) and f = 100 (x > hi) in one expression: 100 min(x - lo, hi - x) / span
         s = np.minimum(x - lo, hi - x)
@@ -270,37 +180,99 @@ class _CountTable:
         return s
 
 
-_TABLE_CACHE: dict[bytes, _CountTable] = {}
+_TABLE_CACHE: dict[bytes, CountTable] = {}
 
 
-def _count_table_cached(ref_sorted: np.ndarray) -> _CountTable:
-    """The :class:`_CountTable` of a sorted reference, built once per process and content
-    (every slice of a run shares one reference; unpickling on workers lands here too)."""
-    import hashlib
+def count_table_cached(ref_sorted: np.ndarray) -> CountTable:
+    """The :class:`CountTable` of a sorted reference, built once per process and content.
 
+    Every slice of a run shares one reference; unpickling on workers lands here too.
+
+    Parameters
+    ----------
+    ref_sorted : numpy.ndarray, shape (m, k)
+        Reference values, each column sorted ascending.
+
+    Returns
+    -------
+    CountTable
+    """
     key = hashlib.sha1(np.ascontiguousarray(ref_sorted).tobytes()).digest()
     table = _TABLE_CACHE.get(key)
     if table is None:
         if len(_TABLE_CACHE) >= 4:  # a few MB each; a run uses one reference
             _TABLE_CACHE.clear()
-        table = _TABLE_CACHE[key] = _CountTable(ref_sorted)
+        table = _TABLE_CACHE[key] = CountTable(ref_sorted)
     return table
 
 
-def _mess_columns(table: _CountTable, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """MESS and argmin for finite columns ``cols`` of shape (k, n)."""
-    n = cols.shape[1]
-    best = np.full(n, np.inf)
-    arg = np.zeros(n, dtype=np.int16)
-    for i in range(cols.shape[0]):  # loop over variables only (k is small); cells are vectorised
-        s = table.similarity(i, cols[i])
-        better = s < best  # strict: the first variable keeps ties
-        np.copyto(best, s, where=better)
-        np.copyto(arg, np.int16(i), where=better)
-    return best, arg
+def _flag_name(v: str) -> str:
+    """CF flag meanings are blank-separated words."""
+    return "_".join(str(v).split()) or "unnamed"
 
 
-def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+@register_metric
+class Mess(NoveltyMetric):
+    """MESS (Elith, Kearney & Phillips 2010) and the most dissimilar predictor, per cell.
+
+    Layers ``mess`` (float32) and ``most_dissimilar`` (int16 flags naming the predictors).
+    The formula is in the docstring of :func:`mess`.
+    """
+
+    name = "mess"
+    layers = (OutputLayer("mess", np.float32), OutputLayer("most_dissimilar", np.int16,
+                                                          DISSIMILAR_FILL))
+    reference = "Elith, Kearney & Phillips 2010"
+
+    def prepare(self, ref: ReferenceSet) -> None:
+        """Sort the reference columns and build (or reuse) their count table.
+
+        Parameters
+        ----------
+        ref : ReferenceSet
+            The reference sample.
+        """
+        self.table = count_table_cached(np.sort(ref.values, axis=0))
+
+    def columns(self, good: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """MESS (float64) and the index of the most dissimilar predictor (int16).
+
+        Parameters
+        ----------
+        good : numpy.ndarray, shape (k, n)
+            Finite predictor values.
+
+        Returns
+        -------
+        tuple of numpy.ndarray
+        """
+        from timeslice.transfer.kernels import mess_cells
+
+        return mess_cells(good, *self.table.kernel_args())
+
+    def layer_attrs(self, layer: str, ref: ReferenceSet) -> dict[str, Any]:
+        """The layer table's attributes plus the reference; flags naming the predictors.
+
+        Parameters
+        ----------
+        layer : str
+            ``mess`` or ``most_dissimilar``.
+        ref : ReferenceSet
+            The reference sample.
+
+        Returns
+        -------
+        dict
+        """
+        attrs = super().layer_attrs(layer, ref)
+        if layer == "most_dissimilar":  # the table leaves the run's classes to the stage
+            del attrs["reference_points"]
+            attrs["flag_values"] = np.arange(len(ref.variables), dtype=np.int16)
+            attrs["flag_meanings"] = " ".join(_flag_name(v) for v in ref.variables)
+        return attrs
+
+
+def mess_values(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """MESS and most-dissimilar variable for an array of target points.
 
     Parameters
@@ -321,40 +293,45 @@ def _mess_kernel(ref_sorted: np.ndarray, values: np.ndarray) -> tuple[np.ndarray
     Notes
     -----
     The percentage of reference values strictly smaller than ``p`` is ``f = 100 c / M`` with
-    ``c = searchsorted(ref, p, side="left")`` (found through :class:`_CountTable`, exactly); the
+    ``c = searchsorted(ref, p, side="left")`` (found through :class:`CountTable`, exactly); the
     case tests are made on the integer count (``f <= 50`` is ``2 c <= M``), so they are exact.
     """
+    from timeslice.transfer.kernels import mess_cells
+
     ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
     values = np.asarray(values, dtype=np.float64)
     k = ref_sorted.shape[1]
     if values.shape[-1] != k:
         raise ValueError(f"values have {values.shape[-1]} variables, reference has {k}")
-    flat = values.reshape(-1, k)
-    good, valid = _valid_columns([flat[:, i] for i in range(k)])
-    mess_v, dissimilar_v = _mess_columns(_CountTable(ref_sorted), good)
-    out_shape = values.shape[:-1]
-    return (
-        _scatter(mess_v, valid, np.nan).reshape(out_shape),
-        _scatter(dissimilar_v, valid, DISSIMILAR_FILL).reshape(out_shape),
+    good, valid = valid_columns(np.moveaxis(values.reshape(-1, k), -1, 0))
+    m, arg = mess_cells(good, *CountTable(ref_sorted).kernel_args())
+    shape = values.shape[:-1]
+    return (scatter(m, valid, np.nan).reshape(shape),
+            scatter(arg, valid, DISSIMILAR_FILL).reshape(shape))
+
+
+def _novelty_dataset(metric: NoveltyMetric, reference, target, variables, history: str):
+    """One metric over every cell of `target` (lazy for dask targets)."""
+    from timeslice.transfer.blocks import BlockPlan, block_ufunc
+    ref = reference_table(reference, variables=variables)
+    arrays = target_arrays(target, ref.variables, "target")
+    metric.prepare(ref)
+    plan = BlockPlan(metrics=(metric,))
+    specs = plan.layers()
+    results = xr.apply_ufunc(
+        block_ufunc, *arrays, kwargs={"plan": plan, "with_land": False},
+        output_core_dims=[[]] * len(specs), dask="parallelized",
+        output_dtypes=[s.dtype for s in specs], keep_attrs=False,
     )
-
-
-def _mess_block(*blocks: np.ndarray, table: _CountTable) -> tuple[np.ndarray, np.ndarray]:
-    shape = np.shape(blocks[0])
-    good, valid = _valid_columns(blocks)
-    mess_v, dissimilar_v = _mess_columns(table, good)
-    return (
-        _scatter(mess_v.astype(np.float32), valid, np.float32(np.nan)).reshape(shape),
-        _scatter(dissimilar_v, valid, DISSIMILAR_FILL).reshape(shape),
-    )
-
-
-def _scatter(values: np.ndarray, valid: np.ndarray | None, fill: Any) -> np.ndarray:
-    """Values of the valid cells back onto all cells (`fill` elsewhere)."""
-    if valid is None:
-        return values
-    out = np.full(valid.shape, fill, dtype=values.dtype)
-    out[valid] = values
+    out = xr.Dataset()
+    for spec, da in zip(specs, results):
+        da = da.rename(spec.name)
+        da.attrs = metric.layer_attrs(spec.name, ref)
+        if not np.issubdtype(np.dtype(spec.dtype), np.floating):
+            da.encoding["_FillValue"] = spec.fill
+        out[spec.name] = da
+    out.attrs = {"reference_set": REFERENCE_DESCRIPTION, "variables": " ".join(ref.variables),
+                 "history": history}
     return out
 
 
@@ -400,160 +377,52 @@ def mess(
         \end{cases}
         \qquad \mathrm{MESS} = \min_i S_i .
 
-    ``f`` is found by binary search in each sorted reference column, :math:`O(N \log M)` for
-    :math:`N` cells and :math:`M` reference points.
+    ``f`` is counted exactly (:class:`CountTable`: a look-up table, and a binary search in the
+    sorted reference column where the table cannot decide).
 
     References
     ----------
     Elith, J., Kearney, M. & Phillips, S. (2010). The art of modelling range-shifting species.
     *Methods in Ecology and Evolution*, 1, 330–342. https://doi.org/10.1111/j.2041-210X.2010.00036.x
     """
-    ref = reference_table(reference, variables=variables)
-    arrays = _target_arrays(target, ref.variables, "target")
-    table = _count_table_cached(np.sort(ref.values, axis=0))
-    mess_da, dissimilar_da = xr.apply_ufunc(
-        _mess_block,
-        *arrays,
-        kwargs={"table": table},
-        output_core_dims=[[], []],
-        dask="parallelized",
-        output_dtypes=[np.float32, np.int16],
-        keep_attrs=False,
-    )
-    _set_mess_attrs(mess_da, dissimilar_da, ref)
-    out = xr.Dataset({"mess": mess_da.rename("mess"),
-                      "most_dissimilar": dissimilar_da.rename("most_dissimilar")})
-    out.attrs = {
-        "reference_set": REFERENCE_DESCRIPTION,
-        "variables": " ".join(ref.variables),
-        "history": "timeslice.transfer.novelty.mess (Elith, Kearney & Phillips 2010)",
-    }
-    return out
-
-
-def _set_mess_attrs(mess_da: xr.DataArray, dissimilar_da: xr.DataArray, ref: ReferenceSet) -> None:
-    """CF attributes of the MESS layers (in place)."""
-    names = " ".join(_flag_name(v) for v in ref.variables)
-    mess_da.attrs = {
-        "units": "1",
-        "long_name": "multivariate environmental similarity",
-        "description": (
-            "MESS (Elith et al. 2010): smallest univariate similarity over the predictors; "
-            "100 at the reference median, 0 at the edge of the reference range, negative "
-            "outside it (novel climate: suitability there is extrapolated and not to be trusted)"
-        ),
-        "reference_set": REFERENCE_DESCRIPTION,
-        "reference_points": ref.n_points,
-    }
-    dissimilar_da.attrs = {
-        "units": "1",
-        "long_name": "most dissimilar variable",
-        "description": (
-            "index of the predictor with the smallest MESS similarity (first in order on ties); "
-            "-1 where a predictor is missing"
-        ),
-        "flag_values": np.arange(len(ref.variables), dtype=np.int16),
-        "flag_meanings": names,
-        "reference_set": REFERENCE_DESCRIPTION,
-    }
-    dissimilar_da.encoding["_FillValue"] = DISSIMILAR_FILL
-
-
-def _flag_name(v: str) -> str:
-    """CF flag meanings are blank-separated words."""
-    return "_".join(str(v).split()) or "unnamed"
+    return _novelty_dataset(Mess(), reference, target, variables,
+                            "timeslice.transfer.novelty.mess (Elith, Kearney & Phillips 2010)")
 
 
 # -------------------------------------------------------------------------------------- ExDet
 
 
-def _exdet_columns(params: dict, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """NT1 and NT2 for finite columns ``cols`` of shape (k, n)."""
-    lo, hi, mean = params["lo"], params["hi"], params["mean"]
-    whiten = params["whiten"]
-    k, n = cols.shape
-    nt1 = np.zeros(n)
-    centred = np.empty_like(cols)
-    for i in range(k):
-        x = cols[i]
-        d = np.minimum(x - lo[i], hi[i] - x)
-        np.minimum(d, 0.0, out=d)
-        d /= hi[i] - lo[i]
-        nt1 += d
-        np.subtract(x, mean[i], out=centred[i])
-    # z = L^-1 (x - mean) row by row with the lower-triangular inverse (no BLAS threads inside
-    # dask threads, and the same summation order whatever the chunk or thread count)
-    d2 = np.zeros(n)
-    z = np.empty(n)
-    tmp = np.empty(n)
-    for i in range(k):
-        np.multiply(centred[0], whiten[i, 0], out=z)
-        for j in range(1, i + 1):
-            np.multiply(centred[j], whiten[i, j], out=tmp)
-            z += tmp
-        np.multiply(z, z, out=tmp)
-        d2 += tmp
-    return nt1, d2 / params["d2_max"]
-
-
-def _exdet_kernel(
-    lo: np.ndarray,
-    hi: np.ndarray,
-    mean: np.ndarray,
-    chol: np.ndarray,
-    d2_max: float,
-    values: np.ndarray,
-    whiten: np.ndarray | None = None,
-) -> tuple[np.ndarray, np.ndarray]:
-    """NT1 and NT2 for an array of target points.
+def exdet_parameters(ref: ReferenceSet) -> dict[str, Any]:
+    """Reference range, mean, covariance factor and largest distance of ExDet.
 
     Parameters
     ----------
-    lo, hi : numpy.ndarray, shape (k,)
-        Reference minimum and maximum per variable.
-    mean : numpy.ndarray, shape (k,)
-        Reference mean.
-    chol : numpy.ndarray, shape (k, k)
-        Lower Cholesky factor ``L`` of the reference covariance, ``C = L L^T``.
-    d2_max : float
-        Largest squared Mahalanobis distance among the reference points.
-    values : numpy.ndarray, shape (..., k)
-        Target values, variables on the last axis.
-    whiten : numpy.ndarray, shape (k, k), optional
-        ``L^-1``; computed from `chol` by a triangular solve when not given.
+    ref : ReferenceSet
+        The reference sample.
 
     Returns
     -------
-    nt1, nt2 : numpy.ndarray, shape (...), float64
-        NaN where any variable of the point is not finite.
+    dict
+        ``lo``, ``hi``, ``mean`` (k,), ``chol`` (lower Cholesky factor of the covariance),
+        ``whiten`` (its inverse) and ``d2_max`` (float).
+
+    Raises
+    ------
+    DataError
+        The covariance is singular or numerically so (collinear predictors).
     """
-    values = np.asarray(values, dtype=np.float64)
-    k = lo.shape[0]
-    out_shape = values.shape[:-1]
-    if whiten is None:
-        whiten = scipy.linalg.solve_triangular(chol, np.eye(k), lower=True)
-    params = {"lo": lo, "hi": hi, "mean": mean, "whiten": whiten, "d2_max": d2_max}
-    flat = values.reshape(-1, k)
-    good, valid = _valid_columns([flat[:, i] for i in range(k)])
-    nt1, nt2 = _exdet_columns(params, good)
-    return (
-        _scatter(nt1, valid, np.nan).reshape(out_shape),
-        _scatter(nt2, valid, np.nan).reshape(out_shape),
-    )
+    key = hashlib.sha1(ref.values.tobytes()).digest()
+    if key not in _EXDET_CACHE:
+        if len(_EXDET_CACHE) >= 4:  # every slice of a run shares one reference
+            _EXDET_CACHE.clear()
+        _EXDET_CACHE[key] = _exdet_parameters(ref)
+    return dict(_EXDET_CACHE[key])
 
 
-def _exdet_block(*blocks: np.ndarray, params: dict) -> tuple[np.ndarray, np.ndarray]:
-    shape = np.shape(blocks[0])
-    good, valid = _valid_columns(blocks)
-    nt1, nt2 = _exdet_columns(params, good)
-    nan32 = np.float32(np.nan)
-    return (
-        _scatter(nt1.astype(np.float32), valid, nan32).reshape(shape),
-        _scatter(nt2.astype(np.float32), valid, nan32).reshape(shape),
-    )
+_EXDET_CACHE: dict[bytes, dict[str, Any]] = {}
 
 
-def _exdet_params(ref: ReferenceSet) -> dict:
+def _exdet_parameters(ref: ReferenceSet) -> dict[str, Any]:
     x = ref.values
     mean = x.mean(axis=0)
     # Sample covariance (n - 1); NT2 is a ratio of distances, so the divisor cancels.
@@ -587,30 +456,85 @@ def _exdet_params(ref: ReferenceSet) -> dict:
     }
 
 
-def _set_exdet_attrs(nt1: xr.DataArray, nt2: xr.DataArray, ref: ReferenceSet) -> None:
-    """CF attributes of the ExDet layers (in place)."""
-    nt1.attrs = {
-        "units": "1",
-        "long_name": "univariate novelty (ExDet NT1)",
-        "description": (
-            "sum over predictors of the distance outside the reference range, in units of "
-            "that range (Mesgaran et al. 2014); 0 inside every range, negative outside "
-            "(extrapolation: flagged, not trusted)"
-        ),
-        "reference_set": REFERENCE_DESCRIPTION,
-        "reference_points": ref.n_points,
-    }
-    nt2.attrs = {
-        "units": "1",
-        "long_name": "combinational novelty (ExDet NT2)",
-        "description": (
-            "squared Mahalanobis distance from the reference mean over the largest one among "
-            "reference points (Mesgaran et al. 2014); above 1 the combination of predictor "
-            "values is outside the reference"
-        ),
-        "reference_set": REFERENCE_DESCRIPTION,
-        "reference_points": ref.n_points,
-    }
+@register_metric
+class ExDet(NoveltyMetric):
+    """ExDet (Mesgaran, Cousens & Webber 2014): univariate (NT1) and combinational (NT2)
+    novelty, per cell. The formulas are in the docstring of :func:`exdet`."""
+
+    name = "exdet"
+    layers = (OutputLayer("nt1", np.float32), OutputLayer("nt2", np.float32))
+    reference = "Mesgaran, Cousens & Webber 2014"
+
+    def prepare(self, ref: ReferenceSet) -> None:
+        """Reference range, mean, whitening triangle and largest reference distance.
+
+        Parameters
+        ----------
+        ref : ReferenceSet
+            The reference sample.
+        """
+        self.params = exdet_parameters(ref)
+
+    def columns(self, good: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """NT1 and NT2 (float64).
+
+        Parameters
+        ----------
+        good : numpy.ndarray, shape (k, n)
+            Finite predictor values.
+
+        Returns
+        -------
+        tuple of numpy.ndarray
+        """
+        from timeslice.transfer.kernels import exdet_cells
+
+        p = self.params
+        return exdet_cells(good, p["lo"], p["hi"], p["mean"], p["whiten"], p["d2_max"])
+
+
+def exdet_values(
+    lo: np.ndarray,
+    hi: np.ndarray,
+    mean: np.ndarray,
+    chol: np.ndarray,
+    d2_max: float,
+    values: np.ndarray,
+    whiten: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """NT1 and NT2 for an array of target points.
+
+    Parameters
+    ----------
+    lo, hi : numpy.ndarray, shape (k,)
+        Reference minimum and maximum per variable.
+    mean : numpy.ndarray, shape (k,)
+        Reference mean.
+    chol : numpy.ndarray, shape (k, k)
+        Lower Cholesky factor ``L`` of the reference covariance, ``C = L L^T``.
+    d2_max : float
+        Largest squared Mahalanobis distance among the reference points.
+    values : numpy.ndarray, shape (..., k)
+        Target values, variables on the last axis.
+    whiten : numpy.ndarray, shape (k, k), optional
+        ``L^-1``; computed from `chol` by a triangular solve when not given.
+
+    Returns
+    -------
+    nt1, nt2 : numpy.ndarray, shape (...), float64
+        NaN where any variable of the point is not finite.
+    """
+    from timeslice.transfer.kernels import exdet_cells
+
+    values = np.asarray(values, dtype=np.float64)
+    k = lo.shape[0]
+    if whiten is None:
+        whiten = scipy.linalg.solve_triangular(chol, np.eye(k), lower=True)
+    good, valid = valid_columns(np.moveaxis(values.reshape(-1, k), -1, 0))
+    nt1, nt2 = exdet_cells(good, lo, hi, mean, whiten, d2_max)
+    shape = values.shape[:-1]
+    return (scatter(nt1, valid, np.nan).reshape(shape),
+            scatter(nt2, valid, np.nan).reshape(shape))
 
 
 def exdet(
@@ -661,26 +585,8 @@ def exdet(
     distribution models. *Diversity and Distributions*, 20, 1147–1159.
     https://doi.org/10.1111/ddi.12209
     """
-    ref = reference_table(reference, variables=variables)
-    arrays = _target_arrays(target, ref.variables, "target")
-    params = _exdet_params(ref)
-    nt1, nt2 = xr.apply_ufunc(
-        _exdet_block,
-        *arrays,
-        kwargs={"params": params},
-        output_core_dims=[[], []],
-        dask="parallelized",
-        output_dtypes=[np.float32, np.float32],
-        keep_attrs=False,
-    )
-    _set_exdet_attrs(nt1, nt2, ref)
-    out = xr.Dataset({"nt1": nt1.rename("nt1"), "nt2": nt2.rename("nt2")})
-    out.attrs = {
-        "reference_set": REFERENCE_DESCRIPTION,
-        "variables": " ".join(ref.variables),
-        "history": "timeslice.transfer.novelty.exdet (Mesgaran, Cousens & Webber 2014)",
-    }
-    return out
+    return _novelty_dataset(ExDet(), reference, target, variables,
+                            "timeslice.transfer.novelty.exdet (Mesgaran, Cousens & Webber 2014)")
 
 
 def combined(nt1: xr.DataArray, nt2: xr.DataArray) -> xr.DataArray:

@@ -1,9 +1,11 @@
-"""Transfer a fitted niche model onto a prepared climate slice, chunk by chunk.
+"""Transfer a fitted niche model onto a prepared climate slice, block by block.
 
 :func:`project` turns the predictor grids of a slice into samples (one row per cell), calls the
-estimator's ``predict_proba`` on whole chunks and puts the result back on the grid. With dask
-inputs nothing is computed: the result is a lazy array with the same chunks. :func:`project_slice`
-adds the thresholded layer and the novelty layers (MESS, ExDet) a series needs.
+estimator's ``predict_proba`` on whole blocks and puts the result back on the grid.
+:func:`project_slice` adds the thresholded layer and the novelty layers in the same pass
+(:mod:`timeslice.transfer.blocks`): with dask inputs nothing is computed and the result is a lazy
+array with the same chunks; with numpy inputs the slice is computed now, by rows, on a few
+threads.
 
 Projected suitability is a hypothesis about where the climate resembles the calibrated niche.
 Biotic interactions and dispersal limits are outside the climate niche, and cells flagged as
@@ -12,7 +14,6 @@ novel (MESS < 0, NT1 < 0, NT2 > 1) rest on extrapolation.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Mapping, Sequence
 from typing import Any, Literal
 
@@ -21,37 +22,31 @@ import pandas as pd
 import xarray as xr
 
 from timeslice.errors import ConfigError, DataError
-from timeslice.transfer.novelty import (
-    DISSIMILAR_FILL,
-    REFERENCE_DESCRIPTION,
-    ReferenceSet,
-    _CountTable,
-    _count_table_cached,
-    _exdet_columns,
-    _exdet_params,
-    _mess_columns,
-    _set_exdet_attrs,
-    _set_mess_attrs,
-    _scatter,
-    _valid_columns,
-    reference_table,
+from timeslice.transfer.blocks import (
+    DEFAULT_CHUNK_BUDGET_MB,
+    SUITABILITY,
+    SUITABLE,
+    BlockPlan,
+    auto_chunks,
+    block_ufunc,
+    row_layers,
 )
+from timeslice.transfer.metrics import NoveltyMetric, OutputLayer, prepare_metrics
+from timeslice.transfer.reference import REFERENCE_DESCRIPTION, ReferenceSet, reference_table
 
-__all__ = ["auto_chunks", "project", "project_slice"]
+__all__ = [
+    "Predictor",
+    "auto_chunks",
+    "build_plan",
+    "check_threshold",
+    "layer_attributes",
+    "project",
+    "project_slice",
+    "slice_attributes",
+]
 
-#: Code written into ``suitable`` where the cell is not land or has no prediction.
-SUITABLE_FILL = np.int8(-1)
-
-#: Default memory budget per chunk for ``chunks="auto"``, MB (our choice).
-DEFAULT_CHUNK_BUDGET_MB = 64.0
-
-# Working memory per cell of one chunk in the fused slice kernel: about 32 bytes per predictor
-# (float64 stacks, the valid-cell copy, the estimator's input copy, MESS temporaries) plus
-# about 35 bytes of outputs and masks, measured with tracemalloc for 2-16 predictors and the
-# ellipsoid estimator (bench/transfer.py prints it first). Rounded up: estimators that expand
-# features (splines, hinges) need a larger budget.
-_BYTES_PER_CELL_PER_VAR = 40
-_BYTES_PER_CELL_FIXED = 64
+#: The clamping effect, a layer of the estimator step with ``clamp=True``.
+CLAMP_EFFECT = OutputLayer("clamp_effect", np.float32)
 
 
 def _check_model(model: Any, variables: Sequence[str]) -> tuple[list[str], int, bool]:
@@ -121,91 +116,75 @@ def _probe(
         )
 
 
-def _predict_rows(
-    x: np.ndarray,
-    *,
-    model: Any,
-    columns: Sequence[str],
-    positive: int,
-    as_frame: bool,
-) -> np.ndarray:
-    """Suitability (float32) of finite samples ``x`` of shape (n, k), columns as fitted."""
-    if x.shape[0] == 0:
-        return np.empty(0, dtype=np.float32)
-    if as_frame:
-        x = pd.DataFrame(x, columns=list(columns), copy=False)
-    prob = np.asarray(model.predict_proba(x))
-    return prob[:, positive].astype(np.float32)
+class Predictor:
+    """The estimator step of a block: suitability of the finite cells, and the clamping effect.
 
-
-def _predict_block(
-    *blocks: np.ndarray,
-    order: Sequence[int],
-    lo: np.ndarray | None = None,
-    hi: np.ndarray | None = None,
-    **kw: Any,
-) -> np.ndarray:
-    """Suitability of one chunk; `order` maps fitted columns to the blocks."""
-    shape = np.shape(blocks[0])
-    good, valid = _valid_columns([blocks[j] for j in order])
-    x = good.T
-    if lo is not None:
-        x = np.clip(x, lo, hi)
-    suit = _predict_rows(x, **kw)
-    return _scatter(suit, valid, np.float32(np.nan)).reshape(shape)
-
-
-def _slice_block(
-    *blocks: np.ndarray,
-    order: Sequence[int],
-    predict: dict[str, Any],
-    table: _CountTable,
-    exdet_params: dict[str, Any],
-    lo: np.ndarray | None,
-    hi: np.ndarray | None,
-    threshold: float,
-    with_land: bool,
-) -> tuple[np.ndarray, ...]:
-    """Every per-slice layer of one chunk from one pass over its predictors.
-
-    `blocks` are the predictors (reference order), then the land mask if `with_land`.
-    Returns suitability, suitable, MESS, most_dissimilar, NT1, NT2 and, when `lo` is given, the
-    clamping effect. The predictors are stacked once; the estimator gets them in its fitted order.
+    Parameters
+    ----------
+    model : estimator
+        Fitted classifier with ``predict_proba``.
+    variables : sequence of str
+        Predictors in the order of the stacked rows (the reference's order).
+    lo, hi : numpy.ndarray, optional
+        Calibration range (in the estimator's column order) to clamp to.
+    clamp_effect : bool
+        With `lo`/`hi`: also return clamped minus unclamped suitability.
     """
-    land = None
-    if with_land:
-        *blocks, land = blocks
-    shape = np.shape(blocks[0])
-    good, valid = _valid_columns(blocks)
-    order = list(order)
-    # (n_valid, k) in the fitted column order; a view when the orders agree
-    x = good.T if order == list(range(len(order))) else good[order].T
-    nan32 = np.float32(np.nan)
-    if lo is None:
-        suit = _predict_rows(x, **predict)
-        extra: tuple[np.ndarray, ...] = ()
-    else:
-        suit = _predict_rows(np.clip(x, lo, hi), **predict)
+
+    def __init__(self, model: Any, variables: Sequence[str], *, lo: np.ndarray | None = None,
+                 hi: np.ndarray | None = None, clamp_effect: bool = False) -> None:
+        self.model = model
+        self.columns_fitted, self.positive, self.as_frame = _check_model(model, variables)
+        self.order = [list(variables).index(c) for c in self.columns_fitted]
+        self.lo, self.hi = lo, hi
+        self.extra_layers: tuple[OutputLayer, ...] = (CLAMP_EFFECT,) if clamp_effect else ()
+
+    def predict(self, x: np.ndarray) -> np.ndarray:
+        """Suitability (float32) of finite samples `x` of shape (n, k), columns as fitted.
+
+        Parameters
+        ----------
+        x : numpy.ndarray, shape (n, k)
+            Samples in the estimator's column order.
+
+        Returns
+        -------
+        numpy.ndarray, shape (n,), float32
+        """
+        if x.shape[0] == 0:
+            return np.empty(0, dtype=np.float32)
+        if self.as_frame:
+            x = pd.DataFrame(x, columns=list(self.columns_fitted), copy=False)
+        prob = np.asarray(self.model.predict_proba(x))
+        return prob[:, self.positive].astype(np.float32)
+
+    def columns(self, good: np.ndarray) -> tuple[np.ndarray, ...]:
+        """Suitability (and the clamping effect) of the stacked finite cells.
+
+        Parameters
+        ----------
+        good : numpy.ndarray, shape (k, n)
+            Finite predictor values in the reference's order.
+
+        Returns
+        -------
+        tuple of numpy.ndarray
+            ``(suitability,)`` or ``(suitability, clamp_effect)``, float32.
+        """
+        order = self.order
+        # (n, k) in the fitted column order; a view when the orders agree
+        x = good.T if order == list(range(len(order))) else good[order].T
+        if self.lo is None:
+            return (self.predict(x),)
+        suit = self.predict(np.clip(x, self.lo, self.hi))
+        if not self.extra_layers:
+            return (suit,)
         delta = np.zeros_like(suit)
-        outside = ((x < lo) | (x > hi)).any(axis=1)
+        outside = ((x < self.lo) | (x > self.hi)).any(axis=1)
         if outside.any():
             # Only cells with a predictor outside the range can differ; predict those twice.
-            delta[outside] = suit[outside] - _predict_rows(x[outside], **predict)
-        extra = (_scatter(delta, valid, nan32).reshape(shape),)
-    mess_v, dissimilar_v = _mess_columns(table, good)
-    nt1, nt2 = _exdet_columns(exdet_params, good)
-    suitable = _scatter((suit >= threshold).astype(np.int8), valid, SUITABLE_FILL).reshape(shape)
-    if land is not None:
-        np.copyto(suitable, SUITABLE_FILL, where=~np.asarray(land, dtype=bool))
-    return (
-        _scatter(suit, valid, nan32).reshape(shape),
-        suitable,
-        _scatter(mess_v.astype(np.float32), valid, nan32).reshape(shape),
-        _scatter(dissimilar_v, valid, DISSIMILAR_FILL).reshape(shape),
-        _scatter(nt1.astype(np.float32), valid, nan32).reshape(shape),
-        _scatter(nt2.astype(np.float32), valid, nan32).reshape(shape),
-        *extra,
-    )
+            delta[outside] = suit[outside] - self.predict(x[outside])
+        return suit, delta
 
 
 def _predictor_arrays(ds: xr.Dataset, variables: Sequence[str], name: str) -> list[xr.DataArray]:
@@ -243,9 +222,9 @@ def _clamp_bounds(
 
 
 def _suitability_attrs(model: Any, columns: Sequence[str], clamp: bool) -> dict[str, Any]:
+    """The layer table's attributes, with a description naming this run's estimator."""
     return {
-        "units": "1",
-        "long_name": "climatic suitability",
+        **SUITABILITY.attrs(),
         "description": (
             f"predict_proba of {type(model).__name__} on {', '.join(columns)}"
             + ("; predictors clamped to the calibration range" if clamp else "")
@@ -257,6 +236,104 @@ def _suitability_attrs(model: Any, columns: Sequence[str], clamp: bool) -> dict[
         "clamped": int(bool(clamp)),
         "model_class": type(model).__name__,
     }
+
+
+def _suitable_attrs(threshold: float) -> dict[str, Any]:
+    """The layer table's attributes and flags, with a description naming the threshold."""
+    return {
+        **SUITABLE.attrs(),
+        "description": (
+            f"1 where suitability >= {threshold:g}, 0 below, -1 not land or no prediction; "
+            "climatic suitability only (reachability and biotic interactions not included)"
+        ),
+        "threshold": threshold,
+    }
+
+
+def _clamp_attrs() -> dict[str, Any]:
+    # the table's entry has no description yet; this one says how to read the difference
+    return {
+        **CLAMP_EFFECT.attrs(),
+        "description": (
+            "suitability with predictors clamped to the calibration range minus suitability "
+            "without clamping; non-zero only where a predictor leaves that range"
+        ),
+    }
+
+
+def layer_attributes(plan: BlockPlan, ref: ReferenceSet, *, clamp: bool) -> dict[str, dict]:
+    """The attributes of every output layer of a transfer.
+
+    Parameters
+    ----------
+    plan : BlockPlan
+        From :func:`build_plan`.
+    ref : ReferenceSet
+        The reference the metrics were prepared from.
+    clamp : bool
+        Whether predictors were clamped.
+
+    Returns
+    -------
+    dict
+        ``{layer name: attrs}`` in output order.
+    """
+    out: dict[str, dict] = {}
+    pred = plan.predictor
+    if pred is not None:
+        out["suitability"] = _suitability_attrs(pred.model, pred.columns_fitted, clamp)
+        if plan.threshold is not None:
+            out["suitable"] = _suitable_attrs(plan.threshold)
+    for m in plan.metrics:
+        for layer in m.layers:
+            out[layer.name] = m.layer_attrs(layer.name, ref)
+    if pred is not None and pred.extra_layers:
+        out["clamp_effect"] = _clamp_attrs()
+    return out
+
+
+def slice_attributes(
+    source_attrs: Mapping[str, Any], ref: ReferenceSet, model: Any, *, variables: Sequence[str],
+    threshold: float, clamp: bool,
+) -> dict[str, Any]:
+    """Global attributes of a transferred slice.
+
+    Parameters
+    ----------
+    source_attrs : mapping
+        Attributes of the prepared slice (its label, year, period, model and scenario are kept).
+    ref : ReferenceSet
+        The reference sample.
+    model : estimator
+        The fitted estimator.
+    variables : sequence of str
+        Predictors.
+    threshold : float
+        Suitability threshold.
+    clamp : bool
+        Whether predictors were clamped.
+
+    Returns
+    -------
+    dict
+    """
+    out = {k: source_attrs[k] for k in ("slice_label", "year", "period", "model", "scenario",
+                                         "sea_level") if k in source_attrs}
+    out.update({
+        "reference_set": REFERENCE_DESCRIPTION,
+        "reference_points": ref.n_points,
+        "variables": " ".join(variables),
+        "threshold": threshold,
+        "clamped": int(bool(clamp)),
+        "model_class": type(model).__name__,
+        "caution": (
+            "projections are hypotheses; biotic interactions and dispersal limits are "
+            "outside the climate niche; novel-climate cells (mess < 0, nt1 < 0, nt2 > 1) "
+            "are extrapolated and flagged, not trusted"
+        ),
+        "history": "timeslice.transfer.project.project_slice",
+    })
+    return out
 
 
 def project(
@@ -298,75 +375,24 @@ def project(
     """
     variables = [str(v) for v in variables]
     arrays = _predictor_arrays(ds, variables, "ds")
-    columns, positive, as_frame = _check_model(model, variables)
-    kw: dict[str, Any] = {
-        "model": model, "columns": columns, "positive": positive, "as_frame": as_frame,
-        "order": [variables.index(c) for c in columns],
-    }
+    lo = hi = None
+    pred0 = Predictor(model, variables)
     if reference is not None:
-        ref = reference_table(reference, variables=columns)
-        _probe(model, ref, columns, positive, as_frame)
+        ref = reference_table(reference, variables=pred0.columns_fitted)
+        _probe(model, ref, pred0.columns_fitted, pred0.positive, pred0.as_frame)
     if clamp:
-        kw["lo"], kw["hi"] = _clamp_bounds(reference, columns)
+        lo, hi = _clamp_bounds(reference, pred0.columns_fitted)
+    plan = BlockPlan(metrics=(), predictor=Predictor(model, variables, lo=lo, hi=hi))
     out = xr.apply_ufunc(
-        _predict_block,
+        block_ufunc,
         *arrays,
-        kwargs=kw,
+        kwargs={"plan": plan, "with_land": False},
         dask="parallelized",
         output_dtypes=[np.float32],
         keep_attrs=False,
     )
     out = out.rename("suitability")
-    out.attrs = _suitability_attrs(model, columns, clamp)
-    return out
-
-
-def auto_chunks(
-    sizes: Mapping[str, int],
-    *,
-    n_variables: int,
-    budget_mb: float = DEFAULT_CHUNK_BUDGET_MB,
-    dims: tuple[str, str] = ("lat", "lon"),
-) -> dict[str, int]:
-    """Chunk sizes along `dims` so that one chunk's working memory fits `budget_mb`.
-
-    Parameters
-    ----------
-    sizes : mapping of str to int
-        Dimension sizes of the slice (e.g. ``ds.sizes``).
-    n_variables : int
-        Number of predictors processed together.
-    budget_mb : float
-        Working-memory budget per chunk in MB (10⁶ bytes). Each dask thread holds one chunk.
-    dims : tuple of str
-        The two spatial dims; other dims are kept whole.
-
-    Returns
-    -------
-    dict
-        ``{dim: size}`` for each of `dims` present in `sizes`; whole rows of longitude where they
-        fit (rows are contiguous in NetCDF files), otherwise square-ish tiles.
-    """
-    if not budget_mb > 0:
-        raise ConfigError(f"chunk memory budget must be > 0 MB, got {budget_mb}")
-    other = 1
-    for d, n in sizes.items():
-        if d not in dims:
-            other *= int(n)
-    per_cell = (_BYTES_PER_CELL_PER_VAR * max(int(n_variables), 1) + _BYTES_PER_CELL_FIXED) * other
-    cells = max(int(budget_mb * 1e6 // per_cell), 1)
-    ydim, xdim = dims
-    ny, nx = int(sizes.get(ydim, 1)), int(sizes.get(xdim, 1))
-    if cells >= nx:
-        cy, cx = max(min(cells // nx, ny), 1), nx
-    else:
-        side = max(int(math.isqrt(cells)), 1)
-        cy, cx = min(side, ny), min(max(cells // side, 1), nx)
-    out = {}
-    if ydim in sizes:
-        out[ydim] = cy
-    if xdim in sizes:
-        out[xdim] = cx
+    out.attrs = _suitability_attrs(model, pred0.columns_fitted, clamp)
     return out
 
 
@@ -399,6 +425,89 @@ def _resolve_chunks(
     return ds.chunk(dict(chunks))
 
 
+def build_plan(
+    model: Any, ref: ReferenceSet, variables: Sequence[str], *, threshold: float, clamp: bool,
+    metrics: Sequence[type[NoveltyMetric] | NoveltyMetric] | None = None,
+) -> BlockPlan:
+    """Check the estimator against the reference and prepare everything a block needs.
+
+    Parameters
+    ----------
+    model : estimator
+        Fitted classifier with ``predict_proba``.
+    ref : ReferenceSet
+        The reference sample, its variables in the order of `variables`.
+    variables : sequence of str
+        Predictors.
+    threshold : float
+        Suitability threshold in [0, 1].
+    clamp : bool
+        Clamp to the calibration range and add ``clamp_effect``.
+    metrics : sequence, optional
+        Novelty metrics (default: the registered ones).
+
+    Returns
+    -------
+    BlockPlan
+    """
+    pred = Predictor(model, variables)
+    _probe(model, ref, pred.columns_fitted, pred.positive, pred.as_frame)
+    lo = hi = None
+    if clamp:
+        lo, hi = _clamp_bounds(ref, pred.columns_fitted)
+    pred = Predictor(model, variables, lo=lo, hi=hi, clamp_effect=clamp)
+    return BlockPlan(metrics=prepare_metrics(metrics, ref), predictor=pred, threshold=threshold)
+
+
+def check_threshold(threshold: Any) -> float:
+    """`threshold` as a float in [0, 1], or one clear line.
+
+    Parameters
+    ----------
+    threshold : number
+        Suitability threshold.
+
+    Returns
+    -------
+    float
+    """
+    if isinstance(threshold, bool) or not isinstance(threshold, (int, float, np.floating)):
+        raise ConfigError(f"`threshold` must be a number in [0, 1], got {threshold!r}")
+    threshold = float(threshold)
+    if not 0.0 <= threshold <= 1.0:
+        raise ConfigError(f"`threshold` must be in [0, 1], got {threshold}")
+    return threshold
+
+
+def _land_input(ds: xr.Dataset, dims: tuple[str, ...]) -> xr.DataArray | None:
+    if "land" not in ds.data_vars:
+        return None
+    land = ds["land"]
+    label = ds.attrs.get("slice_label", "ds")
+    if land.dtype != bool:
+        raise DataError(
+            f"slice {label!r} variable `land` must be bool, got {land.dtype}; build it "
+            "with timeslice.harmonise.landmask.land_mask"
+        )
+    if set(land.dims) != set(dims):
+        raise DataError(
+            f"slice {label!r} variable `land` has dims {land.dims}, the predictors "
+            f"{dims}; put the land mask on the predictors' grid"
+        )
+    return land
+
+
+def _lazy_layers(inputs: list[xr.DataArray], plan: BlockPlan, with_land: bool) -> list:
+    """Every layer as one apply_ufunc over the chunks (lazy for dask inputs)."""
+    specs = plan.layers()
+    results = xr.apply_ufunc(
+        block_ufunc, *inputs, kwargs={"plan": plan, "with_land": with_land},
+        output_core_dims=[[]] * len(specs), dask="parallelized",
+        output_dtypes=[s.dtype for s in specs], keep_attrs=False,
+    )
+    return list(results) if isinstance(results, tuple) else [results]
+
+
 def project_slice(
     model: Any,
     ds: xr.Dataset,
@@ -409,6 +518,7 @@ def project_slice(
     clamp: bool = False,
     chunks: Mapping[str, int] | Literal["auto"] | None = None,
     chunk_budget_mb: float = DEFAULT_CHUNK_BUDGET_MB,
+    metrics: Sequence[type[NoveltyMetric] | NoveltyMetric] | None = None,
 ) -> xr.Dataset:
     """Suitability, thresholded suitability and novelty of one prepared slice.
 
@@ -431,7 +541,11 @@ def project_slice(
         Re-chunk the slice along lat/lon before projecting: ``{"lat": n, "lon": m}``, or "auto"
         for chunks fitting `chunk_budget_mb`. None keeps the input's chunks (or none).
     chunk_budget_mb : float
-        Working-memory budget per chunk for ``chunks="auto"``, MB.
+        Working-memory budget per chunk for ``chunks="auto"``, MB; for a numpy-backed slice
+        without `chunks`, the budget of each row block.
+    metrics : sequence of NoveltyMetric classes or instances, optional
+        Novelty metrics computed in the same pass (default: every registered one, MESS and
+        ExDet; see :mod:`timeslice.transfer.metrics`).
 
     Returns
     -------
@@ -439,116 +553,38 @@ def project_slice(
         ``suitability`` (float32), ``suitable`` (int8: 1 suitable, 0 not, -1 not land or no
         prediction), ``mess`` (float32), ``most_dissimilar`` (int16 flags), ``nt1``, ``nt2``
         (float32) and, with `clamp`, ``clamp_effect`` (float32, clamped − unclamped
-        suitability). Lazy if the input is dask backed or `chunks` is given.
+        suitability), then the layers of any further metric. Lazy if the input is dask backed
+        or `chunks` is given; otherwise computed now by row blocks on
+        :func:`row_threads` threads.
     """
-    if isinstance(threshold, bool) or not isinstance(threshold, (int, float, np.floating)):
-        raise ConfigError(f"`threshold` must be a number in [0, 1], got {threshold!r}")
-    threshold = float(threshold)
-    if not 0.0 <= threshold <= 1.0:
-        raise ConfigError(f"`threshold` must be in [0, 1], got {threshold}")
+    threshold = check_threshold(threshold)
     variables = [str(v) for v in variables]
     _predictor_arrays(ds, variables, "ds")
+    eager_rows = chunks is None and not _is_lazy(ds, variables)
     ds = _resolve_chunks(ds, chunks, len(variables), chunk_budget_mb)
     ref = reference_table(reference, variables=variables)
-
-    columns, positive, as_frame = _check_model(model, variables)
-    _probe(model, ref, columns, positive, as_frame)
-    lo = hi = None
-    if clamp:
-        lo, hi = _clamp_bounds(ref, columns)
+    plan = build_plan(model, ref, variables, threshold=threshold, clamp=clamp, metrics=metrics)
     inputs = _predictor_arrays(ds, variables, "ds")
-    with_land = "land" in ds.data_vars
-    if with_land:
-        land = ds["land"]
-        label = ds.attrs.get("slice_label", "ds")
-        if land.dtype != bool:
-            raise DataError(
-                f"slice {label!r} variable `land` must be bool, got {land.dtype}; build it "
-                "with timeslice.harmonise.landmask.land_mask"
-            )
-        if set(land.dims) != set(inputs[0].dims):
-            raise DataError(
-                f"slice {label!r} variable `land` has dims {land.dims}, the predictors "
-                f"{inputs[0].dims}; put the land mask on the predictors' grid"
-            )
-        inputs.append(land)
-    n_out = 7 if clamp else 6
-    results = xr.apply_ufunc(
-        _slice_block,
-        *inputs,
-        kwargs={
-            "order": [variables.index(c) for c in columns],
-            "predict": {
-                "model": model, "columns": columns, "positive": positive, "as_frame": as_frame,
-            },
-            "table": _count_table_cached(np.sort(ref.values, axis=0)),
-            "exdet_params": _exdet_params(ref),
-            "lo": lo,
-            "hi": hi,
-            "threshold": threshold,
-            "with_land": with_land,
-        },
-        output_core_dims=[[]] * n_out,
-        dask="parallelized",
-        output_dtypes=[np.float32, np.int8, np.float32, np.int16, np.float32, np.float32]
-        + ([np.float32] if clamp else []),
-        keep_attrs=False,
-    )
-    suit, suitable, mess_da, dissimilar_da, nt1, nt2 = (r.rename(k) for r, k in zip(
-        results, ("suitability", "suitable", "mess", "most_dissimilar", "nt1", "nt2")))
-    suit.attrs = _suitability_attrs(model, columns, clamp)
-    _set_mess_attrs(mess_da, dissimilar_da, ref)
-    _set_exdet_attrs(nt1, nt2, ref)
-    delta = None
-    if clamp:
-        delta = results[6].rename("clamp_effect")
-        delta.attrs = {
-            "units": "1",
-            "long_name": "effect of clamping on suitability",
-            "description": (
-                "suitability with predictors clamped to the calibration range minus suitability "
-                "without clamping; non-zero only where a predictor leaves that range"
-            ),
-        }
-    suitable.attrs = {
-        "units": "1",
-        "long_name": "suitable climate",
-        "description": (
-            f"1 where suitability >= {threshold:g}, 0 below, -1 not land or no prediction; "
-            "climatic suitability only (reachability and biotic interactions not included)"
-        ),
-        "flag_values": np.array([0, 1], dtype=np.int8),
-        "flag_meanings": "unsuitable suitable",
-        "threshold": threshold,
-    }
-    suitable.encoding["_FillValue"] = SUITABLE_FILL
-
-    layers = {
-        "suitability": suit, "suitable": suitable, "mess": mess_da,
-        "most_dissimilar": dissimilar_da,
-        "nt1": nt1, "nt2": nt2,
-    }
-    if delta is not None:
-        layers["clamp_effect"] = delta
-
+    land = _land_input(ds, inputs[0].dims)
+    if eager_rows and inputs[0].ndim == 2:
+        results = row_layers(inputs, land, plan, chunk_budget_mb)
+    else:
+        results = _lazy_layers(inputs + ([land] if land is not None else []), plan,
+                               land is not None)
+    attrs = layer_attributes(plan, ref, clamp=clamp)
+    layers = {}
+    for spec, da in zip(plan.layers(), results):
+        da = da.rename(spec.name)
+        da.attrs = attrs[spec.name]
+        if not np.issubdtype(np.dtype(spec.dtype), np.floating):
+            da.encoding["_FillValue"] = spec.fill
+        layers[spec.name] = da
     out = xr.Dataset(layers)
-    for key in ("slice_label", "year", "period", "model", "scenario", "sea_level"):
-        if key in ds.attrs:
-            out.attrs[key] = ds.attrs[key]
-    out.attrs.update(
-        {
-            "reference_set": REFERENCE_DESCRIPTION,
-            "reference_points": ref.n_points,
-            "variables": " ".join(variables),
-            "threshold": threshold,
-            "clamped": int(bool(clamp)),
-            "model_class": type(model).__name__,
-            "caution": (
-                "projections are hypotheses; biotic interactions and dispersal limits are "
-                "outside the climate niche; novel-climate cells (mess < 0, nt1 < 0, nt2 > 1) "
-                "are extrapolated and flagged, not trusted"
-            ),
-            "history": "timeslice.transfer.project.project_slice",
-        }
-    )
+    out.attrs = slice_attributes(ds.attrs, ref, model, variables=variables, threshold=threshold,
+                                 clamp=clamp)
     return out
+
+
+def _is_lazy(ds: xr.Dataset, variables: Sequence[str]) -> bool:
+    names = list(variables) + (["land"] if "land" in ds.data_vars else [])
+    return any(ds[v].chunks is not None for v in names)
