@@ -148,6 +148,14 @@ class SeriesOnlyConfig(Config):
     ----------
     suitability : SuitabilityConfig
         The rasters, the threshold and the slices.
+    run, series, output : RunConfig, SeriesConfig, OutputConfig
+        As in :class:`~timeslice.config.Config`.
+    climate, species, grid, slices : None
+        Not used (refused when given).
+    niche, transfer, biotic : NicheConfig, TransferConfig, BioticConfig
+        Not used (only their defaults are accepted).
+    source : Path or None
+        The TOML file it came from.
     """
 
     climate: ClimateConfig | None = None
