@@ -53,11 +53,12 @@ def _map(block):
     return np.where(_island(), suit, np.nan)
 
 
-def _world(tmp_path, *, text_extra: str = "", threshold: str = "threshold = 0.5"):
-    maps = tmp_path / "maps"
-    maps.mkdir(exist_ok=True)
+def _world(tmp_path, *, text_extra: str = "", threshold: str = "threshold = 0.5",
+           maps: bool = False):
+    folder = tmp_path / "maps"
+    folder.mkdir(exist_ok=True)
     for label, block in BLOCKS.items():
-        _write_tif(maps / f"{label}.tif", _map(block))
+        _write_tif(folder / f"{label}.tif", _map(block))
     cfg = tmp_path / "own.toml"
     cfg.write_text(f"""
 [run]
@@ -86,7 +87,7 @@ model = "gcm_a"
 scenario = "high"
 
 [output]
-maps = false
+maps = {str(maps).lower()}
 {text_extra}
 """)
     return cfg
@@ -107,7 +108,7 @@ def _geod_area_km2(block) -> float:
 @pytest.fixture(scope="module")
 def own_run(tmp_path_factory):
     root = tmp_path_factory.mktemp("own")
-    cfg = _world(root)
+    cfg = _world(root, maps=True)  # the maps too: their captions must not claim novelty
     out = root / "out"
     res = CliRunner().invoke(app, ["run", str(cfg), "--out", str(out)])
     assert res.exit_code == 0, res.output
@@ -155,6 +156,7 @@ def test_no_novelty_layers_and_the_report_says_so(own_run):
     html = (out / "report.html").read_text()
     assert "Novelty could not be assessed" in html
     assert "no niche was fitted" in html
+    assert "MESS &lt; 0" not in html and "MESS < 0" not in html  # no caption or caution claims it
     manifest = json.loads((out / "manifest.json").read_text())
     assert manifest["status"] == "complete"
     assert any("Novelty could not be assessed" in n for n in manifest["series_notes"])

@@ -6,6 +6,7 @@ threshold rules computed from presences, response curves, evaluation).
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 from types import SimpleNamespace
 from typing import Any
@@ -149,6 +150,8 @@ def _figures(opts, series, summary, analysis, extra, out: Path, refuge, patches,
                  if getattr(j.draw, "__name__", "") not in _NOVELTY_FIGURES]
     jobs += plot_jobs(opts, series, summary, no_fit, {"extra_figures": []}, analysis, extra,
                       out / "plots")
+    for job in jobs:  # no novelty layers: nothing is hatched
+        job.caption = re.sub(r";\s*hatched[^)]*", "", job.caption)
     headline, figures = [], []
     progress("report", 0, len(jobs))
     for i, job in enumerate(jobs, 1):
@@ -256,7 +259,8 @@ def _report(cfg, opts, series, summary, analysis, tables, extra, paths, refuge, 
         figures=figures,
         methods=methods_text(cfg, n_slices=int(series.sizes["slice"]), reference=opts.reference,
                              window=getattr(analysis, "window", None)),
-        cautions=(*DEFAULT_CAUTIONS, NO_NOVELTY_NOTE),
+        # the caution on flagged novel climate does not hold: nothing could be flagged
+        cautions=tuple(NO_NOVELTY_NOTE if "MESS" in c else c for c in DEFAULT_CAUTIONS),
         run_info={"config": opts.config_path, "seed": opts.seed, "version": opts.version,
                   "warnings": "; ".join(warnings_seen) or "none"},
         highlights=findings(results), alerts=[NO_NOVELTY_NOTE])
