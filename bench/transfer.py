@@ -344,6 +344,18 @@ def measure_kernel(k: int = 8, n: int = 200_000) -> dict:
             best = min(best, time.process_time() - t0)
         return best / n * 1e9
 
+    from timeslice.transfer.scheduler import one_blas_thread
+
+    with one_blas_thread():  # as every run does
+        return _kernel_parts(cpu_ns, x, good, plan, mess, exd, n)
+
+
+def _kernel_parts(cpu_ns, x, good, plan, mess, exd, n) -> dict:
+    import tracemalloc
+
+    from timeslice.transfer.blocks import compute_block
+    from timeslice.transfer.reference import valid_columns
+
     out = {
         "cpu_ns_per_cell": cpu_ns(lambda: compute_block(x, None, plan)),
         "mess_ns": cpu_ns(lambda: mess.columns(good)),

@@ -102,7 +102,23 @@ def slice_environment(
 
 def environment_table(fit, slices: list[xr.Dataset], *,
                       tolerance: float = ANALOG_TOLERANCE_SD) -> pd.DataFrame:
-    """:func:`slice_environment` for every prepared slice of a run, one row each."""
+    """:func:`slice_environment` for every prepared slice of a run, one row each.
+
+    Parameters
+    ----------
+    fit : NicheFit
+        The fitted niche (its ``variables``, ``presence`` and ``background``).
+    slices : list of xarray.Dataset
+        Prepared slices.
+    tolerance : float
+        Analog tolerance in reference standard deviations.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per slice: label, year, model, scenario and the measures of
+        :func:`slice_environment`; ``attrs["tolerance_sd"]`` holds `tolerance`.
+    """
     rows = []
     for ds in slices:
         res = slice_environment(ds, variables=list(fit.variables), presence=fit.presence,

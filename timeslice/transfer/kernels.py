@@ -59,9 +59,8 @@ def stack_finite(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 @njit(**_JIT)
-def _count_smaller(row: np.ndarray, value: float) -> int:
-    """``searchsorted(row, value, side="left")``: reference values strictly below `value`."""
-    lo, hi = 0, row.shape[0]
+def _count_smaller(row: np.ndarray, value: float, lo: int, hi: int) -> int:
+    """``searchsorted(row, value, side="left")`` knowing that the answer is in ``lo..hi``."""
     while lo < hi:
         mid = (lo + hi) >> 1
         if row[mid] < value:
@@ -99,7 +98,8 @@ def mess_cells(
     n_bins : int
         Bins per predictor.
     code : numpy.ndarray, shape (k, n_bins), int32
-        Count of reference values in lower bins for empty bins, -1 for occupied ones.
+        Count ``first`` of reference values in lower bins for empty bins, ``-(first + 1)`` for
+        occupied ones.
     ref_sorted : numpy.ndarray, shape (k, m)
         Reference values, each row ascending.
     sim_of_count : numpy.ndarray, shape (m + 1,)
@@ -112,6 +112,7 @@ def mess_cells(
         First predictor with the smallest similarity.
     """
     k, n = good.shape
+    m = ref_sorted.shape[1]
     top = float(n_bins - 1)
     best = np.full(n, np.inf)
     arg = np.zeros(n, dtype=np.int16)
@@ -126,9 +127,14 @@ def mess_cells(
                     g = 0.0
                 elif g > top:
                     g = top
-                c = table[int(g)]
-                if c < 0:
-                    c = _count_smaller(ref_sorted[i], x)
+                b = int(g)
+                c = table[b]
+                if c < 0:  # the bin holds reference values: search among them only
+                    start = -c - 1
+                    end = m if b == n_bins - 1 else table[b + 1]
+                    if end < 0:
+                        end = -end - 1
+                    c = _count_smaller(ref_sorted[i], x, start, end)
                 s = sim_of_count[c]
             else:  # f = 0 or f = 100: linear in the distance to the range
                 s = min(x - low, high - x) * factor[i]

@@ -159,27 +159,27 @@ class NoveltyMetric:
 _REGISTRY: dict[str, type[NoveltyMetric]] = {}
 
 
-def register_metric(cls: type[NoveltyMetric]) -> type[NoveltyMetric]:
+def register_metric(metric: type[NoveltyMetric]) -> type[NoveltyMetric]:
     """Add a metric class to those every transfer computes by default (usable as a decorator).
 
     Parameters
     ----------
-    cls : type
+    metric : type
         A :class:`NoveltyMetric` subclass with a unique :attr:`~NoveltyMetric.name` whose
         layers are in the layer table (:func:`timeslice.layers.register`).
 
     Returns
     -------
     type
-        `cls`.
+        `metric`.
     """
-    if not (isinstance(cls, type) and issubclass(cls, NoveltyMetric)) or not cls.name:
-        raise ConfigError(f"{cls!r} is not a named NoveltyMetric subclass; set `name` and "
+    if not (isinstance(metric, type) and issubclass(metric, NoveltyMetric)) or not metric.name:
+        raise ConfigError(f"{metric!r} is not a named NoveltyMetric subclass; set `name` and "
                           "subclass timeslice.transfer.metrics.NoveltyMetric")
-    for layer in cls.layers:
+    for layer in metric.layers:
         layer.attrs()  # one clear line now if the layer table lacks it
-    _REGISTRY[cls.name] = cls
-    return cls
+    _REGISTRY[metric.name] = metric
+    return metric
 
 
 def unregister_metric(name: str) -> None:

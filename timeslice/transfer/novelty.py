@@ -72,14 +72,20 @@ class CountTable:
     in a lower bin than ``g(p)`` is smaller than ``p`` and none in a higher bin is; so the count
     is ``first[g(p)]`` exactly whenever the bin of ``p`` holds no reference value, and a binary
     search (``searchsorted(side="left")``) settles the rest. The table stores ``first[j]`` for
-    empty bins and ``-1`` for occupied ones, so one look-up answers both questions.
+    empty bins and ``-(first[j] + 1)`` for occupied ones, so one look-up answers both questions
+(and the compiled kernel searches only the values of that bin).
 
     Pickling sends only the sorted reference; the tables are rebuilt (once per process) where
     the object is unpickled, e.g. on ``dask.distributed`` workers.
+
+    Parameters
+    ----------
+    ref_sorted : numpy.ndarray, shape (m, k)
+        Reference values, each column sorted ascending.
     """
 
-    __slots__ = ("code", "code2d", "factor", "hi", "lo", "m", "n_bins", "scale", "sim_of_count", "sorted",
-                 "span")
+    __slots__ = ("code", "code2d", "factor", "hi", "lo", "m", "n_bins", "scale", "sim_of_count",
+                 "sorted", "span")
 
     def __init__(self, ref_sorted: np.ndarray) -> None:
         ref_sorted = np.asarray(ref_sorted, dtype=np.float64)
@@ -96,7 +102,8 @@ class CountTable:
             counts = np.bincount(self._bins(i, self.sorted[i]), minlength=self.n_bins)
             first = np.cumsum(counts) - counts  # reference values in lower bins
             code = first.astype(np.int32)
-            code[counts > 0] = -1
+            # occupied bins: -(first + 1), so that the kernel searches only within the bin
+            code[counts > 0] = -code[counts > 0] - 1
             self.code.append(code)
         # S for 0 < f < 100 as a function of the count c: 2f for f <= 50, 2 (100 - f) above,
         # i.e. 200 min(c, m - c) / m with f = 100 c / m. From the integer min, so that counts

@@ -29,11 +29,19 @@ __all__ = [
 #: Text written into output attributes to say what the reference set is.
 REFERENCE_DESCRIPTION = "background sample within the calibration area"
 
+
 class ReferenceSet:
     """A validated reference sample: variable names and a float64 ``(n_points, n_vars)`` array.
 
     Built by :func:`reference_table`; carried between the public functions so that validation
     happens once.
+
+    Parameters
+    ----------
+    values : numpy.ndarray, shape (n_points, n_vars), float64
+        The reference values, C-contiguous.
+    variables : tuple of str
+        Variable names, one per column.
     """
 
     __slots__ = ("values", "variables")
