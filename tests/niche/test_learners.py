@@ -145,3 +145,16 @@ def test_ensemble_rejects_nesting_and_unknown_member(rng):
 def test_make_model_builds_learners():
     assert isinstance(make_model("point-process"), PointProcessNiche)
     assert isinstance(make_model("forest", n_estimators=5), ForestNiche)
+
+
+@pytest.mark.parametrize("features", [("linear",), ("quadratic", "hinge"), ("linear", "quadratic", "hinge", "interaction")])
+def test_point_process_prediction_skips_inactive_features(rng, features):
+    # the transfer path adds only the active features into one accumulator; it must equal the
+    # full feature matrix times the coefficients (numpy's matrix product) to rounding
+    X, y = _data(rng)
+    X = np.c_[X, rng.normal(0, 1, (X.shape[0], 2))]
+    m = PointProcessNiche(features=features, penalties=(1e-2,)).fit(X, y)
+    assert 0 < m.n_active_ < m.coef_.size or features == ("linear",)
+    Xt = rng.normal(0, 2, (500, X.shape[1]))
+    dense = m.features_.transform(Xt) @ m.coef_
+    np.testing.assert_allclose(m.linear_predictor(Xt), dense, rtol=1e-12, atol=1e-12)

@@ -72,8 +72,19 @@ def test_dataframe_feature_names(rng):
 
 
 def test_make_model_names_and_errors():
+    from sklearn.base import clone
+
     for name in MODEL_NAMES:
-        assert make_model(name).get_params() is not None
+        est = make_model(name)
+        # scikit-learn's contract (BaseEstimator, "developing estimators" guide): every __init__
+        # argument is a parameter stored unchanged, so clone() rebuilds an equal estimator
+        params = est.get_params(deep=False)
+        assert params, name
+        twin = clone(est)
+        assert type(twin) is type(est) and twin is not est
+        assert twin.get_params(deep=False) == params
+        changed = {k: v for k, v in make_model(name, random_state=5).get_params(deep=False).items()}
+        assert changed["random_state"] == 5 and clone(make_model(name, random_state=5)).random_state == 5
     assert isinstance(make_model("Ellipsoid", ridge=1e-3), EllipsoidNiche)
     with pytest.raises(ConfigError, match="did you mean 'ellipsoid'"):
         make_model("elipsoid")

@@ -19,17 +19,44 @@ def fitted(world):
 
 
 def test_fit_niche_defaults_are_the_config_defaults():
-    # one source of defaults: the Python API and a config-driven run fit the same model
+    # one source of defaults: the Python API and a config-driven run fit the same model. Every
+    # [niche] key is a fit_niche argument (same name, or the names mapped below), and so are the
+    # [species] taxon keys and the run seed; each default must be equal.
     import inspect
 
-    from timeslice.config import NicheConfig
+    from timeslice.config import NicheConfig, RunConfig, SpeciesConfig
 
     sig = inspect.signature(fit_niche).parameters
-    cfg = NicheConfig()
-    for api, key in (("algorithm", "algorithm"), ("threshold_rule", "threshold"),
-                     ("buffer_km", "buffer_km"), ("n_background", "n_background"),
-                     ("cv_block_km", "cv_block_km"), ("cv_folds", "cv_folds")):
-        assert sig[api].default == getattr(cfg, key), api
+    renamed = {"threshold": "threshold_rule", "params": "algorithm_params"}
+    not_arguments = {"model"}  # a fitted model file: the run skips fit_niche altogether
+
+    def same(api, cfg) -> bool:
+        if isinstance(api, (list, tuple)) or isinstance(cfg, (list, tuple)):
+            return list(api or []) == list(cfg or [])
+        if api is None and cfg == {}:  # no hyperparameters either way
+            return True
+        return api == cfg
+
+    checked = 0
+    for key, field in NicheConfig.model_fields.items():
+        if key in not_arguments:
+            continue
+        api = renamed.get(key, key)
+        assert api in sig, f"[niche] {key} has no fit_niche argument"
+        assert same(sig[api].default, field.get_default(call_default_factory=True)), key
+        checked += 1
+    for key in ("taxon", "taxon_field", "fold_subspecies"):
+        assert same(sig[key].default, SpeciesConfig.model_fields[key].get_default()), key
+    assert sig["seed"].default == RunConfig.model_fields["seed"].get_default()
+    assert checked >= 25
+
+
+def test_fit_niche_reports_progress_per_fold(world):
+    ds, rec, _ = world
+    calls = []
+    fit_niche(rec, ds, algorithm="ellipsoid", n_background=800, cv_folds=4, importance_repeats=0,
+              seed=2, progress=lambda stage, done, total: calls.append((stage, done, total)))
+    assert calls == [("fit", k, 4) for k in range(5)] + [("fit", 4, 4)]
 
 
 def test_fit_niche_outputs(fitted, world):

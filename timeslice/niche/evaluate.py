@@ -98,11 +98,23 @@ def tss(scores_presence, scores_background, threshold: float) -> float:
     Sensitivity is the share of presences with score >= `threshold`; specificity the share of
     background (absence) points with score < `threshold`.
 
+    Parameters
+    ----------
+    scores_presence, scores_background : array-like
+        Scores of the presences and of the background points.
+    threshold : float
+        Suitability threshold.
+
+    Returns
+    -------
+    float
+        TSS in [-1, 1].
+
     References
     ----------
     Allouche, O., Tsoar, A., & Kadmon, R. (2006). Assessing the accuracy of species distribution
     models: prevalence, kappa and the true skill statistic (TSS). J. Appl. Ecol. 43:1223-1232.
-    """
+"""
     p = _scores(scores_presence, "scores_presence")
     b = _scores(scores_background, "scores_background")
     se, sp = _sens_spec(p, b, float(threshold))
@@ -110,7 +122,20 @@ def tss(scores_presence, scores_background, threshold: float) -> float:
 
 
 def omission(scores_presence, threshold: float) -> float:
-    """Share of presences with score below `threshold` (omission rate)."""
+    """Share of presences with score below `threshold` (omission rate).
+
+    Parameters
+    ----------
+    scores_presence : array-like
+        Scores of the presences.
+    threshold : float
+        Suitability threshold.
+
+    Returns
+    -------
+    float
+        Omission rate in [0, 1].
+    """
     p = _scores(scores_presence, "scores_presence")
     return float(np.mean(p < float(threshold)))
 
@@ -344,6 +369,18 @@ def training_scores(model, X) -> np.ndarray:
 
     Out-of-bag scores where the estimator provides them (``oob_suitability_``, e.g. the forest,
     whose in-sample scores are optimistic), else ``predict_proba(X)[:, 1]``.
+
+    Parameters
+    ----------
+    model : estimator
+        Fitted niche estimator.
+    X : array-like of shape (n, k)
+        The rows it was fitted on.
+
+    Returns
+    -------
+    ndarray of shape (n,)
+        Training scores.
     """
     s = model.predict_proba(X)[:, 1]
     oob = getattr(model, "oob_suitability_", None)
@@ -361,6 +398,7 @@ def cross_validate(
     threshold_rule: str = "p10",
     threshold_value: float | None = None,
     sample_weight=None,
+    progress=None,
 ) -> pd.DataFrame:
     """Fit a clone of `model` per fold and score it on the held-out fold.
 
@@ -377,6 +415,8 @@ def cross_validate(
         Threshold from the training fold (:func:`threshold`) on :func:`training_scores`.
     sample_weight : array-like, optional
         Passed to ``fit``.
+    progress : callable, optional
+        ``progress("fit", k, n_folds)``: with k = 0 before the first fold and k after fold k.
 
     Notes
     -----
@@ -399,50 +439,60 @@ def cross_validate(
     rows = []
     take = (lambda idx: Xa.iloc[idx]) if isinstance(Xa, pd.DataFrame) else (lambda idx: np.asarray(Xa)[idx])
     sw = None if sample_weight is None else np.asarray(sample_weight, dtype=float).ravel()
-    for f in np.unique(folds):
-        test = folds == f
-        train = ~test
-        tr, te = np.flatnonzero(train), np.flatnonzero(test)
-        rec = {
-            "fold": int(f),
-            "n_train_presence": int((y[tr] == 1).sum()),
-            "n_train_background": int((y[tr] == 0).sum()),
-            "n_test_presence": int((y[te] == 1).sum()),
-            "n_test_background": int((y[te] == 0).sum()),
-        }
-        nan = dict(threshold=np.nan, auc=np.nan, boyce=np.nan, tss=np.nan, omission=np.nan)
-        if rec["n_train_presence"] < 2 or rec["n_train_background"] < 1:
-            rows.append({**rec, **nan})
-            continue
-        est = clone(model)
-        kw = {} if sw is None else {"sample_weight": sw[tr]}
-        if "groups" in inspect.signature(est.fit).parameters:
-            kw["groups"] = folds[tr]  # nested: inner tuning on the remaining spatial folds
-        est.fit(take(tr), y[tr], **kw)
-        s_tr = training_scores(est, take(tr))
-        t = threshold(s_tr[y[tr] == 1], s_tr[y[tr] == 0], rule=threshold_rule, value=threshold_value)
-        if rec["n_test_presence"] == 0 or rec["n_test_background"] == 0:
-            rows.append({**rec, **nan, "threshold": t})
-            continue
-        s_te = est.predict_proba(take(te))[:, 1]
-        sp, sb = s_te[y[te] == 1], s_te[y[te] == 0]
-        rows.append(
-            {
-                **rec,
-                "threshold": t,
-                "auc": auc(sp, sb),
-                "boyce": boyce(sp, sb),
-                "tss": tss(sp, sb, t),
-                "omission": omission(sp, t),
-            }
-        )
+    labels = np.unique(folds)
+    if progress is not None:
+        progress("fit", 0, int(labels.size))
+    for k, f in enumerate(labels, start=1):
+        rows.append(_fold_scores(model, take, y, folds, f, sw, threshold_rule, threshold_value))
+        if progress is not None:
+            progress("fit", k, int(labels.size))
     return pd.DataFrame(rows)
+
+
+def _fold_scores(model, take, y, folds, f, sw, threshold_rule, threshold_value) -> dict:
+    """Train on every fold but `f`, score on `f`: one row of :func:`cross_validate`."""
+    test = folds == f
+    tr, te = np.flatnonzero(~test), np.flatnonzero(test)
+    rec = {
+        "fold": int(f),
+        "n_train_presence": int((y[tr] == 1).sum()),
+        "n_train_background": int((y[tr] == 0).sum()),
+        "n_test_presence": int((y[te] == 1).sum()),
+        "n_test_background": int((y[te] == 0).sum()),
+    }
+    nan = dict(threshold=np.nan, auc=np.nan, boyce=np.nan, tss=np.nan, omission=np.nan)
+    if rec["n_train_presence"] < 2 or rec["n_train_background"] < 1:
+        return {**rec, **nan}
+    est = clone(model)
+    kw = {} if sw is None else {"sample_weight": sw[tr]}
+    if "groups" in inspect.signature(est.fit).parameters:
+        kw["groups"] = folds[tr]  # nested: inner tuning on the remaining spatial folds
+    est.fit(take(tr), y[tr], **kw)
+    s_tr = training_scores(est, take(tr))
+    t = threshold(s_tr[y[tr] == 1], s_tr[y[tr] == 0], rule=threshold_rule, value=threshold_value)
+    if rec["n_test_presence"] == 0 or rec["n_test_background"] == 0:
+        return {**rec, **nan, "threshold": t}
+    s_te = est.predict_proba(take(te))[:, 1]
+    sp, sb = s_te[y[te] == 1], s_te[y[te] == 0]
+    return {
+        **rec,
+        "threshold": t,
+        "auc": auc(sp, sb),
+        "boyce": boyce(sp, sb),
+        "tss": tss(sp, sb, t),
+        "omission": omission(sp, t),
+    }
 
 
 def weak_model_message(
     evaluation: pd.DataFrame, *, min_auc: float = WEAK_AUC, min_tss: float = WEAK_TSS
 ) -> str | None:
     """One-line warning when a model is weak on spatial block cross-validation, else None.
+
+    Returns
+    -------
+    str or None
+        The warning, or None when the model passes.
 
     Parameters
     ----------
@@ -461,7 +511,7 @@ def weak_model_message(
     Anderson & Schapire 2006, Ecol. Model. 190:231, from memory), so a wide-ranging species can
     be flagged with a sound model; the message says so. The truth benchmark (docs/truth.md)
     found that a model this weak can give a change of the wrong sign.
-    """
+"""
     if evaluation is None or len(evaluation) == 0:
         return None
     ev = evaluation

@@ -1,5 +1,5 @@
-"""Flexible niche learners: penalised point process, regression splines, down-sampled random
-forest, and the weighted ensemble. Names and options are the project's own; the methods are
+"""Flexible niche learners: penalised point process, regression splines and the weighted
+ensemble (the down-sampled random forest is :mod:`timeslice.niche.forest`, re-exported here). Names and options are the project's own; the methods are
 the published ones cited in each docstring (see docs/methods/niche.md).
 """
 
@@ -16,11 +16,11 @@ from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import LogisticRegression
 from sklearn.model_selection import StratifiedKFold
 from sklearn.preprocessing import SplineTransformer
-from sklearn.tree import DecisionTreeClassifier
 from sklearn.utils.validation import check_is_fitted
 
 from timeslice.niche.base import NicheBase
 from timeslice.niche.evaluate import auc, training_scores
+from timeslice.niche.forest import ForestNiche
 from timeslice.niche.registry import make_model
 
 __all__ = ["EnsembleNiche", "ForestNiche", "PointProcessNiche", "SplineNiche"]
@@ -130,6 +130,53 @@ class _FeatureMap:
             cols.append(Z[:, i] * Z[:, j])
         return np.hstack(cols) if cols else Z
 
+    def dot(self, X: np.ndarray, coef: np.ndarray) -> np.ndarray:
+        """``transform(X) @ coef`` without building the feature matrix.
+
+        Only features with a nonzero coefficient are computed, one column at a time, and added
+        into one accumulator: the lasso leaves most of them at zero, so a transfer costs a few
+        passes per active feature instead of the whole expansion (equal to the matrix product to
+        rounding; tested to 1e-12).
+        """
+        coef = np.asarray(coef, dtype=np.float64).ravel()
+        Z = (X - self.mean_) / self.sd_
+        n, k = Z.shape
+        eta = np.zeros(n)
+        tmp = np.empty(n)
+        col = 0
+
+        def add(c: float, values: np.ndarray) -> None:
+            np.multiply(values, c, out=tmp)
+            np.add(eta, tmp, out=eta)
+
+        if "linear" in self.kinds:
+            for j in range(k):
+                if coef[col + j] != 0.0:
+                    add(coef[col + j], Z[:, j])
+            col += k
+        if "quadratic" in self.kinds:
+            for j in range(k):
+                if coef[col + j] != 0.0:
+                    add(coef[col + j], Z[:, j] ** 2)
+            col += k
+        if "hinge" in self.kinds:
+            for j in range(k):
+                for t in self.knots_[j]:
+                    c_up, c_dn = coef[col], coef[col + 1]
+                    if c_up != 0.0:
+                        add(c_up, np.maximum(Z[:, j] - t, 0.0) / max(self.hi_[j] - t, 1e-9))
+                    if c_dn != 0.0:
+                        add(c_dn, np.maximum(t - Z[:, j], 0.0) / max(t - self.lo_[j], 1e-9))
+                    col += 2
+        if "interaction" in self.kinds and k > 1:
+            for a, b in zip(*np.triu_indices(k, 1)):
+                if coef[col] != 0.0:
+                    add(coef[col], Z[:, a] * Z[:, b])
+                col += 1
+        if col != coef.size:  # pragma: no cover - a feature map and coefficients out of step
+            raise ValueError(f"{coef.size} coefficients for {col} features")
+        return eta
+
 
 class PointProcessNiche(NicheBase):
     """Lasso-penalised Poisson point-process niche, fitted as weighted logistic regression.
@@ -221,7 +268,24 @@ class PointProcessNiche(NicheBase):
         return model
 
     def fit(self, X, y, sample_weight=None, groups=None):
-        """Fit; `groups` (fold labels, e.g. spatial blocks) drive the penalty search."""
+        """Fit; `groups` (fold labels, e.g. spatial blocks) drive the penalty search.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors of presences and background.
+        y : array-like of shape (n,)
+            1 presence, 0 background (the greater label is presence).
+        sample_weight : array-like of shape (n,), optional
+            Frequency weights (None: all 1).
+        groups : array-like of shape (n,), optional
+            Fold labels (e.g. spatial blocks) for the inner cross-validation.
+
+        Returns
+        -------
+        PointProcessNiche
+            The fitted estimator.
+        """
         X, presence, sw = self.validate_fit(X, y, sample_weight)
         kinds = tuple(self.features)
         bad = [k for k in kinds if k not in _FEATURE_KINDS]
@@ -275,7 +339,13 @@ class PointProcessNiche(NicheBase):
         return self
 
     def fitted_summary(self) -> dict:
-        """Plain summary of the fit for reports: chosen penalty, active features, search AUCs."""
+        """Plain summary of the fit for reports: chosen penalty, active features, search AUCs.
+
+        Returns
+        -------
+        dict
+            ``penalty``, ``n_features``, ``n_active_features``, ``search_auc``.
+        """
         check_is_fitted(self)
         return {
             "penalty": self.penalty_,
@@ -285,17 +355,45 @@ class PointProcessNiche(NicheBase):
         }
 
     def tuned_params(self) -> dict:
-        """Hyperparameters that reproduce this fit without the penalty search."""
+        """Hyperparameters that reproduce this fit without the penalty search.
+
+        Returns
+        -------
+        dict
+            ``{"penalties": (chosen,)}``.
+        """
         check_is_fitted(self)
         return {"penalties": (self.penalty_,)}
 
     def linear_predictor(self, X) -> np.ndarray:
-        """:math:`\\eta(x) = \\beta^\\top f(x)` (log relative intensity, without the intercept)."""
+        """:math:`\\eta(x) = \\beta^\\top f(x)` (log relative intensity, without the intercept).
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n,)
+            The linear predictor.
+        """
         X = self.validate_predict(X)
-        return self.features_.transform(X) @ self.coef_
+        return self.features_.dot(X, self.coef_)
 
     def predict_proba(self, X) -> np.ndarray:
-        """Columns follow ``classes_``: [1 - S, S] with S the relative suitability."""
+        """Columns follow ``classes_``: [1 - S, S] with S the relative suitability.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n, 2)
+            Columns follow ``classes_``: [1 - S, S].
+        """
         eta = self.linear_predictor(X)
         with np.errstate(over="ignore"):
             s = np.exp(np.minimum(eta - self.eta_max_, 0.0))
@@ -346,7 +444,22 @@ class SplineNiche(NicheBase):
         self.random_state = random_state
 
     def fit(self, X, y, sample_weight=None):
-        """Fit the spline bases and the penalised logistic regression."""
+        """Fit the spline bases and the penalised logistic regression.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors of presences and background.
+        y : array-like of shape (n,)
+            1 presence, 0 background (the greater label is presence).
+        sample_weight : array-like of shape (n,), optional
+            Frequency weights (None: all 1).
+
+        Returns
+        -------
+        SplineNiche
+            The fitted estimator.
+        """
         X, presence, sw = self.validate_fit(X, y, sample_weight)
         if self.extrapolation not in ("constant", "linear"):
             raise ValueError(f"`extrapolation` must be 'constant' or 'linear', got {self.extrapolation!r}")
@@ -367,105 +480,21 @@ class SplineNiche(NicheBase):
         return self
 
     def predict_proba(self, X) -> np.ndarray:
-        """Columns follow ``classes_``: [1 - S, S]."""
+        """Columns follow ``classes_``: [1 - S, S].
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n, 2)
+            Columns follow ``classes_``: [1 - S, S].
+        """
         X = self.validate_predict(X)
         B = self.spline_.transform((X - self.mean_) / self.sd_)
         return self.two_columns(self.model_.predict_proba(B)[:, 1])
-
-
-class ForestNiche(NicheBase):
-    """Random forest on balanced, down-sampled bootstrap samples.
-
-    Parameters
-    ----------
-    n_estimators : int
-        Number of trees.
-    max_features : {"sqrt", "log2"}, int, float or None
-        Predictors tried at each split (scikit-learn's meaning).
-    min_samples_leaf : int
-        Smallest leaf.
-    random_state : int, Generator or None
-        Seed of the bootstrap samples and the trees.
-
-    Notes
-    -----
-    Each tree is grown on a bootstrap sample of the :math:`n_1` presences and an equally large
-    sample (with replacement) of the background, so every tree sees a balanced sample
-    (down-sampling; Chen, Liaw & Breiman 2004; for presence-background data Valavi et al. 2021,
-    from memory). Suitability is the mean over trees of the leaf presence fraction, a balanced
-    probability in [0, 1]. Sample weights scale the bootstrap draw probabilities.
-
-    Trees fit their own training presences almost perfectly, so training-data thresholds would
-    be too high; ``oob_suitability_`` holds each training row's mean over the trees whose
-    bootstrap left it out (out-of-bag; Breiman 2001), and thresholds are taken from it.
-
-    References
-    ----------
-    Breiman, L. (2001). Random forests. Machine Learning 45:5-32.
-    Chen, C., Liaw, A., & Breiman, L. (2004). Using random forest to learn imbalanced data.
-    Technical report 666, Department of Statistics, UC Berkeley.
-    """
-
-    def __init__(self, *, n_estimators: int = 200, max_features="sqrt", min_samples_leaf: int = 5, random_state=None):
-        self.n_estimators = n_estimators
-        self.max_features = max_features
-        self.min_samples_leaf = min_samples_leaf
-        self.random_state = random_state
-
-    def fit(self, X, y, sample_weight=None):
-        """Grow the trees."""
-        X, presence, sw = self.validate_fit(X, y, sample_weight)
-        if int(self.n_estimators) < 1:
-            raise ValueError(f"`n_estimators` must be >= 1, got {self.n_estimators}")
-        rng = np.random.default_rng(self.random_state)
-        ip, ib = np.flatnonzero(presence), np.flatnonzero(~presence)
-        pp = sw[ip] / sw[ip].sum() if sw[ip].sum() > 0 else None
-        pb = sw[ib] / sw[ib].sum() if sw[ib].sum() > 0 else None
-        n1 = ip.size
-        yy = presence.astype(np.float64)
-        X32 = np.ascontiguousarray(X, dtype=np.float32)  # the tree builder's dtype
-        self.estimators_ = []
-        oob_sum = np.zeros(X.shape[0])
-        oob_n = np.zeros(X.shape[0])
-        for _ in range(int(self.n_estimators)):
-            idx = np.concatenate([rng.choice(ip, n1, replace=True, p=pp), rng.choice(ib, n1, replace=True, p=pb)])
-            # bootstrap counts as sample weights, as scikit-learn's own forests do
-            rows, counts = np.unique(idx, return_counts=True)
-            tree = DecisionTreeClassifier(
-                max_features=self.max_features,
-                min_samples_leaf=int(self.min_samples_leaf),
-                random_state=int(rng.integers(0, 2**31 - 1)),
-            )
-            tree.fit(X32[rows], yy[rows], sample_weight=counts.astype(np.float64), check_input=False)
-            self.estimators_.append(tree)
-            out = np.ones(X.shape[0], dtype=bool)
-            out[rows] = False
-            if out.any():
-                oob_sum[out] += tree.predict_proba(X32[out], check_input=False)[:, 1]
-                oob_n[out] += 1
-        # out-of-bag suitability of each training row (NaN if it was in every bootstrap)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            self.oob_suitability_ = np.where(oob_n > 0, oob_sum / np.maximum(oob_n, 1), np.nan)
-        ok = np.isfinite(self.oob_suitability_)
-        has_both = ok.any() and (presence[ok]).any() and (~presence[ok]).any()
-        self.heldout_auc_ = _auc(self.oob_suitability_[ok], yy[ok].astype(int)) if has_both else float("nan")
-        return self
-
-    def fitted_summary(self) -> dict:
-        """Plain summary of the fit for reports: trees and out-of-bag AUC."""
-        check_is_fitted(self)
-        oob = self.heldout_auc_
-        return {"n_trees": len(self.estimators_), "oob_auc": None if not np.isfinite(oob) else float(oob)}
-
-    def predict_proba(self, X) -> np.ndarray:
-        """Columns follow ``classes_``: [1 - S, S]."""
-        X = self.validate_predict(X)
-        X32 = np.ascontiguousarray(X, dtype=np.float32)
-        s = np.zeros(X.shape[0])
-        for tree in self.estimators_:
-            p = tree.predict_proba(X32, check_input=False)
-            s += p[:, 1]
-        return self.two_columns(s / len(self.estimators_))
 
 
 class EnsembleNiche(NicheBase):
@@ -541,7 +570,24 @@ class EnsembleNiche(NicheBase):
         return out
 
     def fit(self, X, y, sample_weight=None, groups=None):
-        """Score every member by held-out AUC, then refit each on all data."""
+        """Score every member by held-out AUC, then refit each on all data.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors of presences and background.
+        y : array-like of shape (n,)
+            1 presence, 0 background (the greater label is presence).
+        sample_weight : array-like of shape (n,), optional
+            Frequency weights (None: all 1).
+        groups : array-like of shape (n,), optional
+            Fold labels (e.g. spatial blocks) for the inner cross-validation.
+
+        Returns
+        -------
+        EnsembleNiche
+            The fitted estimator.
+        """
         X, presence, sw = self.validate_fit(X, y, sample_weight)
         yy = presence.astype(int)
         rng = np.random.default_rng(self.random_state)
@@ -582,7 +628,18 @@ class EnsembleNiche(NicheBase):
         return self
 
     def predict_proba(self, X) -> np.ndarray:
-        """Columns follow ``classes_``: [1 - S, S]."""
+        """Columns follow ``classes_``: [1 - S, S].
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n, 2)
+            Columns follow ``classes_``: [1 - S, S].
+        """
         X = self.validate_predict(X)
         s = np.zeros(X.shape[0])
         for (_, e), w in zip(self.members_, self.weights_):
@@ -591,7 +648,13 @@ class EnsembleNiche(NicheBase):
         return self.two_columns(s)
 
     def fitted_summary(self) -> dict:
-        """Plain summary of the fit for reports: members, their held-out AUC and weights."""
+        """Plain summary of the fit for reports: members, their held-out AUC and weights.
+
+        Returns
+        -------
+        dict
+            ``members``: one dict per member with ``member``, ``heldout_auc``, ``weight``.
+        """
         check_is_fitted(self)
         return {
             "members": [
@@ -601,7 +664,13 @@ class EnsembleNiche(NicheBase):
         }
 
     def member_table(self):
-        """DataFrame ``member, cv_auc, weight``."""
+        """DataFrame ``member, cv_auc, weight``.
+
+        Returns
+        -------
+        pandas.DataFrame
+            ``member, cv_auc, weight``.
+        """
         import pandas as pd
         from sklearn.utils.validation import check_is_fitted
 

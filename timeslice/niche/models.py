@@ -63,7 +63,22 @@ class EllipsoidNiche(NicheBase):
         self.random_state = random_state
 
     def fit(self, X, y, sample_weight=None):
-        """Fit the centroid and covariance of the presence rows of `X`."""
+        """Fit the centroid and covariance of the presence rows of `X`.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors of presences and background.
+        y : array-like of shape (n,)
+            1 presence, 0 background (the greater label is presence).
+        sample_weight : array-like of shape (n,), optional
+            Frequency weights (None: all 1).
+
+        Returns
+        -------
+        EllipsoidNiche
+            The fitted estimator.
+        """
         X, presence, sw = self.validate_fit(X, y, sample_weight)
         P = X[presence]
         w = sw[presence]
@@ -82,7 +97,18 @@ class EllipsoidNiche(NicheBase):
         return self
 
     def mahalanobis2(self, X) -> np.ndarray:
-        """Squared Mahalanobis distance of each row to the presence centroid."""
+        """Squared Mahalanobis distance of each row to the presence centroid.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n,)
+            Squared distances.
+        """
         X = self.validate_predict(X)
         # precision = L L^T (pinv is symmetric positive semi-definite; eigh handles rank loss):
         # D^2 = |(x - mu) L|^2, one matrix product instead of a three-operand einsum
@@ -92,7 +118,18 @@ class EllipsoidNiche(NicheBase):
         return np.einsum("ij,ij->i", z, z)
 
     def predict_proba(self, X) -> np.ndarray:
-        """Columns follow ``classes_``: [1 - suitability, suitability]."""
+        """Columns follow ``classes_``: [1 - suitability, suitability].
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n, 2)
+            Columns follow ``classes_``: [1 - S, S].
+        """
         d2 = self.mahalanobis2(X)
         return self.two_columns(chi2_sf(d2, self.n_features_in_))
 
@@ -176,7 +213,22 @@ class EnvelopeNiche(NicheBase):
         self.random_state = random_state
 
     def fit(self, X, y, sample_weight=None):
-        """Fit the per-predictor presence distributions."""
+        """Fit the per-predictor presence distributions.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors of presences and background.
+        y : array-like of shape (n,)
+            1 presence, 0 background (the greater label is presence).
+        sample_weight : array-like of shape (n,), optional
+            Frequency weights (None: all 1).
+
+        Returns
+        -------
+        EnvelopeNiche
+            The fitted estimator.
+        """
         X, presence, sw = self.validate_fit(X, y, sample_weight)
         if not (0.0 <= float(self.percentile) < 50.0):
             raise ValueError(f"`percentile` must be in [0, 50), got {self.percentile}")
@@ -217,7 +269,18 @@ class EnvelopeNiche(NicheBase):
         return np.where(inside, 2.0 * np.minimum(F, 1.0 - F), 0.0)
 
     def predict_proba(self, X) -> np.ndarray:
-        """Columns follow ``classes_``: [1 - suitability, suitability]."""
+        """Columns follow ``classes_``: [1 - suitability, suitability].
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of shape (n, 2)
+            Columns follow ``classes_``: [1 - S, S].
+        """
         X = self.validate_predict(X)
         score = np.ones(X.shape[0])
         for j in range(len(self.sorted_)):
@@ -225,7 +288,18 @@ class EnvelopeNiche(NicheBase):
         return self.two_columns(score)
 
     def in_envelope(self, X) -> np.ndarray:
-        """True where every predictor lies inside the percentile box."""
+        """True where every predictor lies inside the percentile box.
+
+        Parameters
+        ----------
+        X : array-like of shape (n, k)
+            Predictors, in the columns the estimator was fitted on.
+
+        Returns
+        -------
+        ndarray of bool, shape (n,)
+            Inside the box.
+        """
         X = self.validate_predict(X)
         return np.all((X >= self.lower_) & (X <= self.upper_), axis=1)
 

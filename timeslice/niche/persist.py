@@ -29,11 +29,18 @@ def save_model(fit, path: str | os.PathLike) -> Path:
     The file holds the fit and the timeslice and scikit-learn versions; it is written to a
     temporary name beside `path` and renamed when complete.
 
+    Parameters
+    ----------
+    fit : NicheFit
+        The fitted niche.
+    path : str or path
+        File to write.
+
     Returns
     -------
     pathlib.Path
         `path`.
-    """
+"""
     import sklearn
 
     payload = {
@@ -51,12 +58,22 @@ def save_model(fit, path: str | os.PathLike) -> Path:
 def load_model(path: str | os.PathLike):
     """Read a model written by :func:`save_model`.
 
+    Parameters
+    ----------
+    path : str or path
+        A file written by :func:`save_model`.
+
+    Returns
+    -------
+    NicheFit
+        The fitted model and its tables.
+
     Raises
     ------
     InputFileError
         Missing file, not a timeslice model file, or saved by another timeslice version
         (pickled estimators are not portable across versions: refit the model).
-    """
+"""
     path = Path(path)
     if not path.exists():
         raise InputFileError(f"{path}: model file not found; fit one first (niche stage) or check the path")

@@ -23,7 +23,17 @@ __all__ = ["ALGORITHMS", "Algorithm", "estimator_class", "make_model", "methods_
 
 @dataclasses.dataclass(frozen=True)
 class Algorithm:
-    """One niche algorithm: its config name, estimator and methods-paragraph clause."""
+    """One niche algorithm: its config name, estimator and methods-paragraph clause.
+
+    Parameters
+    ----------
+    name : str
+        The config name (``[niche] algorithm``).
+    estimator : str
+        ``"module:Class"`` of a scikit-learn-style estimator (``fit``, ``predict_proba``).
+    methods : str
+        What the methods paragraph says the niche was modelled with, with its citation.
+    """
 
     name: str
     #: ``"module:Class"`` of a scikit-learn-style estimator (``fit``, ``predict_proba``)
@@ -36,18 +46,46 @@ ALGORITHMS: dict[str, Algorithm] = {}
 
 
 def register(algorithm: Algorithm) -> Algorithm:
-    """Add (or replace) an algorithm; returns it."""
+    """Add (or replace) an algorithm; returns it.
+
+    Parameters
+    ----------
+    algorithm : Algorithm
+        The algorithm to add.
+
+    Returns
+    -------
+    Algorithm
+        `algorithm`.
+    """
     ALGORITHMS[algorithm.name] = algorithm
     return algorithm
 
 
 def names() -> tuple[str, ...]:
-    """Sorted names of the registered algorithms."""
+    """Sorted names of the registered algorithms.
+
+    Returns
+    -------
+    tuple of str
+        The names, sorted.
+    """
     return tuple(sorted(ALGORITHMS))
 
 
 def estimator_class(name: str) -> type:
-    """The estimator class of a registered algorithm (imported on first use)."""
+    """The estimator class of a registered algorithm (imported on first use).
+
+    Parameters
+    ----------
+    name : str
+        A registered algorithm name.
+
+    Returns
+    -------
+    type
+        The estimator class.
+    """
     module, _, cls = ALGORITHMS[name].estimator.partition(":")
     return getattr(importlib.import_module(module), cls)
 
@@ -95,7 +133,18 @@ def make_model(name: str, **params: Any):
 
 
 def methods_text(name: str) -> str:
-    """The methods-paragraph clause of an algorithm (its name when unknown)."""
+    """The methods-paragraph clause of an algorithm (its name when unknown).
+
+    Parameters
+    ----------
+    name : str
+        An algorithm name.
+
+    Returns
+    -------
+    str
+        The clause.
+    """
     spec = ALGORITHMS.get(str(name))
     return spec.methods if spec is not None else str(name)
 
@@ -113,7 +162,7 @@ for _a in (
               "probability of presence"),
     Algorithm("spline", "timeslice.niche.learners:SplineNiche",
               "a penalised regression-spline GLM of presence against background"),
-    Algorithm("forest", "timeslice.niche.learners:ForestNiche",
+    Algorithm("forest", "timeslice.niche.forest:ForestNiche",
               "a random forest with down-sampled background (Valavi et al. 2021)"),
     Algorithm("ensemble", "timeslice.niche.learners:EnsembleNiche",
               "a weighted mean of several algorithms, weights from their cross-validated scores "

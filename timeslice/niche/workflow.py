@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import dataclasses
 import inspect
-import warnings
 import os
-from collections.abc import Mapping, Sequence
+import warnings
+from collections.abc import Callable, Mapping, Sequence
+from types import SimpleNamespace
 from typing import Any
 
 import numpy as np
@@ -20,7 +21,7 @@ from timeslice.niche import evaluate as nev
 from timeslice.niche.models import make_model
 from timeslice.niche.select import screen
 
-__all__ = ["MIN_RECORDS", "NicheFit", "fit_niche", "permutation_table", "response_curves"]
+__all__ = ["MIN_RECORDS", "NicheFit", "fit_niche", "no_progress", "permutation_table", "response_curves"]
 
 #: Fewest records left after cleaning and thinning for a fit (common practice puts reliable
 #: presence-only models at a few tens of records; Pearson et al. 2007 tested down to 5).
@@ -30,6 +31,13 @@ MIN_RECORDS = 10
 @dataclasses.dataclass
 class NicheFit:
     """A fitted niche model and everything needed to report and transfer it.
+
+    Parameters
+    ----------
+    model, variables, threshold, presence, background, calibration_area
+        See Attributes.
+    cleaning, screening, evaluation, response, importance, params, dated
+        See Attributes.
 
     Attributes
     ----------
@@ -50,7 +58,7 @@ class NicheFit:
     dated : pandas.DataFrame or None
         Fossil records of the taxon with ages (:func:`timeslice.niche.data.dated_fossils`):
         dropped from the calibration, offered to the hindcast check.
-    """
+"""
 
     model: Any
     variables: list[str]
@@ -77,7 +85,18 @@ class NicheFit:
         }
 
     def suitability(self, X) -> np.ndarray:
-        """Suitability of rows of `X` (DataFrame with the model's variables, or array)."""
+        """Suitability of rows of `X` (DataFrame with the model's variables, or array).
+
+        Parameters
+        ----------
+        X : pandas.DataFrame or array-like
+            Rows with the model's variables (a DataFrame is reordered to them).
+
+        Returns
+        -------
+        ndarray of shape (n,)
+            Suitability.
+        """
         if isinstance(X, pd.DataFrame):
             X = X[self.variables]
         return self.model.predict_proba(X)[:, 1]
@@ -96,11 +115,24 @@ def response_curves(
     Each predictor is varied over ``[min - widen*range, max + widen*range]`` of the background
     while the others are held at their background medians.
 
+    Parameters
+    ----------
+    model : estimator
+        Fitted niche estimator.
+    background : pandas.DataFrame
+        Background points with the predictors.
+    variables : sequence of str
+        Predictors, in the model's column order.
+    n_points : int
+        Points per curve (the background minimum and maximum are added).
+    widen : float
+        Extension beyond the background range, as a fraction of it.
+
     Returns
     -------
     pandas.DataFrame
         ``variable, value, suitability, inside_calibration`` (True within the background range).
-    """
+"""
     variables = list(variables)
     B = background[variables].to_numpy(dtype=float)
     med = np.nanmedian(B, axis=0)
@@ -130,11 +162,26 @@ def permutation_table(
     with :func:`sklearn.inspection.permutation_importance` and ``scoring="roc_auc"`` on all
     presences and at most `max_background` background rows (a seeded random subset).
 
+    Parameters
+    ----------
+    model : estimator
+        Fitted niche estimator.
+    X : pandas.DataFrame
+        Training predictors.
+    y : array-like
+        1 presence, 0 background.
+    n_repeats : int
+        Shuffles per predictor.
+    seed : int or Generator
+        Seed of the subset and the shuffles.
+    max_background : int
+        Most background rows used.
+
     Returns
     -------
     pandas.DataFrame
         ``variable, importance_mean, importance_sd`` sorted by decreasing importance.
-    """
+"""
     y = np.asarray(y)
     bg = np.flatnonzero(y == 0)
     if bg.size > int(max_background):
@@ -173,39 +220,33 @@ def _summary_rows(evaluation: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
+def no_progress(stage: str, done: int, total: int) -> None:
+    """The default progress callback: does nothing.
+
+    Parameters
+    ----------
+    stage : str
+        Name of the stage (``"fit"``).
+    done, total : int
+        Steps done and steps in all.
+    """
+
+
 def fit_niche(
-    records: pd.DataFrame,
-    baseline: xr.Dataset,
-    *,
-    variables: Sequence[str] | None = None,
-    algorithm: str = "envelope",
-    algorithm_params: Mapping[str, Any] | None = None,
-    buffer_km: float = 200.0,
-    calibration: str = "buffer",
-    calibration_mask: xr.DataArray | str | os.PathLike | None = None,
-    n_background: int = 10000,
-    background_file: str | os.PathLike | None = None,
-    thin: str | float | None = "cell",
-    uncertainty_max_m: float | None = None,
-    years: tuple[float | None, float | None] | None = None,
-    taxon: str | int | Sequence[str | int] | None = None,
-    taxon_field: str = "auto",
-    fold_subspecies: bool = False,
-    keep_basis: Sequence[str] = (),
-    drop_flags: Sequence[str] | None = None,
-    centroid_min_records: int | None = 5,
-    centroid_min_uncertainty_m: float = 10_000.0,
-    screen_max_r: float | None = 0.7,
-    screen_max_vif: float | None = 10.0,
-    priority: Sequence[str] | None = None,
-    cv_block_km: float = 100.0,
-    cv_folds: int = 5,
-    cv_scheme: str = "random",
-    threshold_rule: str = "max_sss",
-    threshold_value: float | None = None,
-    min_records: int = MIN_RECORDS,
-    importance_repeats: int = 5,
-    seed: int = 0,
+    records: pd.DataFrame, baseline: xr.Dataset, *, variables: Sequence[str] | None = None,
+    algorithm: str = "envelope", algorithm_params: Mapping[str, Any] | None = None,
+    buffer_km: float = 200.0, calibration: str = "buffer",
+    calibration_mask: xr.DataArray | str | os.PathLike | None = None, n_background: int = 10000,
+    background_file: str | os.PathLike | None = None, thin: str | float | None = "cell",
+    uncertainty_max_m: float | None = None, years: tuple[float | None, float | None] | None = None,
+    taxon: str | int | Sequence[str | int] | None = None, taxon_field: str = "auto",
+    fold_subspecies: bool = False, keep_basis: Sequence[str] = (), drop_flags: Sequence[str] | None = None,
+    centroid_min_records: int | None = 5, centroid_min_uncertainty_m: float = 10_000.0,
+    screen_max_r: float | None = 0.7, screen_max_vif: float | None = 10.0,
+    priority: Sequence[str] | None = None, cv_block_km: float = 100.0, cv_folds: int = 5,
+    cv_scheme: str = "random", threshold_rule: str = "max_sss", threshold_value: float | None = None,
+    min_records: int = MIN_RECORDS, importance_repeats: int = 5, seed: int = 0,
+    progress: Callable[[str, int, int], None] = no_progress,
 ) -> NicheFit:
     """Clean, thin, delimit, sample, screen, fit, validate and threshold a niche model.
 
@@ -216,30 +257,21 @@ def fit_niche(
     baseline : xarray.Dataset
         Prepared baseline slice: ``bio*`` predictors, ``land`` (and ``ice``) on (lat, lon).
     variables : sequence of str, optional
-        Candidate predictors (default every ``bio1``..``bio19`` present). Screening may drop some.
-    algorithm : str
-        A name of :data:`timeslice.niche.models.MODEL_NAMES`.
-    algorithm_params : mapping, optional
-        Hyperparameters of the algorithm.
-    buffer_km : float
-        Calibration buffer radius [km].
-    calibration : {"buffer", "hull_buffer", "mask"}
-        How the calibration area is delimited (``mask`` needs `calibration_mask`).
-    calibration_mask : DataArray or path, optional
-        Mask for ``calibration="mask"``.
-    n_background : int
-        Background points (all calibration cells if fewer).
-    background_file : path, optional
-        Target-group records (related species) to use as background instead of random cells.
+        Candidate predictors (default every ``bio1``..``bio19`` present); screening may drop some.
+    algorithm, algorithm_params
+        A name of :data:`timeslice.niche.models.MODEL_NAMES` and its hyperparameters.
+    buffer_km, calibration, calibration_mask
+        Calibration area: buffer radius [km], ``"buffer"``, ``"hull_buffer"`` or ``"mask"``
+        (with `calibration_mask`, a DataArray or file).
+    n_background, background_file
+        Background points (all calibration cells if fewer); target-group records to use instead
+        of random cells.
     thin : "cell", float or None
         One record per cell, a minimum distance in km, or no thinning.
-    uncertainty_max_m, years
-        Cleaning limits (:func:`timeslice.niche.data.clean_records`).
+    uncertainty_max_m, years, keep_basis, drop_flags, centroid_min_records, centroid_min_uncertainty_m
+        Record rules of :func:`timeslice.niche.records.clean_records`.
     taxon, taxon_field, fold_subspecies
-        Which taxon of the records to model (:func:`timeslice.niche.data.select_taxon`).
-    keep_basis, drop_flags, centroid_min_records, centroid_min_uncertainty_m
-        Record rules of :func:`timeslice.niche.data.clean_records` (fossil and living specimens,
-        aggregator flags, centroid-like coordinates; the last on by default here).
+        Which taxon of the records to model (:func:`timeslice.niche.records.select_taxon`).
     screen_max_r, screen_max_vif, priority
         Predictor screening (:func:`timeslice.niche.select.screen`); both limits None skips it.
     cv_block_km, cv_folds, cv_scheme
@@ -252,10 +284,15 @@ def fit_niche(
         Repeats of permutation importance (0 skips it).
     seed : int
         Seed of every random step (thinning, background, folds, algorithms, importance).
+    progress : callable
+        ``progress(stage, done, total)``: ``progress("fit", k, n_folds)`` with k = 0 before the
+        first cross-validation fold and k after fold k, and ``(n_folds, n_folds)`` once more when
+        the whole fit is done. Default: nothing.
 
     Returns
     -------
     NicheFit
+        The fitted model, its tables and the choices made.
 
     Raises
     ------
@@ -265,21 +302,80 @@ def fit_niche(
     ConfigError
         Unknown algorithm, threshold rule or option value.
     """
+    o = SimpleNamespace(**{k: v for k, v in locals().items() if k not in ("records", "baseline", "progress")})
+    o.thin = _check_options(baseline, o)
+    variables = _candidates(baseline, o.variables)
+    model = _model(o)
+    land = ndata.land_of(baseline)
+    kept, cleaning, n_thinned = _usable_records(records, land, o)
+    dated = ndata.dated_fossils(records, **_choice(o))
+    area, bg_pts = _calibration(kept, land, o)
+    pres, back, cleaning = _predictor_values(baseline, kept, bg_pts, variables, cleaning,
+                                             n_thinned=n_thinned, min_records=o.min_records)
+    chosen, screening = _screening(back, variables, o)
+    X, y, lon, lat = _training_rows(pres, back, chosen)
+    folds, evaluation = _block_cross_validation(model, X, y, lon, lat, o, progress)
+    s, thr = _final_fit(model, X, y, folds, o)
+    response, importance = _explanations(model, back, X, y, chosen, repeats=o.importance_repeats, seed=o.seed)
+    params = _run_params(model, o, variables=variables, chosen=chosen, back=back, pres=pres, dated=dated,
+                         cleaning=cleaning, threshold=thr, training_auc=float(nev.auc(s[y == 1], s[y == 0])))
+    n_cv = int(np.unique(folds).size)
+    progress("fit", n_cv, n_cv)
+    return NicheFit(
+        model=model, variables=list(chosen), threshold=float(thr),
+        presence=pres[["lon", "lat", *chosen]], background=back[["lon", "lat", *chosen]],
+        calibration_area=area, cleaning=cleaning, screening=screening, evaluation=evaluation,
+        response=response, importance=importance, params=params, dated=dated if len(dated) else None,
+    )
+
+
+def _check_options(baseline, o) -> str | float | None:
+    """The options of :func:`fit_niche` that can be judged before any work; returns the
+    thinning rule (:func:`timeslice.niche.spatial.parse_thin`, the one place it is checked)."""
     if not isinstance(baseline, xr.Dataset):
         raise DataError(f"`baseline` must be a prepared slice Dataset, got {type(baseline).__name__}")
-    if isinstance(thin, str) and thin.strip().lower() in ("none", "off", "no", ""):
-        thin = None
-    if thin is not None and thin != "cell":
-        try:
-            thin = float(thin)
-        except (TypeError, ValueError) as err:
-            raise ConfigError(f"`thin` must be 'cell', a distance in km or 'none', got {thin!r}") from err
-        if not thin > 0:
-            raise ConfigError(f"`thin` distance must be > 0 km, got {thin}")
-    if calibration not in ("buffer", "hull_buffer", "mask"):
-        raise ConfigError(f"`calibration` must be 'buffer', 'hull_buffer' or 'mask', got {calibration!r}")
-    if int(min_records) < 2:
-        raise ConfigError(f"`min_records` must be >= 2, got {min_records}")
+    thin = ndata.parse_thin(o.thin)
+    if o.calibration not in ("buffer", "hull_buffer", "mask"):
+        raise ConfigError(f"`calibration` must be 'buffer', 'hull_buffer' or 'mask', got {o.calibration!r}")
+    if int(o.min_records) < 2:
+        raise ConfigError(f"`min_records` must be >= 2, got {o.min_records}")
+    return thin
+
+
+def _choice(o) -> dict:
+    """The taxon choice and the basis kinds kept, as :func:`clean_records` takes them."""
+    return dict(taxon=o.taxon, taxon_field=o.taxon_field, fold_subspecies=o.fold_subspecies,
+                keep_basis=tuple(o.keep_basis))
+
+
+def _model(o):
+    """The unfitted estimator, built first so that a bad name or rule fails before any work."""
+    model = make_model(o.algorithm, **dict(o.algorithm_params or {}))
+    if "random_state" in model.get_params(deep=False):
+        model.set_params(random_state=o.seed)
+    nev.threshold([0.5], [0.5], rule=o.threshold_rule, value=o.threshold_value)  # validate the rule early
+    return model
+
+
+def _training_rows(pres: pd.DataFrame, back: pd.DataFrame, chosen: list[str]):
+    """Predictors, labels (1 presence, 0 background) and coordinates of every training row."""
+    X = pd.concat([pres[chosen], back[chosen]], ignore_index=True)
+    y = np.concatenate([np.ones(len(pres), dtype=int), np.zeros(len(back), dtype=int)])
+    lon = np.concatenate([pres["lon"].to_numpy(), back["lon"].to_numpy()])
+    lat = np.concatenate([pres["lat"].to_numpy(), back["lat"].to_numpy()])
+    return X, y, lon, lat
+
+
+def _explanations(model, back, X, y, chosen, *, repeats, seed):
+    """Response curves and permutation importance (NaN rows when `repeats` is 0)."""
+    response = response_curves(model, back, chosen)
+    if int(repeats) > 0:
+        return response, permutation_table(model, X, y, n_repeats=repeats, seed=seed)
+    return response, pd.DataFrame({"variable": chosen, "importance_mean": np.nan, "importance_sd": np.nan})
+
+
+def _candidates(baseline: xr.Dataset, variables) -> list[str]:
+    """The candidate predictors: the ones asked for (all present), else every bio1..bio19."""
     if variables is None:
         variables = [f"bio{i}" for i in range(1, 20) if f"bio{i}" in baseline.data_vars]
         if not variables:
@@ -291,21 +387,17 @@ def fit_niche(
             f"baseline slice has no predictor(s) {', '.join(missing)}; available: "
             f"{', '.join(map(str, baseline.data_vars))}"
         )
-    # build the model first so that a bad name fails before any work
-    model = make_model(algorithm, **dict(algorithm_params or {}))
-    if "random_state" in model.get_params(deep=False):
-        model.set_params(random_state=seed)
-    nev.threshold([0.5], [0.5], rule=threshold_rule, value=threshold_value)  # validate the rule early
+    return variables
 
-    land = ndata.land_of(baseline)
-    choice = dict(taxon=taxon, taxon_field=taxon_field, fold_subspecies=fold_subspecies,
-                  keep_basis=tuple(keep_basis))
+
+def _usable_records(records, land, o):
+    """Cleaned and thinned records, the cleaning table and the number thinned out; stops with
+    the drops per reason when no record lies in the grid or too few are left."""
     kept, cleaning = ndata.clean_records(
-        records, land=land, uncertainty_max_m=uncertainty_max_m, years=years, drop_flags=drop_flags,
-        centroid_min_records=centroid_min_records,
-        centroid_min_uncertainty_m=centroid_min_uncertainty_m, **choice,
+        records, land=land, uncertainty_max_m=o.uncertainty_max_m, years=o.years, drop_flags=o.drop_flags,
+        centroid_min_records=o.centroid_min_records, centroid_min_uncertainty_m=o.centroid_min_uncertainty_m,
+        **_choice(o),
     )
-    dated = ndata.dated_fossils(records, **choice)
     n_in = cleaning.attrs["n_input"]
     by_reason = "; ".join(f"{r}: {n}" for r, n in zip(cleaning["reason"], cleaning["n_dropped"]) if n)
     drops = dict(zip(cleaning["reason"], cleaning["n_dropped"]))
@@ -319,40 +411,47 @@ def fit_niche(
             "check the coordinate columns (swapped lon/lat?) or the grid extent"
         )
     n_clean = len(kept)
-    if thin == "cell":
-        kept = ndata.thin(kept, grid=land, seed=seed)
-    elif thin is not None:
-        kept = ndata.thin(kept, min_distance_km=float(thin), seed=seed)
+    if o.thin == "cell":
+        kept = ndata.thin(kept, grid=land, seed=o.seed)
+    elif o.thin is not None:
+        kept = ndata.thin(kept, min_distance_km=o.thin, seed=o.seed)
     n_thinned = n_clean - len(kept)
-    if len(kept) < int(min_records):
+    if len(kept) < int(o.min_records):
         raise DataError(
             f"only {len(kept)} of {n_in} records left after cleaning and thinning, need at least "
-            f"{int(min_records)}; drops per reason: {by_reason or 'none'}"
+            f"{int(o.min_records)}; drops per reason: {by_reason or 'none'}"
             + (f"; thinning: {n_thinned}" if n_thinned else "")
             + "; add records, relax the cleaning limits or thin less"
         )
+    return kept, cleaning, n_thinned
 
-    if calibration == "mask":
-        if calibration_mask is None:
+
+def _calibration(kept, land, o):
+    """The calibration area and the background points in it."""
+    if o.calibration == "mask":
+        if o.calibration_mask is None:
             raise ConfigError("calibration 'mask' needs a `calibration_mask` (file or DataArray)")
-        area = ndata.calibration_area_from_mask(calibration_mask, land)
+        area = ndata.calibration_area_from_mask(o.calibration_mask, land)
     else:
-        area = ndata.calibration_area(kept, land, buffer_km=buffer_km, method=calibration)
-    if background_file is not None:
-        bg_pts = ndata.read_background_file(background_file, area, n=n_background, seed=seed)
-    else:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", TimesliceWarning)
-            bg_pts = ndata.sample_background(area, n=n_background, seed=seed)
-        for w in caught:  # re-issue at the caller of fit_niche
-            warnings.warn(str(w.message), w.category, stacklevel=2)
+        area = ndata.calibration_area(kept, land, buffer_km=o.buffer_km, method=o.calibration)
+    if o.background_file is not None:
+        return area, ndata.read_background_file(o.background_file, area, n=o.n_background, seed=o.seed)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", TimesliceWarning)
+        bg_pts = ndata.sample_background(area, n=o.n_background, seed=o.seed)
+    for w in caught:  # re-issue at the caller of fit_niche
+        warnings.warn(str(w.message), w.category, stacklevel=3)
+    return area, bg_pts
 
+
+def _predictor_values(baseline, kept, bg_pts, variables, cleaning, *, n_thinned, min_records):
+    """Predictor values at the presences and background, rows with a missing value dropped (and
+    counted in the cleaning table, with the thinning)."""
     pres = ndata.extract(baseline, kept, variables=variables)
     back = ndata.extract(baseline, bg_pts, variables=variables)
     for v in variables:
         col = back[v].to_numpy(dtype=float)
-        fin = col[np.isfinite(col)]
-        if fin.size == 0:
+        if not np.isfinite(col).any():
             raise DataError(f"predictor {v!r} is missing everywhere in the calibration area; drop it or fix the baseline")
         # a (near-)constant predictor is dropped by the screening, with its reason
     ok_p = np.all(np.isfinite(pres[variables].to_numpy(dtype=float)), axis=1)
@@ -364,6 +463,7 @@ def fit_niche(
         "n_dropped": [int(n_thinned), int((~ok_p).sum())],
         "note": [thin_how or "off", ""],
     })
+    n_in = cleaning.attrs["n_input"]
     cleaning = pd.concat([cleaning, extra], ignore_index=True)
     cleaning.attrs.update(n_input=n_in, n_kept=len(pres), n_thinned=n_thinned)
     if len(pres) < int(min_records):
@@ -371,94 +471,83 @@ def fit_niche(
             f"only {len(pres)} records have every predictor, need at least {int(min_records)}; "
             "check the baseline predictors at the record locations"
         )
+    return pres, back, cleaning
 
-    if screen_max_r is None and screen_max_vif is None:
-        chosen = list(variables)
+
+def _screening(back, variables, o):
+    """The predictors kept by the correlation and VIF screening, and its table."""
+    if o.screen_max_r is None and o.screen_max_vif is None:
         screening = pd.DataFrame(
             {"variable": variables, "kept": True, "reason": "kept (screening off)", "max_abs_r": np.nan, "vif": np.nan}
         )
-    else:
-        chosen, screening = screen(back[variables], max_abs_r=screen_max_r, max_vif=screen_max_vif, priority=priority)
+        return list(variables), screening
+    return screen(back[variables], max_abs_r=o.screen_max_r, max_vif=o.screen_max_vif, priority=o.priority)
 
-    X = pd.concat([pres[chosen], back[chosen]], ignore_index=True)
-    y = np.concatenate([np.ones(len(pres), dtype=int), np.zeros(len(back), dtype=int)])
-    lon = np.concatenate([pres["lon"].to_numpy(), back["lon"].to_numpy()])
-    lat = np.concatenate([pres["lat"].to_numpy(), back["lat"].to_numpy()])
+
+def _block_cross_validation(model, X, y, lon, lat, o, progress):
+    """Spatial block folds and the evaluation table (per fold, mean and sd)."""
     try:
-        folds = nev.spatial_folds(lon, lat, block_km=cv_block_km, n_folds=cv_folds, seed=seed, scheme=cv_scheme)
-        evaluation = nev.cross_validate(model, X, y, folds, threshold_rule=threshold_rule, threshold_value=threshold_value)
+        folds = nev.spatial_folds(lon, lat, block_km=o.cv_block_km, n_folds=o.cv_folds, seed=o.seed,
+                                  scheme=o.cv_scheme)
+        evaluation = nev.cross_validate(model, X, y, folds, threshold_rule=o.threshold_rule,
+                                        threshold_value=o.threshold_value, progress=progress)
     except DataError as err:
         raise DataError(f"cross-validation: {err}") from err
     except ValueError as err:  # estimators reject bad hyperparameters with ValueError
-        raise ConfigError(f"algorithm {algorithm!r}: {err}; check algorithm_params") from err
-    evaluation = _summary_rows(evaluation)
+        raise ConfigError(f"algorithm {o.algorithm!r}: {err}; check algorithm_params") from err
+    return folds, _summary_rows(evaluation)
 
+
+def _final_fit(model, X, y, folds, o):
+    """Fit on all presences and background; the training scores and the threshold."""
     fit_kw = {"groups": folds} if "groups" in inspect.signature(model.fit).parameters else {}
     try:
         model.fit(X, y, **fit_kw)
     except ValueError as err:
-        raise ConfigError(f"algorithm {algorithm!r}: {err}; check algorithm_params") from err
+        raise ConfigError(f"algorithm {o.algorithm!r}: {err}; check algorithm_params") from err
     s = nev.training_scores(model, X)
-    thr = nev.threshold(s[y == 1], s[y == 0], rule=threshold_rule, value=threshold_value)
+    return s, nev.threshold(s[y == 1], s[y == 0], rule=o.threshold_rule, value=o.threshold_value)
 
-    response = response_curves(model, back, chosen)
-    if int(importance_repeats) > 0:
-        importance = permutation_table(model, X, y, n_repeats=importance_repeats, seed=seed)
-    else:
-        importance = pd.DataFrame({"variable": chosen, "importance_mean": np.nan, "importance_sd": np.nan})
 
+def _run_params(model, o, *, variables, chosen, back, pres, dated, cleaning, threshold, training_auc) -> dict:
+    """Every choice made, for the methods paragraph and the manifest (plain JSON values)."""
     from timeslice import __version__
 
-    params = {
+    return {
         "timeslice_version": __version__,
-        "algorithm": str(algorithm),
+        "algorithm": str(o.algorithm),
         "algorithm_params": {k: _plain(v) for k, v in model.get_params(deep=False).items()},
         "candidate_variables": list(variables),
         "variables": list(chosen),
-        "buffer_km": float(buffer_km),
-        "calibration": calibration,
+        "buffer_km": float(o.buffer_km),
+        "calibration": o.calibration,
         "n_background": int(len(back)),
-        "n_background_requested": int(n_background),
-        "background": "target-group file" if background_file is not None else "random cells by area",
-        "thin": thin,
-        "uncertainty_max_m": uncertainty_max_m,
-        "years": list(years) if years is not None else None,
-        "taxon": list(taxon) if isinstance(taxon, (list, tuple)) else taxon,
-        "taxon_field": taxon_field,
-        "fold_subspecies": bool(fold_subspecies),
-        "keep_basis": sorted(choice["keep_basis"]),
+        "n_background_requested": int(o.n_background),
+        "background": "target-group file" if o.background_file is not None else "random cells by area",
+        "thin": o.thin,
+        "uncertainty_max_m": o.uncertainty_max_m,
+        "years": list(o.years) if o.years is not None else None,
+        "taxon": list(o.taxon) if isinstance(o.taxon, (list, tuple)) else o.taxon,
+        "taxon_field": o.taxon_field,
+        "fold_subspecies": bool(o.fold_subspecies),
+        "keep_basis": sorted(tuple(o.keep_basis)),
         "n_dated_fossils": int(len(dated)),
-        "screen_max_r": screen_max_r,
-        "screen_max_vif": screen_max_vif,
-        "priority": list(priority or []),
-        "cv_block_km": float(cv_block_km),
-        "cv_folds": int(cv_folds),
-        "cv_scheme": cv_scheme,
-        "threshold_rule": threshold_rule,
-        "threshold_value": threshold_value,
-        "threshold": float(thr),
-        "min_records": int(min_records),
-        "n_records_input": int(n_in),
+        "screen_max_r": o.screen_max_r,
+        "screen_max_vif": o.screen_max_vif,
+        "priority": list(o.priority or []),
+        "cv_block_km": float(o.cv_block_km),
+        "cv_folds": int(o.cv_folds),
+        "cv_scheme": o.cv_scheme,
+        "threshold_rule": o.threshold_rule,
+        "threshold_value": o.threshold_value,
+        "threshold": float(threshold),
+        "min_records": int(o.min_records),
+        "n_records_input": int(cleaning.attrs["n_input"]),
         "n_records_used": int(len(pres)),
-        "seed": int(seed),
-        "training_auc": float(nev.auc(s[y == 1], s[y == 0])),
+        "seed": int(o.seed),
+        "training_auc": training_auc,
         "fitted": model.fitted_summary() if hasattr(model, "fitted_summary") else {},
     }
-    return NicheFit(
-        model=model,
-        variables=list(chosen),
-        threshold=float(thr),
-        presence=pres[["lon", "lat", *chosen]],
-        background=back[["lon", "lat", *chosen]],
-        calibration_area=area,
-        cleaning=cleaning,
-        screening=screening,
-        evaluation=evaluation,
-        response=response,
-        importance=importance,
-        params=params,
-        dated=dated if len(dated) else None,
-    )
 
 
 def _plain(v):
