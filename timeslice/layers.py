@@ -1,9 +1,10 @@
 """The one table of output layers: name, units, long_name, description, CF flags, colour map.
 
 Every stage that makes an output layer stamps its attributes from this table
-(:func:`stamp`); the writers (NetCDF, GeoTIFF) only verify them (:func:`check`); the maps
-take their colour maps from it. A new layer is one :func:`register` call (see
-docs/extending.md, "An output layer").
+(:func:`stamp`); the writers (NetCDF, GeoTIFF) check them (:func:`check` on units and flags)
+and only complete what a layer lacks (a dataset handed to them unstamped; boolean masks take
+the table's words as they become int8 flags); the maps take their colour maps from it. A new
+layer is one :func:`register` call (see docs/extending.md, "An output layer").
 
 This module is low-level on purpose: it imports only the standard library, numpy, xarray and
 :mod:`timeslice.errors`, so every stage package (transfer, series, report) can import it.
@@ -16,8 +17,9 @@ Rules the table encodes
   leaves both unset here and its stage writes them.
 * Boolean masks give ``bool_flags``, the meanings of 0 and 1; the NetCDF writer stores them
   as int8 with ``flag_values = 0, 1``.
-* A stage may qualify a ``long_name`` with a parenthesised tail naming what the run chose
-  (the window's slices): ``"<table long_name> (<qualifier>)"`` agrees with the table.
+* A stage may qualify a ``long_name`` with what the run chose: the table's words followed by
+  a space, comma or semicolon and a qualifier (``"suitable and reachable, limited movement"``,
+  ``"fraction of the refugium window's slices suitable (baseline 21ka)"``) agree with it.
 * ``per_chain`` entries also describe the per-chain layers ``<name>_<chain>``
   (``refugium_window_alder`` uses ``refugium_window``).
 
@@ -38,9 +40,8 @@ import xarray as xr
 from timeslice.errors import DataError
 
 __all__ = [
-    "BUILT_IN", "CHECKED_KEYS", "INHERITED_NOISE", "LAYERS", "WRITER_KEYS", "LayerSpec", "agrees",
-    "check",
-    "disagreements", "flag_list", "register", "spec", "stamp",
+    "BUILT_IN", "CHECKED_KEYS", "INHERITED_NOISE", "LAYERS", "WRITER_KEYS", "LayerSpec",
+    "agrees", "check", "disagreements", "flag_list", "register", "spec", "stamp",
 ]
 
 #: Attributes :func:`check` compares with the table ("flags": the value-meaning pairs).
@@ -577,8 +578,9 @@ BUILT_IN: tuple[LayerSpec, ...] = (
         flag_values=(-1, 0, 1), flag_meanings="not_land not_reached reached",
         per_chain=True),
     # series: biotic limits
-    LayerSpec("partner_present", _ONE, "required partner present", bool_flags="false true"),
-    LayerSpec("competitor_present", _ONE, "competitor present", bool_flags="false true"),
+    # boolean masks written as 0/1 "false true" and read back as integers (no bool_flags)
+    LayerSpec("partner_present", _ONE, "required partner present"),
+    LayerSpec("competitor_present", _ONE, "competitor present"),
     LayerSpec("suitability_biotic", _ONE, "climatic suitability under biotic limits"),
     LayerSpec(
         "suitable_biotic", _ONE, "suitable under biotic limits",

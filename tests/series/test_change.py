@@ -233,7 +233,7 @@ def test_novel_climate_over_all_land_and_in_the_loss(stack_factory):
     # lies in novel climate
     import numpy as np
 
-    from timeslice.series.change import change_table
+    from timeslice.series.table import change_table
 
     stack = stack_factory()
     land = stack["land"].values

@@ -242,14 +242,14 @@ def test_neighbour_max_against_brute_force(rng, lat_min, lat_max, lon_min, lon_m
     # The sparse-table neighbourhood max equals a direct search over all cell pairs with the
     # haversine distance (timeslice.grid.haversine_km; Sinnott 1984, Sky and Telescope 68:159).
     from timeslice.grid import haversine_km
-    from timeslice.series.dispersal import _is_global
+    from timeslice.grid import is_global_lon
     from timeslice.series.stability import _half_widths, _neighbour_max
 
     g = make_grid(lon_min=lon_min, lon_max=lon_max, lat_min=lat_min, lat_max=lat_max,
                   resolution=res)
     lat, lon = g.lat.values, g.lon.values
     field = rng.normal(size=(lat.size, lon.size))
-    got = _neighbour_max(field, _half_widths(lat, lon, d_km), wrap=_is_global(lon))
+    got = _neighbour_max(field, _half_widths(lat, lon, d_km), wrap=is_global_lon(lon))
     LON, LAT = np.meshgrid(lon, lat)
     d = haversine_km(LON.ravel()[:, None], LAT.ravel()[:, None], LON.ravel()[None, :],
                      LAT.ravel()[None, :])

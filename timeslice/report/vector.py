@@ -35,7 +35,7 @@ _DIGITS = 7
 def _transform(da: xr.DataArray | xr.Dataset):
     from affine import Affine
 
-    from timeslice.report.geotiff import _check_regular
+    from timeslice.report.geotiff import check_regular as _check_regular
 
     _check_regular(da["lon"].values, "lon")
     _check_regular(da["lat"].values, "lat")

@@ -8,12 +8,9 @@ from timeslice.series.analysis import SeriesResult, analyse_series, change_rows,
 from timeslice.series.change import (
     CHANGE_FLAG_MEANINGS,
     CHANGE_FLAG_VALUES,
-    DETAIL_COLUMNS,
-    SUMMARY_COLUMNS,
     bearing_deg,
     centroid,
     change_map,
-    change_table,
     novel_mask,
     suitable_area,
 )
@@ -30,6 +27,7 @@ from timeslice.series.stability import (
 )
 from timeslice.series.stacking import chains, check_same_grid, stack_slices
 from timeslice.series.summary import movement_table, summarise
+from timeslice.series.table import DETAIL_COLUMNS, SUMMARY_COLUMNS, change_table
 
 __all__ = [
     "CHANGE_FLAG_MEANINGS",
@@ -43,6 +41,7 @@ __all__ = [
     "centroid",
     "chains",
     "change_map",
+    "change_rows",
     "change_table",
     "check_same_grid",
     "dispersal",
@@ -50,7 +49,6 @@ __all__ = [
     "ensemble",
     "geometric_mean",
     "hindcast",
-    "change_rows",
     "key_results",
     "minimum_suitability",
     "movement",

@@ -14,7 +14,7 @@ import xarray as xr
 from timeslice.errors import DataError
 from timeslice.errors import TimesliceWarning
 from timeslice.series._checks import check_stack
-from timeslice.series.change import SUMMARY_COLUMNS
+from timeslice.series.table import SUMMARY_COLUMNS
 from timeslice.series.dispersal import parse_rate
 from timeslice.series.ensemble import agreement, agreement_table, factorial, partition
 from timeslice.series.ensemble import partition_table
@@ -125,6 +125,7 @@ def analyse_series(
     stack : xarray.Dataset
         Stacked series (see docs/architecture.md).
     reference : str, default "baseline"
+        Label of the reference slice for gain/loss/stable.
     window : list of slice labels or (year_min, year_max), optional
         Refugium window (e.g. ``(-19050, 2000)`` for 21 ka BP to the present).
     rate : str, optional
@@ -148,6 +149,8 @@ def analyse_series(
     Returns
     -------
     SeriesResult
+        The summarised series, the ensemble layers (two models or more), the tables by
+        name, and notes on what was skipped.
     """
     check_stack(stack)
     if rate is not None:
@@ -183,31 +186,39 @@ def analyse_series(
         notes.append("ensemble: fewer than two climate models; agreement and partitioning "
                      "skipped")
     if records is not None:
-        paleo = {k: v for k, v in chain_map.items()
-                 if "scenario" in stack.coords
-                 and str(stack["scenario"].sel(slice=v[0]).values) == "past"}
-        if not paleo:
-            raise DataError(f"{records_source}: the series has no past slices to check dated "
-                            "records against; add paleo slices or leave the records out")
-        rows = []
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", TimesliceWarning)
-            for name, labels in paleo.items():
-                t = hindcast_check(records, stack.sel(slice=labels), source=records_source,
-                                   max_offset_years=max_offset_years)
-                t.insert(0, "chain", name)
-                rows.append(t)
-        # the same records are skipped in every chain: say so once
-        for msg in dict.fromkeys(str(w.message) for w in caught
-                                 if issubclass(w.category, TimesliceWarning)):
-            warnings.warn(msg, TimesliceWarning, stacklevel=2)
-            notes.append(f"hindcast: {msg}")
-        for w in caught:
-            if not issubclass(w.category, TimesliceWarning):
-                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-        tables["hindcast"] = pd.concat(rows, ignore_index=True)
+        tables["hindcast"] = _hindcast(stack, chain_map, records, records_source,
+                                       max_offset_years, notes)
     return SeriesResult(series=series, ensemble=ensemble, tables=tables, notes=notes,
                         reference=reference, window=window)
+
+
+def _hindcast(stack: xr.Dataset, chain_map, records: pd.DataFrame, records_source: str,
+              max_offset_years: float | None, notes: list[str]) -> pd.DataFrame:
+    """The hindcast check on every paleo chain; a warning repeated by every chain once."""
+    paleo = {k: v for k, v in chain_map.items()
+             if "scenario" in stack.coords
+             and str(stack["scenario"].sel(slice=v[0]).values) == "past"}
+    if not paleo:
+        raise DataError(f"{records_source}: the series has no past slices to check dated "
+                        "records against; add paleo slices or leave the records out")
+    rows = []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", TimesliceWarning)
+        for name, labels in paleo.items():
+            t = hindcast_check(records, stack.sel(slice=labels), source=records_source,
+                               max_offset_years=max_offset_years)
+            t.insert(0, "chain", name)
+            rows.append(t)
+    # the same records are skipped in every chain: say so once
+    for msg in dict.fromkeys(str(w.message) for w in caught
+                             if issubclass(w.category, TimesliceWarning)):
+        # stacklevel 3: the caller of analyse_series
+        warnings.warn(msg, TimesliceWarning, stacklevel=3)
+        notes.append(f"hindcast: {msg}")
+    for w in caught:
+        if not issubclass(w.category, TimesliceWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    return pd.concat(rows, ignore_index=True)
 
 
 def change_rows(detail: pd.DataFrame, *, reference: str,
@@ -271,6 +282,16 @@ def change_by_scope(results: pd.DataFrame) -> list[tuple[str, dict[str, float]]]
     period), in table order: ``[(scope, {quantity: value}), ...]``, only scopes with a change.
 
     The report cards, the report's findings and the command line read their numbers here.
+
+    Parameters
+    ----------
+    results : pandas.DataFrame
+        A key-results table (:func:`key_results`).
+
+    Returns
+    -------
+    list of (str, dict of str to float)
+        Scope and its quantities, in table order.
     """
     if results is None or results.empty:
         return []

@@ -115,8 +115,25 @@ def biotic_table(stack: xr.Dataset, layers: xr.Dataset, *, reference: str,
                  window=None) -> tuple[pd.DataFrame, xr.DataArray | None]:
     """Per slice: abiotic and biotic suitable area, the share biotic limits remove, and the
     change against the reference under biotic limits; plus the biotic refugium over `window`.
+
+    Parameters
+    ----------
+    stack : xarray.Dataset
+        Stacked series with ``suitable``.
+    layers : xarray.Dataset
+        Output of :func:`biotic_layers` (``suitable_biotic``).
+    reference : str
+        Label of the reference slice.
+    window : list of slice labels or (year_min, year_max), optional
+        Refugium window for the biotic refugium.
+
+    Returns
+    -------
+    (pandas.DataFrame, xarray.DataArray or None)
+        The per-slice table (areas in km2) and ``refugium_window_biotic`` (None without
+        `window`).
     """
-    from timeslice.series.change import change_table
+    from timeslice.series.table import change_table
     from timeslice.series.stability import refugium
 
     abiotic = change_table(stack, reference=reference)

@@ -118,6 +118,13 @@ def parse_rate(rate: str | float | int, *, name: str = "rate") -> float:
 def step_distances(years: Sequence[float], rate_km_per_year: float) -> np.ndarray:
     """Distance allowed between consecutive slices: rate × |Δyear| (first entry 0).
 
+    Parameters
+    ----------
+    years : sequence of float
+        Representative years of the slices, in chain order.
+    rate_km_per_year : float
+        Spread rate (see :func:`parse_rate`).
+
     Returns
     -------
     numpy.ndarray, [km]
@@ -333,6 +340,30 @@ def _reach_kernel(
     return code
 
 
+def _allowed_steps(suitable: xr.DataArray, dim: str, assumption: str, distance_km,
+                   rate: str | None) -> np.ndarray:
+    """Allowed spread per slice step (km; the first entry unused) from `distance_km` or
+    `rate`; zeros unless the movement is limited."""
+    ns = suitable.sizes[dim]
+    if assumption != "limited":
+        return np.zeros(ns)
+    if (distance_km is None) == (rate is None):
+        raise DataError("give exactly one of `distance_km` or `rate` for limited movement")
+    if rate is not None:
+        if "year" not in suitable.coords:
+            raise DataError("`suitable` has no 'year' coordinate to turn `rate` into "
+                            "distances; give `distance_km` instead")
+        return step_distances(suitable["year"].values, parse_rate(rate))
+    dist = np.broadcast_to(np.asarray(distance_km, dtype=float), (ns,)).copy() \
+        if np.ndim(distance_km) == 0 else np.asarray(distance_km, dtype=float)
+    if dist.shape != (ns,):
+        raise DataError(f"`distance_km` has {dist.size} values for {ns} slices; "
+                        "give one number or one per slice")
+    if np.any(~np.isfinite(dist[1:])) or np.any(dist[1:] < 0):
+        raise DataError("`distance_km` values must be finite and >= 0")
+    return dist
+
+
 def reachable(
     suitable: xr.DataArray,
     start: xr.DataArray,
@@ -362,6 +393,8 @@ def reachable(
     land : xarray.DataArray of bool, optional
         Extra restriction of the start cells to land (e.g. the present land mask).
     assumption : {"none", "limited", "unlimited"}, default "limited"
+        Movement between slices: none (only start cells that stay suitable), limited (up to
+        the step distance), unlimited (every suitable cell).
     rate : str, optional
         Spread rate with units (see :func:`parse_rate`); distances are rate × |Δyear| from the
         ``year`` coordinate along `dim`.
@@ -371,7 +404,9 @@ def reachable(
     passable : xarray.DataArray of bool, optional
         Explicit passable cells ``(lat, lon)`` or ``(slice, lat, lon)``; overrides `through`.
     neighbours : {8, 16}, default 8
+        Neighbours of a cell in the movement graph (16 adds the knight's moves).
     dim : str, default "slice"
+        Dimension of the chain's slices, in time order.
 
     Returns
     -------
@@ -396,25 +431,7 @@ def reachable(
     if through not in ("land", "suitable", "any"):
         raise DataError(f"`through` must be 'land', 'suitable' or 'any', got {through!r}")
     suitable = suitable.transpose(dim, "lat", "lon")
-    ns = suitable.sizes[dim]
-    if assumption == "limited":
-        if (distance_km is None) == (rate is None):
-            raise DataError("give exactly one of `distance_km` or `rate` for limited movement")
-        if rate is not None:
-            if "year" not in suitable.coords:
-                raise DataError("`suitable` has no 'year' coordinate to turn `rate` into "
-                                "distances; give `distance_km` instead")
-            dist = step_distances(suitable["year"].values, parse_rate(rate))
-        else:
-            dist = np.broadcast_to(np.asarray(distance_km, dtype=float), (ns,)).copy() \
-                if np.ndim(distance_km) == 0 else np.asarray(distance_km, dtype=float)
-            if dist.shape != (ns,):
-                raise DataError(f"`distance_km` has {dist.size} values for {ns} slices; "
-                                "give one number or one per slice")
-            if np.any(~np.isfinite(dist[1:])) or np.any(dist[1:] < 0):
-                raise DataError("`distance_km` values must be finite and >= 0")
-    else:
-        dist = np.zeros(ns)
+    dist = _allowed_steps(suitable, dim, assumption, distance_km, rate)
     st = drop_nondim(start).astype(bool)
     if land is not None:
         st = st & drop_nondim(land).astype(bool)
@@ -453,6 +470,23 @@ def movement(
     dim: str = "slice",
 ) -> xr.Dataset:
     """The three movement assumptions side by side for one chain.
+
+    Parameters
+    ----------
+    suitable : xarray.DataArray
+        Suitable layers of one chain ``(slice, lat, lon)`` in time order.
+    start : xarray.DataArray of bool
+        Occupied cells at the first slice.
+    rate : str, optional
+        Spread rate with units for limited movement.
+    distance_km : float or sequence of float, optional
+        Step distance instead of `rate`.
+    through : {"land", "suitable", "any"}, default "land"
+        Cells a path may enter (see :func:`reachable`).
+    neighbours : {8, 16}, default 8
+        Neighbours of a cell in the movement graph.
+    dim : str, default "slice"
+        Dimension of the chain's slices.
 
     Returns
     -------

@@ -139,6 +139,17 @@ def agreement(
 def agreement_table(agree: xr.Dataset) -> pd.DataFrame:
     """Area summary of :func:`agreement`: per group, the area where all / a majority / none of
     the models say suitable, in km², and the number of models.
+
+    Parameters
+    ----------
+    agree : xarray.Dataset
+        Output of :func:`agreement`.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per group: the areas (km2) where all, a majority and none of the models say
+        suitable, and the number of models.
     """
     if not isinstance(agree, xr.Dataset) or "agreement" not in agree:
         raise DataError("`agree` must be the Dataset returned by ensemble.agreement")
@@ -360,6 +371,13 @@ def partition(
 
 def partition_table(parts: xr.Dataset, *, mask: xr.DataArray | None = None) -> pd.DataFrame:
     """Area-weighted mean share of each source over the cells where it is defined.
+
+    Parameters
+    ----------
+    parts : xarray.Dataset
+        Output of :func:`partition` for one period.
+    mask : xarray.DataArray of bool, optional
+        Cells to include (default every cell with defined shares).
 
     Returns
     -------

@@ -87,7 +87,20 @@ def read_diversity_table(path: str | os.PathLike, *, column: str | None = None) 
 
 
 def sample_layer(layer: xr.DataArray, lon, lat) -> np.ndarray:
-    """Value of a (lat, lon) layer in the cell holding each point (NaN off the grid)."""
+    """Value of a (lat, lon) layer in the cell holding each point (NaN off the grid).
+
+    Parameters
+    ----------
+    layer : xarray.DataArray
+        A (lat, lon) layer.
+    lon, lat : array_like
+        Points, degrees.
+
+    Returns
+    -------
+    numpy.ndarray of float
+        One value per point.
+    """
     from timeslice.grid import grid_edges, wrap_lon
 
     lat_b, lon_b = grid_edges(layer)
@@ -102,7 +115,20 @@ def sample_layer(layer: xr.DataArray, lon, lat) -> np.ndarray:
 
 
 def distance_to_mask_km(mask: xr.DataArray, lon, lat) -> np.ndarray:
-    """Great-circle distance (km) from each point to the nearest cell centre where `mask`."""
+    """Great-circle distance (km) from each point to the nearest cell centre where `mask`.
+
+    Parameters
+    ----------
+    mask : xarray.DataArray of bool
+        A (lat, lon) mask.
+    lon, lat : array_like
+        Points, degrees.
+
+    Returns
+    -------
+    numpy.ndarray, [km]
+        One distance per point (authalic sphere); NaN everywhere when `mask` is empty.
+    """
     m = np.asarray(mask.transpose("lat", "lon").values).astype(bool)
     if not m.any():
         return np.full(np.shape(lon), np.nan)

@@ -158,6 +158,18 @@ def poisson_binomial_sf(k: int, p: np.ndarray) -> float:
 
     With all p_i equal this is the binomial upper tail (``scipy.stats.binom.sf(k - 1, n, p)``).
 
+    Parameters
+    ----------
+    k : int
+        Number of successes.
+    p : array_like
+        Success probability of each trial.
+
+    Returns
+    -------
+    float
+        The upper-tail probability.
+
     Examples
     --------
     >>> round(poisson_binomial_sf(1, [0.3, 0.6]), 6)  # 1 - 0.7 * 0.4
@@ -195,6 +207,11 @@ def check(
         stay assigned to the nearest slice), ``n_skipped`` (outside every window, off the grid
         or not land).
 
+    Warns
+    -----
+    TimesliceWarning
+        When some records are skipped (the message says how many and why).
+
     Notes
     -----
     Under the null hypothesis a record falls in a suitable cell with probability equal to the
@@ -204,11 +221,6 @@ def check(
     Over all slices the hits follow a Poisson-binomial distribution with one :math:`p_s` per
     record; its exact upper tail is the pooled one-sided p-value (two-sided and "less" pool with
     the binomial at the mean p, an approximation).
-
-    Warns
-    -----
-    TimesliceWarning
-        When some records are skipped (the message says how many and why).
     """
     table = assign(records, stack, max_offset_years=max_offset_years, source=source)
     n_all = len(table)

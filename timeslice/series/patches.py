@@ -235,7 +235,18 @@ def patch_table(
 
 def refugium_layer(series: xr.Dataset) -> str | None:
     """The refugium layer the report shows: ``refugium_window``, else ``refugium_all_slices``
-    (else ``refugium``); None when the series has none."""
+    (else ``refugium``); None when the series has none.
+
+    Parameters
+    ----------
+    series : xarray.Dataset
+        A summarised series.
+
+    Returns
+    -------
+    str or None
+        Name of the layer.
+    """
     for name in ("refugium_window", "refugium_all_slices", "refugium"):
         if name in series.data_vars:
             return name

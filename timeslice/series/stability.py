@@ -229,6 +229,15 @@ def geometric_mean(
 ) -> xr.DataArray:
     """Geometric mean suitability through the series.
 
+    Parameters
+    ----------
+    suitability : xarray.DataArray
+        Suitability through the series, NaN where not land.
+    dim : str, default "slice"
+        The slice dimension.
+    eps : float, default DEFAULT_EPS
+        Floor of the suitability inside the logarithm.
+
     Returns
     -------
     xarray.DataArray, [1]
@@ -256,6 +265,13 @@ def geometric_mean(
 
 def minimum_suitability(suitability: xr.DataArray, *, dim: str = "slice") -> xr.DataArray:
     """Lowest suitability of a cell through the series (not land counts as 0).
+
+    Parameters
+    ----------
+    suitability : xarray.DataArray
+        Suitability through the series, NaN where not land.
+    dim : str, default "slice"
+        The slice dimension.
 
     Returns
     -------
@@ -435,10 +451,10 @@ def dynamic_stability(
                             f"got {distance_km!r}")
     lat = np.asarray(da["lat"].values, float)
     lon = np.asarray(da["lon"].values, float)
-    from timeslice.series.dispersal import _is_global
+    from timeslice.grid import is_global_lon
 
     logs = np.asarray(_log_floor(da, eps).values, dtype=float)
-    acc = _dynamic_kernel(logs, dist, lat, lon, _is_global(lon))
+    acc = _dynamic_kernel(logs, dist, lat, lon, is_global_lon(lon))
     out = xr.DataArray(acc.astype(np.float32), dims=("lat", "lon"),
                        coords={"lat": da["lat"], "lon": da["lon"]})
     out = out.where(da.notnull().any(dim))

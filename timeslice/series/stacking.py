@@ -18,7 +18,20 @@ def _label(ds: xr.Dataset, i: int) -> str:
 
 
 def check_same_grid(slices: Sequence[xr.Dataset | xr.DataArray], *, atol: float = 1e-6) -> None:
-    """All `slices` must share one (lat, lon) grid; DataError naming the first mismatch."""
+    """All `slices` must share one (lat, lon) grid; DataError naming the first mismatch.
+
+    Parameters
+    ----------
+    slices : sequence of xarray.Dataset or xarray.DataArray
+        The slices of a series.
+    atol : float, default 1e-6
+        Tolerance on the coordinates, degrees.
+
+    Returns
+    -------
+    None
+        Raises :class:`~timeslice.errors.DataError` on the first mismatch.
+    """
     if not slices:
         raise DataError("no slices given; a series needs at least one slice")
     first = slices[0]
@@ -102,6 +115,18 @@ def chains(stack: xr.Dataset, *, reference: str = "baseline") -> dict[str, list[
     A future chain is the reference followed by the model's slices of that scenario in time
     order (name ``"<model> <scenario>"``); a paleo chain (scenario ``"past"``) runs from the
     oldest slice forward and ends with the reference.
+
+    Parameters
+    ----------
+    stack : xarray.Dataset
+        Stacked series with ``year``, ``model`` and ``scenario`` slice coordinates.
+    reference : str, default "baseline"
+        Label of the reference slice.
+
+    Returns
+    -------
+    dict of str to list of str
+        Chain name to its slice labels, in time order.
     """
     from timeslice.series._checks import check_label, check_stack, slice_labels
 

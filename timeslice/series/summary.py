@@ -19,10 +19,11 @@ from timeslice.series._checks import (
     check_labels,
     check_stack,
     drop_nondim,
+    is_suitable,
     slice_labels,
     suitable_mask,
 )
-from timeslice.series.change import change_map, change_table, novel_mask
+from timeslice.series.change import change_map, novel_mask
 from timeslice.series.dispersal import ASSUMPTIONS, reachable
 from timeslice.series.stability import (
     dynamic_stability,
@@ -34,6 +35,7 @@ from timeslice.series.stability import (
     static_stability,
 )
 from timeslice.series.stacking import chains as find_chains
+from timeslice.series.table import change_table
 
 __all__ = ["DERIVED_VARIABLES", "movement_table", "summarise"]
 
@@ -66,14 +68,10 @@ def _start_cells(stack: xr.Dataset, labels: list[str], reference: str) -> xr.Dat
     """Start of a chain: the reference's suitable cells inside the calibration area for a
     forward (future) chain; every suitable cell of the oldest slice for a paleo chain."""
     first = stack["suitable"].sel(slice=labels[0])
-    start = suitable_mask_da(first)
+    start = is_suitable(first)
     if labels[0] == reference and "calibration_area" in stack.data_vars:
         start = start & stack["calibration_area"].astype(bool)
     return drop_nondim(start)
-
-
-def suitable_mask_da(da: xr.DataArray) -> xr.DataArray:
-    return da == 1 if da.dtype != bool else da
 
 
 def _chain_movement(stack, labels, reference, *, rate, distance_km, through, neighbours):
@@ -101,6 +99,23 @@ def movement_table(
     neighbours: Literal[8, 16] = 8,
 ) -> pd.DataFrame:
     """Suitable and reachable area under each movement assumption, per chain and slice.
+
+    Parameters
+    ----------
+    stack : xarray.Dataset
+        Stacked series with ``suitable`` (and ``calibration_area`` for the start cells).
+    reference : str, default "baseline"
+        Label of the reference slice.
+    chains : "auto" or mapping of str to list of str
+        Time-ordered chains of slices (see :func:`summarise`).
+    rate : str, optional
+        Spread rate with units for limited movement.
+    distance_km : float, optional
+        Step distance instead of `rate`.
+    through : {"land", "suitable", "any"}, default "land"
+        Cells a path may enter (see :func:`timeslice.series.dispersal.reachable`).
+    neighbours : {8, 16}, default 8
+        Neighbours of a cell in the movement graph.
 
     Returns
     -------
@@ -170,7 +185,7 @@ def summarise(
         dim: ``stability_chain``, ``refugium_chain`` (and ``refugium_analog_chain``,
         ``static_stability_chain``, ``dynamic_stability_chain`` where the inputs allow).
     detail : bool, default False
-        Add :data:`timeslice.series.change.DETAIL_COLUMNS` to the table.
+        Add :data:`timeslice.series.table.DETAIL_COLUMNS` to the table.
     window : None, list of slice labels, or (year_min, year_max)
         Adds ``refugium_window`` (and ``refugium_window_analog``) over these slices.
     rate, distance_km : optional
@@ -185,7 +200,7 @@ def summarise(
     -------
     (xarray.Dataset, pandas.DataFrame)
         The stack with the added layers (lazy where the input is, except movement, which is
-        computed), and the per-slice table of :func:`~timeslice.series.change.change_table`,
+        computed), and the per-slice table of :func:`~timeslice.series.table.change_table`,
         plus ``chain`` and per assumption ``<a>_area_km2``, ``<a>_gain_km2``,
         ``<a>_loss_km2`` (against the chain's start) when movement is computed.
 
@@ -218,23 +233,7 @@ def summarise(
         out["geometric_mean_suitability"] = drop_nondim(geometric_mean(s))
         out["minimum_suitability"] = drop_nondim(minimum_suitability(s))
     if window is not None:
-        window_ref = refugium(suitable, window=window)
-        names = window_ref.attrs.get("slices", "")
-        out["refugium_window"] = layers.stamp(
-            drop_nondim(window_ref), "refugium_window", long_name=(
-                "climatic refugium over the refugium window (suitable in every one of its "
-                f"slices: {names})"))
-        window_stab = drop_nondim(stability(select_window(suitable, window)))
-        window_stab.attrs["slices"] = names
-        out["stability_window"] = layers.stamp(
-            window_stab, "stability_window",
-            long_name=f"fraction of the refugium window's slices suitable ({names})")
-        if analog is not None:
-            out["refugium_window_analog"] = layers.stamp(
-                drop_nondim(refugium(suitable, window=window, analog=analog)),
-                "refugium_window_analog",
-                long_name=f"climatic refugium over the refugium window, in analog climate "
-                f"({names})")
+        _add_window_layers(out, suitable, window, analog)
 
     moving = rate is not None or distance_km is not None
     chain_map = _resolve_chains(stack, "auto" if (moving and chains is None) else chains,
@@ -251,6 +250,27 @@ def summarise(
         line += f", movement ({rate or f'{distance_km} km per step'})"
     out.attrs["history"] = f"{history}\n{line}".strip()
     return out, table
+
+
+def _add_window_layers(out: xr.Dataset, suitable: xr.DataArray, window, analog) -> None:
+    """``refugium_window``, ``stability_window`` (and ``refugium_window_analog``), their
+    long_names naming the window's slices."""
+    window_ref = refugium(suitable, window=window)
+    names = window_ref.attrs.get("slices", "")
+    out["refugium_window"] = layers.stamp(
+        drop_nondim(window_ref), "refugium_window", long_name=(
+            "climatic refugium over the refugium window (suitable in every one of its "
+            f"slices: {names})"))
+    window_stab = drop_nondim(stability(select_window(suitable, window)))
+    window_stab.attrs["slices"] = names
+    out["stability_window"] = layers.stamp(
+        window_stab, "stability_window",
+        long_name=f"fraction of the refugium window's slices suitable ({names})")
+    if analog is not None:
+        out["refugium_window_analog"] = layers.stamp(
+            drop_nondim(refugium(suitable, window=window, analog=analog)),
+            "refugium_window_analog",
+            long_name=f"climatic refugium over the refugium window, in analog climate ({names})")
 
 
 def _named(da: xr.DataArray, name: str) -> xr.DataArray:

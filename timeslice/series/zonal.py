@@ -34,6 +34,11 @@ def read_zones(path: str | os.PathLike, *, name_field: str | None = None) -> lis
         ``ogr2ogr -f GeoJSON -t_srs EPSG:4326 zones.geojson zones.gpkg``).
     name_field : str, optional
         Feature property holding the zone name; default ``name``, else the feature number.
+
+    Returns
+    -------
+    list of (str, shapely geometry)
+        Zone name and polygon, in file order.
     """
     import shapely.geometry
 
@@ -121,6 +126,18 @@ def cell_fractions(geom, grid: xr.Dataset | xr.DataArray) -> xr.DataArray:
     latitude change of the area scale is neglected (relative error of the order of the cell
     height in radians times tan(latitude)). A grid running past 180° (e.g. 160..200) meets
     polygons given in [-180, 180) through copies shifted by ±360°.
+
+    Parameters
+    ----------
+    geom : shapely geometry
+        A polygon in longitude/latitude degrees.
+    grid : xarray.Dataset or xarray.DataArray
+        The grid (``lat``, ``lon``).
+
+    Returns
+    -------
+    xarray.DataArray, [1]
+        Covered fraction of every (lat, lon) cell.
     """
     import shapely
     from shapely import affinity
