@@ -71,31 +71,8 @@ def _clean_attrs(attrs: Mapping[str, Any]) -> dict[str, Any]:
     return {str(k): _clean_attr(v) for k, v in attrs.items() if v is not None}
 
 
-def prepare_cf(
-    ds: xr.Dataset,
-    *,
-    history: str | None = None,
-    source: str | None = None,
-    title: str | None = None,
-) -> xr.Dataset:
-    """Return a copy of `ds` with the CF-1.8 metadata the writer needs (no I/O).
-
-    Parameters
-    ----------
-    ds : xarray.Dataset
-        Gridded output with 1-D ``lat`` and ``lon`` (ascending), optionally a ``slice``
-        dimension with ``year``, ``period``, ``model``, ``scenario`` coordinates.
-    history, source, title : str, optional
-        Global attributes; defaults name the tool and its version.
-
-    Returns
-    -------
-    xarray.Dataset
-        Booleans as int8 with flags, ``crs``, ``lat_bnds``, ``lon_bnds``, ``cell_area``
-        added, attributes completed from the project's layer table.
-    """
-    from timeslice import __version__
-
+def _check_grid_input(ds) -> None:
+    """Refuse anything but a Dataset with 1-D lat and lon, before any work."""
     if not isinstance(ds, xr.Dataset):
         raise DataError(f"write_series: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
     for name in ("lat", "lon"):
@@ -104,59 +81,65 @@ def prepare_cf(
                 f"write_series: the dataset needs a 1-D `{name}` coordinate "
                 "(normalise it with timeslice.grid.normalise_lonlat first)"
             )
-    out = ds.copy()
-    fills = {name: out[name].encoding.get("_FillValue") for name in out.data_vars}
-    # Encodings from files read earlier (chunk sizes, fill values, dtypes) must not leak in.
-    for name in out.variables:
-        out[name].encoding = {}
-    for name in list(out.data_vars):
-        da = out[name]
-        entry = layers.spec(name)
-        if entry is not None:
-            if da.dtype == bool:
-                # A mask built from another field inherits that field's attributes
-                # (e.g. `land` carrying elevation's standard_name); the table's words win.
-                da = layers.stamp(da.copy(), str(name))
-            layers.check(da, where=f"write_series ({name})", keys=layers.WRITER_KEYS)
-            da = layers.stamp(da, str(name), missing_only=True)  # completes what it lacks
-        attrs = dict(da.attrs)
+
+
+def _flag_attrs(attrs: dict, da: xr.DataArray, entry, fill) -> None:
+    """CF flags of an integer layer: the stages' fill value (or -1) becomes a named flag."""
+    values = np.atleast_1d(np.asarray(attrs["flag_values"])).tolist()
+    meanings = str(attrs.get("flag_meanings", "")).split()
+    missing = None
+    if fill is not None and np.isfinite(float(fill)) and int(fill) not in values:
+        missing = int(fill)
+    elif (entry is not None and entry.meaning(-1) and -1 not in values
+          and da.dtype.kind == "i"):
+        missing = -1
+    if missing is not None and len(meanings) == len(values):
+        # The stages mark "not land / no prediction" with a fill value; here it is a
+        # named flag instead, so the layer stays an integer when read back.
+        values = [missing, *values]
+        meanings = [(entry.meaning(-1) if entry is not None else None) or "no_data",
+                    *meanings]
+        attrs["flag_meanings"] = " ".join(meanings)
+    # CF 1.8 section 3.5: flag_values must have the variable's type.
+    attrs["flag_values"] = np.asarray(values).astype(da.dtype)
+
+
+def _cf_variable(da: xr.DataArray, name: str, fill) -> xr.DataArray:
+    """One data variable with its attributes checked against and completed from the layer
+    table, booleans as int8 flags, and its grid mapping and cell measures."""
+    entry = layers.spec(name)
+    if entry is not None:
         if da.dtype == bool:
-            da = da.astype("int8")
-            if "flag_values" not in attrs:
-                attrs["flag_values"] = np.array([0, 1], dtype="int8")
-                attrs["flag_meanings"] = (entry.bool_flags if entry is not None
-                                          and entry.bool_flags else "false true")
-        if "flag_values" in attrs and da.dtype.kind in "iu":
-            values = np.atleast_1d(np.asarray(attrs["flag_values"])).tolist()
-            meanings = str(attrs.get("flag_meanings", "")).split()
-            fill = fills.get(name)
-            missing = None
-            if fill is not None and np.isfinite(float(fill)) and int(fill) not in values:
-                missing = int(fill)
-            elif (entry is not None and entry.meaning(-1) and -1 not in values
-                  and da.dtype.kind == "i"):
-                missing = -1
-            if missing is not None and len(meanings) == len(values):
-                # The stages mark "not land / no prediction" with a fill value; here it is a
-                # named flag instead, so the layer stays an integer when read back.
-                values = [missing, *values]
-                meanings = [(entry.meaning(-1) if entry is not None else None) or "no_data",
-                            *meanings]
-                attrs["flag_meanings"] = " ".join(meanings)
-            # CF 1.8 section 3.5: flag_values must have the variable's type.
-            attrs["flag_values"] = np.asarray(values).astype(da.dtype)
-        if "units" not in attrs and da.dtype.kind == "f":
-            attrs["units"] = "1"
-        if "long_name" not in attrs:
-            attrs["long_name"] = str(name).replace("_", " ")
-        if "lat" in da.dims and "lon" in da.dims:
-            attrs["grid_mapping"] = "crs"
-            attrs["cell_measures"] = "area: cell_area"
-        # xarray owns these two keys (it writes them from the encoding).
-        attrs.pop("_FillValue", None)
-        attrs.pop("coordinates", None)
-        da.attrs = _clean_attrs(attrs)
-        out[name] = da
+            # A mask built from another field inherits that field's attributes
+            # (e.g. `land` carrying elevation's standard_name); the table's words win.
+            da = layers.stamp(da.copy(), str(name))
+        layers.check(da, where=f"write_series ({name})", keys=layers.WRITER_KEYS)
+        da = layers.stamp(da, str(name), missing_only=True)  # completes what it lacks
+    attrs = dict(da.attrs)
+    if da.dtype == bool:
+        da = da.astype("int8")
+        if "flag_values" not in attrs:
+            attrs["flag_values"] = np.array([0, 1], dtype="int8")
+            attrs["flag_meanings"] = (entry.bool_flags if entry is not None
+                                      and entry.bool_flags else "false true")
+    if "flag_values" in attrs and da.dtype.kind in "iu":
+        _flag_attrs(attrs, da, entry, fill)
+    if "units" not in attrs and da.dtype.kind == "f":
+        attrs["units"] = "1"
+    if "long_name" not in attrs:
+        attrs["long_name"] = str(name).replace("_", " ")
+    if "lat" in da.dims and "lon" in da.dims:
+        attrs["grid_mapping"] = "crs"
+        attrs["cell_measures"] = "area: cell_area"
+    # xarray owns these two keys (it writes them from the encoding).
+    attrs.pop("_FillValue", None)
+    attrs.pop("coordinates", None)
+    da.attrs = _clean_attrs(attrs)
+    return da
+
+
+def _add_grid(out: xr.Dataset) -> None:
+    """Cell areas, the WGS 84 grid mapping, and lat/lon with their CF bounds (in place)."""
     if "cell_area" not in out:
         area = cell_area(out)
         out["cell_area"] = layers.stamp(area.astype("float64").rename("cell_area"))
@@ -188,6 +171,11 @@ def prepare_cf(
         )
         out[name].attrs = attrs
         out[f"{name}_bnds"].attrs = {}
+
+
+def _cf_coordinates(out: xr.Dataset) -> xr.Dataset:
+    """Text dimensions as ``<dim>_label`` auxiliary coordinates, slice coordinates with their
+    attributes, and a long_name on every other coordinate."""
     for dim in [d for d in out.dims if d not in ("lat", "lon", "bnds")]:
         if dim in out.coords and out[dim].dtype.kind in "OUS":
             # CF coordinate variables are numeric and monotonic; text labels go into an
@@ -213,6 +201,13 @@ def prepare_cf(
         if name not in out.dims and "long_name" not in out[name].attrs and name not in (
                 "lat_bnds", "lon_bnds"):
             out[name].attrs["long_name"] = str(name).replace("_", " ")
+    return out
+
+
+def _global_attrs(ds: xr.Dataset, *, history, source, title) -> dict[str, Any]:
+    """CF-1.8 global attributes: the history line appended, title, source and the caution."""
+    from timeslice import __version__
+
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     line = history or f"{now} written by timeslice {__version__}"
     old = str(ds.attrs.get("history", "")).strip()
@@ -229,7 +224,43 @@ def prepare_cf(
         "dispersal limits are outside the climate niche; areas with novel climate (mess < 0) "
         "are extrapolations and flagged, not trusted.",
     )
-    out.attrs = gattrs
+    return gattrs
+
+
+def prepare_cf(
+    ds: xr.Dataset,
+    *,
+    history: str | None = None,
+    source: str | None = None,
+    title: str | None = None,
+) -> xr.Dataset:
+    """Return a copy of `ds` with the CF-1.8 metadata the writer needs (no I/O).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Gridded output with 1-D ``lat`` and ``lon`` (ascending), optionally a ``slice``
+        dimension with ``year``, ``period``, ``model``, ``scenario`` coordinates.
+    history, source, title : str, optional
+        Global attributes; defaults name the tool and its version.
+
+    Returns
+    -------
+    xarray.Dataset
+        Booleans as int8 with flags, ``crs``, ``lat_bnds``, ``lon_bnds``, ``cell_area``
+        added, attributes completed from the project's layer table.
+    """
+    _check_grid_input(ds)
+    out = ds.copy()
+    fills = {name: out[name].encoding.get("_FillValue") for name in out.data_vars}
+    # Encodings from files read earlier (chunk sizes, fill values, dtypes) must not leak in.
+    for name in out.variables:
+        out[name].encoding = {}
+    for name in list(out.data_vars):
+        out[name] = _cf_variable(out[name], name, fills.get(name))
+    _add_grid(out)
+    out = _cf_coordinates(out)
+    out.attrs = _global_attrs(ds, history=history, source=source, title=title)
     return out
 
 
