@@ -2,14 +2,40 @@
 
 from __future__ import annotations
 
-from importlib.metadata import PackageNotFoundError, version
-
-try:
-    __version__ = version("timeslice")
-except PackageNotFoundError:  # running from a source tree without installation
-    __version__ = "0.0.0+unknown"
-
 __all__ = ["__version__", "load_config", "open_series", "run"]
+
+
+def __getattr__(name: str):
+    """``timeslice.__version__``, looked up on first use (PEP 562).
+
+    Reading the installed version imports :mod:`importlib.metadata` (tens of milliseconds),
+    which ``timeslice --help`` need not pay.
+
+    Parameters
+    ----------
+    name : str
+        The attribute asked for.
+
+    Returns
+    -------
+    str
+        The version, for ``__version__``.
+
+    Raises
+    ------
+    AttributeError
+        For any other name.
+    """
+    if name == "__version__":
+        from importlib.metadata import PackageNotFoundError, version
+
+        try:
+            found = version("timeslice")
+        except PackageNotFoundError:  # running from a source tree without installation
+            found = "0.0.0+unknown"
+        globals()["__version__"] = found
+        return found
+    raise AttributeError(f"module 'timeslice' has no attribute {name!r}")
 
 
 def run(config, out, *, force: bool = False):
@@ -55,14 +81,39 @@ def run(config, out, *, force: bool = False):
 
 
 def load_config(path):
-    """Read and validate a TOML config (:func:`timeslice.config.load_config`)."""
+    """Read and validate a TOML config (:func:`timeslice.config.load_config`).
+
+    Parameters
+    ----------
+    path : path
+        The TOML file.
+
+    Returns
+    -------
+    timeslice.config.Config
+        The validated configuration.
+    """
     from timeslice.config import load_config as _load
 
     return _load(path)
 
 
 def open_series(path, **kwargs):
-    """Open a run's ``series.nc`` or ``ensemble.nc`` (:func:`timeslice.report.open_series`)."""
+    """Open a run's ``series.nc`` or ``ensemble.nc`` (:func:`timeslice.report.open_series`).
+
+    Parameters
+    ----------
+    path : path
+        The file (or a run folder's data store, as :func:`timeslice.report.open_series`
+        takes it).
+    **kwargs
+        Passed on to :func:`timeslice.report.open_series`.
+
+    Returns
+    -------
+    xarray.Dataset
+        The layers, lazily loaded.
+    """
     from timeslice.report import open_series as _open
 
     return _open(path, **kwargs)

@@ -24,7 +24,6 @@ from typing import Annotated, Optional
 import typer
 from typer.core import TyperCommand
 
-from timeslice import __version__
 from timeslice.errors import (
     InputFileError,
     TimesliceError,
@@ -205,6 +204,8 @@ def _progress(enabled: bool = True) -> Iterator:
 
 def _version(value: bool) -> None:
     if value:
+        from timeslice import __version__
+
         typer.echo(f"timeslice {__version__}")
         raise typer.Exit()
 

@@ -351,6 +351,7 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
                 calibration_mask=n.calibration_mask, background_file=n.background_file,
                 min_records=n.min_records, importance_repeats=n.importance_repeats,
                 threshold_rule=n.threshold, threshold_value=n.threshold_value, seed=cfg.run.seed,
+                progress=progress,
             )
 
     return cache.obj("fit", key, compute), key
