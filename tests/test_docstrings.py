@@ -35,6 +35,8 @@ def _checks() -> set[str]:
 
 def _public_callables():
     for info in pkgutil.walk_packages(timeslice.__path__, "timeslice."):
+        if info.name.endswith(".__main__"):  # running it is what importing it does
+            continue
         mod = importlib.import_module(info.name)
         for name in getattr(mod, "__all__", []):
             obj = getattr(mod, name, None)
