@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from timeslice import layers
 from timeslice.errors import TimesliceWarning
 
 __all__ = ["FigureJob", "ReportOptions", "cell_km", "write_outputs"]
@@ -60,6 +61,12 @@ class ReportOptions:
         Run information printed in the report.
     data_format : {"netcdf", "zarr"}
         Format of the data files (``[output] format``): ``series.nc`` or ``series.zarr``.
+    dpi : int
+        Resolution of the figures (``[output] dpi``).
+    figure_format : {"png", "svg", "pdf"}
+        File format of the figures (``[output] figure_format``).
+    processes : int
+        Processes drawing the figures (the main one and ``processes - 1`` workers).
     """
 
     title: str
@@ -78,6 +85,9 @@ class ReportOptions:
     seed: int = 0
     version: str = ""
     data_format: str = "netcdf"
+    dpi: int = 110
+    figure_format: str = "png"
+    processes: int = 2
 
 
 @dataclass
@@ -94,6 +104,8 @@ class FigureJob:
         Its arguments.
     headline : bool
         Shown at the top of the report instead of among the figures.
+    cost : float
+        Rough relative drawing cost (map panels), so the costliest are started first.
     """
 
     caption: str
@@ -101,6 +113,7 @@ class FigureJob:
     args: tuple = ()
     kwargs: dict[str, Any] = field(default_factory=dict)
     headline: bool = False
+    cost: float = 1.0
 
     def run(self) -> Path:
         """Draw the figure.
@@ -181,6 +194,7 @@ def write_outputs(
 
     if refugium_layer(series) is not None:  # the refugium's patches as a layer (R1 largest)
         series = series.assign(refugium_patch=label_patches(series[refugium_layer(series)]))
+    series = layers.stamp(series.copy())  # the table's words in every file (NetCDF, GeoTIFF)
     paths, tables, results = _write_data(opts, series, summary, fit, inputs, out, analysis)
     series = series.load()  # every map reads every layer: compute once
     refuge = "refugium_window" if "refugium_window" in series else "refugium_all_slices"
@@ -203,7 +217,7 @@ def write_outputs(
         jobs += map_jobs(opts, series, analysis, out / "maps", refuge=refuge, patches=patches)
         paths["maps"] = out / "maps"
     jobs += plot_jobs(opts, series, summary, fit, inputs, analysis, extra, out / "plots")
-    headline, figures = _draw(jobs, progress)
+    headline, figures = _draw(jobs, progress, processes=opts.processes)
     if opts.geotiff:
         _write_geotiffs(series, analysis, out / "geotiff")
         paths["geotiff"] = out / "geotiff"
@@ -288,9 +302,14 @@ def map_jobs(opts: ReportOptions, series: xr.Dataset, analysis, maps: Path, *, r
     """
     from timeslice import report as R
 
+    from timeslice.report._layers import slice_labels
+
     proj = opts.projection
-    jobs = [
-        FigureJob("", R.slice_maps, (series, maps), {"projection": proj}),
+    n = int(series.sizes.get("slice", 1))
+    # one job per slice map, so the processes share them out
+    jobs = [FigureJob("", R.slice_maps, (series, maps), {"projection": proj, "slices": [x]})
+            for x in slice_labels(series)]
+    jobs += [
         FigureJob("Stability (fraction of slices suitable) with refugia outlined",
                   R.stability_map, (series, maps / "stability.png"),
                   {"refugium": refuge, "projection": proj,
@@ -334,6 +353,36 @@ def map_jobs(opts: ReportOptions, series: xr.Dataset, analysis, maps: Path, *, r
             f"({opts.dispersal_rate or 'no rate: as occupied'}) at the last period",
             R.reach_map, (series.assign(reachable=series["reachable_limited"]),
                           maps / "panel_reach.png"), {"slices": pick, "projection": proj}))
+    for job in jobs[len(slice_labels(series)):]:
+        job.cost = float(n)  # panels drawn, roughly
+    return finish_jobs(jobs, opts)
+
+
+def finish_jobs(jobs: list[FigureJob], opts: ReportOptions) -> list[FigureJob]:
+    """The figure settings of the run on every job: dpi, and the file format as the suffix.
+
+    Parameters
+    ----------
+    jobs : list of FigureJob
+        Jobs whose target files end in ``.png``.
+    opts : ReportOptions
+        ``dpi`` and ``figure_format``.
+
+    Returns
+    -------
+    list of FigureJob
+        The same jobs, changed in place.
+    """
+    from timeslice.report.figures import figure_file
+
+    for job in jobs:
+        if job.draw is _drawn:
+            continue
+        job.kwargs.setdefault("dpi", opts.dpi)
+        if job.draw.__name__ == "slice_maps":
+            job.kwargs["figure_format"] = opts.figure_format
+        job.args = tuple(figure_file(a, opts.figure_format)
+                         if isinstance(a, Path) and a.suffix == ".png" else a for a in job.args)
     return jobs
 
 
@@ -412,7 +461,7 @@ def plot_jobs(opts: ReportOptions, series: xr.Dataset, summary: pd.DataFrame, fi
             "Change in suitable area under each threshold rule (median and range over models): "
             "how much the headline hangs on the threshold", R.threshold_plot,
             (sens, plots / "threshold_sensitivity.png"), {"reference": opts.reference}))
-    return jobs
+    return finish_jobs(jobs, opts)
 
 
 def _drawn(path: Path) -> Path:
@@ -434,16 +483,19 @@ def _diversity_jobs(series: xr.Dataset, analysis, plots: Path) -> list[FigureJob
                       (div_sites, table, series[layer], plots / "diversity.png"))]
 
 
-def _draw(jobs: list[FigureJob], progress: Progress):
-    """Draw every figure; returns (headline figures, other figures) as (caption, path)."""
+def _draw(jobs: list[FigureJob], progress: Progress, processes: int = 1):
+    """Draw every figure (in `processes` processes); returns (headline figures, other
+    figures) as (caption, path)."""
+    from timeslice.report.figures import draw_all
+
+    progress("report", 0, len(jobs))
+    paths = draw_all(jobs, processes=processes,
+                     progress=lambda done, total: progress("report", done, total))
     headline: list[tuple[str, Path]] = []
     figures: list[tuple[str, Path]] = []
-    progress("report", 0, len(jobs))
-    for i, job in enumerate(jobs, 1):
-        path = job.run()
+    for job, path in zip(jobs, paths):
         if job.caption:
             (headline if job.headline else figures).append((job.caption, path))
-        progress("report", i, len(jobs))
     return headline, figures
 
 

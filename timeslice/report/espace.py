@@ -73,7 +73,7 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
     """
     from matplotlib.figure import Figure
 
-    from timeslice.report._output import output_path, save_figure
+    from timeslice.report.figures import save
 
     variables = list(fit.variables)
     mean, sd, axes, explained = principal_axes(fit.background, variables)
@@ -130,7 +130,4 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
     handles, names = grid[0][0].get_legend_handles_labels()
     fig.legend(handles, names, loc="lower center", bbox_to_anchor=(0.5, 0.0), ncols=5,
                fontsize=7, markerscale=4, frameon=False)
-    target = Path(path)
-    with output_path(target) as tmp:
-        save_figure(fig, tmp, dpi=dpi)
-    return target
+    return save(fig, Path(path), dpi=dpi)

@@ -178,7 +178,13 @@ def _table(df: pd.DataFrame, *, max_rows: int = 500) -> str:
 
 
 def _image(path: str | os.PathLike) -> str:
+    """The figure as a ``data:`` URI: PNG, JPEG or SVG as they are; a PDF figure by the PNG
+    preview drawn beside it (a page cannot show a PDF inline)."""
+    from timeslice.report.figures import preview_file
+
     p = Path(path)
+    if p.suffix.lower() == ".pdf" and preview_file(p).is_file():
+        p = preview_file(p)
     if not p.is_file():
         raise InputFileError(f"{p}: report figure not found; make the figure before the report")
     data = p.read_bytes()
@@ -186,9 +192,20 @@ def _image(path: str | os.PathLike) -> str:
         mime = "image/png"
     elif data.startswith(_JPEG_MAGIC):
         mime = "image/jpeg"
+    elif p.suffix.lower() == ".svg" and b"<svg" in data[:4096]:
+        mime = "image/svg+xml"
     else:
-        raise InputFileError(f"{p}: report figures must be PNG or JPEG files")
+        raise InputFileError(f"{p}: report figures must be PNG or JPEG files (or SVG, or PDF with its PNG preview)")
     return f"data:{mime};base64,{base64.b64encode(data).decode('ascii')}"
+
+
+def _figure_link(path: str | os.PathLike) -> str:
+    """A link to a vector figure file (SVG, PDF) beside the run's report, '' for raster ones."""
+    p = Path(path)
+    if p.suffix.lower() not in (".svg", ".pdf"):
+        return ""
+    rel = "/".join(p.parts[-2:])  # maps/x.pdf, plots/y.svg: relative to the run folder
+    return f' <a href="{_e(rel)}">({p.suffix.lstrip(".").upper()} file)</a>'
 
 
 def _highlights(summary: pd.DataFrame) -> list[str]:

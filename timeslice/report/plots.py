@@ -10,7 +10,7 @@ import pandas as pd
 from matplotlib.figure import Figure
 
 from timeslice.errors import DataError
-from timeslice.report._output import output_path, save_figure
+from timeslice.report.figures import save
 
 __all__ = [
     "PAST_BEFORE_YEAR",
@@ -47,10 +47,15 @@ def _need(df: pd.DataFrame, columns, what: str) -> None:
 
 
 def _save(fig: Figure, path: str | os.PathLike, dpi: int) -> Path:
-    target = Path(path)
-    with output_path(target) as tmp:
-        save_figure(fig, tmp, dpi=dpi)
-    return target
+    return save(fig, Path(path), dpi=dpi)
+
+
+def _margins(fig: Figure, *, left: float = 0.8, right: float = 0.2, top: float = 0.45,
+             bottom: float = 0.55, wspace: float = 0.08, hspace: float = 0.45) -> None:
+    """Fixed margins in inches (laid out once; no layout engine, no tight bounding box)."""
+    w, h = fig.get_size_inches()
+    fig.subplots_adjust(left=left / w, right=1 - right / w, top=1 - top / h,
+                        bottom=bottom / h, wspace=wspace, hspace=hspace)
 
 
 def _colours(scenarios) -> dict[str, str]:
@@ -160,8 +165,9 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
     df = summary.copy()
     df["scenario"] = df["scenario"].astype(str)
     colours = _colours(df["scenario"])
-    fig = Figure(figsize=(8.0, 4.2), layout="constrained")
+    fig = Figure(figsize=(8.0, 4.2))
     (row,) = _time_panels(fig, df)
+    _margins(fig)
     for ax, kind in row:
         rows = _rows_for(df, kind)
         base = rows[rows["scenario"] == "baseline"]
@@ -205,8 +211,9 @@ def gain_loss_bars(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int =
     if df.empty:
         df = summary.reset_index(drop=True)
     y = np.arange(len(df))
-    fig = Figure(figsize=(7.0, 0.9 + 0.32 * len(df)))
+    fig = Figure(figsize=(7.0, 1.2 + 0.32 * len(df)))
     ax = fig.add_subplot(111)
+    _margins(fig, left=2.6, top=0.4, bottom=0.55)
     ax.barh(y, df["gain_km2"].to_numpy(float), color="#0072B2", label="gain")
     ax.barh(y, -df["loss_km2"].to_numpy(float), color="#E69F00", label="loss")
     net = df["gain_km2"].to_numpy(float) - df["loss_km2"].to_numpy(float)
@@ -242,7 +249,7 @@ def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
         As for the maps (:data:`timeslice.report.maps.PROJECTIONS`).
     """
     from timeslice.grid import wrap_lon
-    from timeslice.report.maps import _graticule, _set_extent, extent_frame, map_frame
+    from timeslice.report.mapframe import extent_frame, map_axes, map_frame
 
     _need(summary, ("year", "model", "scenario", "centroid_lat", "centroid_lon"),
           "centroid_track")
@@ -264,10 +271,9 @@ def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
                           min(90.0, lat_c + half_lat), projection)
     # centroids are reported in [-180, 180): onto the frame's continuous longitudes
     df["x"] = fr.x(wrap_lon(df["centroid_lon"].to_numpy(), west=fr.west))
-    crs = fr.data
     fig = Figure(figsize=(6.0, 5.0))
-    ax = fig.add_subplot(111, projection=fr.proj)
-    _set_extent(ax, fr)
+    ax, fr = map_axes(fig, [0.1, 0.07, 0.85, 0.85], None, frame=fr)
+    crs = fr.tr(ax)
     if land is not None:
         lv = np.asarray(land.transpose("lat", "lon").values, dtype=float)
         ax.contour(fr.x(land["lon"].values), land["lat"].values, lv, levels=[0.5], colors="0.3",
@@ -287,7 +293,6 @@ def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
     if len(base):
         ax.plot(base["x"], base["centroid_lat"], marker="*", color="black",
                 markersize=10, linestyle="none", transform=crs, label="baseline")
-    _graticule(ax, fr)
     ax.legend(fontsize=7, loc="upper right", title="squares: last slice", title_fontsize=6)
     ax.set_title("Track of the area-weighted centroid of the suitable range", fontsize=9)
     return _save(fig, path, dpi)
@@ -336,8 +341,9 @@ def shift_plot(shifts: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110)
     df = shifts.copy()
     df["scenario"] = df["scenario"].astype(str)
     colours = _colours(df["scenario"])
-    fig = Figure(figsize=(8.0, 2.9 * len(panels) + 0.4), layout="constrained")
+    fig = Figure(figsize=(8.0, 2.9 * len(panels) + 0.4))
     rows = _time_panels(fig, df, rows=len(panels))
+    _margins(fig, hspace=0.35)
     for (col, (lo, hi), label), row in zip(panels, rows):
         for ax, kind in row:
             seen: set[str] = set()
@@ -382,7 +388,8 @@ def response_curves(df: pd.DataFrame, path: str | os.PathLike, *, ncols: int = 3
     n = len(variables)
     ncols = max(1, min(ncols, n))
     nrows = int(np.ceil(n / ncols))
-    fig = Figure(figsize=(3.0 * ncols, 2.4 * nrows), layout="constrained")
+    fig = Figure(figsize=(3.0 * ncols, 2.4 * nrows + 0.3))
+    _margins(fig, left=0.6, top=0.45, bottom=0.35, wspace=0.3, hspace=0.5)
     for k, var in enumerate(variables):
         ax = fig.add_subplot(nrows, ncols, k + 1)
         g = df[df["variable"].astype(str) == var].sort_values("value")
@@ -428,8 +435,9 @@ def importance_bars(importance: pd.DataFrame, path: str | os.PathLike, *,
     df = df.sort_values("importance_mean", ascending=False).reset_index(drop=True)
     y = np.arange(len(df))
     sd = df["importance_sd"].to_numpy(float) if "importance_sd" in df else None
-    fig = Figure(figsize=(6.0, 1.1 + 0.35 * len(df)), layout="constrained")
+    fig = Figure(figsize=(6.5, 1.4 + 0.35 * len(df)))
     ax = fig.add_subplot(111)
+    _margins(fig, left=1.4, top=0.4, bottom=0.6)
     ax.barh(y, df["importance_mean"].to_numpy(float), xerr=sd, color="#0072B2",
             error_kw={"ecolor": "0.3", "capsize": 3, "linewidth": 0.8})
     ax.set_yticks(y, [str(v) for v in df["variable"]], fontsize=8)
@@ -462,8 +470,9 @@ def threshold_plot(thresholds: pd.DataFrame, path: str | os.PathLike, *,
         raise DataError("threshold_plot: no slice besides the reference")
     groups = list(dict.fromkeys(zip(df["scenario"].astype(str), df["period"].astype(str))))
     rules = list(dict.fromkeys(df["rule"]))
-    fig = Figure(figsize=(7.5, 1.2 + 0.45 * len(groups)), layout="constrained")
+    fig = Figure(figsize=(7.5, 1.6 + 0.45 * len(groups)))
     ax = fig.add_subplot(111)
+    _margins(fig, left=1.8, top=0.4, bottom=0.65)
     step = 0.8 / max(1, len(rules))
     colours = ("#000000", "#0072B2", "#D55E00", "#009E73", "#CC79A7")
     for k, rule in enumerate(rules):
