@@ -505,6 +505,10 @@ class OutputConfig(_Section):
     #: map projection: "lonlat" (plain latitude-longitude), "equal_area" (Lambert azimuthal
     #: equal-area centred on the region) or "polar" (the same centred on the nearer pole)
     projection: Literal["lonlat", "equal_area", "polar"] = "lonlat"
+    #: resolution of the figures, dots per inch (PNG pixels; the cell rasters inside SVG/PDF)
+    dpi: int = Field(110, ge=30, le=1200)
+    #: file format of the figures: "png", or vector "svg" / "pdf" for print
+    figure_format: Literal["png", "svg", "pdf"] = "png"
     #: data files of the run: "netcdf" (series.nc, ensemble.nc) or "zarr" (series.zarr,
     #: ensemble.zarr: chunk files written in parallel by the dask workers)
     format: Literal["netcdf", "zarr"] = "netcdf"

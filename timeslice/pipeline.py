@@ -409,11 +409,11 @@ def transfer_stage(
     reference = fit.background[variables]
     tc = cfg.transfer
     chunks = "auto" if tc.chunks == "auto" else {"lat": tc.chunks, "lon": tc.chunks}
-    keys = [content_key("transfer", fit_key, dataset_key(ds), tc.model_dump()) for ds in slices]
     if not any(v.chunks for ds in slices for v in ds.data_vars.values()):
         # slices in memory: one fused pass by row blocks on local threads, no dask graph
         # (the same values; project_slice computes them now)
         chunks = None
+    keys = [content_key("transfer", fit_key, dataset_key(ds), tc.model_dump()) for ds in slices]
     results: list[xr.Dataset | None] = [cache.load("transfer", k) for k in keys]
     todo = [i for i, r in enumerate(results) if r is None]
     progress("transfer", len(slices) - len(todo), len(slices))
