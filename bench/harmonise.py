@@ -154,6 +154,7 @@ def _phase_floor(folder: Path, minutes: float) -> dict:
     t_imp = time.perf_counter()
     cpu0, _ = _usage()
     t0 = time.perf_counter()
+    netCDF4.set_chunk_cache(4 * 2**20)  # the readers' cache size
     for name in ("model_baseline", "model_slice"):
         with netCDF4.Dataset(folder / f"{name}.nc") as nc:
             for v in _VARS:
@@ -177,6 +178,9 @@ def _phase_floor(folder: Path, minutes: float) -> dict:
     for m in ("land", "ice", "exposed_shelf", "filled"):
         layers[m] = out.createVariable(m, "i1", ("lat", "lon"), zlib=True, complevel=4,
                                        shuffle=True, chunksizes=(rows, nlon))
+    for var in layers.values():  # the stage's sink: about one chunk cached per variable
+        var.set_var_chunk_cache(size=rows * nlon * var.dtype.itemsize + 2**16, nelems=11,
+                                preemption=1.0)
     for r0 in range(0, nlat, rows):
         r1 = min(r0 + rows, nlat)
         block = {v: fb.variables[v][:, r0:r1, :].filled(np.nan) for v in _VARS}

@@ -73,7 +73,20 @@ def anomalies(
 ) -> xr.Dataset:
     """Change factors on the model grid.
 
-    Returns ``tasmin``, ``tasmax`` (additive anomalies, K) and ``pr`` (ratio, 1).
+    Parameters
+    ----------
+    slice_ds, model_baseline_ds : xarray.Dataset
+        The model's slice and its own baseline run: monthly ``tasmin``, ``tasmax`` (degC),
+        ``pr`` (mm month-1) on the same grid.
+    pr_floor : float, [mm month-1]
+        Floor applied to both precipitations before the ratio.
+    ratio_quantile : float
+        Ratios above this quantile of each month's ratio grid are truncated to it.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``tasmin``, ``tasmax`` (additive anomalies, K) and ``pr`` (ratio, 1).
 
     Notes
     -----

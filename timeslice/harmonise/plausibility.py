@@ -239,6 +239,10 @@ def check_fields(ds: xr.Dataset, *, source: str) -> None:
     source : str
         File named in the message when a variable carries no ``source_file`` attribute.
 
+    Returns
+    -------
+    None
+
     Raises
     ------
     DataError
@@ -298,6 +302,22 @@ def check_change(
 
     Both are on the model's grid, after unit conversion. Temperature changes are slice minus
     baseline; precipitation is compared as the ratio of domain means (per month).
+
+    Parameters
+    ----------
+    slice_ds, baseline_ds : xarray.Dataset
+        Canonical monthly fields of a model slice and of that model's baseline run.
+    slice_source, baseline_source : str
+        Their files, named in messages.
+
+    Returns
+    -------
+    None
+
+    Raises
+    ------
+    DataError
+        When a change exceeds what any climate model gives (a unit or scale mismatch).
     """
     if not _same_grid(slice_ds, baseline_ds):
         return  # different grids are regridded later; the absolute checks still apply

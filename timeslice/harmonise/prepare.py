@@ -478,6 +478,18 @@ def write_prepared(ds: xr.Dataset, path) -> Path:
 
     Boolean masks are stored as int8 0/1 with CF ``flag_values``/``flag_meanings`` (xarray
     reads them back as bool).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A prepared slice (:func:`prepare_slice`).
+    path : path-like
+        Output file.
+
+    Returns
+    -------
+    pathlib.Path
+        `path`.
     """
     from timeslice.io import atomic_path
 

@@ -82,6 +82,13 @@ def conservative_weights(
 ) -> tuple[sp.csr_matrix, sp.csr_matrix, np.ndarray]:
     """Separable exact overlap weights for conservative remapping on the sphere.
 
+    Parameters
+    ----------
+    src_lat, src_lon : array-like
+        Source cell centres (ascending latitudes).
+    dst_lat, dst_lon : array-like
+        Target cell centres.
+
     Returns
     -------
     w_lat : sparse (n_dst_lat, n_src_lat)
@@ -221,6 +228,22 @@ def _linear_lat(src: np.ndarray, dst: np.ndarray, *, polar: bool) -> sp.csr_matr
 def bilinear_weights(src_lat, src_lon, dst_lat, dst_lon) -> tuple[sp.csr_matrix, sp.csr_matrix]:
     """Separable bilinear interpolation matrices ``(w_lat, w_lon)``.
 
+    Parameters
+    ----------
+    src_lat, src_lon : array-like
+        Source cell centres (ascending latitudes).
+    dst_lat, dst_lon : array-like
+        Target cell centres.
+
+    Returns
+    -------
+    w_lat : scipy.sparse.csr_matrix
+        (n_dst_lat, n_src_lat), or n_src_lat + 2 columns with the virtual pole rows.
+    w_lon : scipy.sparse.csr_matrix
+        (n_dst_lon, n_src_lon).
+
+    Notes
+    -----
     Longitudes wrap when the source grid is global. On a global source the polar rows are
     interpolated towards the pole (``w_lat`` then has two more columns, virtual pole rows
     that :func:`apply_weights` fills with the mean of the outermost row); latitudes of

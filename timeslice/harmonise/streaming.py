@@ -121,7 +121,7 @@ class BlockSink:
 class SliceSummary:
     """What the whole-grid log lines and attributes of a slice need.
 
-    Attributes
+    Parameters
     ----------
     counts : dict
         Sums of the reader's counts (``n_swapped``, ``n_uncovered``).
