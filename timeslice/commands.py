@@ -20,21 +20,18 @@ from timeslice.cache import StageCache
 from timeslice.config import Config
 from timeslice.errors import ConfigError, DataError, InputFileError
 from timeslice.pipeline import (
-    Progress,
     RunResult,
     dataset_key,
     fit_stage,
     harmonise_stage,
     run as run_species,
 )
+from timeslice.progress import Progress, no_progress
 from timeslice.runfolder import begin_run, finish_run, make_out, require_complete
 
 __all__ = ["rerun", "run", "run_assemblage", "run_export", "run_fit", "run_harmonise",
            "run_summarise"]
 
-
-def _quiet(_stage: str, _done: int, _total: int) -> None:
-    return None
 
 
 def run(
@@ -42,7 +39,7 @@ def run(
     out: str | os.PathLike,
     *,
     force: bool = False,
-    progress: Progress = _quiet,
+    progress: Progress = no_progress,
     command: list[str] | None = None,
     cache_dir: str | os.PathLike | None = None,
 ) -> RunResult:
@@ -81,7 +78,7 @@ def run(
 
 
 def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
-                   progress: Progress = _quiet, command: list[str] | None = None) -> RunResult:
+                   progress: Progress = no_progress, command: list[str] | None = None) -> RunResult:
     """Several species over the same slices: each species run into ``out/species/NAME`` (the
     climate is harmonised once: every species reads the shared stage cache), then the
     assemblage: predicted richness per cell and slice, its change against the reference and
@@ -170,7 +167,7 @@ def run_assemblage(cfg: Config, out: str | os.PathLike, *, force: bool = False,
 
 
 def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
-                  progress: Progress = _quiet) -> dict[str, Path]:
+                  progress: Progress = no_progress) -> dict[str, Path]:
     """Harmonise every slice and write one CF NetCDF per slice plus the input table.
 
     Parameters
@@ -207,7 +204,7 @@ def run_harmonise(cfg: Config, out: str | os.PathLike, *, force: bool = False,
 
 
 def run_fit(cfg: Config, out: str | os.PathLike, *, force: bool = False,
-            progress: Progress = _quiet) -> dict[str, Path]:
+            progress: Progress = no_progress) -> dict[str, Path]:
     """Fit the niche on the harmonised baseline; write the model, tables and response curves.
 
     Parameters
@@ -255,7 +252,7 @@ def run_summarise(
     rate: str | None = None,
     window: list[str] | None = None,
     dated_records: str | os.PathLike | None = None,
-    progress: Progress = _quiet,
+    progress: Progress = no_progress,
     target: str | os.PathLike | None = None,
 ) -> RunResult:
     """Summarise a finished run again with other series options, and refresh every output
@@ -370,7 +367,7 @@ def run_export(out: str | os.PathLike, *, fmt: str = "geotiff",
 
 
 def rerun(manifest: str | os.PathLike, out: str | os.PathLike | None = None, *,
-          progress: Progress = _quiet) -> RunResult:
+          progress: Progress = no_progress) -> RunResult:
     """Repeat the run recorded in `manifest` (inputs must still have their recorded hashes).
 
     Parameters

@@ -38,6 +38,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 
 from timeslice.config import ClimateConfig, Config, SpeciesConfig
 from timeslice.errors import ConfigError, DataError, InputFileError
+from timeslice.progress import Progress, no_progress
 
 __all__ = ["NO_NOVELTY_NOTE", "SeriesOnlyConfig", "SuitabilityConfig", "SuitabilitySlice",
            "check_suitability", "parse_series_only", "read_suitability", "require_climate",
@@ -535,7 +536,8 @@ def suitability_stack(cfg: SeriesOnlyConfig, rasters: dict[str, Any] | None = No
     return stack
 
 
-def run_series_only(cfg: SeriesOnlyConfig, out: str | os.PathLike, *, progress=None,
+def run_series_only(cfg: SeriesOnlyConfig, out: str | os.PathLike, *,
+                    progress: Progress = no_progress,
                     command: list[str] | None = None):
     """Summarise the user's own suitability maps and write every output into `out`.
 
@@ -565,7 +567,6 @@ def run_series_only(cfg: SeriesOnlyConfig, out: str | os.PathLike, *, progress=N
     from timeslice.series.analysis import key_results
     from timeslice.series_only_report import analyse_own, write_own_outputs
 
-    progress = progress or (lambda *_: None)
     out = Path(out)
     files = cfg.input_files()
     rasters = read_suitability(cfg)  # every check before the folder is touched

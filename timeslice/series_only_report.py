@@ -14,6 +14,8 @@ from typing import Any
 import pandas as pd
 import xarray as xr
 
+from timeslice.progress import Progress, no_progress
+
 __all__ = ["analyse_own", "methods_text", "write_own_outputs"]
 
 #: Figures drawn from novelty layers, which a run of supplied maps does not have.
@@ -162,7 +164,8 @@ def _figures(opts, series, summary, analysis, extra, out: Path, refuge, patches,
     return headline, figures
 
 
-def write_own_outputs(cfg, analysis, summary: pd.DataFrame, out: Path, *, progress=None,
+def write_own_outputs(cfg, analysis, summary: pd.DataFrame, out: Path, *,
+                      progress: Progress = no_progress,
                       warnings_seen: list[str] | None = None) -> dict[str, Path]:
     """Write the data files, tables, vectors, maps, plots, GeoTIFFs and report of the maps.
 
@@ -191,7 +194,6 @@ def write_own_outputs(cfg, analysis, summary: pd.DataFrame, out: Path, *, progre
     from timeslice.report.tables import write_csv
     from timeslice.series.patches import label_patches, refugium_layer, refugium_patches
 
-    progress = progress or (lambda *_: None)
     reference = cfg.reference_label()
     opts = ReportOptions(
         title=cfg.run.name, species="the supplied suitability maps", reference=reference,

@@ -16,6 +16,7 @@ from sklearn.base import clone
 
 from timeslice.errors import ConfigError, DataError
 from timeslice.grid import AUTHALIC_RADIUS_KM
+from timeslice.progress import Progress, no_progress
 
 __all__ = [
     "THRESHOLD_RULES",
@@ -398,7 +399,7 @@ def cross_validate(
     threshold_rule: str = "p10",
     threshold_value: float | None = None,
     sample_weight=None,
-    progress=None,
+    progress: Progress = no_progress,
 ) -> pd.DataFrame:
     """Fit a clone of `model` per fold and score it on the held-out fold.
 
@@ -440,12 +441,10 @@ def cross_validate(
     take = (lambda idx: Xa.iloc[idx]) if isinstance(Xa, pd.DataFrame) else (lambda idx: np.asarray(Xa)[idx])
     sw = None if sample_weight is None else np.asarray(sample_weight, dtype=float).ravel()
     labels = np.unique(folds)
-    if progress is not None:
-        progress("fit", 0, int(labels.size))
+    progress("fit", 0, int(labels.size))
     for k, f in enumerate(labels, start=1):
         rows.append(_fold_scores(model, take, y, folds, f, sw, threshold_rule, threshold_value))
-        if progress is not None:
-            progress("fit", k, int(labels.size))
+        progress("fit", k, int(labels.size))
     return pd.DataFrame(rows)
 
 

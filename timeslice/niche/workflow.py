@@ -6,7 +6,7 @@ import dataclasses
 import inspect
 import os
 import warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from types import SimpleNamespace
 from typing import Any
 
@@ -20,8 +20,9 @@ from timeslice.niche import data as ndata
 from timeslice.niche import evaluate as nev
 from timeslice.niche.models import make_model
 from timeslice.niche.select import screen
+from timeslice.progress import Progress, no_progress
 
-__all__ = ["MIN_RECORDS", "NicheFit", "fit_niche", "no_progress", "permutation_table", "response_curves"]
+__all__ = ["MIN_RECORDS", "NicheFit", "fit_niche", "permutation_table", "response_curves"]
 
 #: Fewest records left after cleaning and thinning for a fit (common practice puts reliable
 #: presence-only models at a few tens of records; Pearson et al. 2007 tested down to 5).
@@ -220,18 +221,6 @@ def _summary_rows(evaluation: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def no_progress(stage: str, done: int, total: int) -> None:
-    """The default progress callback: does nothing.
-
-    Parameters
-    ----------
-    stage : str
-        Name of the stage (``"fit"``).
-    done, total : int
-        Steps done and steps in all.
-    """
-
-
 def fit_niche(
     records: pd.DataFrame, baseline: xr.Dataset, *, variables: Sequence[str] | None = None,
     algorithm: str = "envelope", algorithm_params: Mapping[str, Any] | None = None,
@@ -246,7 +235,7 @@ def fit_niche(
     priority: Sequence[str] | None = None, cv_block_km: float = 100.0, cv_folds: int = 5,
     cv_scheme: str = "random", threshold_rule: str = "max_sss", threshold_value: float | None = None,
     min_records: int = MIN_RECORDS, importance_repeats: int = 5, seed: int = 0,
-    progress: Callable[[str, int, int], None] = no_progress,
+    progress: Progress = no_progress,
 ) -> NicheFit:
     """Clean, thin, delimit, sample, screen, fit, validate and threshold a niche model.
 

@@ -23,14 +23,11 @@ import xarray as xr
 
 from timeslice import layers
 from timeslice.errors import TimesliceWarning
+from timeslice.progress import Progress, no_progress
 
 __all__ = ["FigureJob", "ReportOptions", "cell_km", "write_outputs"]
 
-Progress = Callable[[str, int, int], None]
 
-
-def _quiet(_stage: str, _done: int, _total: int) -> None:
-    return None
 
 
 @dataclass(frozen=True)
@@ -159,7 +156,7 @@ def write_outputs(
     out: Path,
     warnings_seen: list[str],
     analysis=None,
-    progress: Progress = _quiet,
+    progress: Progress = no_progress,
 ) -> dict[str, Path]:
     """Write the NetCDF, tables, vectors, maps, plots, GeoTIFFs and HTML report of a run.
 
