@@ -11,11 +11,10 @@ import contextlib
 import io
 import json
 import os
-import re
 import sys
 import time
 import warnings
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -27,16 +26,22 @@ import xarray as xr
 from timeslice import __version__
 from timeslice.cache import StageCache, content_key, file_digest
 from timeslice.config import Config, SliceSpec
-from timeslice.errors import ConfigError, DataError, InputFileError, TimesliceError, TimesliceWarning
+from timeslice.errors import ConfigError, DataError, TimesliceWarning
+from timeslice.progress import Progress, no_progress
+from timeslice.stage_inputs import (
+    about,
+    apply_biotic,
+    dated_fossils,
+    fine_baseline,
+    input_row,
+    prepare_model_slice,
+    reference_label,
+    shown,
+    with_inputs,
+)
 
-__all__ = ["RunResult", "dataset_key", "fit_stage", "fitted_model", "harmonise_stage", "report_options", "run",
-           "summarise_stage", "transfer_stage"]
-
-Progress = Callable[[str, int, int], None]
-
-
-def _quiet(_stage: str, _done: int, _total: int) -> None:
-    return None
+__all__ = ["RunResult", "dataset_key", "espace_stage", "fit_stage", "fitted_model", "harmonise_stage",
+           "report_options", "run", "summarise_stage", "transfer_stage"]
 
 
 @dataclass
@@ -89,86 +94,32 @@ def _timed(timings: dict[str, float], name: str) -> Iterator[None]:
 # ----------------------------------------------------------------------------- harmonise
 
 
-@contextlib.contextmanager
-def _about(path: Path | str | None) -> Iterator[None]:
-    """Prefix an error raised while working on `path` with the file name, if it lacks it."""
-    try:
-        yield
-    except TimesliceError as err:
-        name = str(path)
-        if path is None or name in str(err) or Path(name).name in str(err):
-            raise
-        raise type(err)(f"{name}: {err}") from err
-
-
-_YEARS = re.compile(r"\s*-?\d{1,5}\s*-\s*-?\d{1,5}\s*")
-
-
-def _open(inp, c, *, files=None, period: str | None = None, require=None, role="monthly",
-          model=None, key: str = "climate input"):
-    """Open one climate input with its own aliases, units and scale factors.
-
-    `inp` is a :class:`~timeslice.config.ClimateInput`; `files` its expanded file list (from
-    :meth:`Config.input_files`, so the files read are those hashed). A period of the form
-    'YYYY-YYYY' is passed on, so multi-year series are reduced to the climatology of those
-    years (12-step climatologies ignore it).
-    """
-    from timeslice.readers import open_climate
-
-    if files is None:
-        files = inp.expand(key=key, role=role, model=model)
-    kw: dict[str, Any] = inp.reader_options(c.aliases)
-    if period is not None and _YEARS.fullmatch(period):
-        kw["period"] = period
-    return open_climate(files, require=require, **kw)
-
-
-def _ice_field(ds: xr.Dataset) -> xr.DataArray:
-    for name in ("ice", "sftgif", "ice_fraction"):
-        if name in ds:
-            return ds[name]
-    names = list(ds.data_vars)
-    if len(names) == 1:
-        return ds[names[0]]
-    raise DataError(f"ice file: no ice-fraction variable found among {names}; name it 'sftgif'")
-
-
 def harmonise_stage(
-    cfg: Config, cache: StageCache, *, progress: Progress = _quiet
+    cfg: Config, cache: StageCache, *, progress: Progress = no_progress
 ) -> tuple[xr.Dataset, list[xr.Dataset], dict[str, pd.DataFrame]]:
     """Prepare the observed baseline and every configured slice on the common grid.
 
     Returns the prepared baseline, the prepared slices (config order) and two tables: `inputs`
     (one row per input file: grid, units, calendar, what was done) and `slice_land` (land,
     exposed shelf and ice areas per slice).
-    """
-    from timeslice.grid import continuous_lon, make_grid
-    from timeslice.harmonise.interpolate import between
-    from timeslice.harmonise.prepare import prepare_slice
-    from timeslice.harmonise.regrid import regrid
 
-    from timeslice.harmonise.plausibility import check_change
+    Parameters
+    ----------
+    cfg : Config
+        The run's configuration ([climate], [[slices]], [grid]).
+    cache : StageCache
+        The stage cache.
+    progress : callable
+        ``progress("harmonise", done, total)`` after each slice.
+    """
+    from timeslice.harmonise.prepare import prepare_slice
     from timeslice.readers.filesets import file_set_digest
 
     c = cfg.climate
     specs = cfg.slice_specs()
     monthly = c.baseline_kind == "monthly"
     files = cfg.input_files()
-    fine = _open(c.baseline, c, files=files["climate.baseline"], period=c.baseline_period,
-                 require=["tasmin", "tasmax", "pr"] if monthly else None)
-    elev_ds = _open(c.elevation, c, files=files["climate.elevation"])
-    elev = elev_ds["elevation"] if "elevation" in elev_ds else elev_ds[list(elev_ds.data_vars)[0]]
-    if cfg.grid is not None:
-        g = cfg.grid
-        target = make_grid(
-            lon_min=g.lon_min, lon_max=g.lon_max, lat_min=g.lat_min, lat_max=g.lat_max,
-            resolution=g.resolution,
-        )
-        fine = regrid(fine, target)
-        elev = regrid(elev, target)
-    else:
-        fine = continuous_lon(fine, source=str(c.baseline))  # a region across 180° as one axis
-        elev = regrid(elev, fine) if elev.sizes != {k: fine.sizes[k] for k in ("lat", "lon")} else elev
+    fine, elev, elev_ds = fine_baseline(cfg, files)
 
     base_key = content_key(
         "baseline", file_set_digest(files["climate.baseline"]),
@@ -184,15 +135,15 @@ def harmonise_stage(
     baseline = cache.dataset(
         "harmonise",
         base_key,
-        lambda: _with_inputs(prepare_slice(
+        lambda: with_inputs(prepare_slice(
             fine_baseline=fine if monthly else None, bio=None if monthly else fine,
             sea_level=c.present_sea_level, label=c.baseline_label, year=c.baseline_year,
             period=c.baseline_period, model="observed", scenario="baseline", **common,
         ), [("fine_baseline", fine), ("elevation", elev_ds)]),
     )
     progress("harmonise", 1, total)
-    rows = [_input_row(c.baseline_label, "observed", "baseline",
-                       _shown(files["climate.baseline"]), baseline)]
+    rows = [input_row(c.baseline_label, "observed", "baseline",
+                       shown(files["climate.baseline"]), baseline)]
     model_baselines: dict[str, xr.Dataset] = {}
     slices: list[xr.Dataset] = []
     for i, spec in enumerate(specs):
@@ -206,106 +157,24 @@ def harmonise_stage(
         )
 
         def compute(spec: SliceSpec = spec, mb_files=mb_files, ice_files=ice_files) -> xr.Dataset:
-            ice_ds = _open(spec.ice, c, files=ice_files) if spec.ice else None
-            ice = _ice_field(ice_ds) if ice_ds is not None else None
-            used = [("ice", ice_ds)] if ice_ds is not None else []
-            meta = dict(label=spec.label, year=spec.year, period=spec.period, model=spec.model,
-                        scenario=spec.scenario, sea_level=spec.sea_level, ice=ice)
-            if spec.kind == "bioclim":
-                with _about(spec.file):
-                    bio = _open(spec.source, c, period=spec.period, role="bioclim",
-                                key=f"slices[{spec.index}].file")
-                    return _with_inputs(prepare_slice(fine_baseline=fine if monthly else None,
-                                                      bio=bio, **meta, **common),
-                                        [("bioclim_slice", bio), *used])
-            if spec.model not in model_baselines:
-                model_baselines[spec.model] = _open(
-                    spec.model_baseline, c, files=mb_files, period=c.baseline_period,
-                    require=["tasmin", "tasmax", "pr"])
-            mb_name = _shown(mb_files)
-            if spec.between:
-                a, b = spec.between
-                with _about(a.file):
-                    raw_a = _open(a.source, c, period=a.period, key=f"slices[{a.index}].file")
-                    raw_b = _open(b.source, c, period=b.period, key=f"slices[{b.index}].file")
-                    check_change(raw_a, model_baselines[spec.model], slice_source=_shown(a.files()),
-                                 baseline_source=mb_name)
-                    check_change(raw_b, model_baselines[spec.model], slice_source=_shown(b.files()),
-                                 baseline_source=mb_name)
-                    raw = between(raw_a, raw_b, spec.year, year_a=a.year, year_b=b.year,
-                                  sea_level_a=a.sea_level, sea_level_b=b.sea_level)
-                src = f"{a.file.name} + {b.file.name}"
-            else:
-                with _about(spec.file):
-                    raw = _open(spec.source, c, files=spec.files(), period=spec.period,
-                                require=["tasmin", "tasmax", "pr"], key=f"slices[{spec.index}].file")
-                    check_change(raw, model_baselines[spec.model], slice_source=_shown(spec.files()),
-                                 baseline_source=mb_name)
-                src = spec.file
-            with _about(src):
-                return _with_inputs(
-                    prepare_slice(fine_baseline=fine, model_slice=raw,
-                                  model_baseline=model_baselines[spec.model], **meta, **common),
-                    [("model_slice", raw), ("model_baseline", model_baselines[spec.model]), *used])
+            return prepare_model_slice(cfg, spec, fine=fine, common=common, mb_files=mb_files,
+                                        ice_files=ice_files, model_baselines=model_baselines)
 
         ds = cache.dataset("harmonise", key, compute)
         slices.append(ds)
-        src = _shown(slice_files)
-        rows.append(_input_row(spec.label, spec.model, spec.scenario, src, ds))
+        src = shown(slice_files)
+        rows.append(input_row(spec.label, spec.model, spec.scenario, src, ds))
         progress("harmonise", i + 2, total)
     inputs = pd.concat([pd.read_json(io.StringIO(ds.attrs.get("input_rows", "[]")), orient="records")
                         for ds in [baseline, *slices]], ignore_index=True)
     return baseline, slices, {"inputs": inputs, "slice_land": pd.DataFrame(rows)}
 
 
-def _shown(files) -> str:
-    """A file list as shown in tables and messages: the one name, or the first and a count."""
-    names = [Path(getattr(f, "path", f)).name for f in files]
-    if not names:
-        return ""
-    return names[0] if len(names) == 1 else f"{names[0]} (+{len(names) - 1} files)"
-
-
-def _with_inputs(ds: xr.Dataset, used: list[tuple[str, xr.Dataset]]) -> xr.Dataset:
-    """Record the table of the inputs a prepared slice was built from (kept in the cache)."""
-    from timeslice.harmonise.report import input_table
-
-    label = str(ds.attrs["slice_label"])
-    table = input_table([{"slice": label, "role": role, "data": data} for role, data in used],
-                        prepared={label: ds})
-    ds.attrs["input_rows"] = table.to_json(orient="records")
-    return ds
-
-
-def _input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
-    from timeslice.grid import cell_area
-
-    log = ds.attrs.get("harmonise_log", "[]")
-    try:
-        steps = "; ".join(json.loads(log)) if isinstance(log, str) else str(log)
-    except json.JSONDecodeError:
-        steps = str(log)
-    # prepare_slice already measured land, ice and shelf (land_mask attrs); only the filled
-    # cells are counted here
-    return {
-        "slice": label,
-        "model": model,
-        "scenario": scenario,
-        "file": Path(path).name if not str(path).endswith("files)") else str(path),
-        "sea_level_m": float(ds.attrs.get("sea_level", 0.0)),
-        "land_km2": float(ds.attrs["land_km2"]),
-        "steps": steps,
-        "exposed_shelf_km2": float(ds.attrs["exposed_shelf_km2"]),
-        "ice_km2": float(ds.attrs["ice_km2"]),
-        "filled_km2": float(cell_area(ds).where(ds["filled"].astype(bool)).sum()),
-    }
-
-
 # ----------------------------------------------------------------------------- fit
 
 
 def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key: str = "",
-              progress: Progress = _quiet):
+              progress: Progress = no_progress):
     """Read, clean and thin the records and fit the niche on the prepared baseline.
 
     Parameters
@@ -336,7 +205,7 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
     def compute():
         records = read_occurrences(cfg.species.occurrences, columns=cfg.species.columns)
         sp = cfg.species
-        with _about(cfg.species.occurrences):
+        with about(cfg.species.occurrences):
             return fit_niche(
                 records, baseline, variables=n.variables, algorithm=n.algorithm,
                 algorithm_params=n.params or None, buffer_km=n.buffer_km,
@@ -395,9 +264,25 @@ def fitted_model(path: Path, baseline: xr.Dataset):
 
 def transfer_stage(
     cfg: Config, fit, slices: list[xr.Dataset], cache: StageCache, *, fit_key: str = "",
-    progress: Progress = _quiet,
+    progress: Progress = no_progress,
 ) -> xr.Dataset:
-    """Project the fitted niche onto every prepared slice and stack the results."""
+    """Project the fitted niche onto every prepared slice and stack the results.
+
+    Parameters
+    ----------
+    cfg : Config
+        The run's configuration ([transfer]).
+    fit : NicheFit
+        The fitted niche.
+    slices : list of xarray.Dataset
+        The prepared slices, baseline first.
+    cache : StageCache
+        The stage cache.
+    fit_key : str
+        Content key of the fit (part of each transfer's key).
+    progress : callable
+        ``progress("transfer", done, total)`` after each batch.
+    """
     from timeslice.transfer.project import project_slice
 
     import dask
@@ -474,7 +359,7 @@ def dataset_key(ds: xr.Dataset) -> str:
 # ----------------------------------------------------------------------------- summarise
 
 
-def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = _quiet):
+def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = no_progress):
     """Change, stability, refugia, movement, ensembles and the hindcast across the series.
 
     Returns a :class:`timeslice.series.analysis.SeriesResult`.
@@ -503,7 +388,7 @@ def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = _qui
     if cfg.species.dated_records is not None:
         records = read_dated_records(cfg.species.dated_records)
     past = "scenario" in stack.coords and "past" in {str(x) for x in stack["scenario"].values}
-    fossils = _dated_fossils(cfg) if past else None
+    fossils = dated_fossils(cfg) if past else None
     if fossils is not None and len(fossils):
         # fossil records of the taxon with ages, dropped from the calibration: hindcast material
         name = f"fossil records of {cfg.species.occurrences.name}"
@@ -515,10 +400,10 @@ def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = _qui
         # question); with no past slices, every slice
         past = [str(p) for p, sc in zip(stack["period"].values, stack["scenario"].values)
                 if str(sc) == "past"]
-        window = list(dict.fromkeys(past)) + [_reference(cfg)] if past else None
-    with _about(cfg.species.dated_records if records is not None else None):
+        window = list(dict.fromkeys(past)) + [reference_label(cfg)] if past else None
+    with about(cfg.species.dated_records if records is not None else None):
         result = analyse_series(
-            stack, reference=_reference(cfg), window=window, rate=ser.dispersal_rate,
+            stack, reference=reference_label(cfg), window=window, rate=ser.dispersal_rate,
             rate_key="series.dispersal_rate", through=ser.movement_through,
             neighbours=ser.graph_neighbours, factors=ser.partition_factors, records=records,
             records_source=source, max_offset_years=ser.hindcast_max_offset_years,
@@ -528,7 +413,7 @@ def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = _qui
     if cfg.species.diversity is not None:
         from timeslice.series.genetics import read_diversity_table, stability_vs_diversity
 
-        with _about(cfg.species.diversity):
+        with about(cfg.species.diversity):
             sites = read_diversity_table(cfg.species.diversity,
                                          column=cfg.species.diversity_column)
             table = stability_vs_diversity(result.series, sites)
@@ -543,69 +428,16 @@ def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = _qui
         result.series = result.series.assign(dict(layers.data_vars))
         progress("summarise", next(steps), total)
     if cfg.biotic.partner is not None or cfg.biotic.competitor is not None:
-        _apply_biotic(cfg, stack, result, window=window)
+        apply_biotic(cfg, stack, result, window=window)
         progress("summarise", next(steps), total)
     if ser.zones is not None:
         from timeslice.series.zonal import read_zones, zonal_table
 
-        with _about(ser.zones):
+        with about(ser.zones):
             result.tables["zones"] = zonal_table(
                 result.series, read_zones(ser.zones, name_field=ser.zones_name_field))
         progress("summarise", next(steps), total)
     return result
-
-
-def _apply_biotic(cfg: Config, stack: xr.Dataset, result, *, window) -> None:
-    """Partner/competitor layers per slice onto the grid; the biotically constrained layers,
-    table and refugium join the series beside the abiotic ones (which stay unchanged)."""
-    from timeslice.harmonise.regrid import regrid
-    from timeslice.readers.layers import open_layer
-    from timeslice.series.biotic import biotic_layers, biotic_table
-
-    b = cfg.biotic
-    labels = [str(x) for x in stack["slice"].values]
-    layers: dict[str, xr.DataArray] = {}
-    for role, per in b.files(labels).items():
-        fields, opened = [], {}
-        for lab in labels:
-            path = per[lab]
-            if path not in opened:
-                with _about(path):
-                    opened[path] = regrid(open_layer(path, what=f"biotic.{role}"), stack,
-                                          source=str(path))
-            fields.append(opened[path].assign_coords(lat=stack["lat"], lon=stack["lon"]))
-        layers[role] = xr.concat(fields, dim="slice").assign_coords(slice=stack["slice"])
-    # the model's threshold travels with the `suitable` layer (transfer.project_slice)
-    threshold = stack["suitable"].attrs.get("threshold")
-    threshold = float(threshold) if threshold is not None else None
-    out = biotic_layers(stack, partner=layers.get("partner"), competitor=layers.get("competitor"),
-                        partner_threshold=b.partner_threshold,
-                        competitor_threshold=b.competitor_threshold,
-                        competitor_effect=b.competitor_effect, threshold=threshold)
-    table, ref = biotic_table(stack, out, reference=_reference(cfg), window=window)
-    series = result.series.assign({k: v for k, v in out.data_vars.items()})
-    if ref is not None:
-        series["refugium_window_biotic"] = ref.drop_vars(
-            [c for c in ref.coords if c not in ("lat", "lon")])
-    result.series = series
-    result.tables["biotic"] = table
-
-
-def _dated_fossils(cfg: Config) -> pd.DataFrame:
-    """The occurrence file's fossil records of the taxon that carry ages (read again: cheap)."""
-    from timeslice.niche.data import dated_fossils
-    from timeslice.readers import read_occurrences
-
-    sp = cfg.species
-    with _about(sp.occurrences):
-        occ = read_occurrences(sp.occurrences, columns=sp.columns)
-        return dated_fossils(occ, taxon=sp.taxon, taxon_field=sp.taxon_field,
-                             fold_subspecies=sp.fold_subspecies, keep_basis=cfg.niche.keep_basis)
-
-
-def _reference(cfg: Config) -> str:
-    ref = cfg.series.reference
-    return cfg.climate.baseline_label if ref == "baseline" else ref
 
 
 def espace_stage(cfg: Config, fit, slices: list[xr.Dataset], stack: xr.Dataset,
@@ -692,7 +524,7 @@ def report_options(cfg: Config):
     return ReportOptions(
         title=cfg.run.name,
         history=f"timeslice {__version__} run of {cfg.source.name if cfg.source else 'config'}",
-        species=cfg.species.name, reference=_reference(cfg),
+        species=cfg.species.name, reference=reference_label(cfg),
         threshold_value=cfg.niche.threshold_value, maps=cfg.output.maps,
         vector=cfg.output.vector, geotiff=cfg.output.geotiff, report=cfg.output.report,
         projection=cfg.output.projection, dpi=cfg.output.dpi,
@@ -709,7 +541,7 @@ def run(
     out: str | os.PathLike,
     *,
     force: bool = False,
-    progress: Progress = _quiet,
+    progress: Progress = no_progress,
     command: list[str] | None = None,
     cache_dir: str | os.PathLike | None = None,
 ) -> RunResult:
