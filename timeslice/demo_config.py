@@ -130,12 +130,26 @@ geotiff = false
 
 
 def render_demo_config(data: str = ".") -> str:
-    """Return the demo config text with data paths below `data` (relative to the config file)."""
+    """Return the demo config text with data paths below `data` (relative to the config file).
+
+    Parameters
+    ----------
+    data : str
+        Folder of the demo data, as written in the config (relative to the config file).
+    """
     return _TEMPLATE.format(data=data)
 
 
 def write_config(path: str | os.PathLike, *, data: str = ".") -> Path:
-    """Write the demo config to `path` (atomically) and return the path."""
+    """Write the demo config to `path` (atomically) and return the path.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The config file to write.
+    data : str
+        Folder of the demo data, relative to the config file.
+    """
     path = Path(path)
     with atomic_path(path) as tmp:
         tmp.write_text(render_demo_config(data), encoding="utf-8")

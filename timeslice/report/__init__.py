@@ -3,7 +3,7 @@ run manifest."""
 
 from __future__ import annotations
 
-from timeslice.report.geotiff import export, export_file
+from timeslice.report.geotiff import check_regular, export, export_file, north_up_transform
 from timeslice.report.html import (
     DEFAULT_CAUTIONS,
     ReportContext,
@@ -50,6 +50,7 @@ __all__ = [
     "area_through_time",
     "centroid_track",
     "change_map",
+    "check_regular",
     "dominant_source_map",
     "export",
     "export_file",
@@ -58,6 +59,7 @@ __all__ = [
     "importance_bars",
     "key_numbers",
     "most_dissimilar_map",
+    "north_up_transform",
     "novelty_map",
     "open_series",
     "package_versions",

@@ -15,7 +15,17 @@ __all__ = ["file_stem", "output_path", "save_figure"]
 
 def save_figure(fig, path: str | os.PathLike, *, dpi: int) -> None:
     """Save a matplotlib figure as PNG with every text drawn as written: a ``$`` in a slice label
-    is a dollar sign, never the start of a mathematical formula (matplotlib's ``parse_math``)."""
+    is a dollar sign, never the start of a mathematical formula (matplotlib's ``parse_math``).
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        The figure.
+    path : str or os.PathLike
+        The file to write.
+    dpi : int
+        Resolution, dots per inch.
+    """
     import matplotlib
     from matplotlib.text import Text
 
@@ -33,6 +43,11 @@ def output_path(path: str | os.PathLike) -> Iterator[Path]:
     A target that is a folder, a folder that cannot be created or written, a full disk:
     each becomes an :class:`~timeslice.errors.InputFileError` naming the file and what to do;
     any earlier file at `path` stays as it was and no partial file is left behind.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The output file.
     """
     target = Path(path)
     if target.is_dir():

@@ -25,6 +25,13 @@ def principal_axes(background: pd.DataFrame, variables: list[str]):
     """Mean, standard deviation and the two leading principal axes (unit vectors) of the
     standardised calibration background, with their shares of variance.
 
+    Parameters
+    ----------
+    background : pandas.DataFrame
+        The background sample (the calibration climate).
+    variables : list of str
+        The predictors, columns of `background`.
+
     Returns
     -------
     (mean, sd, axes (k, 2), explained (2,))
@@ -70,6 +77,10 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
         Target PNG.
     max_points : int
         Land cells drawn per slice at most (a seeded random subset).
+    seed : int
+        Seed of the subsample of points drawn.
+    dpi : int
+        Resolution, dots per inch.
     """
     from matplotlib.figure import Figure
 

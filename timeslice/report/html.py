@@ -80,7 +80,7 @@ border-radius:6px;padding:.5em 1em;margin:.8em 0;color:#5f1010}
 class ReportContext:
     """Everything the HTML report shows.
 
-    Attributes
+    Parameters
     ----------
     title : str
         Report title.
@@ -276,6 +276,8 @@ def key_numbers(results: pd.DataFrame | None, *, series=None,
     series : xarray.Dataset, optional
         The summarised series; with a `refugium` layer a card gives the refugium area and the
         latitude-longitude box it spans.
+    refugium : str
+        Name of the refugium layer whose area the cards give.
 
     Returns
     -------
@@ -373,7 +375,13 @@ def _deg(value: float, pos: str, neg: str) -> str:
 
 
 def render_report(context: ReportContext) -> str:
-    """The report as one HTML string (see :func:`write_report`)."""
+    """The report as one HTML string (see :func:`write_report`).
+
+    Parameters
+    ----------
+    context : ReportContext
+        Everything the report shows.
+    """
     if not isinstance(context, ReportContext):
         raise DataError(
             f"write_report: `context` must be a ReportContext, got {type(context).__name__}"

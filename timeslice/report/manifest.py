@@ -54,7 +54,13 @@ def hash_file(path: str | os.PathLike, *, chunk_size: int = 1 << 20) -> str:
 
 
 def package_versions(names: Iterable[str] = DEPENDENCIES) -> dict[str, str | None]:
-    """Installed versions of `names` (None when a distribution is not installed)."""
+    """Installed versions of `names` (None when a distribution is not installed).
+
+    Parameters
+    ----------
+    names : iterable of str
+        Distribution names.
+    """
     out: dict[str, str | None] = {}
     for name in names:
         try:
@@ -142,6 +148,13 @@ def read_manifest(path: str | os.PathLike, *, verify: bool = True) -> dict[str, 
 
     Raises :class:`timeslice.errors.InputFileError` naming the first changed or missing
     input, so a rerun never silently uses different data.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The ``manifest.json``.
+    verify : bool
+        Check that every input still has its recorded SHA-256.
     """
     p = Path(path)
     if not p.is_file():

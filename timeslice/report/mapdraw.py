@@ -84,6 +84,15 @@ ICE_COLOUR = "#D6EAF8"
 
 
 def check_layer(ds: xr.Dataset, variable: str) -> None:
+    """Refuse, in one line, a dataset that lacks the layers a map needs.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The data to draw.
+    variable : str
+        The layer (or ``"reach"``/``"exdet"`` for the combined maps).
+    """
     if not isinstance(ds, xr.Dataset):
         raise DataError(f"maps: `ds` must be an xarray.Dataset, got {type(ds).__name__}")
     if variable == "reach":
@@ -106,7 +115,17 @@ def check_layer(ds: xr.Dataset, variable: str) -> None:
 
 
 def layer_values(ds: xr.Dataset, name: str, i: int | None) -> np.ndarray | None:
-    """2-D values of layer `name` for slice `i` (layers without a slice dim are shared)."""
+    """2-D values of layer `name` for slice `i` (layers without a slice dim are shared).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The data.
+    name : str
+        Layer name.
+    i : int or None
+        Index of the slice.
+    """
     if name == "exdet":
         nt1, nt2 = layer_values(ds, "nt1", i), layer_values(ds, "nt2", i)
         if nt1 is None or nt2 is None:
@@ -134,6 +153,17 @@ def coastline(ax, ds: xr.Dataset, i: int | None, fr: MapFrame) -> str | None:
 
     With an ``ice`` layer the coastline is the edge of land-or-ice and the ice sheet is
     shaded; without one the land mask's edge runs along coasts and ice margins alike.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The panel.
+    ds : xarray.Dataset
+        Data with ``land`` (per slice or shared).
+    i : int or None
+        Index of the panel's slice.
+    fr : MapFrame
+        The map frame.
     """
     land = layer_values(ds, "land", i)
     if land is None:
@@ -232,6 +262,19 @@ def outline(ax, ds, mask: np.ndarray | None, fr: MapFrame, **kw) -> None:
 
 
 def hatch_novel(ax, ds, i, fr: MapFrame) -> bool:
+    """Hatch the cells in novel climate (MESS < 0); returns whether any were hatched.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The panel.
+    ds : xarray.Dataset
+        Data with ``mess``.
+    i : int or None
+        Index of the panel's slice.
+    fr : MapFrame
+        The map frame.
+    """
     mess = layer_values(ds, "mess", i)
     if mess is None:
         return False
@@ -258,6 +301,18 @@ FIXED_RANGES: dict[str, tuple[float, float]] = {
 
 
 def norm_for(name: str, values: np.ndarray, ds: xr.Dataset | None = None):
+    """Colour normalisation of a continuous layer: fixed for the novelty and suitability
+    layers, k-of-n steps for agreement, else the 2-98 % range of the values.
+
+    Parameters
+    ----------
+    name : str
+        Layer name.
+    values : numpy.ndarray
+        The values drawn.
+    ds : xarray.Dataset, optional
+        Dataset (its ``n_models`` coordinate for agreement).
+    """
     if name == "agreement" and ds is not None and "n_models" in ds.coords:
         # k of n models: one colour per count, the colour bar in steps
         n = max(1, int(np.max(ds["n_models"].values)))
@@ -275,22 +330,55 @@ def norm_for(name: str, values: np.ndarray, ds: xr.Dataset | None = None):
 
 
 def extend_of(name: str) -> str:
+    """Which ends of a layer's colour bar carry arrows (values beyond the fixed range).
+
+    Parameters
+    ----------
+    name : str
+        Layer name.
+    """
     return {"mess": "both", "nt1": "min", "nt2": "max"}.get(name, "neither")
 
 
 def flag_colours(ds: xr.Dataset, name: str) -> dict[int, tuple[str, str]]:
     """Classes of a flag layer (values >= 0; negative flags mean no data): code -> (label,
-    colour), labels from ``flag_meanings`` ("model_x_scenario" drawn as "model × scenario")."""
+    colour), labels from ``flag_meanings`` ("model_x_scenario" drawn as "model × scenario").
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Dataset holding the layer.
+    name : str
+        Name of the flag layer.
+    """
     pairs = [(v, m) for v, m in flag_pairs(ds[name]) if v >= 0]
     return {v: (m.replace("_x_", " × ").replace("_", " "), FLAG_COLOURS[k % len(FLAG_COLOURS)])
             for k, (v, m) in enumerate(pairs)}
 
 
 def is_categorical(name: str, ds: xr.Dataset | None = None) -> bool:
+    """Whether a layer is drawn in classes rather than on a continuous scale.
+
+    Parameters
+    ----------
+    name : str
+        Layer name.
+    ds : xarray.Dataset, optional
+        Dataset that may hold a flag layer of that name.
+    """
     return name in CATEGORICAL or (name in FLAG_LAYERS and ds is not None and name in ds)
 
 
 def categorical_style(name: str = "change", ds: xr.Dataset | None = None):
+    """Colour map, norm and legend handles of a categorical layer.
+
+    Parameters
+    ----------
+    name : str
+        Layer name (a built-in categorical layer or a flag layer of `ds`).
+    ds : xarray.Dataset, optional
+        Dataset holding a flag layer's ``flag_meanings``.
+    """
     colours = CATEGORICAL[name] if name in CATEGORICAL else flag_colours(ds, name)
     codes = sorted(colours)
     cmap = ListedColormap([colours[c][1] for c in codes])
@@ -300,7 +388,23 @@ def categorical_style(name: str = "change", ds: xr.Dataset | None = None):
     return cmap, norm, handles
 
 def decorate(ax, fr: MapFrame, ds, i, name: str, *, scale_bar: bool = True) -> list:
-    """Overlays shared by every map; returns legend handles."""
+    """Overlays shared by every map; returns legend handles.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The panel.
+    fr : MapFrame
+        The map frame.
+    ds : xarray.Dataset
+        The data drawn.
+    i : int or None
+        Index of the panel's slice.
+    name : str
+        The layer drawn.
+    scale_bar : bool
+        Draw a scale bar.
+    """
     from matplotlib.lines import Line2D
 
     handles: list = []
@@ -334,7 +438,19 @@ def decorate(ax, fr: MapFrame, ds, i, name: str, *, scale_bar: bool = True) -> l
     return handles
 
 def agreement_overlays(ax, ds: xr.Dataset, i, fr: MapFrame) -> list:
-    """Majority outline and hatching where the models disagree (some, not all, suitable)."""
+    """Majority outline and hatching where the models disagree (some, not all, suitable).
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        The panel.
+    ds : xarray.Dataset
+        The ensemble dataset.
+    i : int
+        Index of the panel's slice.
+    fr : MapFrame
+        The map frame (projection, extent).
+    """
     from matplotlib.lines import Line2D
 
     handles: list = []

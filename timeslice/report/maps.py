@@ -487,6 +487,25 @@ def novelty_map(
     classes analog / novel combination (NT2 > 1) / outside a univariate range (NT1 < 0), in
     the colours of :data:`EXDET_COLOURS`. With ``columns="model"`` the panels form a grid:
     one column per climate model, one row per scenario and period, short titles.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series with the novelty layers.
+    path : str or os.PathLike
+        The figure file.
+    variable : {'mess', 'nt1', 'nt2', 'exdet'}
+        Layer drawn (``exdet``: NT1 and NT2 as classes).
+    slices : sequence of str, optional
+        Slices to draw (default all).
+    ncols : int, optional
+        Panels per row when no `columns` coordinate is used.
+    dpi : int
+        Resolution, dots per inch.
+    projection : str
+        Map projection.
+    columns : str or None
+        Coordinate laid out as columns (e.g. ``"model"``).
     """
     if variable not in ("mess", "nt1", "nt2", "exdet"):
         raise DataError("novelty_map: `variable` must be 'mess', 'nt1', 'nt2' or 'exdet', got "
@@ -522,6 +541,10 @@ def stability_map(
     patches : pandas.DataFrame, optional
         The refugium's patch table (:func:`timeslice.series.patches.patch_table`): the five
         largest patches are named on the map beside their centroids (R1 the largest).
+    dpi : int
+        Resolution, dots per inch.
+    projection : str
+        Map projection (``"lonlat"``, equal-area or polar).
     """
     from matplotlib.lines import Line2D
 
@@ -580,6 +603,23 @@ def reach_map(
     1 suitable and reached). Classes: unsuitable; suitable but not reached under the movement
     assumption; suitable and reached (:data:`REACH_COLOURS`). Suitability, reachability and
     novelty stay separate: the hatching marks novel climate whatever the class.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series with ``suitable`` and ``reachable``.
+    path : str or os.PathLike
+        The figure file.
+    slices : sequence of str, optional
+        Slices to draw (default all).
+    ncols : int, optional
+        Panels per row when no `columns` coordinate is used.
+    dpi : int
+        Resolution, dots per inch.
+    projection : str
+        Map projection.
+    columns : str or None
+        Coordinate laid out as columns (default ``"model"``).
     """
     check_layer(ds, "reach")
     movement = ds[REACH_LAYER].attrs.get("movement_assumption")
@@ -605,6 +645,21 @@ def most_dissimilar_map(
     to look at when deciding how far to trust the projection there. Classes are named by the
     layer's ``flag_meanings``; colours :data:`FLAG_COLOURS`. The panels form a grid with one
     column per value of `columns` (default the climate model).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The series with ``most_dissimilar`` and ``mess``.
+    path : str or os.PathLike
+        The figure file.
+    slices : sequence of str, optional
+        Slices to draw (default all).
+    dpi : int
+        Resolution, dots per inch.
+    projection : str
+        Map projection.
+    columns : str or None
+        Coordinate laid out as columns (default ``"model"``).
     """
     check_layer(ds, "most_dissimilar")
     return _panel(ds, "most_dissimilar", _slice_indices(ds, slices), path, ncols=None,
@@ -648,6 +703,10 @@ def agreement_map(
         PNG file.
     land : xarray.DataArray, optional
         Land mask (lat, lon) for the coastline; default: where any model has land.
+    dpi : int
+        Resolution, dots per inch.
+    projection : str
+        Map projection (``"lonlat"``, equal-area or polar).
 
     Returns
     -------
@@ -676,7 +735,21 @@ def dominant_source_map(
 ) -> Path:
     """The dominant source of uncertainty per cell and period: the factor (or interaction)
     with the largest share of the suitability variance (``dominant`` of
-    :func:`timeslice.series.ensemble.partition`), one panel per future period."""
+    :func:`timeslice.series.ensemble.partition`), one panel per future period.
+
+    Parameters
+    ----------
+    ensemble : xarray.Dataset
+        ``ensemble.nc`` with the ``dominant`` layer.
+    path : str or os.PathLike
+        The figure file.
+    land : xarray.DataArray, optional
+        Land mask for the coastline.
+    dpi : int
+        Resolution, dots per inch.
+    projection : str
+        Map projection.
+    """
     if not isinstance(ensemble, xr.Dataset) or "dominant" not in ensemble:
         raise DataError("dominant_source_map: `ensemble` has no `dominant` layer; it needs "
                         "the variance partitioning (two factors with two or more levels)")

@@ -41,6 +41,29 @@ def methods_paragraph(
     `n_slices` counts the transferred slices without the observed baseline; `window` is the
     refugium window actually used (slice labels or periods, a year range, or None for every
     slice).
+
+    Parameters
+    ----------
+    species : str
+        Species name.
+    fit_params : mapping
+        The fit's parameters (algorithm, threshold, background, calibration, screening).
+    n_slices : int
+        Number of slices projected onto.
+    models : sequence of str
+        Climate models.
+    scenarios : sequence of str
+        Scenarios.
+    reference : str
+        Label of the reference slice.
+    clamp : bool
+        Whether predictors were clamped to the calibration range.
+    evaluation : pandas.DataFrame, optional
+        Spatial cross-validation scores.
+    window : sequence of str or (float, float), optional
+        The refugium window.
+    cell_km : float, optional
+        Typical cell size, km (for the resolution note).
     """
     p = dict(fit_params)
     from timeslice.niche.registry import methods_text
@@ -119,6 +142,11 @@ def resolution_note(cell_km: float) -> str:
     10:1115) holds that biotic interactions shape distributions mostly at fine grain and
     fade in coarse-grained, broad-extent maps; it names no sharp cell size. The bands here
     (below ~10 km, 10-50 km, above ~50 km) are our reading of it (common practice, from memory).
+
+    Parameters
+    ----------
+    cell_km : float
+        Typical cell size, km.
     """
     size = f"{cell_km:,.0f} km" if cell_km >= 10 else f"{cell_km:.1f} km"
     if cell_km < 10:
@@ -141,6 +169,11 @@ def findings(results: pd.DataFrame) -> list[str]:
 
     Every number is read from the key-results table (:func:`timeslice.series.key_results`),
     the same rows the report cards, ``tables/key_results.csv`` and the command line show.
+
+    Parameters
+    ----------
+    results : pandas.DataFrame
+        The key-results table (:func:`timeslice.series.analysis.key_results`).
     """
     out: list[str] = []
     if results is None or results.empty:

@@ -156,6 +156,14 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
         The summary table (columns ``year``, ``model``, ``scenario``, ``suitable_area_km2``).
     path : path-like
         PNG file.
+    column : str
+        Column of the table plotted.
+    ylabel : str
+        Label of the y axis.
+    title : str
+        Figure title.
+    dpi : int
+        Resolution, dots per inch.
 
     Returns
     -------
@@ -205,7 +213,17 @@ def area_through_time(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: in
 
 
 def gain_loss_bars(summary: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110) -> Path:
-    """Horizontal bars per slice: gain to the right, loss to the left, stable as a marker."""
+    """Horizontal bars per slice: gain to the right, loss to the left, stable as a marker.
+
+    Parameters
+    ----------
+    summary : pandas.DataFrame
+        One row per slice (summary.csv).
+    path : str or os.PathLike
+        The figure file.
+    dpi : int
+        Resolution, dots per inch.
+    """
     _need(summary, _SUMMARY_COLUMNS, "gain_loss_bars")
     df = summary[summary["scenario"].astype(str) != "baseline"].reset_index(drop=True)
     if df.empty:
@@ -247,6 +265,10 @@ def centroid_track(summary: pd.DataFrame, path: str | os.PathLike, *, land=None,
         longitudes (a grid across 180° is one piece).
     projection : {"lonlat", "equal_area", "polar"}
         As for the maps (:data:`timeslice.report.maps.PROJECTIONS`).
+    path : str or os.PathLike
+        The figure file.
+    dpi : int
+        Resolution, dots per inch.
     """
     from timeslice.grid import wrap_lon
     from timeslice.report.mapframe import extent_frame, map_axes, map_frame
@@ -319,6 +341,10 @@ def shift_plot(shifts: pd.DataFrame, path: str | os.PathLike, *, dpi: int = 110)
         ``centroid_lat``; for elevation ``elevation_q50_m`` (with ``elevation_q10_m``,
         ``elevation_q90_m``) or ``elevation_mean_m``. One row of panels per quantity present;
         past and future slices on separate panels as in :func:`area_through_time`.
+    path : str or os.PathLike
+        The figure file.
+    dpi : int
+        Resolution, dots per inch.
 
     Returns
     -------
@@ -382,6 +408,14 @@ def response_curves(df: pd.DataFrame, path: str | os.PathLike, *, ncols: int = 3
         Long table with columns ``variable, value, suitability, inside_calibration``
         (bool: the value lies within the range seen in the calibration area). Outside that
         range the curve is an extrapolation and drawn dashed.
+    path : str or os.PathLike
+        The figure file.
+    ncols : int
+        Panels per row.
+    title : str
+        Figure title.
+    dpi : int
+        Resolution, dots per inch.
     """
     _need(df, ("variable", "value", "suitability", "inside_calibration"), "response_curves")
     variables = list(dict.fromkeys(df["variable"].astype(str)))
@@ -427,6 +461,8 @@ def importance_bars(importance: pd.DataFrame, path: str | os.PathLike, *,
         in training AUC when the predictor is shuffled).
     path : path-like
         PNG file.
+    dpi : int
+        Resolution, dots per inch.
     """
     _need(importance, ("variable", "importance_mean"), "importance_bars")
     df = importance.dropna(subset=["importance_mean"])
@@ -462,6 +498,8 @@ def threshold_plot(thresholds: pd.DataFrame, path: str | os.PathLike, *,
         PNG file.
     reference : str
         Label of the reference slice (left out).
+    dpi : int
+        Resolution, dots per inch.
     """
     _need(thresholds, ("rule", "threshold", "slice", "scenario", "period", "change_pct"),
           "threshold_plot")

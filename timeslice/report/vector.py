@@ -123,7 +123,15 @@ def _feature(geom, properties: dict[str, Any]) -> dict[str, Any]:
 
 def patch_features(labels: xr.DataArray, table: pd.DataFrame) -> list[dict[str, Any]]:
     """GeoJSON features of the refugium patches: one (Multi)Polygon per patch, largest first,
-    with the row of :func:`timeslice.series.patches.patch_table` as its properties."""
+    with the row of :func:`timeslice.series.patches.patch_table` as its properties.
+
+    Parameters
+    ----------
+    labels : xarray.DataArray
+        Patch labels per cell (0 outside every patch).
+    table : pandas.DataFrame
+        One row per patch (:func:`timeslice.series.patches.patch_table`).
+    """
     from shapely.geometry import Polygon
 
     lab = labels.transpose("lat", "lon")
@@ -134,7 +142,15 @@ def patch_features(labels: xr.DataArray, table: pd.DataFrame) -> list[dict[str, 
 
 def suitable_features(series: xr.Dataset, *, variable: str = "suitable") -> list[dict[str, Any]]:
     """GeoJSON features of the suitable area of every slice (``variable`` == 1), with the
-    slice's label, year, period, model, scenario and its raster area [km2]."""
+    slice's label, year, period, model, scenario and its raster area [km2].
+
+    Parameters
+    ----------
+    series : xarray.Dataset
+        The series.
+    variable : str
+        The 0/1 layer outlined.
+    """
     if variable not in series.data_vars or "slice" not in series[variable].dims:
         raise DataError(f"vector export: the series has no per-slice layer {variable!r}")
     area = cell_area(series).values
@@ -154,7 +170,17 @@ def suitable_features(series: xr.Dataset, *, variable: str = "suitable") -> list
 
 def write_geojson(features: Sequence[dict[str, Any]], path: str | os.PathLike, *,
                   description: str = "") -> Path:
-    """Write a GeoJSON FeatureCollection (atomically)."""
+    """Write a GeoJSON FeatureCollection (atomically).
+
+    Parameters
+    ----------
+    features : sequence of dict
+        GeoJSON features.
+    path : str or os.PathLike
+        The file to write.
+    description : str
+        Text stored in the collection's ``description``.
+    """
     doc: dict[str, Any] = {"type": "FeatureCollection", "features": list(features)}
     if description:
         doc["description"] = description

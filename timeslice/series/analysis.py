@@ -29,7 +29,7 @@ __all__ = ["SeriesResult", "analyse_series", "change_by_scope", "change_rows", "
 class SeriesResult:
     """Outputs of :func:`analyse_series`.
 
-    Attributes
+    Parameters
     ----------
     series : xarray.Dataset
         The stacked series with every summary layer (for ``series.nc``).
@@ -42,6 +42,10 @@ class SeriesResult:
         ``"movement"``, ``"agreement"``, ``"partition"``, ``"hindcast"``.
     notes : list of str
         What was skipped and why (for the report and the log).
+    reference : str or None
+        Label of the reference slice that change is measured against.
+    window : object
+        The refugium window used (slice labels/periods, a year range, or None for all slices).
     """
 
     series: xr.Dataset

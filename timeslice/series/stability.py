@@ -85,6 +85,8 @@ def select_window(obj, window=None, *, dim: str = "slice"):
         Slice labels or periods (a period selects every slice with it, e.g. all models'
         ``"21 ka BP"``), or ``(year_min, year_max)`` in years CE, inclusive (a slice *a* years
         BP has year 1950 − a, so 21 ka BP → present is ``(-19050, 2000)``).
+    dim : str
+        Name of the slice dimension.
 
     Returns
     -------
