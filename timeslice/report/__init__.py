@@ -27,7 +27,7 @@ from timeslice.report.maps import (
     slice_maps,
     stability_map,
 )
-from timeslice.report.netcdf import open_series, prepare_cf, write_series
+from timeslice.report.netcdf import open_series, prepare_cf, restore_series, write_series
 from timeslice.report.plots import (
     area_through_time,
     centroid_track,
@@ -68,6 +68,7 @@ __all__ = [
     "read_manifest",
     "render_report",
     "response_curves",
+    "restore_series",
     "series_panel",
     "shift_plot",
     "slice_maps",

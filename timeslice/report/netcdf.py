@@ -24,7 +24,7 @@ from timeslice.grid import cell_area, grid_edges
 from timeslice.report._output import output_path
 from timeslice import layers
 
-__all__ = ["open_series", "prepare_cf", "write_series"]
+__all__ = ["open_series", "prepare_cf", "restore_series", "write_series"]
 
 #: WGS84 ellipsoid (NIMA TR8350.2, 3rd ed., 2000): semi-major axis and inverse flattening.
 _WGS84_A = 6378137.0
@@ -362,11 +362,36 @@ def open_series(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
         ds = xr.open_dataset(target, engine="netcdf4", **kwargs)
     except (OSError, ValueError) as err:
         raise InputFileError(f"{target}: not a readable NetCDF file ({err})") from err
+    return restore_series(ds)
+
+
+def restore_series(ds: xr.Dataset) -> xr.Dataset:
+    """Undo the on-disk encoding of a written series: text labels back as the dimension index,
+    boolean masks back as booleans, text coordinates as numpy strings.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        A series as stored (NetCDF or Zarr).
+
+    Returns
+    -------
+    xarray.Dataset
+        ``slice`` (and any other labelled dimension) indexed by its labels, masks boolean.
+    """
+    for name in list(ds.coords):
+        if ds[name].dtype.kind == "T" or (ds[name].dtype.kind == "U" and name not in ds.dims):
+            # numpy's variable-width strings (Zarr v3): the fixed-width strings NetCDF gives
+            attrs = dict(ds[name].attrs)
+            text = np.asarray([str(x) for x in np.asarray(ds[name].values).ravel()]
+                              ).reshape(ds[name].shape)
+            ds = ds.assign_coords({name: (ds[name].dims, text)})
+            ds[name].attrs = attrs
     for dim in list(ds.dims):
         label = f"{dim}_label"
         if label in ds.variables and ds[label].dims == (dim,) and dim not in ds.coords:
             attrs = dict(ds[label].attrs)
-            ds = ds.assign_coords({dim: (dim, ds[label].values.astype(str))})
+            ds = ds.assign_coords({dim: (dim, np.asarray([str(x) for x in ds[label].values]))})
             ds = ds.drop_vars(label)
             ds[dim].attrs = attrs
     for name in list(ds.data_vars):

@@ -30,7 +30,7 @@ import xarray as xr
 
 from timeslice.errors import DataError, InputFileError
 
-__all__ = ["STORE_TARGET_CELLS", "ZARR_FORMAT", "open_store", "restore_series", "series_writer",
+__all__ = ["STORE_TARGET_CELLS", "ZARR_FORMAT", "open_store", "series_writer",
            "store_chunks", "write_store"]
 
 #: Cells per chunk the writer aims at (a chunk is one slice by whole rows): about 4 MB of
@@ -203,49 +203,6 @@ def write_store(
     return target
 
 
-def restore_series(ds: xr.Dataset) -> xr.Dataset:
-    """Undo the on-disk encoding of a written series: text labels back as the dimension index,
-    boolean masks back as booleans, text coordinates as numpy strings.
-
-    Parameters
-    ----------
-    ds : xarray.Dataset
-        A series as stored (NetCDF or Zarr).
-
-    Returns
-    -------
-    xarray.Dataset
-        ``slice`` (and any other labelled dimension) indexed by its labels, masks boolean.
-    """
-    from timeslice import layers
-
-    for name in list(ds.coords):
-        if ds[name].dtype.kind == "T" or (ds[name].dtype.kind == "U" and name not in ds.dims):
-            # numpy's variable-width strings (Zarr v3): the fixed-width strings NetCDF gives
-            attrs = dict(ds[name].attrs)
-            text = np.asarray([str(x) for x in np.asarray(ds[name].values).ravel()]
-                              ).reshape(ds[name].shape)
-            ds = ds.assign_coords({name: (ds[name].dims, text)})
-            ds[name].attrs = attrs
-    for dim in list(ds.dims):
-        label = f"{dim}_label"
-        if label in ds.variables and ds[label].dims == (dim,) and dim not in ds.coords:
-            attrs = dict(ds[label].attrs)
-            ds = ds.assign_coords({dim: (dim, np.asarray([str(x) for x in ds[label].values]))})
-            ds = ds.drop_vars(label)
-            ds[dim].attrs = attrs
-    for name in list(ds.data_vars):
-        entry = layers.spec(name)
-        flags = np.asarray(ds[name].attrs.get("flag_values", [])).tolist()
-        if entry is not None and entry.bool_flags is not None and flags == [0, 1]:
-            attrs = {k: v for k, v in ds[name].attrs.items()
-                     if k not in ("flag_values", "flag_meanings")}
-            ds[name] = (ds[name] == 1).assign_attrs(attrs)
-    if "mod" in ds.data_vars and "most_dissimilar" not in ds.data_vars:
-        ds = ds.rename({"mod": "most_dissimilar"})
-    return ds
-
-
 def open_store(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
     """Open a written series, NetCDF file or Zarr store alike, as :func:`open_series` does.
 
@@ -262,7 +219,7 @@ def open_store(path: str | os.PathLike, **kwargs: Any) -> xr.Dataset:
     xarray.Dataset
         ``slice`` labels as the index, flag layers integers, masks boolean.
     """
-    from timeslice.report.netcdf import open_series
+    from timeslice.report.netcdf import open_series, restore_series
 
     target = Path(path)
     if target.is_dir() and target.suffix != ".zarr":
