@@ -374,6 +374,33 @@ def _deg(value: float, pos: str, neg: str) -> str:
     return f"{abs(value):.1f}° {pos if value >= 0 else neg}"
 
 
+def _cards_section(cards) -> str:
+    """The headline cards: (label, value) or (label, value, detail) each."""
+    items = []
+    for card in cards:
+        if not 2 <= len(card) <= 3:
+            raise DataError("ReportContext.key_numbers: each entry must be (label, value) or "
+                            f"(label, value, detail), got {card!r}")
+        label, main, detail = (*card, "")[:3]
+        items.append(f'<div class="key"><span>{_e(label)}</span><b>{_e(main)}</b>'
+                     + (f"<small>{_e(detail)}</small>" if detail else "") + "</div>")
+    return '<section id="keys"><div class="keys">' + "".join(items) + "</div></section>"
+
+
+def _outputs_section(outputs) -> str:
+    """The list of the run's files, as links relative to the report's folder."""
+    items = []
+    for what, rel in outputs.items():
+        raw = str(rel)
+        rel_s = Path(rel).as_posix()
+        if Path(rel).is_absolute() or ":" in raw or rel_s.startswith(".."):
+            raise DataError(f"ReportContext.outputs[{what!r}]: give a path relative to the "
+                            f"report's folder, got {rel_s!r}")
+        items.append(f'<li><a href="{_e(rel_s)}">{_e(rel_s)}</a> — {_e(what)}</li>')
+    return ('<section id="outputs"><h2>Files of this run</h2><ul>' + "".join(items)
+            + "</ul></section>")
+
+
 def render_report(context: ReportContext) -> str:
     """The report as one HTML string (see :func:`write_report`).
 
@@ -407,15 +434,7 @@ def render_report(context: ReportContext) -> str:
             for a in context.alerts) + "</section>")
     cards = list(context.key_numbers) or key_numbers(context.summary)
     if cards:
-        items = []
-        for card in cards:
-            if not 2 <= len(card) <= 3:
-                raise DataError("ReportContext.key_numbers: each entry must be (label, value) or "
-                                f"(label, value, detail), got {card!r}")
-            label, main, detail = (*card, "")[:3]
-            items.append(f'<div class="key"><span>{_e(label)}</span><b>{_e(main)}</b>'
-                         + (f"<small>{_e(detail)}</small>" if detail else "") + "</div>")
-        body.append('<section id="keys"><div class="keys">' + "".join(items) + "</div></section>")
+        body.append(_cards_section(cards))
     body.append('<section id="cautions"><h2>Read this first</h2><div class="cautions"><ul>'
                 + "".join(f"<li>{_e(c)}</li>" for c in context.cautions)
                 + "</ul></div></section>")
@@ -464,16 +483,7 @@ def render_report(context: ReportContext) -> str:
         sections.append(("methods", "Methods"))
 
     if context.outputs:
-        items = []
-        for what, rel in context.outputs.items():
-            raw = str(rel)
-            rel_s = Path(rel).as_posix()
-            if Path(rel).is_absolute() or ":" in raw or rel_s.startswith(".."):
-                raise DataError(f"ReportContext.outputs[{what!r}]: give a path relative to the "
-                                f"report's folder, got {rel_s!r}")
-            items.append(f'<li><a href="{_e(rel_s)}">{_e(rel_s)}</a> — {_e(what)}</li>')
-        body.append('<section id="outputs"><h2>Files of this run</h2><ul>' + "".join(items)
-                    + "</ul></section>")
+        body.append(_outputs_section(context.outputs))
         sections.append(("outputs", "Files of this run"))
 
     if context.run_info:

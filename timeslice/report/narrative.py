@@ -76,32 +76,8 @@ def methods_paragraph(
         "thinned to one record per grid cell" if thin == "cell"
         else f"thinned to a minimum spacing of {thin} km" if thin else "not thinned"
     )
-    ev = ""
-    if evaluation is not None and "summary" in evaluation and "auc" in evaluation:
-        mean = evaluation[evaluation["summary"] == "mean"]
-        sd = evaluation[evaluation["summary"] == "sd"]
-        if len(mean):
-            ev = (
-                f" Spatial block cross-validation ({p.get('cv_folds')} folds, blocks of "
-                f"{p.get('cv_block_km')} km; Roberts et al. 2017, Ecography 40:913) gave AUC "
-                f"{float(mean['auc'].iloc[0]):.3f} ± {float(sd['auc'].iloc[0]):.3f} and continuous "
-                f"Boyce index {float(mean['boyce'].iloc[0]):.2f} (Hirzel et al. 2006)."
-            )
-    cal = str(p.get("calibration", "buffer"))
-    cal_txt = {
-        "buffer": f"a {p.get('buffer_km')} km geodesic buffer around the records on land",
-        "hull_buffer": (f"the convex hull of the records widened by a {p.get('buffer_km')} km "
-                        "geodesic buffer, on land"),
-        "mask": "the calibration mask given in the configuration, on land",
-    }.get(cal, cal)
-    if str(p.get("background", "")).startswith("target-group"):
-        back_txt = (f"{p.get('n_background')} background points were taken from the "
-                    "target-group file given (records of related species sampled the same way, "
-                    "which carries their sampling bias into the background; Phillips et al. "
-                    "2009, Ecol. Appl. 19:181)")
-    else:
-        back_txt = (f"{p.get('n_background')} background cells were drawn from it in proportion "
-                    "to their area on the sphere")
+    ev = _evaluation_text(evaluation, p)
+    cal_txt, back_txt = _calibration_texts(p)
     if window is None:
         win_txt = "every slice of the series"
     elif isinstance(window, tuple) and len(window) == 2:
@@ -133,6 +109,42 @@ def methods_paragraph(
         f"Moritz 2008; Graham et al. 2010)."
         + (f" {resolution_note(cell_km)}" if cell_km is not None else "")
     )
+
+
+def _evaluation_text(evaluation, p: dict) -> str:
+    """The cross-validation sentence of the methods paragraph ("" without scores)."""
+    ev = ""
+    if evaluation is not None and "summary" in evaluation and "auc" in evaluation:
+        mean = evaluation[evaluation["summary"] == "mean"]
+        sd = evaluation[evaluation["summary"] == "sd"]
+        if len(mean):
+            ev = (
+                f" Spatial block cross-validation ({p.get('cv_folds')} folds, blocks of "
+                f"{p.get('cv_block_km')} km; Roberts et al. 2017, Ecography 40:913) gave AUC "
+                f"{float(mean['auc'].iloc[0]):.3f} ± {float(sd['auc'].iloc[0]):.3f} and continuous "
+                f"Boyce index {float(mean['boyce'].iloc[0]):.2f} (Hirzel et al. 2006)."
+            )
+    return ev
+
+
+def _calibration_texts(p: dict) -> tuple[str, str]:
+    """The calibration-area and background clauses of the methods paragraph."""
+    cal = str(p.get("calibration", "buffer"))
+    cal_txt = {
+        "buffer": f"a {p.get('buffer_km')} km geodesic buffer around the records on land",
+        "hull_buffer": (f"the convex hull of the records widened by a {p.get('buffer_km')} km "
+                        "geodesic buffer, on land"),
+        "mask": "the calibration mask given in the configuration, on land",
+    }.get(cal, cal)
+    if str(p.get("background", "")).startswith("target-group"):
+        back_txt = (f"{p.get('n_background')} background points were taken from the "
+                    "target-group file given (records of related species sampled the same way, "
+                    "which carries their sampling bias into the background; Phillips et al. "
+                    "2009, Ecol. Appl. 19:181)")
+    else:
+        back_txt = (f"{p.get('n_background')} background cells were drawn from it in proportion "
+                    "to their area on the sphere")
+    return cal_txt, back_txt
 
 
 def resolution_note(cell_km: float) -> str:
