@@ -21,7 +21,8 @@ from timeslice.report import (
     novelty_map,
     threshold_plot,
 )
-from timeslice.report.maps import _flag_colours, _grid_places
+from timeslice.report.maps import _flag_colours
+from timeslice.report.panelgrid import grid_places as _grid_places
 from timeslice.series.ensemble import agreement, factorial, partition
 
 PNG = b"\x89PNG\r\n\x1a\n"

@@ -23,10 +23,6 @@ _DEFAULT_VARIABLES = (
 )
 
 
-def _safe(text: str) -> str:
-    return file_stem(text)
-
-
 def check_regular(coord: np.ndarray, name: str) -> None:
     """Refuse an axis that is not ascending with equal steps.
 
@@ -227,7 +223,7 @@ def _export_layer(ds: xr.Dataset, name: str, out: Path, *, transform,
     out_dtype, nodata = _storage(da.dtype)
     desc, tags = _tags(ds, name)
     if not extra:
-        path = out / f"{_safe(name)}.tif"
+        path = out / f"{file_stem(name)}.tif"
         band = np.asarray(da.values).astype(out_dtype)
         _write_one(band[::-1].copy(), path, transform=transform, nodata=nodata,
                    description=desc, tags=tags, driver=driver)
@@ -241,7 +237,7 @@ def _export_layer(ds: xr.Dataset, name: str, out: Path, *, transform,
     axes = [list(enumerate(labels_of(d))) for d in extra]
     for combo in itertools.product(*axes):
         label = " ".join(lab for _, lab in combo)
-        path = out / ("_".join([_safe(name), *(_safe(lab) for _, lab in combo)]) + ".tif")
+        path = out / ("_".join([file_stem(name), *(file_stem(lab) for _, lab in combo)]) + ".tif")
         t = dict(tags, slice=label)
         for dim, (i, lab) in zip(extra, combo):
             if dim != "slice":

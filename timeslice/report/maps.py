@@ -41,7 +41,6 @@ from timeslice.report.mapdraw import (
     FLAG_COLOURS,
     REACH_COLOURS,
     REACH_LAYER,
-    agreement_overlays,
     categorical_style,
     check_layer,
     decorate,
@@ -56,7 +55,6 @@ from timeslice.report.mapframe import (
     PROJECTIONS,
     MapFrame,
     Projection,
-    extent_frame,
     graticule,
     map_aspect,
     map_axes,
@@ -66,6 +64,7 @@ from timeslice.report.mapframe import (
     set_extent,
 )
 from timeslice.report.maplayout import panel_layout, single_layout, wrap
+from timeslice.report.panelgrid import panel_places, slice_indices
 
 __all__ = [
     "CHANGE_COLOURS",
@@ -182,75 +181,6 @@ def _single(ds: xr.Dataset, name: str, i: int | None, path: Path, *, title: str,
     return save(fig, path, dpi=dpi)
 
 
-def _safe(text: str) -> str:
-    return file_stem(text)
-
-
-def _slice_indices(ds: xr.Dataset, slices: Sequence[str] | None) -> list[int]:
-    if "slice" not in ds.dims:
-        return []
-    labels = slice_labels(ds)
-    if slices is None:
-        return list(range(len(labels)))
-    missing = [s for s in slices if s not in labels]
-    if missing:
-        raise DataError(f"maps: slices {missing} are not in the series; choose from {labels}")
-    return [labels.index(s) for s in slices]
-
-
-def _grid_places(ds: xr.Dataset, idx: list[int], columns: str
-                 ) -> tuple[dict[int, tuple[int, int]], list[str], list[str]]:
-    """Panel (row, column) of every slice: columns are the values of slice coordinate
-    `columns` (e.g. the climate model), rows the other slice metadata (scenario, period), both
-    in order of first appearance; also the row and column labels."""
-    keys = [k for k in ("scenario", "period", "model") if k != columns and k in ds.coords
-            and ds[k].dims == ("slice",)]
-
-    def row_of(i: int) -> str:
-        return " ".join(str(ds[k].values[i]) for k in keys) if keys else slice_labels(ds)[i]
-
-    rows = list(dict.fromkeys(row_of(i) for i in idx))
-    cols = list(dict.fromkeys(str(ds[columns].values[i]) for i in idx))
-    places: dict[int, tuple[int, int]] = {}
-    taken: set[tuple[int, int]] = set()
-    for i in idx:
-        r = rows.index(row_of(i))
-        c = cols.index(str(ds[columns].values[i]))
-        if (r, c) in taken:  # two slices share row and column: the grid cannot hold them
-            return {}, rows, cols
-        taken.add((r, c))
-        places[i] = (r, c)
-    # every row starts at the left (the baseline's one panel, the past's periods): full rows
-    # keep their columns aligned, shorter rows leave no gap at the left
-    for r in range(len(rows)):
-        mine = sorted((c, i) for i, (rr, c) in places.items() if rr == r)
-        for k, (_, i) in enumerate(mine):
-            places[i] = (r, k)
-    return places, rows, cols
-
-
-def _short_title(ds: xr.Dataset, i: int, columns: str | None) -> str:
-    """Panel title in a grid: scenario and period, then the column's value (the model)."""
-    parts = [str(ds[k].values[i]) for k in ("scenario", "period")
-             if k in ds.coords and ds[k].dims == ("slice",) and k != columns]
-    head = " ".join(parts) or slice_labels(ds)[i]
-    if columns and columns in ds.coords and ds[columns].dims == ("slice",):
-        return f"{head} · {ds[columns].values[i]}"
-    return head
-
-
-def _places(ds: xr.Dataset, idx: list[int], columns: str | None, ncols: int | None):
-    """(places, row labels or None, panel titles) of a panel figure."""
-    if columns is not None and columns in ds.coords and ds[columns].dims == ("slice",):
-        places, rows, _ = _grid_places(ds, idx, columns)
-        if places:
-            titles = {i: str(ds[columns].values[i]) for i in idx}
-            return places, rows, titles
-    ncols = ncols or min(len(idx), 3)
-    places = {i: (k // ncols, k % ncols) for k, i in enumerate(idx)}
-    return places, None, {i: slice_title(ds, i) for i in idx}
-
-
 def _panel_norm(ds: xr.Dataset, name: str, idx: list[int]):
     if is_categorical(name, ds):
         return None
@@ -279,7 +209,7 @@ def _panel(ds: xr.Dataset, name: str, idx: list[int], path: str | os.PathLike, *
     """A grid of map panels of layer `name`, laid out once (see :mod:`maplayout`)."""
     if not idx:
         raise DataError(f"maps: no slices to draw for {name!r}")
-    places, rows, titles = _places(ds, idx, columns, ncols)
+    places, rows, titles = panel_places(ds, idx, columns, ncols)
     nrows = max(r for r, _ in places.values()) + 1
     ncols = max(c for _, c in places.values()) + 1
     fr = map_frame(ds, projection)
@@ -368,15 +298,14 @@ def slice_maps(
     check_layer(ds, variable)
     out = Path(out_dir)
     paths = []
-    for i in _slice_indices(ds, slices):
+    for i in slice_indices(ds, slices):
         label = slice_labels(ds)[i]
-        path = figure_file(out / f"{_safe(variable)}_{_safe(label)}.png", figure_format)
+        path = figure_file(out / f"{file_stem(variable)}_{file_stem(label)}.png", figure_format)
         title = f"{CONTINUOUS.get(variable, (None, variable))[1].split(' (')[0]} — " \
             f"{slice_title(ds, i)}"
         paths.append(_single(ds, variable, i, path, title=title, dpi=dpi,
                              projection=projection))
     return paths
-
 
 
 def series_panel(
@@ -419,7 +348,7 @@ def series_panel(
     """
     check_layer(ds, variable)
     label = CONTINUOUS.get(variable, (None, variable))[1]
-    return _panel(ds, variable, _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
+    return _panel(ds, variable, slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
                   suptitle=f"{label} across the series", projection=projection,
                   columns=columns)
 
@@ -462,7 +391,7 @@ def change_map(
     pathlib.Path
     """
     check_layer(ds, "change")
-    idx = _slice_indices(ds, slices)
+    idx = slice_indices(ds, slices)
     if slices is None and len(idx) > 1:
         idx = idx[1:]
     return _panel(ds, "change", idx, path, ncols=ncols, dpi=dpi,
@@ -513,7 +442,7 @@ def novelty_map(
     check_layer(ds, variable)
     title = ("ExDet classes (Mesgaran et al. 2014)" if variable == "exdet"
              else CONTINUOUS[variable][1])
-    return _panel(ds, variable, _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
+    return _panel(ds, variable, slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
                   suptitle=f"Climate novelty: {title}", projection=projection, columns=columns)
 
 
@@ -624,7 +553,7 @@ def reach_map(
     check_layer(ds, "reach")
     movement = ds[REACH_LAYER].attrs.get("movement_assumption")
     what = f" ({movement} movement)" if movement else ""
-    return _panel(ds, "reach", _slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
+    return _panel(ds, "reach", slice_indices(ds, slices), path, ncols=ncols, dpi=dpi,
                   suptitle=f"Suitable and reachable{what}", projection=projection,
                   columns=columns)
 
@@ -662,7 +591,7 @@ def most_dissimilar_map(
         Coordinate laid out as columns (default ``"model"``).
     """
     check_layer(ds, "most_dissimilar")
-    return _panel(ds, "most_dissimilar", _slice_indices(ds, slices), path, ncols=None,
+    return _panel(ds, "most_dissimilar", slice_indices(ds, slices), path, ncols=None,
                   dpi=dpi, suptitle="Most dissimilar variable (the predictor that sets MESS; "
                   "hatched: novel climate, MESS < 0)", projection=projection, columns=columns)
 
@@ -679,7 +608,6 @@ def _as_panels(ens: xr.Dataset, dim: str, names: Sequence[str],
     else:
         out["land"] = np.isfinite(out[names[0]].astype(float))
     return out
-
 
 
 def agreement_map(
