@@ -138,12 +138,34 @@ def summary_df(series_big) -> pd.DataFrame:
 
 @pytest.fixture(autouse=True)
 def no_network(monkeypatch):
-    """Every report test runs with outgoing connections refused: nothing may download."""
+    """Every report test runs with outgoing connections refused: nothing may download.
+
+    Connections to this machine's loopback address stay open: a local dask cluster's workers
+    talk to their scheduler over it, and nothing can be fetched from there.
+    """
+    import ipaddress
     import socket
 
-    def _refuse(*args, **kwargs):
-        raise OSError("network access is not allowed in the report tests")
+    def _loopback(address) -> bool:
+        host = address[0] if isinstance(address, tuple) else None
+        if host is None:  # a Unix socket path: local by definition
+            return isinstance(address, (str, bytes))
+        try:
+            return ipaddress.ip_address(host).is_loopback
+        except ValueError:
+            return host == "localhost"
 
-    monkeypatch.setattr(socket.socket, "connect", _refuse)
-    monkeypatch.setattr(socket.socket, "connect_ex", _refuse)
-    monkeypatch.setattr(socket, "create_connection", _refuse)
+    connect, connect_ex, create = (socket.socket.connect, socket.socket.connect_ex,
+                                   socket.create_connection)
+
+    def _guard(original):
+        def call(*args, **kwargs):
+            address = args[1] if original is not create else args[0]
+            if _loopback(address):
+                return original(*args, **kwargs)
+            raise OSError("network access is not allowed in the report tests")
+        return call
+
+    monkeypatch.setattr(socket.socket, "connect", _guard(connect))
+    monkeypatch.setattr(socket.socket, "connect_ex", _guard(connect_ex))
+    monkeypatch.setattr(socket, "create_connection", _guard(create))
