@@ -100,3 +100,24 @@ def test_envelope_extremes_score_one_over_n(rng):
     # plotting positions (j - 0.5)/n: an observed extreme scores 2 * 0.5/n = 1/n, so the
     # minimum training presence is positive
     assert s.min() == pytest.approx(1.0 / 50)
+
+
+def test_suitability_of_finite_is_predict_proba_exactly():
+    """The transfer's fast path for checked rows gives predict_proba's presence column bit for
+    bit, for every estimator (self-consistency: the fast path skips only the input checks), on
+    C- and F-ordered input (the transfer passes a transposed view)."""
+    import pandas as pd
+
+    from timeslice.niche.registry import make_model, names
+
+    rng = np.random.default_rng(7)
+    cols = ["a", "b", "c"]
+    X = rng.normal(size=(400, 3))
+    y = (np.abs(X).sum(axis=1) < 2.0).astype(int)
+    target = rng.normal(size=(3, 257))  # (k, n) as the transfer stacks it
+    for name in names():
+        model = make_model(name).fit(pd.DataFrame(X, columns=cols), y)
+        expected = model.predict_proba(pd.DataFrame(target.T, columns=cols))[:, 1]
+        assert np.array_equal(model.suitability_of_finite(target.T), expected), name
+        assert np.array_equal(model.suitability_of_finite(np.ascontiguousarray(target.T)),
+                              expected), name

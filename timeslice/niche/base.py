@@ -99,6 +99,32 @@ class NicheBase(ClassifierMixin, BaseEstimator):
         """
         return self.predict_proba(X)[:, 1]
 
+    def suitability_of_finite(self, X: np.ndarray) -> np.ndarray:
+        """Suitability of rows already checked: float64, all finite, in the fitted columns.
+
+        The transfer's fast path (it has stacked only finite cells, in the order the estimator
+        was fitted on), so the per-block feature-name and finiteness checks of
+        :meth:`predict_proba` are not repeated. The default is :meth:`predict_proba` itself on
+        a frame with the fitted feature names; estimators with a closed form override it with
+        that form, returning the same values.
+
+        Parameters
+        ----------
+        X : numpy.ndarray of shape (n, k), float64
+            Finite predictors, columns in the fitted order.
+
+        Returns
+        -------
+        ndarray of shape (n,)
+            Suitability in [0, 1], as ``predict_proba(X)[:, 1]``.
+        """
+        names = getattr(self, "feature_names_in_", None)
+        if names is not None:
+            import pandas as pd
+
+            X = pd.DataFrame(X, columns=list(names), copy=False)
+        return np.asarray(self.predict_proba(X))[:, -1]
+
     def predict(self, X) -> np.ndarray:
         """Class with the larger probability (presence when suitability >= 0.5).
 

@@ -8,6 +8,7 @@ numpy-only; gridded prediction is :func:`timeslice.transfer.project.project`.
 from __future__ import annotations
 
 import numpy as np
+from sklearn.utils.validation import check_is_fitted
 
 from timeslice.niche.base import NicheBase
 from timeslice.niche.registry import make_model, names
@@ -109,13 +110,32 @@ class EllipsoidNiche(NicheBase):
         ndarray of shape (n,)
             Squared distances.
         """
-        X = self.validate_predict(X)
+        return self._distance2(self.validate_predict(X))
+
+    def _distance2(self, X: np.ndarray) -> np.ndarray:
         # precision = L L^T (pinv is symmetric positive semi-definite; eigh handles rank loss):
         # D^2 = |(x - mu) L|^2, one matrix product instead of a three-operand einsum
         w, v = np.linalg.eigh(self.precision_)
         root = v * np.sqrt(np.clip(w, 0.0, None))
         z = (X - self.centroid_) @ root
         return np.einsum("ij,ij->i", z, z)
+
+    def suitability_of_finite(self, X: np.ndarray) -> np.ndarray:
+        """Suitability of checked rows (the transfer's fast path), as ``predict_proba``.
+
+        Parameters
+        ----------
+        X : numpy.ndarray of shape (n, k), float64
+            Finite predictors, columns in the fitted order.
+
+        Returns
+        -------
+        ndarray of shape (n,)
+            ``predict_proba(X)[:, 1]``, without repeating the input checks.
+        """
+        check_is_fitted(self)
+        return np.clip(chi2_sf(self._distance2(np.asarray(X, dtype=np.float64)),
+                               self.n_features_in_), 0.0, 1.0)
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - suitability, suitability].

@@ -153,6 +153,10 @@ class Predictor:
         """
         if x.shape[0] == 0:
             return np.empty(0, dtype=np.float32)
+        fast = getattr(self.model, "suitability_of_finite", None)
+        if fast is not None and self.positive == 1:
+            # the estimator's own path for checked rows: x is finite, float64, in fitted order
+            return np.asarray(fast(x)).astype(np.float32)
         if self.as_frame:
             x = pd.DataFrame(x, columns=list(self.columns_fitted), copy=False)
         prob = np.asarray(self.model.predict_proba(x))
