@@ -25,7 +25,7 @@ from timeslice import layers
 from timeslice.errors import TimesliceWarning
 from timeslice.progress import Progress, no_progress
 
-__all__ = ["FigureJob", "ReportOptions", "cell_km", "write_outputs"]
+__all__ = ["FigureJob", "ReportOptions", "cell_km", "run_information", "write_outputs"]
 
 
 
@@ -509,6 +509,7 @@ def _write_html(opts: ReportOptions, *, series, summary, fit, analysis, out: Pat
                 results, extra, paths, refuge, headline, figures, warnings_seen, weak) -> Path:
     from timeslice.report.html import ReportContext, key_numbers, write_report
     from timeslice.report.narrative import findings, methods_paragraph
+    from timeslice.report.tables import change_table, scope_years
 
     models = sorted({str(m) for m in series["model"].values} - {"observed"})
     scenarios = sorted({str(m) for m in series["scenario"].values} - {"baseline"})
@@ -532,12 +533,72 @@ def _write_html(opts: ReportOptions, *, series, summary, fit, analysis, out: Pat
             window=getattr(analysis, "window", None) if analysis is not None else None,
             cell_km=cell_km(series),
         ),
-        run_info={"config": opts.config_path, "seed": opts.seed, "version": opts.version,
-                  "warnings": "; ".join(warnings_seen) or "none"},
-        highlights=findings(results) if results is not None else [],
+        run_info=run_information(opts, fit=fit, series=series, inputs=tables.get("inputs"),
+                                 analysis=analysis, warnings_seen=warnings_seen),
+        highlights=findings(results, years=scope_years(summary)) if results is not None else [],
+        change=change_table(results, summary) if results is not None else None,
         alerts=[weak] if weak else [],
     )
     return write_report(ctx, out / "report.html")
+
+
+def run_information(opts: ReportOptions, *, fit, series: xr.Dataset, inputs=None,
+                    analysis=None, warnings_seen=()) -> dict[str, Any]:
+    """The report's run information, in the order of the stages: the run, harmonise, fit,
+    transfer, summarise, report, and the warnings in the order they were raised.
+
+    Parameters
+    ----------
+    opts : ReportOptions
+        Version, configuration file, seed, figure settings.
+    fit : NicheFit
+        Its parameters (algorithm, threshold, records).
+    series : xarray.Dataset
+        The summarised series (slices, models, scenarios).
+    inputs : pandas.DataFrame, optional
+        The harmonise table (one row per climate input).
+    analysis : SeriesResult, optional
+        Its refugium window.
+    warnings_seen : sequence of str
+        The run's warnings, in the order raised (repeats shown once).
+
+    Returns
+    -------
+    dict of str to object
+        Item -> value; the seed stays an integer (the report prints it plainly).
+    """
+    p = dict(getattr(fit, "params", {}) or {})
+    labels = [str(s) for s in series["slice"].values] if "slice" in series.coords else []
+    models = sorted({str(m) for m in series["model"].values} - {"observed"}) \
+        if "model" in series.coords else []
+    scenarios = list(dict.fromkeys(str(s) for s in series["scenario"].values)) \
+        if "scenario" in series.coords else []
+    window = getattr(analysis, "window", None) if analysis is not None else None
+    info: dict[str, Any] = {"timeslice version": opts.version,
+                            "configuration": opts.config_path, "seed": int(opts.seed)}
+    if inputs is not None:
+        info["harmonise: climate inputs"] = f"{len(inputs)} (one row each in the inputs table)"
+    if p:
+        rule, thr = p.get("threshold_rule", ""), p.get("threshold")
+        info["fit: algorithm"] = str(p.get("algorithm", ""))
+        info["fit: threshold"] = (f"{rule}, {float(thr):.4g}" if thr is not None else str(rule))
+        if "n_records_used" in p:
+            info["fit: records used"] = (f"{p['n_records_used']} of "
+                                         f"{p.get('n_records_input', '?')}")
+    info["transfer: slices"] = (f"{len(labels)} ({len(models)} climate models; scenarios: "
+                                f"{', '.join(scenarios) or 'none'})")
+    info["summarise: reference slice"] = opts.reference
+    if isinstance(window, tuple) and len(window) == 2 and all(
+            isinstance(w, (int, float)) for w in window):
+        info["summarise: refugium window"] = f"years {window[0]:g} to {window[1]:g}"
+    elif window:
+        info["summarise: refugium window"] = ", ".join(map(str, window))
+    info["report: figures"] = (f"{opts.figure_format.upper()} at {opts.dpi} dpi, projection "
+                               f"{opts.projection or 'lonlat'}")
+    seen = list(dict.fromkeys(str(w) for w in warnings_seen))
+    info["warnings, in the order raised"] = (
+        " ".join(f"({k + 1}) {w}" for k, w in enumerate(seen)) if seen else "none")
+    return info
 
 
 def _output_list(paths: dict[str, Path], extra: dict[str, pd.DataFrame]) -> dict[str, str]:

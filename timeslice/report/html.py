@@ -37,6 +37,10 @@ DEFAULT_CAUTIONS: tuple[str, ...] = (
     "the applicable regulations; use these results as one line of evidence among several.",
 )
 
+#: Tables with more columns than this get the class "wide": on paper a fixed layout in a
+#: smaller type, so every column fits the page width (the cells wrap) instead of being cut.
+WIDE_COLUMNS = 12
+
 _PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 _JPEG_MAGIC = b"\xff\xd8\xff"
 
@@ -73,6 +77,29 @@ code{font-size:.95em}
 .alert{background:#fdecea;border:1px solid #c62828;border-left:8px solid #c62828;
 border-radius:6px;padding:.5em 1em;margin:.8em 0;color:#5f1010}
 .alert b{color:#8e0000}
+p.note{font-size:.85em;color:#333;max-width:60em}
+details>summary{cursor:pointer;color:#0b4f8a;margin:.3em 0}
+@media print{
+@page{size:A4;margin:12mm}
+body{background:#fff;font-size:9pt;line-height:1.3}
+header{background:none;color:#000;padding:0 0 .3em 0;border-bottom:2px solid #123049}
+main{max-width:none;margin:0;padding:0}
+nav{display:none}
+h2{break-after:avoid;page-break-after:avoid;margin-top:1.2em}
+.scroll{overflow:visible}
+table{width:100%;max-width:100%;font-size:7pt;break-inside:auto}
+table.wide{table-layout:fixed;font-size:5.5pt}
+th,td{white-space:normal;word-break:break-word;overflow-wrap:anywhere;padding:.1em .25em}
+thead{display:table-header-group}
+tr{break-inside:avoid;page-break-inside:avoid}
+img{max-width:100%!important;height:auto}
+figure img{max-height:230mm;width:auto}
+figure,.key,.alert,.cautions{break-inside:avoid;page-break-inside:avoid}
+.pair{display:block}.pair figure{margin:.5em 0}
+details>summary{display:none}
+details::details-content{content-visibility:visible;display:contents}
+a{color:inherit;text-decoration:none}
+}
 """
 
 
@@ -113,6 +140,12 @@ class ReportContext:
     alerts : sequence of str
         Warnings about the trustworthiness of the whole result (e.g. a model that is weak on
         spatial cross-validation), shown as a red card above everything else.
+    change : pandas.DataFrame, optional
+        The compact change table (:func:`timeslice.report.tables.change_table`: one row per
+        scenario and period), shown after the run summary.
+    collapsed : sequence of str
+        Names of `tables` shown folded (an HTML ``<details>``, opened when printed); by
+        default the long key-results table, which `change` condenses.
     """
 
     title: str = "timeslice report"
@@ -128,6 +161,8 @@ class ReportContext:
     headline_figures: list[tuple[str, str | os.PathLike]] = field(default_factory=list)
     outputs: dict[str, str | os.PathLike] = field(default_factory=dict)
     alerts: Sequence[str] = ()
+    change: pd.DataFrame | None = None
+    collapsed: Sequence[str] = ("key_results",)
 
 
 def _e(text: Any) -> str:
@@ -139,6 +174,8 @@ def _fmt(value: Any, column: str = "") -> tuple[str, bool]:
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "", False
     col = str(column).lower()
+    if (col == "seed" or col.endswith("_seed")) and _integral(value):
+        return f"{int(value)}", True
     if (("year" in col or col.startswith("age")) and isinstance(
             value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)):
         return f"{float(value):.6g}", True
@@ -158,10 +195,30 @@ def _fmt(value: Any, column: str = "") -> tuple[str, bool]:
     return str(value), False
 
 
+def _integral(value: Any) -> bool:
+    """Whether `value` is a whole number (an int, or a float without a fraction)."""
+    if isinstance(value, (bool, np.bool_)):
+        return False
+    if isinstance(value, (int, np.integer)):
+        return True
+    return isinstance(value, (float, np.floating)) and math.isfinite(value) \
+        and float(value).is_integer()
+
+
+def _run_value(key: str, value: Any) -> Any:
+    """A run-information value as shown: a seed as a plain integer ("20240917"), never with
+    thousands separators or in exponent form; other numbers as numbers, the rest as text."""
+    if "seed" in str(key).lower() and _integral(value):
+        return f"{int(value)}"
+    return value if isinstance(value, (int, float)) and not isinstance(value, bool) else str(value)
+
+
 def _table(df: pd.DataFrame, *, max_rows: int = 500) -> str:
     if not isinstance(df, pd.DataFrame):
         raise DataError(f"report tables must be pandas.DataFrame, got {type(df).__name__}")
-    head = "".join(f"<th>{_e(c)}</th>" for c in df.columns)
+    from timeslice.report.tables import column_header
+
+    head = "".join(f'<th scope="col">{_e(column_header(c))}</th>' for c in df.columns)
     rows = []
     columns = [str(c) for c in df.columns]
     for rec in df.head(max_rows).itertuples(index=False, name=None):
@@ -173,7 +230,8 @@ def _table(df: pd.DataFrame, *, max_rows: int = 500) -> str:
     more = ""
     if len(df) > max_rows:
         more = f"<p>First {max_rows} of {len(df):,} rows shown; the full table is in the CSV.</p>"
-    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead><tbody>'
+    wide = ' class="wide"' if len(columns) > WIDE_COLUMNS else ""
+    return (f'<div class="scroll"><table{wide}><thead><tr>{head}</tr></thead><tbody>'
             + "".join(rows) + f"</tbody></table></div>{more}")
 
 
@@ -262,6 +320,16 @@ TABLE_TITLES = {
 }
 
 
+#: Title and note of the compact change table.
+CHANGE_TITLE = "Change in suitable area per scenario and period, against the reference slice"
+CHANGE_NOTE = ("One row per scenario and period, oldest first. Net change: median over the "
+               "climate models, with the lowest and highest model; loss and gain: mean over "
+               "the models (so gain minus loss need not equal the median net change). Every "
+               "number comes from the key-results table (tables/key_results.csv) or the "
+               "per-slice summary. Changes where much land is in novel "
+               "climate are extrapolations: read them as hypotheses.")
+
+
 def key_numbers(results: pd.DataFrame | None, *, series=None,
                 refugium: str = "refugium") -> list[tuple[str, ...]]:
     """Headline cards for the top of the report, read from the run's key-results table.
@@ -283,13 +351,16 @@ def key_numbers(results: pd.DataFrame | None, *, series=None,
     -------
     list of (label, value, detail)
         The reference slice's suitable area; refugia (when `series` is given); per scenario and
-        period the median over models of the change in suitable area in % of the reference
+        period, oldest first, the median over models of the change in suitable area in % of the reference
         area, its range over models, and the shares of land, gain and loss in novel climate.
     """
     from timeslice.series.analysis import change_rows
 
+    from timeslice.report.tables import in_time_order, scope_years
+
     if results is None or results.empty:
         return []
+    years = scope_years(series) or scope_years(results)  # the cards in time order
     if "topic" not in results.columns:
         if not {"slice", "scenario", "suitable_area_km2"} <= set(results.columns):
             return []
@@ -312,7 +383,7 @@ def key_numbers(results: pd.DataFrame | None, *, series=None,
                                  area=float(area["value"].iloc[0]) if len(area) else None))
     from timeslice.series.analysis import change_by_scope
 
-    for scope, g in change_by_scope(k):
+    for scope, g in in_time_order(change_by_scope(k), years):
         n = int(g.get("models", 1))
         scen, _, per = scope.partition(" ")
         value = f"{g['change in suitable area, median over models']:+.0f} %"
@@ -413,17 +484,16 @@ def render_report(context: ReportContext) -> str:
         raise DataError(
             f"write_report: `context` must be a ReportContext, got {type(context).__name__}"
         )
-    parts: list[str] = []
     title = _e(context.title)
     now = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     sections: list[tuple[str, str]] = []
-    parts.append("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-                 "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
-                 # A policy forbidding every fetch except embedded data makes the
-                 # "no request leaves the page" promise enforceable by the browser itself.
-                 "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
-                 "img-src data:; style-src 'unsafe-inline'\">"
-                 f"<title>{title}</title><style>{_CSS}</style></head><body>")
+    parts = ["<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
+             # A policy forbidding every fetch except embedded data makes the
+             # "no request leaves the page" promise enforceable by the browser itself.
+             "<meta http-equiv=\"Content-Security-Policy\" content=\"default-src 'none'; "
+             "img-src data:; style-src 'unsafe-inline'\">"
+             f"<title>{title}</title><style>{_CSS}</style></head><body>"]
     sub = f"<p><i>{_e(context.species)}</i></p>" if context.species else ""
     parts.append(f"<header><h1>{title}</h1>{sub}<p>Generated {now}</p></header><main>")
 
@@ -439,67 +509,74 @@ def render_report(context: ReportContext) -> str:
                 + "".join(f"<li>{_e(c)}</li>" for c in context.cautions)
                 + "</ul></div></section>")
     sections.append(("cautions", "Read this first"))
-
     if context.headline_figures:
-        if len(context.headline_figures) > 2:
-            raise DataError("ReportContext.headline_figures: give at most 2 figures, got "
-                            f"{len(context.headline_figures)}; put the others in `figures`")
-        body.append('<section id="headline"><div class="pair">' + "".join(
-            f'<figure><img src="{_image(path)}" alt="{_e(caption)}"><figcaption>{_e(caption)}'
-            "</figcaption></figure>" for caption, path in context.headline_figures)
-            + "</div></section>")
-
+        body.append(_headline_section(context.headline_figures))
     highlights = list(context.highlights) or _highlights(context.summary)
     if highlights:
         body.append('<section id="summary"><h2>Run summary</h2><ul>'
                     + "".join(f"<li>{_e(h)}</li>" for h in highlights) + "</ul></section>")
         sections.append(("summary", "Run summary"))
-
+    if context.change is not None and len(context.change):
+        body.append(f'<section id="change"><h2>{_e(CHANGE_TITLE)}</h2>'
+                    f'<p class="note">{_e(CHANGE_NOTE)}</p>{_table(context.change)}</section>')
+        sections.append(("change", "Change per scenario and period"))
     if context.figures:
-        s = ['<section id="figures"><h2>Maps and plots</h2>']
-        for k, (caption, path) in enumerate(context.figures):
-            s.append(f'<figure id="fig{k + 1}"><img src="{_image(path)}" '
-                     f'alt="{_e(caption)}"><figcaption>Figure {k + 1}. {_e(caption)}'
-                     "</figcaption></figure>")
-        s.append("</section>")
-        body.append("".join(s))
+        body.append(_figures_section(context.figures))
         sections.append(("figures", "Maps and plots"))
-
     if context.summary is not None:
         # After the figures: readers look at maps before they read a long table.
         body.append('<section id="summary-table"><h2>Summary per slice</h2>'
                     f"{_table(context.summary)}</section>")
         sections.append(("summary-table", "Summary per slice"))
-
     for k, (name, df) in enumerate(context.tables.items()):
         shown = TABLE_TITLES.get(str(name), str(name))
-        body.append(f'<section id="table{k + 1}"><h2>{_e(shown)}</h2>{_table(df)}</section>')
+        inner = _table(df)
+        if str(name) in context.collapsed:  # long tables: one click away, open in print
+            inner = (f"<details><summary>Show the {len(df):,} rows</summary>{inner}"
+                     "</details>")
+        body.append(f'<section id="table{k + 1}"><h2>{_e(shown)}</h2>{inner}</section>')
         sections.append((f"table{k + 1}", shown))
-
     if context.methods:
         paras = [p.strip() for p in str(context.methods).split("\n\n") if p.strip()]
         body.append('<section id="methods" class="methods"><h2>Methods</h2>'
                     + "".join(f"<p>{_e(p)}</p>" for p in paras) + "</section>")
         sections.append(("methods", "Methods"))
-
     if context.outputs:
         body.append(_outputs_section(context.outputs))
         sections.append(("outputs", "Files of this run"))
-
     if context.run_info:
         info = pd.DataFrame({"item": [str(k) for k in context.run_info],
-                             "value": [v if isinstance(v, (int, float)) else str(v)
-                                       for v in context.run_info.values()]})
+                             "value": [_run_value(k, v) for k, v in context.run_info.items()]})
         body.append(f'<section id="run"><h2>Run information</h2>{_table(info)}</section>')
         sections.append(("run", "Run information"))
-
-    nav = '<nav aria-label="contents">' + " · ".join(
-        f'<a href="#{a}">{_e(t)}</a>' for a, t in sections) + "</nav>"
-    parts.append(nav)
+    parts.append('<nav aria-label="contents">' + " · ".join(
+        f'<a href="#{a}">{_e(t)}</a>' for a, t in sections) + "</nav>")
     parts.extend(body)
     parts.append("<footer>Made with timeslice. All maps show climatic suitability only; see "
                  "&ldquo;Read this first&rdquo;.</footer></main></body></html>\n")
     return "".join(parts)
+
+
+def _headline_section(figures) -> str:
+    """Up to two figures side by side right after the cautions."""
+    if len(figures) > 2:
+        raise DataError("ReportContext.headline_figures: give at most 2 figures, got "
+                        f"{len(figures)}; put the others in `figures`")
+    return ('<section id="headline"><div class="pair">' + "".join(
+        f'<figure><img src="{_image(path)}" alt="{_e(caption)}"><figcaption>{_e(caption)}'
+        f"{_figure_link(path)}</figcaption></figure>" for caption, path in figures)
+        + "</div></section>")
+
+
+def _figures_section(figures) -> str:
+    """Every other figure, numbered, each with its caption."""
+    s = ['<section id="figures"><h2>Maps and plots</h2>']
+    for k, (caption, path) in enumerate(figures):
+        s.append(f'<figure id="fig{k + 1}"><img src="{_image(path)}" '
+                 f'alt="{_e(caption)}"><figcaption>Figure {k + 1}. {_e(caption)}'
+                 f"{_figure_link(path)}</figcaption></figure>")
+    s.append("</section>")
+    return "".join(s)
 
 
 def write_report(context: ReportContext, path: str | os.PathLike) -> Path:

@@ -176,7 +176,7 @@ def resolution_note(cell_km: float) -> str:
             f"Nakamura 2009; Soberón 2007) {implied}.")
 
 
-def findings(results: pd.DataFrame) -> list[str]:
+def findings(results: pd.DataFrame, years: Mapping[str, float] | None = None) -> list[str]:
     """Short sentences with the headline numbers of a run, for the top of the report.
 
     Every number is read from the key-results table (:func:`timeslice.series.key_results`),
@@ -186,7 +186,17 @@ def findings(results: pd.DataFrame) -> list[str]:
     ----------
     results : pandas.DataFrame
         The key-results table (:func:`timeslice.series.analysis.key_results`).
+    years : mapping of str to float, optional
+        Year of each scenario-period scope (:func:`timeslice.report.tables.scope_years`): the
+        change sentences in time order, oldest first (else in table order).
+
+    Returns
+    -------
+    list of str
+        The reference area, the refugia, then one sentence per scenario and period.
     """
+    from timeslice.report.tables import in_time_order
+
     out: list[str] = []
     if results is None or results.empty:
         return out
@@ -202,7 +212,7 @@ def findings(results: pd.DataFrame) -> list[str]:
                    f"{float(win['value'].iloc[0]):,.0f} km².")
     from timeslice.series.analysis import change_by_scope
 
-    for scope, g in change_by_scope(k):
+    for scope, g in in_time_order(change_by_scope(k), dict(years or {})):
         n = int(g.get("models", 1))
         text = f"{scope}: suitable area {g['change in suitable area, median over models']:+.0f} %"
         if n > 1:
