@@ -88,8 +88,9 @@ nav{display:none}
 h2{break-after:avoid;page-break-after:avoid;margin-top:1.2em}
 .scroll{overflow:visible}
 table{width:100%;max-width:100%;font-size:7pt;break-inside:auto}
+th,td{white-space:normal;overflow-wrap:break-word;padding:.1em .25em}
 table.wide{table-layout:fixed;font-size:5.5pt}
-th,td{white-space:normal;word-break:break-word;overflow-wrap:anywhere;padding:.1em .25em}
+table.wide th,table.wide td{word-break:break-word;overflow-wrap:anywhere}
 thead{display:table-header-group}
 tr{break-inside:avoid;page-break-inside:avoid}
 img{max-width:100%!important;height:auto}
