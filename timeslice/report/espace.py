@@ -62,8 +62,8 @@ def _label(axes, explained, variables, j) -> str:
 
 def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
                        path: str | os.PathLike, *, max_points: int = 1500, seed: int = 0,
-                       dpi: int = 100) -> Path:
-    """Write the small-multiple environmental-space figure of every slice as PNG.
+                       dpi: int = 100, figure_format: str | None = None) -> Path:
+    """Write the small-multiple environmental-space figure of every slice (PNG, SVG or PDF).
 
     Parameters
     ----------
@@ -74,17 +74,28 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
     stack : xarray.Dataset
         The stacked transfer with ``suitable`` per slice.
     path : path-like
-        Target PNG.
+        Target file; its suffix is replaced by `figure_format` when that is given.
     max_points : int
         Land cells drawn per slice at most (a seeded random subset).
     seed : int
         Seed of the subsample of points drawn.
     dpi : int
-        Resolution, dots per inch.
+        Resolution, dots per inch: of the PNG, and of the point clouds, which SVG and PDF
+        embed as images (thousands of points per panel; axes and text stay vectors).
+    figure_format : {"png", "svg", "pdf"}, optional
+        File format (``[output] figure_format``); default: the suffix of `path`.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written (a PDF with its PNG preview beside it, for the report).
     """
     from matplotlib.figure import Figure
 
-    from timeslice.report.figures import save
+    from timeslice.report.figures import figure_file, save
+
+    if figure_format is not None:
+        path = figure_file(path, figure_format)
 
     variables = list(fit.variables)
     mean, sd, axes, explained = principal_axes(fit.background, variables)
@@ -110,6 +121,7 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
         bg_ok = bg_ok[rng.choice(len(bg_ok), max_points, replace=False)]
     B, P = project(bg_ok), project(pr[np.all(np.isfinite(pr), axis=1)])
     labels = [str(s) for s in stack["slice"].values]
+    dots = {"lw": 0, "rasterized": True}  # point clouds as images inside SVG and PDF
     for k, ds in enumerate(slices):
         ax = grid[k // ncols][k % ncols]
         cells = np.flatnonzero(np.asarray(ds["land"].values).astype(bool).ravel())
@@ -122,12 +134,12 @@ def environment_panels(fit, slices: list[xr.Dataset], stack: xr.Dataset,
         X, suit = X[ok], suit[ok]
         novel = ~np.all((X >= lo) & (X <= hi), axis=1)
         S = project(X)
-        ax.scatter(B[:, 0], B[:, 1], s=2, c="0.75", lw=0, label="calibration background")
-        ax.scatter(S[:, 0], S[:, 1], s=2, c="#9ecae1", lw=0, label="slice land climate")
-        ax.scatter(S[suit, 0], S[suit, 1], s=3, c="#31a354", lw=0, label="suitable in the slice")
-        ax.scatter(S[novel, 0], S[novel, 1], s=3, c="#de2d26", lw=0,
+        ax.scatter(B[:, 0], B[:, 1], s=2, c="0.75", **dots, label="calibration background")
+        ax.scatter(S[:, 0], S[:, 1], s=2, c="#9ecae1", **dots, label="slice land climate")
+        ax.scatter(S[suit, 0], S[suit, 1], s=3, c="#31a354", **dots, label="suitable in the slice")
+        ax.scatter(S[novel, 0], S[novel, 1], s=3, c="#de2d26", **dots,
                    label="outside the calibration range (novel)")
-        ax.scatter(P[:, 0], P[:, 1], s=4, c="k", lw=0, label="presences")
+        ax.scatter(P[:, 0], P[:, 1], s=4, c="k", **dots, label="presences")
         ax.set_title(labels[k] if k < len(labels) else str(k), fontsize=8)
         ax.tick_params(labelsize=7)
     for k in range(n, nrows * ncols):
