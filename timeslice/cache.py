@@ -5,6 +5,12 @@ of the stage's inputs (file hashes, the config values the stage reads and the pa
 Files are written atomically (temporary name, then rename), so a run killed at any point leaves
 either a complete entry or none. A write that fails (a full disk) stops the run with one line
 naming the cache; an entry that cannot be read back (damaged on disk) is computed again.
+
+Datasets (``.nc``) are returned opened lazily from the entry, hit or miss: chunked dask arrays
+read when a later stage computes them, so slices are not held in memory between stages. Tables
+(``.csv``, their column dtypes on the first line) and picklable objects (``.pkl``) are entries
+of their own. Without a cache folder (``root=None``) every value is computed and returned in
+memory.
 """
 
 from __future__ import annotations
@@ -17,6 +23,7 @@ import warnings
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
 import xarray as xr
 
 from timeslice import __version__
@@ -98,42 +105,109 @@ class StageCache:
         return self.root / stage / f"{key}.{ext}"
 
     def load(self, stage: str, key: str) -> xr.Dataset | None:
-        """The cached Dataset for (stage, key), or None (always None with `force`)."""
+        """The cached Dataset for (stage, key), opened lazily, or None (always None with `force`).
+
+        The entry stays on disk: its variables are chunked dask arrays read when computed, so a
+        slice is not held in memory between stages. The file stays open while the dataset is
+        used; an entry overwritten meanwhile (``--force``) is replaced by a rename, which leaves
+        the open file readable.
+
+        Parameters
+        ----------
+        stage : str
+            Stage name (the entry's folder).
+        key : str
+            Content key of the entry.
+        """
         path = self._path(stage, key, "nc")
         if path is None or self.force or not path.exists():
             return None
-        # raw values: a fill value such as -1 of an int8 flag layer must stay -1, not NaN
         try:
-            with xr.open_dataset(path, mask_and_scale=False) as ds:
-                loaded = _restore_bools(ds.load())
+            opened = _open_entry(path)
         except (OSError, RuntimeError, ValueError) as err:
             _discard(path, err)
             return None
         self.hits.append(f"{stage}/{key}")
-        return loaded
+        return opened
 
-    def store(self, stage: str, key: str, ds: xr.Dataset) -> None:
-        """Write a computed Dataset under (stage, key), atomically.
+    def store(self, stage: str, key: str, ds: xr.Dataset) -> xr.Dataset:
+        """Write a computed (or lazy) Dataset under (stage, key), atomically, and return the
+        entry opened lazily (the computed dataset itself when caching is disabled).
 
-        Raises :class:`InputFileError` naming the cache file when the write fails (full disk,
+        Dask-backed variables are computed as they are written, chunk by chunk. Raises
+        :class:`InputFileError` naming the cache file when the write fails (full disk,
         read-only folder); no partial entry is left.
+
+        Parameters
+        ----------
+        stage : str
+            Stage name (the entry's folder).
+        key : str
+            Content key of the entry.
+        ds : xarray.Dataset
+            The stage result.
         """
         self.misses.append(f"{stage}/{key}")
         path = self._path(stage, key, "nc")
-        if path is not None:
-            with _writing(path):
-                with atomic_path(path) as tmp:
-                    _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+        if path is None:
+            return ds.compute() if hasattr(ds, "compute") else ds
+        with _writing(path):
+            with atomic_path(path) as tmp:
+                _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+        return _open_entry(path)
 
     def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
-        """Return the cached Dataset for (stage, key), or compute, store and return it."""
+        """Return the cached Dataset for (stage, key), or compute, store and return it.
+
+        With a cache folder both a hit and a miss return the entry opened lazily
+        (:meth:`load`); without one, the computed dataset.
+
+        Parameters
+        ----------
+        stage : str
+            Stage name (the entry's folder).
+        key : str
+            Content key of the entry.
+        compute : callable
+            ``compute()`` returns the Dataset (lazy or in memory) when the entry is missing.
+        """
         cached = self.load(stage, key)
         if cached is not None:
             return cached
-        ds = compute()
-        ds = ds.compute() if hasattr(ds, "compute") else ds
-        self.store(stage, key, ds)
-        return ds
+        return self.store(stage, key, compute())
+
+    def table(self, stage: str, key: str, compute) -> pd.DataFrame:
+        """Return the cached table for (stage, key), or compute, store and return it.
+
+        A table is stored as CSV under ``<stage>/<key>.csv`` with its column dtypes on the
+        first line, so it reads back with the dtypes it was written with (text columns stay
+        text: an empty string is not turned into a missing value).
+
+        Parameters
+        ----------
+        stage : str
+            Stage name (the entry's folder).
+        key : str
+            Content key of the entry.
+        compute : callable
+            ``compute()`` returns the :class:`pandas.DataFrame` when the entry is missing.
+        """
+        path = self._path(stage, key, "csv")
+        if path is not None and path.exists() and not self.force:
+            try:
+                table = _read_table(path)
+            except (OSError, ValueError, KeyError, TypeError) as err:
+                _discard(path, err)
+            else:
+                self.hits.append(f"{stage}/{key}.csv")
+                return table
+        self.misses.append(f"{stage}/{key}.csv")
+        table = compute()
+        if path is not None:
+            with _writing(path):
+                with atomic_path(path) as tmp:
+                    _write_table(table, tmp)
+        return table
 
     def obj(self, stage: str, key: str, compute):
         """Return the cached picklable object for (stage, key), or compute and store it."""
@@ -188,6 +262,10 @@ def _discard(path: Path, err: BaseException) -> None:
 def _encode_bools(ds: xr.Dataset) -> xr.Dataset:
     out = ds.copy()
     for name, var in ds.variables.items():
+        if "_FillValue" not in var.encoding and "_FillValue" not in var.attrs:
+            # no fill value of its own: write none, so the entry (read raw) has the attributes
+            # that were stored, not a NaN fill xarray adds to floats (coordinates included)
+            out[name].encoding["_FillValue"] = None
         if var.dtype == bool:
             out[name] = var.astype("int8")
             out[name].attrs = dict(var.attrs, _timeslice_bool=1)
@@ -199,6 +277,44 @@ def _encode_bools(ds: xr.Dataset) -> xr.Dataset:
         }
     out.attrs = {k: (int(v) if isinstance(v, bool) else v) for k, v in ds.attrs.items() if v is not None}
     return out
+
+
+def _open_entry(path: Path) -> xr.Dataset:
+    """A cache entry opened lazily, chunked as stored, its booleans restored (lazily)."""
+    # raw values: a fill value such as -1 of an int8 flag layer must stay -1, not NaN
+    return _restore_bools(xr.open_dataset(path, engine="netcdf4", mask_and_scale=False,
+                                          chunks={}))
+
+
+_TABLE_DTYPES = "# dtypes: "
+
+
+def _write_table(table: pd.DataFrame, path: Path) -> None:
+    """A table as CSV, its column dtypes as JSON on the first line."""
+    dtypes = {str(c): str(t) for c, t in table.dtypes.items()}
+    if len(dtypes) != table.shape[1]:
+        raise ValueError("a cached table needs unique column names")
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(_TABLE_DTYPES + json.dumps(dtypes) + "\n")
+        table.to_csv(fh, index=False)
+
+
+def _read_table(path: Path) -> pd.DataFrame:
+    """A table written by :func:`_write_table`, with its dtypes (floats exactly: pandas writes
+    the shortest repr and its default parser reads it back bit for bit)."""
+    with open(path, encoding="utf-8", newline="") as fh:
+        first = fh.readline()
+        if not first.startswith(_TABLE_DTYPES):
+            raise ValueError("no dtypes line")
+        dtypes = json.loads(first[len(_TABLE_DTYPES):])
+        if not dtypes:
+            return pd.DataFrame()
+        text = [c for c, t in dtypes.items() if t in ("object", "str", "string")]
+        table = pd.read_csv(fh, dtype={c: str for c in text}, keep_default_na=False,
+                            na_values={c: ["", "NaN", "nan"] for c in dtypes if c not in text})
+    if list(table.columns) != list(dtypes):
+        raise ValueError("columns differ from the dtypes line")
+    return table.astype({c: t for c, t in dtypes.items() if c not in text})
 
 
 def _restore_bools(ds: xr.Dataset) -> xr.Dataset:

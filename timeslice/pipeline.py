@@ -8,7 +8,6 @@ takes explicit arguments. Each stage's output is cached under a content key
 from __future__ import annotations
 
 import contextlib
-import io
 import json
 import os
 import sys
@@ -132,18 +131,15 @@ def harmonise_stage(
     )
     total = len(specs) + 1
     progress("harmonise", 0, total)
-    baseline = cache.dataset(
-        "harmonise",
-        base_key,
-        lambda: with_inputs(prepare_slice(
-            fine_baseline=fine if monthly else None, bio=None if monthly else fine,
-            sea_level=c.present_sea_level, label=c.baseline_label, year=c.baseline_year,
-            period=c.baseline_period, model="observed", scenario="baseline", **common,
-        ), [("fine_baseline", fine), ("elevation", elev_ds)]),
-    )
+    baseline, table = _cached_slice(cache, base_key, lambda: with_inputs(prepare_slice(
+        fine_baseline=fine if monthly else None, bio=None if monthly else fine,
+        sea_level=c.present_sea_level, label=c.baseline_label, year=c.baseline_year,
+        period=c.baseline_period, model="observed", scenario="baseline", **common,
+    ), [("fine_baseline", fine), ("elevation", elev_ds)]))
     progress("harmonise", 1, total)
     rows = [input_row(c.baseline_label, "observed", "baseline",
                        shown(files["climate.baseline"]), baseline)]
+    tables = [table]
     model_baselines: dict[str, xr.Dataset] = {}
     slices: list[xr.Dataset] = []
     for i, spec in enumerate(specs):
@@ -156,18 +152,34 @@ def harmonise_stage(
             file_set_digest(mb_files), file_set_digest(ice_files) if ice_files else None,
         )
 
-        def compute(spec: SliceSpec = spec, mb_files=mb_files, ice_files=ice_files) -> xr.Dataset:
+        def compute(spec: SliceSpec = spec, mb_files=mb_files, ice_files=ice_files):
             return prepare_model_slice(cfg, spec, fine=fine, common=common, mb_files=mb_files,
                                         ice_files=ice_files, model_baselines=model_baselines)
 
-        ds = cache.dataset("harmonise", key, compute)
+        ds, table = _cached_slice(cache, key, compute)
         slices.append(ds)
+        tables.append(table)
         src = shown(slice_files)
         rows.append(input_row(spec.label, spec.model, spec.scenario, src, ds))
         progress("harmonise", i + 2, total)
-    inputs = pd.concat([pd.read_json(io.StringIO(ds.attrs.get("input_rows", "[]")), orient="records")
-                        for ds in [baseline, *slices]], ignore_index=True)
+    inputs = pd.concat(tables, ignore_index=True)
     return baseline, slices, {"inputs": inputs, "slice_land": pd.DataFrame(rows)}
+
+
+def _cached_slice(cache: StageCache, key: str, prepare) -> tuple[xr.Dataset, pd.DataFrame]:
+    """A prepared slice and its input table, each its own cache entry under `key`.
+
+    `prepare()` returns both; it runs at most once, when either entry is missing.
+    """
+    made: dict[str, Any] = {}
+
+    def both() -> dict[str, Any]:
+        if not made:
+            made["ds"], made["table"] = prepare()
+        return made
+
+    ds = cache.dataset("harmonise", key, lambda: both()["ds"])
+    return ds, cache.table("harmonise", key, lambda: both()["table"])
 
 
 # ----------------------------------------------------------------------------- fit
@@ -206,8 +218,10 @@ def fit_stage(cfg: Config, baseline: xr.Dataset, cache: StageCache, *, base_key:
         records = read_occurrences(cfg.species.occurrences, columns=cfg.species.columns)
         sp = cfg.species
         with about(cfg.species.occurrences):
+            # the baseline comes from the stage cache lazily; the fit samples it across the
+            # calibration area and at every record, so it reads the one slice into memory
             return fit_niche(
-                records, baseline, variables=n.variables, algorithm=n.algorithm,
+                records, baseline.compute(), variables=n.variables, algorithm=n.algorithm,
                 algorithm_params=n.params or None, buffer_km=n.buffer_km,
                 n_background=n.n_background, thin=n.thin, uncertainty_max_m=n.uncertainty_max_m,
                 years=n.years, taxon=sp.taxon, taxon_field=sp.taxon_field,
@@ -241,6 +255,8 @@ def fitted_model(path: Path, baseline: xr.Dataset):
     from timeslice.niche.persist import load_model
 
     fit = load_model(path)
+    # the baseline comes from the stage cache lazily; the checks below take medians of it
+    baseline = baseline.compute()
     missing = [v for v in fit.variables if v not in baseline]
     if missing:
         raise DataError(f"niche.model = {str(path)!r}: the model uses {missing}, which the "
@@ -314,8 +330,7 @@ def transfer_stage(
             for i in idx
         ]
         for i, res in zip(idx, dask.compute(*lazy, optimize_graph=False)):
-            cache.store("transfer", keys[i], res)
-            results[i] = res
+            results[i] = cache.store("transfer", keys[i], res)
         progress("transfer", len(slices) - len(todo) + start + len(idx), len(slices))
     meta = ("slice_label", "year", "period", "model", "scenario")
     parts = [
@@ -377,6 +392,10 @@ def summarise_stage(cfg: Config, stack: xr.Dataset, *, progress: Progress = no_p
     from timeslice.readers import read_dated_records
     from timeslice.series.analysis import analyse_series
 
+    # the transfers come from the stage cache lazily; the series analysis reads every layer many
+    # times and reduces over the slices in numpy's order, so it takes the stack in memory (read
+    # once here), which keeps its numbers those of an in-memory stack
+    stack = stack.compute()
     ser = cfg.series
     total = 1 + sum([cfg.species.diversity is not None, bool(ser.hypotheses),
                      cfg.biotic.partner is not None or cfg.biotic.competitor is not None,

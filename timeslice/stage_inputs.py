@@ -108,10 +108,12 @@ def fine_baseline(cfg: Config, files: dict[str, list]):
 
 
 def prepare_model_slice(cfg: Config, spec: SliceSpec, *, fine: xr.Dataset, common: dict,
-                         mb_files, ice_files, model_baselines: dict[str, xr.Dataset]) -> xr.Dataset:
+                         mb_files, ice_files, model_baselines: dict[str, xr.Dataset]
+                         ) -> tuple[xr.Dataset, pd.DataFrame]:
     """One configured slice prepared on the grid: a bioclimatic slice as given, a model slice
     (or one interpolated between two) downscaled against its model's own baseline, which is
-    opened once per model into `model_baselines`.
+    opened once per model into `model_baselines`; with the table of the inputs it was built
+    from (:func:`with_inputs`).
 
     Parameters
     ----------
@@ -191,23 +193,29 @@ def shown(files) -> str:
     return names[0] if len(names) == 1 else f"{names[0]} (+{len(names) - 1} files)"
 
 
-def with_inputs(ds: xr.Dataset, used: list[tuple[str, xr.Dataset]]) -> xr.Dataset:
-    """Record the table of the inputs a prepared slice was built from (kept in the cache).
+def with_inputs(ds: xr.Dataset, used: list[tuple[str, xr.Dataset]]
+                ) -> tuple[xr.Dataset, pd.DataFrame]:
+    """A prepared slice and the table of the inputs it was built from (one row per input:
+    grid, units, calendar, what was done), which the stage cache keeps as a table entry.
 
     Parameters
     ----------
     ds : xarray.Dataset
-        A prepared slice (its attributes are extended).
+        A prepared slice (returned unchanged).
     used : list of (str, xarray.Dataset)
         The role and data of each input it was built from.
+
+    Returns
+    -------
+    tuple of (xarray.Dataset, pandas.DataFrame)
+        The slice and its input table.
     """
     from timeslice.harmonise.report import input_table
 
     label = str(ds.attrs["slice_label"])
     table = input_table([{"slice": label, "role": role, "data": data} for role, data in used],
                         prepared={label: ds})
-    ds.attrs["input_rows"] = table.to_json(orient="records")
-    return ds
+    return ds, table
 
 
 def input_row(label, model, scenario, path, ds: xr.Dataset) -> dict[str, Any]:
