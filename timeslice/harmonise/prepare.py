@@ -10,6 +10,7 @@ from typing import Literal
 import numpy as np
 import xarray as xr
 
+from timeslice.layers import spec as layer_spec
 from timeslice.errors import DataError
 from timeslice.harmonise.bioclim import BIO_ATTRS, BIO_NAMES
 from timeslice.harmonise.landmask import STANDARD_LAPSE_RATE
@@ -272,9 +273,10 @@ class _Job:
             out = [Layer(b, np.float32, dict(zip(("units", "long_name", "description"),
                                                  BIO_ATTRS[b]))) for b in BIO_NAMES]
         masks = mask_attrs(sea_level, ice_threshold)
-        elev_attrs = {**self.elev.attrs, "units": "m",
-                      "standard_name": "height_above_mean_sea_level",
-                      "long_name": "elevation relative to present sea level"}
+        # terrain height: the layer table's name (CF `surface_altitude`), as series.nc has it
+        table = layer_spec("elevation")
+        elev_attrs = {**self.elev.attrs, "units": table.units,
+                      "standard_name": table.standard_name, "long_name": table.long_name}
         out += [Layer("land", bool, masks["land"]), Layer("elevation", np.float32, elev_attrs),
                 Layer("ice", bool, masks["ice"]),
                 Layer("exposed_shelf", bool, masks["exposed_shelf"]),
