@@ -68,7 +68,7 @@ th{background:#e8edf2}td.num{text-align:right;font-variant-numeric:tabular-nums}
 .scroll{overflow-x:auto}
 figure{margin:1em 0 2em 0;background:#fff;border:1px solid #dde;padding:.6em}
 figure img{max-width:100%;height:auto;display:block;margin:0 auto}
-.pair{display:flex;flex-wrap:wrap;gap:1em}.pair figure{flex:1 1 420px;margin:.5em 0}
+.pair{display:flex;flex-wrap:wrap;gap:1em;align-items:flex-start}.pair figure{flex:1 1 420px;margin:.5em 0}
 figcaption{font-size:.9em;color:#333;margin-top:.4em}
 nav{font-size:.85em;margin:.8em 0;color:#555}nav a{color:#0b4f8a}
 .methods p{text-align:justify}
