@@ -208,12 +208,14 @@ def check_units(source, key: str, inp: ClimateInput | None) -> None:
     """
     if inp is None:
         return
+    from timeslice.errors import DataError
     from timeslice.units import (
+        fraction_factor,
+        length_factor,
         parse_units,
         precipitation_conversion,
         temperature_conversion,
     )
-    from timeslice.errors import DataError
 
     for var, text in inp.units.items():
         try:
@@ -222,15 +224,24 @@ def check_units(source, key: str, inp: ClimateInput | None) -> None:
             elif var == "pr":
                 precipitation_conversion(text, variable=var, source=key)
             elif var == "elevation":
-                from cf_xarray.units import units as ureg
-
-                if parse_units(text, variable=var, source=key).dimensionality != ureg.m.dimensionality:
-                    raise DataError(f"{key}: units {text!r} of 'elevation' are not a length")
-            elif var == "ice" and str(text).strip() not in {"1", "", "fraction", "0-1", "%", "percent"}:
-                raise DataError(f"{key}: units {text!r} of 'ice' must be '1' (fraction) or '%'")
+                # parsed first: an empty or unknown unit gets the parser's own line
+                parse_units(text, variable=var, source=key)
+                _as_declared(length_factor, key, var, text, "are not a length")
+            elif var == "ice":
+                _as_declared(fraction_factor, key, var, text, "must be '1' (fraction) or '%'")
         except DataError as err:
             msg = str(err).split(": ", 1)[-1]
             raise ConfigError(f"{source}: {key}.units.{var} = {text!r}: {msg}") from err
+
+
+def _as_declared(factor, key: str, var: str, text: str, refusal: str) -> None:
+    """Run a factor of :mod:`timeslice.units` on a declared unit; refuse it in the config's words."""
+    from timeslice.errors import DataError
+
+    try:
+        factor(text, variable=var, source=key)
+    except DataError as err:
+        raise DataError(f"{key}: units {text!r} of {var!r} {refusal}") from err
 
 
 class ClimateConfig(Section):
