@@ -21,7 +21,7 @@ import pandas as pd
 import xarray as xr
 
 from timeslice.errors import DataError
-from timeslice.grid import cell_area, grid_edges
+from timeslice.grid import cell_area
 from timeslice.report._layers import slice_labels
 from timeslice.report._output import output_path
 
@@ -30,20 +30,6 @@ __all__ = ["mask_geometry", "patch_features", "suitable_features", "write_geojso
 
 #: Decimal places of the coordinates written (1e-7° is about 1 cm).
 _DIGITS = 7
-
-
-def _transform(da: xr.DataArray | xr.Dataset):
-    from affine import Affine
-
-    from timeslice.report.geotiff import check_regular as _check_regular
-
-    _check_regular(da["lon"].values, "lon")
-    _check_regular(da["lat"].values, "lat")
-    lat_b, lon_b = grid_edges(da)
-    dx = float(np.median(np.diff(lon_b, axis=1)))
-    dy = float(np.median(np.diff(lat_b, axis=1)))
-    # north-up rows (the array is flipped from ascending latitude before polygonizing)
-    return Affine(dx, 0.0, float(lon_b[0, 0]), 0.0, -dy, float(lat_b[-1, 1]))
 
 
 def _antimeridian(geom):
@@ -70,10 +56,13 @@ def _geometries(values: np.ndarray, da: xr.DataArray) -> dict[int, object]:
     from shapely import unary_union
     from shapely.geometry import shape
 
+    from timeslice.report.geotiff import north_up_transform
+
+    # north-up rows: the array is flipped from ascending latitude before polygonizing
     data = np.ascontiguousarray(values[::-1]).astype(np.int32)
     parts: dict[int, list] = {}
     for g, v in features.shapes(data, mask=data > 0, connectivity=4,
-                                transform=_transform(da)):
+                                transform=north_up_transform(da)):
         parts.setdefault(int(v), []).append(shape(g))
     return {v: _antimeridian(unary_union(ps)) for v, ps in parts.items()}
 
