@@ -156,6 +156,31 @@ class StageCache:
                 _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
         return _open_entry(path)
 
+    def write(self, stage: str, key: str, writer) -> xr.Dataset | None:
+        """Make the entry (stage, key) by letting `writer` write its NetCDF file, atomically,
+        and return it opened lazily; None when caching is disabled (compute in memory instead).
+
+        For stages that stream their result from file to file (the transfer by row blocks):
+        the result never exists whole in memory.
+
+        Parameters
+        ----------
+        stage : str
+            Stage name (the entry's folder).
+        key : str
+            Content key of the entry.
+        writer : callable
+            ``writer(path)`` writes the complete NetCDF file at `path` (a temporary name).
+        """
+        path = self._path(stage, key, "nc")
+        if path is None:
+            return None
+        self.misses.append(f"{stage}/{key}")
+        with _writing(path):
+            with atomic_path(path) as tmp:
+                writer(tmp)
+        return _open_entry(path)
+
     def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
         """Return the cached Dataset for (stage, key), or compute, store and return it.
 

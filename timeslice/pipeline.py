@@ -299,6 +299,7 @@ def transfer_stage(
     progress : callable
         ``progress("transfer", done, total)`` after each batch.
     """
+    from timeslice.transfer.files import project_file
     from timeslice.transfer.project import project_slice
 
     import dask
@@ -320,6 +321,21 @@ def transfer_stage(
     progress("transfer", len(slices) - len(todo), len(slices))
     # slices are independent: compute them in batches of one graph each, so the scheduler runs
     # them in parallel while each finished batch is cached before the next starts
+    # prepared slices are files of the stage cache: on local threads each goes from its file
+    # to its transfer entry by row blocks (timeslice.transfer.files.project_file, the same
+    # values), never whole in memory and without a dask graph
+    streamed = tc.chunks == "auto" and cfg.run.scheduler in ("threads", "") and not cfg.run.workers
+    for i in list(todo) if streamed else []:
+        source = slices[i].encoding.get("source")
+        if not source or not Path(source).is_file() or any(
+                slices[i][v].dims != ("lat", "lon") for v in variables):
+            continue
+        results[i] = cache.write("transfer", keys[i], lambda tmp, source=source: project_file(
+            fit.model, source, tmp, variables=variables, reference=reference,
+            threshold=fit.threshold, clamp=tc.clamp, budget_mb=tc.chunk_budget_mb))
+        if results[i] is not None:
+            todo.remove(i)
+            progress("transfer", len(slices) - len(todo), len(slices))
     batch = tc.batch
     for start in range(0, len(todo), batch):
         idx = todo[start:start + batch]
@@ -494,7 +510,8 @@ def espace_stage(cfg: Config, fit, slices: list[xr.Dataset], stack: xr.Dataset,
             "black, the slice's land climate blue, suitable green, outside the "
             "calibration range red",
             environment_panels(fit, slices, stack, out / "plots" / "environment.png",
-                               seed=cfg.run.seed))]
+                               seed=cfg.run.seed, dpi=cfg.output.dpi,
+                               figure_format=cfg.output.figure_format))]
     return extra
 
 
