@@ -36,7 +36,7 @@ BENCHES = {
     "report": ("report.py", "report stage CPU s and share of the demo; plain-matplotlib floor"),
 }
 OPTIONAL = {"truth": ("truth.py", "accuracy against invented worlds with a known answer")}
-RATIO = re.compile(r"(ratio|×|x the floor|/ floor|share|%)", re.IGNORECASE)
+RATIO = re.compile(r"(ratio|×|x the floor|/ floor|share|%|goal)", re.IGNORECASE)
 
 
 def _load() -> str:

@@ -180,7 +180,11 @@ def main(argv: list[str] | None = None) -> dict[str, dict[str, float]]:
     parser.add_argument("--repeats", type=int, default=9, help="runs of each case (default 9)")
     parser.add_argument("--docs", type=Path, default=None,
                         help="write the table between the start-up markers of this file")
+    parser.add_argument("--quick", action="store_true",
+                        help="3 runs of each case: a smoke run (bench/run_all.py --quick)")
     args = parser.parse_args(argv)
+    if args.quick:
+        args.repeats = min(args.repeats, 3)
     load0 = os.getloadavg()[0]
     results = measure(args.repeats)
     load1 = os.getloadavg()[0]
