@@ -151,9 +151,7 @@ class StageCache:
         path = self._path(stage, key, "nc")
         if path is None:
             return ds.compute() if hasattr(ds, "compute") else ds
-        with _writing(path):
-            with atomic_path(path) as tmp:
-                _encode_bools(ds).to_netcdf(tmp, engine="netcdf4")
+        _write_atomically(path, lambda tmp: _encode_bools(ds).to_netcdf(tmp, engine="netcdf4"))
         return _open_entry(path)
 
     def write(self, stage: str, key: str, writer) -> xr.Dataset | None:
@@ -176,9 +174,7 @@ class StageCache:
         if path is None:
             return None
         self.misses.append(f"{stage}/{key}")
-        with _writing(path):
-            with atomic_path(path) as tmp:
-                writer(tmp)
+        _write_atomically(path, writer)
         return _open_entry(path)
 
     def dataset(self, stage: str, key: str, compute) -> xr.Dataset:
@@ -217,43 +213,52 @@ class StageCache:
         compute : callable
             ``compute()`` returns the :class:`pandas.DataFrame` when the entry is missing.
         """
-        path = self._path(stage, key, "csv")
-        if path is not None and path.exists() and not self.force:
-            try:
-                table = _read_table(path)
-            except (OSError, ValueError, KeyError, TypeError) as err:
-                _discard(path, err)
-            else:
-                self.hits.append(f"{stage}/{key}.csv")
-                return table
-        self.misses.append(f"{stage}/{key}.csv")
-        table = compute()
-        if path is not None:
-            with _writing(path):
-                with atomic_path(path) as tmp:
-                    _write_table(table, tmp)
-        return table
+        return self._read_or_compute(
+            self._path(stage, key, "csv"), f"{stage}/{key}.csv", _read_table,
+            (OSError, ValueError, KeyError, TypeError), compute, _write_table)
 
     def obj(self, stage: str, key: str, compute):
         """Return the cached picklable object for (stage, key), or compute and store it."""
-        path = self._path(stage, key, "pkl")
+        return self._read_or_compute(
+            self._path(stage, key, "pkl"), f"{stage}/{key}", _read_pickle,
+            (OSError, EOFError, pickle.UnpicklingError, AttributeError, ImportError), compute,
+            _write_pickle)
+
+    def _read_or_compute(self, path: Path | None, label: str, read, errors: tuple, compute,
+                         write):
+        """The entry at `path` read back (a damaged one, raising one of `errors`, is
+        discarded), or `compute()` written there atomically by ``write(value, tmp)``."""
         if path is not None and path.exists() and not self.force:
             try:
-                with open(path, "rb") as fh:
-                    value = pickle.load(fh)
-            except (OSError, EOFError, pickle.UnpicklingError, AttributeError, ImportError) as err:
+                value = read(path)
+            except errors as err:
                 _discard(path, err)
             else:
-                self.hits.append(f"{stage}/{key}")
+                self.hits.append(label)
                 return value
-        self.misses.append(f"{stage}/{key}")
+        self.misses.append(label)
         value = compute()
         if path is not None:
-            with _writing(path):
-                with atomic_path(path) as tmp:
-                    with open(tmp, "wb") as fh:
-                        pickle.dump(value, fh, protocol=pickle.HIGHEST_PROTOCOL)
+            _write_atomically(path, lambda tmp: write(value, tmp))
         return value
+
+
+def _write_atomically(path: Path, writer) -> None:
+    """``writer(tmp)`` writes the entry at a temporary name, renamed to `path` when complete;
+    a failed write becomes one line naming the cache file."""
+    with _writing(path):
+        with atomic_path(path) as tmp:
+            writer(tmp)
+
+
+def _read_pickle(path: Path):
+    with open(path, "rb") as fh:
+        return pickle.load(fh)
+
+
+def _write_pickle(value, path: Path) -> None:
+    with open(path, "wb") as fh:
+        pickle.dump(value, fh, protocol=pickle.HIGHEST_PROTOCOL)
 
 
 class _writing:
