@@ -278,6 +278,19 @@ def fitted_model(path: Path, baseline: xr.Dataset):
 # ----------------------------------------------------------------------------- transfer
 
 
+def _stream_source(cfg: Config, cache: StageCache, ds: xr.Dataset,
+                   variables: list[str]) -> str | None:
+    """The cached file a prepared slice can be transferred from by row blocks, or None (no
+    cache folder, a dask scheduler or explicit chunks asked for, predictors not 2-D)."""
+    local = cfg.run.scheduler in ("threads", "") and not cfg.run.workers
+    source = ds.encoding.get("source")
+    if (cache.root is None or not local or cfg.transfer.chunks != "auto" or not source
+            or not Path(source).is_file()
+            or any(ds[v].dims != ("lat", "lon") for v in variables)):
+        return None
+    return source
+
+
 def transfer_stage(
     cfg: Config, fit, slices: list[xr.Dataset], cache: StageCache, *, fit_key: str = "",
     progress: Progress = no_progress,
@@ -319,23 +332,19 @@ def transfer_stage(
     results: list[xr.Dataset | None] = [cache.load("transfer", k) for k in keys]
     todo = [i for i, r in enumerate(results) if r is None]
     progress("transfer", len(slices) - len(todo), len(slices))
-    # slices are independent: compute them in batches of one graph each, so the scheduler runs
-    # them in parallel while each finished batch is cached before the next starts
     # prepared slices are files of the stage cache: on local threads each goes from its file
     # to its transfer entry by row blocks (timeslice.transfer.files.project_file, the same
     # values), never whole in memory and without a dask graph
-    streamed = tc.chunks == "auto" and cfg.run.scheduler in ("threads", "") and not cfg.run.workers
-    for i in list(todo) if streamed else []:
-        source = slices[i].encoding.get("source")
-        if not source or not Path(source).is_file() or any(
-                slices[i][v].dims != ("lat", "lon") for v in variables):
-            continue
-        results[i] = cache.write("transfer", keys[i], lambda tmp, source=source: project_file(
-            fit.model, source, tmp, variables=variables, reference=reference,
+    sources = {i: _stream_source(cfg, cache, slices[i], variables) for i in todo}
+    for i in [i for i in todo if sources[i]]:
+        results[i] = cache.write("transfer", keys[i], lambda tmp, src=sources[i]: project_file(
+            fit.model, src, tmp, variables=variables, reference=reference,
             threshold=fit.threshold, clamp=tc.clamp, budget_mb=tc.chunk_budget_mb))
-        if results[i] is not None:
-            todo.remove(i)
-            progress("transfer", len(slices) - len(todo), len(slices))
+        todo.remove(i)
+        progress("transfer", len(slices) - len(todo), len(slices))
+    # the others (in memory, or for a cluster scheduler) are independent: compute them in
+    # batches of one graph each, so the scheduler runs them in parallel while each finished
+    # batch is cached before the next starts
     batch = tc.batch
     for start in range(0, len(todo), batch):
         idx = todo[start:start + batch]
