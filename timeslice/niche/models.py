@@ -134,8 +134,11 @@ class EllipsoidNiche(NicheBase):
             ``predict_proba(X)[:, 1]``, without repeating the input checks.
         """
         check_is_fitted(self)
-        return np.clip(chi2_sf(self._distance2(np.asarray(X, dtype=np.float64)),
-                               self.n_features_in_), 0.0, 1.0)
+        return np.clip(self._suitability(np.asarray(X, dtype=np.float64)), 0.0, 1.0)
+
+    def _suitability(self, X: np.ndarray) -> np.ndarray:
+        # the chi-squared tail of the squared distance: one formula for both entry points
+        return chi2_sf(self._distance2(X), self.n_features_in_)
 
     def predict_proba(self, X) -> np.ndarray:
         """Columns follow ``classes_``: [1 - suitability, suitability].
@@ -150,8 +153,7 @@ class EllipsoidNiche(NicheBase):
         ndarray of shape (n, 2)
             Columns follow ``classes_``: [1 - S, S].
         """
-        d2 = self.mahalanobis2(X)
-        return self.two_columns(chi2_sf(d2, self.n_features_in_))
+        return self.two_columns(self._suitability(self.validate_predict(X)))
 
 
 def chi2_sf(x: np.ndarray, k: int) -> np.ndarray:

@@ -138,6 +138,9 @@ class Predictor:
         self.order = [list(variables).index(c) for c in self.columns_fitted]
         self.lo, self.hi = lo, hi
         self.extra_layers: tuple[OutputLayer, ...] = (CLAMP_EFFECT,) if clamp_effect else ()
+        # the estimator's own path for checked rows (x is finite, float64, in fitted order)
+        fast = getattr(model, "suitability_of_finite", None)
+        self.fast = fast if self.positive == 1 else None
 
     def predict(self, x: np.ndarray) -> np.ndarray:
         """Suitability (float32) of finite samples `x` of shape (n, k), columns as fitted.
@@ -153,10 +156,8 @@ class Predictor:
         """
         if x.shape[0] == 0:
             return np.empty(0, dtype=np.float32)
-        fast = getattr(self.model, "suitability_of_finite", None)
-        if fast is not None and self.positive == 1:
-            # the estimator's own path for checked rows: x is finite, float64, in fitted order
-            return np.asarray(fast(x)).astype(np.float32)
+        if self.fast is not None:
+            return np.asarray(self.fast(x)).astype(np.float32)
         if self.as_frame:
             x = pd.DataFrame(x, columns=list(self.columns_fitted), copy=False)
         prob = np.asarray(self.model.predict_proba(x))
