@@ -20,6 +20,20 @@ from timeslice.demo_config import render_demo_config
 # ------------------------------------------------------------------------------------ config
 
 
+def one_model_demo(folder: Path, *, resolution: float = 0.5) -> Path:
+    """The invented demo generated in `folder` at `resolution` degrees, its config reduced to
+    one invented climate model (fast); returns the path of that config."""
+    from timeslice.demo import generate
+
+    generate(folder, resolution=resolution)
+    text = "\n".join(line for line in render_demo_config(".").splitlines()
+                     if not line.startswith(("birch =", "cedar =")))
+    path = folder / "demo.toml"
+    path.write_text(text)
+    return path
+
+
+
 def demo_mapping(*, models: tuple[str, ...] = ("alder",), slices: tuple[str, ...] | None = None,
                  maps: bool = False, report: bool = True) -> dict[str, Any]:
     """The demo config (paths relative to its data folder) reduced to `models` and the slice

@@ -14,11 +14,10 @@ import warnings
 
 import numpy as np
 import pytest
+from fault_inputs import one_model_demo
 
 from timeslice.cache import StageCache
 from timeslice.config import load_config
-from timeslice.demo import generate
-from timeslice.demo_config import render_demo_config
 from timeslice.pipeline import fit_stage, harmonise_stage, transfer_stage
 from timeslice.transfer import files
 
@@ -26,12 +25,7 @@ from timeslice.transfer import files
 @pytest.fixture(scope="module")
 def both(tmp_path_factory):
     root = tmp_path_factory.mktemp("streamed_transfer")
-    data = root / "demo_data"
-    generate(data, resolution=0.5)
-    text = "\n".join(line for line in render_demo_config(".").splitlines()
-                     if not line.startswith(("birch =", "cedar =")))  # one invented model: fast
-    (data / "demo.toml").write_text(text)
-    cfg = load_config(data / "demo.toml")
+    cfg = load_config(one_model_demo(root / "demo_data"))
     cache = StageCache(root / ".cache")
     baseline, slices, _ = harmonise_stage(cfg, cache)
     with warnings.catch_warnings():  # a coarse world: fewer background cells than asked for

@@ -13,11 +13,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from fault_inputs import one_model_demo
 
 from timeslice.cache import StageCache
 from timeslice.config import load_config
-from timeslice.demo import generate
-from timeslice.demo_config import render_demo_config
 from timeslice.layers import spec
 from timeslice.pipeline import harmonise_stage
 
@@ -74,12 +73,7 @@ def test_without_a_cache_folder_the_table_is_computed_each_time():
 @pytest.fixture(scope="module")
 def harmonised(tmp_path_factory):
     root = tmp_path_factory.mktemp("table_cache")
-    data = root / "demo_data"
-    generate(data, resolution=0.5)
-    text = "\n".join(line for line in render_demo_config(".").splitlines()
-                     if not line.startswith(("birch =", "cedar =")))  # one invented model: fast
-    (data / "demo.toml").write_text(text)
-    cfg = load_config(data / "demo.toml")
+    cfg = load_config(one_model_demo(root / "demo_data"))
     cached = harmonise_stage(cfg, StageCache(root / ".cache"))
     rerun = StageCache(root / ".cache")
     again = harmonise_stage(cfg, rerun)
