@@ -211,11 +211,8 @@ def scope_years(table) -> dict[str, float]:
     if not isinstance(table, pd.DataFrame) or not {"scenario", "year"} <= set(table.columns):
         return {}
     years = pd.to_numeric(table["year"], errors="coerce")
-    periods = (table["period"].astype(str) if "period" in table.columns
-               else years.map(lambda y: f"{y:g}"))
     out: dict[str, float] = {}
-    for scen, per, y in zip(table["scenario"].astype(str), periods, years):
-        scope = f"{scen} {per}"
+    for scope, y in zip(_scope_labels(table), years):
         if pd.notna(y):
             out[scope] = min(out.get(scope, float(y)), float(y))
     return out
@@ -306,15 +303,19 @@ def _summary_means(summary: pd.DataFrame | None) -> dict[str, dict[str, float]]:
     need = {"scenario", "year", "gain_km2", "loss_km2"}
     if not isinstance(summary, pd.DataFrame) or not need <= set(summary.columns):
         return {}
-    years = pd.to_numeric(summary["year"], errors="coerce")
-    periods = (summary["period"].astype(str) if "period" in summary.columns
-               else years.map(lambda y: f"{y:g}"))
-    scopes = summary["scenario"].astype(str) + " " + periods
     out = {}
-    for scope, g in summary.groupby(scopes.to_numpy(), sort=False):
+    for scope, g in summary.groupby(_scope_labels(summary).to_numpy(), sort=False):
         out[str(scope)] = {"suitable area lost": float(g["loss_km2"].mean()),
                            "suitable area gained": float(g["gain_km2"].mean())}
     return out
+
+
+def _scope_labels(table: pd.DataFrame) -> pd.Series:
+    """The "scenario period" scope of each row of a per-slice table (the year names the
+    period where the table has no ``period``, as in the key results)."""
+    periods = (table["period"].astype(str) if "period" in table.columns
+               else pd.to_numeric(table["year"], errors="coerce").map(lambda y: f"{y:g}"))
+    return table["scenario"].astype(str) + " " + periods
 
 
 def _range(low: float, high: float, fmt: str) -> str:
